@@ -1,0 +1,60 @@
+"""The ``sheetview`` command line: thin click commands over the library.
+
+Each command lives in its own module here and is registered below. Errors the user can
+cause (:class:`~sheetview.errors.SheetviewError`) are printed as one line on stderr and
+the command exits with status 2, without a traceback.
+"""
+from __future__ import annotations
+
+import sys
+
+import click
+
+from .. import __version__
+from ..errors import SheetviewError
+
+
+class _Group(click.Group):
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except SheetviewError as e:
+            click.echo(f"sheetview: error: {e}", err=True)
+            sys.exit(e.exit_code)
+        except MemoryError:
+            click.echo("sheetview: error: out of memory; use a coarser voxel size (--voxel) or "
+                       "a lower --max-memory", err=True)
+            sys.exit(2)
+        except KeyboardInterrupt:
+            click.echo("sheetview: interrupted", err=True)
+            sys.exit(130)
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"],
+                                           "max_content_width": 100})
+@click.version_option(__version__, "-V", "--version", prog_name="sheetview")
+def main():
+    """sheetview: look inside simulated cement-hydrate sheet structures and measure them.
+
+    Reads prism tables (CSV, NPZ, Parquet), triangle meshes (STL, PLY, OBJ, OFF, GLB, VTK)
+    and voxel volumes (TIFF, NPY, raw, VTI). Lengths are nanometres throughout.
+    Run `sheetview COMMAND --help` for each command.
+    """
+
+
+def _register():
+    from .convert import convert
+    from .info import info
+    main.add_command(info)
+    main.add_command(convert)
+    for modname, cmdname in (("synth", "synth"), ("measure", "measure")):
+        try:
+            mod = __import__(f"{__name__}.{modname}", fromlist=[cmdname])
+        except ModuleNotFoundError as e:
+            if e.name != f"{__name__}.{modname}":
+                raise
+            continue
+        main.add_command(getattr(mod, cmdname))
+
+
+_register()

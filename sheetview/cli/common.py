@@ -1,0 +1,119 @@
+"""Options shared by commands that read a structure, and small output helpers."""
+from __future__ import annotations
+
+import json
+import math
+
+import click
+
+from ..errors import OptionError
+
+
+def _parse_phases(value):
+    """Parse ``--phases 0=outside,1=solid,2=gel`` into {0: 'outside', ...}."""
+    if value is None:
+        return None
+    out = {}
+    for item in value.split(","):
+        if "=" not in item:
+            raise OptionError(f"--phases: expected VALUE=PHASE pairs such as 0=outside,255=solid, "
+                              f"got {item!r}")
+        k, v = item.split("=", 1)
+        try:
+            out[int(k)] = v.strip().lower()
+        except ValueError:
+            raise OptionError(f"--phases: {k!r} is not a whole number") from None
+    return out
+
+
+def _parse_shape(value):
+    if value is None:
+        return None
+    try:
+        shape = tuple(int(v) for v in value.lower().replace("x", ",").split(","))
+    except ValueError:
+        raise OptionError(f"--shape: expected NX,NY,NZ, got {value!r}") from None
+    if len(shape) != 3 or min(shape) <= 0:
+        raise OptionError(f"--shape: expected three positive whole numbers, got {value!r}")
+    return shape
+
+
+def read_options(f):
+    """Decorator adding the options that steer reading to a command."""
+    opts = [
+        click.option("--thickness", type=float, default=None,
+                     help="Prism thickness in nm where the file gives none (meshes, plain CSV)."),
+        click.option("--spacing", type=float, default=None,
+                     help="Nominal interlayer repeat in nm (overrides the file; default 1.4)."),
+        click.option("--units", default=None,
+                     help='Length units of the file when it does not say: nm, A (angstrom), um.'),
+        click.option("--as", "as_", type=click.Choice(["auto", "sheets", "solid"]), default="auto",
+                     show_default=True,
+                     help="Meshes: read open surfaces as sheet mid-surfaces and closed ones as "
+                          "solid bodies (auto), or force one reading."),
+        click.option("--voxel-size", type=float, default=None,
+                     help="Volumes: voxel edge in nm (required where the file does not say)."),
+        click.option("--phases", default=None,
+                     help="Volumes: map file values to phases, e.g. 0=gel,1=solid,2=interlayer."),
+        click.option("--shape", "raw_shape", default=None,
+                     help="Raw volumes: NX,NY,NZ."),
+        click.option("--dtype", "raw_dtype", default=None,
+                     help="Raw volumes: numpy dtype such as uint8, <u2, float32."),
+    ]
+    for o in reversed(opts):
+        f = o(f)
+    return f
+
+
+def load(path, thickness=None, spacing=None, units=None, as_="auto", voxel_size=None,
+         phases=None, raw_shape=None, raw_dtype=None):
+    """Read a file with the options of :func:`read_options` (only those that apply)."""
+    from ..io import family_of, read
+
+    fam = family_of(path)
+    opts = {}
+    if fam in ("prisms", "meshes"):
+        opts.update(thickness=thickness, spacing=spacing, units=units)
+        if fam == "meshes" and as_ != "auto":
+            opts["as_"] = as_
+        ignored = [n for n, v in (("--voxel-size", voxel_size), ("--phases", phases),
+                                  ("--shape", raw_shape), ("--dtype", raw_dtype)) if v is not None]
+    else:
+        opts.update(voxel_size=voxel_size, phases=_parse_phases(phases), shape=_parse_shape(raw_shape),
+                    dtype=raw_dtype, units=units)
+        ignored = [n for n, v in (("--thickness", thickness), ("--spacing", spacing)) if v is not None]
+    if ignored:
+        raise OptionError(f"{', '.join(ignored)} do(es) not apply to {fam} files", path=path)
+    return read(path, **opts)
+
+
+def json_default(o):
+    import numpy as np
+    if isinstance(o, np.integer):
+        return int(o)
+    if isinstance(o, np.floating):
+        return _clean_float(float(o))
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, np.bool_):
+        return bool(o)
+    raise TypeError(f"not JSON serialisable: {type(o)}")
+
+
+def _clean_float(x):
+    return None if (math.isnan(x) or math.isinf(x)) else x
+
+
+def dumps(doc) -> str:
+    """JSON text for a result document; NaN and inf become null (valid JSON)."""
+    def clean(o):
+        if isinstance(o, float):
+            return _clean_float(o)
+        if isinstance(o, dict):
+            return {str(k): clean(v) for k, v in o.items()}
+        if isinstance(o, (list, tuple)):
+            return [clean(v) for v in o]
+        return o
+    import numpy as np
+    return json.dumps(clean(json.loads(json.dumps(doc, default=json_default, allow_nan=True))),
+                      indent=2, allow_nan=False)
