@@ -1,0 +1,1 @@
+"""Measures: plain functions of a Structure or a PhaseGrid returning small result objects."""
