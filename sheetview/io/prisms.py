@@ -17,6 +17,7 @@ round-trip exactly (float64 written in shortest round-trip form).
 """
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import io
 import json
@@ -26,7 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..domain import domain_from_dict
+from ..domain import Box, domain_from_dict
 from ..errors import InputError, OptionError
 from ..structure import DEFAULT_SPACING_NM, KNOWN_COLUMNS, Structure, with_inferred_domain
 from .output import atomic_path
@@ -43,6 +44,7 @@ UNITS = {
     "um": 1000.0, "µm": 1000.0, "\u03bcm": 1000.0, "micrometre": 1000.0, "micrometer": 1000.0,
 }
 RESERVED_KEYS = {"units", "thickness", "spacing", "domain"}
+_PLACEHOLDER_DOMAIN = Box((0.0, 0.0, 0.0), (1.0, 1.0, 1.0), inferred=True)
 
 
 def unit_factor(units, *, path=None, line=None) -> float:
@@ -143,7 +145,7 @@ def _assemble(arrays: dict, header: dict, where: dict, path, *, thickness=None,
     if "domain" in header and header["domain"] is not None:
         dom = domain_from_dict(header["domain"], scale=f, path=path, line=where.get("domain"))
     else:
-        dom = with_inferred_domain(vert, thick)
+        dom = None  # inferred from the prisms once they are known to be valid
     cols = {}
     for name, a in arrays.items():
         if name in CORNER_COLUMNS or name == "thickness":
@@ -157,9 +159,12 @@ def _assemble(arrays: dict, header: dict, where: dict, path, *, thickness=None,
         else:
             cols[name] = a.astype(np.float64)
     meta = {k: v for k, v in header.items() if k not in RESERVED_KEYS}
-    s = Structure(vert, thick, dom, sp, cols, meta, str(path) if path is not None else None)
+    s = Structure(vert, thick, dom or _PLACEHOLDER_DOMAIN, sp, cols, meta,
+                  str(path) if path is not None else None)
     try:
         s.validate()
+        if dom is None:
+            s = dataclasses.replace(s, domain=with_inferred_domain(s.vertices, s.thickness))
     except InputError as e:
         if row_offset is not None:
             # translate "prism row i" into a file line number for CSV input
