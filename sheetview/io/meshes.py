@@ -350,11 +350,13 @@ def prism_polydata(structure: Structure):
     pts = structure.prism_corners().reshape(-1, 3) if n else np.zeros((0, 3))
     base = (6 * np.arange(n, dtype=np.int64))[:, None]
     tris = np.concatenate([np.full((n, 2, 1), 3, np.int64),
-                           base[:, :, None] + PRISM_TRIANGLES[None]], axis=2).reshape(n, -1)
+                           base[:, :, None] + PRISM_TRIANGLES[None]], axis=2).reshape(n, 8)
     quads = np.concatenate([np.full((n, 3, 1), 4, np.int64),
-                            base[:, :, None] + PRISM_QUADS[None]], axis=2).reshape(n, -1)
+                            base[:, :, None] + PRISM_QUADS[None]], axis=2).reshape(n, 15)
     faces = np.concatenate([tris, quads], axis=1).ravel()  # 23 ints per prism
     poly = pv.PolyData(pts, faces=faces)
+    if n == 0:
+        return poly  # pyvista refuses empty (0, 3) cell arrays
     rep = lambda a: np.repeat(np.asarray(a), CELLS_PER_PRISM, axis=0)  # noqa: E731
     poly.cell_data["prism_id"] = rep(np.arange(n, dtype=np.int64))
     poly.cell_data["thickness"] = rep(structure.thickness)
@@ -406,8 +408,9 @@ BODY_SUFFIXES = {".stl", ".ply", ".obj", ".off", ".glb", ".vtp", ".vtk"}
 
 
 def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
-    """Write a SurfaceBody: STL (binary), PLY (binary), OBJ, OFF, GLB through trimesh, or
-    VTK PolyData (``.vtp`` / legacy ``.vtk``) through pyvista. Lengths in nm."""
+    """Write a SurfaceBody, lengths in nm: STL (binary, float32) and GLB (float32) through
+    trimesh, OBJ and OFF (17 significant digits) through trimesh, PLY (binary, float64),
+    or VTK PolyData (``.vtp`` / legacy ``.vtk``, float64) through pyvista."""
     path = Path(path)
     suffix = path.suffix.lower()
     if not isinstance(body, SurfaceBody):
@@ -423,10 +426,40 @@ def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
             with _quiet_vtk():
                 poly.save(str(tmp), binary=True)
         return path
+    if suffix == ".ply":
+        with atomic_path(path, force) as tmp:
+            _write_ply_double(tmp, np.asarray(body.vertices), np.asarray(body.faces))
+        return path
     mesh = body.to_trimesh()
-    with atomic_path(path, force) as tmp:
+    if suffix == ".obj":
+        from trimesh.exchange.obj import export_obj
+
+        data = export_obj(mesh, include_normals=False, include_color=False,
+                          include_texture=False, digits=17)
+    elif suffix == ".off":
+        from trimesh.exchange.off import export_off
+
+        data = export_off(mesh, digits=17)
+    else:  # STL and GLB hold float32 by definition
         data = mesh.export(file_type=suffix.lstrip("."))
+    with atomic_path(path, force) as tmp:
         mode = "w" if isinstance(data, str) else "wb"
         with open(tmp, mode) as fh:
             fh.write(data)
     return path
+
+
+def _write_ply_double(fname, vertices: np.ndarray, faces: np.ndarray) -> None:
+    """Binary little-endian PLY with float64 vertices (exact round trip) and int32 faces."""
+    header = ("ply\nformat binary_little_endian 1.0\ncomment written by sheetview, lengths in nm\n"
+              f"element vertex {len(vertices)}\nproperty double x\nproperty double y\n"
+              f"property double z\nelement face {len(faces)}\n"
+              "property list uchar int vertex_indices\nend_header\n")
+    fdt = np.dtype([("n", "u1"), ("idx", "<i4", (3,))])
+    frec = np.empty(len(faces), dtype=fdt)
+    frec["n"] = 3
+    frec["idx"] = faces
+    with open(fname, "wb") as fh:
+        fh.write(header.encode("ascii"))
+        fh.write(np.ascontiguousarray(vertices, dtype="<f8").tobytes())
+        fh.write(frec.tobytes())
