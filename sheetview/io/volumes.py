@@ -627,15 +627,13 @@ def write_volume(grid: PhaseGrid, path, *, force: bool = False) -> Path:
         dx, dy, dz = grid.spacing
         mk = json.dumps(_marker(grid))
         big = zyx.nbytes > 2**32 - 2**25
+        common = dict(photometric="minisblack", resolution=(1.0 / dx, 1.0 / dy),
+                      metadata={"axes": "ZYX", "unit": "nm", "spacing": dz, "sheetview": mk})
         with atomic_path(path, force) as tmp:
-            if big:  # ImageJ cannot hold BigTIFF: plain BigTIFF with the marker
-                tifffile.imwrite(str(tmp), zyx, bigtiff=True, resolution=(1.0 / dx, 1.0 / dy),
-                                 metadata={"axes": "ZYX", "unit": "nm", "spacing": dz,
-                                           "sheetview": mk})
+            if big:  # ImageJ cannot hold BigTIFF: plain BigTIFF with the same metadata
+                tifffile.imwrite(str(tmp), zyx, bigtiff=True, **common)
             else:
-                tifffile.imwrite(str(tmp), zyx, imagej=True, resolution=(1.0 / dx, 1.0 / dy),
-                                 metadata={"axes": "ZYX", "unit": "nm", "spacing": dz,
-                                           "sheetview": mk})
+                tifffile.imwrite(str(tmp), zyx, imagej=True, **common)
         return path
     raise OptionError(f"cannot write a phase grid as {suffix or '(no suffix)'!r}; use .vti, "
                       f".npy, .tif or .tiff", path=path)

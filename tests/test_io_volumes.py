@@ -1,0 +1,243 @@
+"""Voxel volumes: round trips, axis order, voxel size from files, phase mapping, bad input.
+
+Reference libraries: tifffile (C. Gohlke, https://github.com/cgohlke/tifffile) and
+pyvista/VTK (Sullivan & Kaszynski, JOSS 4 (2019) 1450, doi:10.21105/joss.01450) write
+the foreign files that sheetview must read; NumPy's ``np.load`` reads what sheetview
+writes.
+"""
+import numpy as np
+import pytest
+import pyvista as pv
+import tifffile
+
+import sheetview as sv
+from sheetview.errors import InputError, MemoryLimitError, OptionError, OutputExistsError
+from sheetview.grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
+from sheetview.io import volumes
+
+
+@pytest.fixture
+def grid():
+    rng = np.random.default_rng(7)
+    lab = rng.integers(0, 4, (5, 6, 7)).astype(np.uint8)
+    return PhaseGrid(lab, (0.37, 0.41, 0.53), (1 / 7, -2.3, 0.1), periodic=True)
+
+
+@pytest.mark.parametrize("suffix", [".vti", ".npy", ".tif", ".tiff"])
+def test_round_trip_exact(tmp_path, grid, suffix):
+    p = tmp_path / f"g{suffix}"
+    sv.write(grid, p)
+    back = sv.read(p)
+    np.testing.assert_array_equal(back.labels, grid.labels)
+    assert back.labels.dtype == np.uint8
+    assert back.spacing == grid.spacing
+    assert back.origin == grid.origin
+    assert back.periodic
+    with pytest.raises(OutputExistsError):
+        sv.write(grid, p)
+    sv.write(grid, p, force=True)
+
+
+def test_round_trip_only_outside_and_solid(tmp_path):
+    """A written grid holding just codes 0 and 1 keeps them (the marker wins over the
+    {0, 1} -> gel/solid default)."""
+    lab = np.zeros((5, 4, 3), np.uint8)  # three z pages: not to be taken for RGB
+    lab[1] = SOLID
+    g = PhaseGrid(lab, 1.0)
+    for suffix in (".vti", ".npy", ".tif"):
+        p = tmp_path / f"g{suffix}"
+        sv.write(g, p)
+        np.testing.assert_array_equal(sv.read(p).labels, lab)
+
+
+def test_written_files_are_plain_for_other_readers(tmp_path, grid):
+    """np.load, tifffile and pyvista read what sheetview writes, in the documented order."""
+    sv.write(grid, tmp_path / "g.npy")
+    np.testing.assert_array_equal(np.load(tmp_path / "g.npy", allow_pickle=False), grid.labels)
+    sv.write(grid, tmp_path / "g.tif")
+    zyx = tifffile.imread(tmp_path / "g.tif")
+    np.testing.assert_array_equal(zyx, grid.labels.transpose(2, 1, 0))
+    with tifffile.TiffFile(tmp_path / "g.tif") as t:
+        assert t.imagej_metadata["unit"] == "nm"
+        assert t.imagej_metadata["spacing"] == pytest.approx(0.53)
+    sv.write(grid, tmp_path / "g.vti")
+    img = pv.read(tmp_path / "g.vti")
+    np.testing.assert_array_equal(img.cell_data["phase"].reshape(grid.shape, order="F"),
+                                  grid.labels)
+    np.testing.assert_allclose(img.spacing, grid.spacing)
+
+
+def test_tiff_axis_order_and_imagej_units(tmp_path):
+    """Pages are z: a stack (z, y, x) written by tifffile becomes labels[x, y, z];
+    ImageJ unit 'micron' converts to nm."""
+    rng = np.random.default_rng(0)
+    xyz = rng.integers(0, 2, (4, 5, 6)).astype(np.uint8)
+    p = tmp_path / "b.tif"
+    tifffile.imwrite(p, xyz.transpose(2, 1, 0), imagej=True, resolution=(1 / 0.002, 1 / 0.004),
+                     metadata={"spacing": 0.005, "unit": "micron", "axes": "ZYX"})
+    g = sv.read(p)
+    assert g.shape == (4, 5, 6)
+    np.testing.assert_array_equal(g.labels == SOLID, xyz == 1)
+    np.testing.assert_array_equal(g.labels == GEL, xyz == 0)
+    np.testing.assert_allclose(g.spacing, (2.0, 4.0, 5.0))
+    # the option wins
+    assert sv.read(p, voxel_size=0.7).spacing == (0.7, 0.7, 0.7)
+
+
+def test_tiff_without_unit_needs_voxel_size(tmp_path):
+    p = tmp_path / "plain.tif"
+    tifffile.imwrite(p, np.zeros((6, 4, 5), np.uint8) + np.arange(5, dtype=np.uint8) % 2,
+                     photometric="minisblack")
+    with pytest.raises(InputError) as ei:
+        sv.read(p)
+    assert str(p) in str(ei.value) and "--voxel-size" in str(ei.value)
+    assert sv.read(p, voxel_size=2.0).spacing == (2.0, 2.0, 2.0)
+
+
+def test_npy_axis_order_and_binary_default(tmp_path):
+    xyz = np.zeros((3, 4, 5), np.uint8)
+    xyz[2, 1, 0] = 1
+    p = tmp_path / "b.npy"
+    np.save(p, xyz)
+    g = sv.read(p, voxel_size=0.5)
+    assert g.labels[2, 1, 0] == SOLID
+    assert (g.labels == GEL).sum() == xyz.size - 1
+    b = tmp_path / "bool.npy"
+    np.save(b, xyz.astype(bool))
+    np.testing.assert_array_equal(sv.read(b, voxel_size=1).labels, g.labels)
+
+
+def test_raw_axis_order_dtype_and_byte_order(tmp_path):
+    rng = np.random.default_rng(1)
+    xyz = rng.integers(0, 2, (4, 5, 6)).astype(np.uint16) * 1000
+    p = tmp_path / "v.raw"
+    xyz.transpose(2, 1, 0).astype(">u2").tofile(p)  # x fastest on disk
+    g = sv.read(p, shape=(4, 5, 6), dtype="uint16", byte_order="big", voxel_size=1.5,
+                phases={0: "pore", 1000: "solid"})
+    np.testing.assert_array_equal(g.labels == SOLID, xyz == 1000)
+    np.testing.assert_array_equal(g.labels == GEL, xyz == 0)
+    assert g.spacing == (1.5, 1.5, 1.5)
+
+
+def test_raw_size_mismatch_and_missing_options(tmp_path):
+    p = tmp_path / "v.raw"
+    np.zeros(120, np.uint8).tofile(p)
+    with pytest.raises(InputError) as ei:
+        sv.read(p, shape=(4, 5, 7), dtype="uint8", voxel_size=1)
+    msg = str(ei.value)
+    assert str(p) in msg and "120 bytes" in msg and "140 bytes" in msg
+    with pytest.raises(InputError) as ei:
+        sv.read(p, voxel_size=1)
+    assert "--shape" in str(ei.value) and "--dtype" in str(ei.value)
+    with pytest.raises(OptionError):
+        sv.read(p, shape=(4, 5, 6), dtype="nonsense", voxel_size=1)
+
+
+def test_vti_point_and_cell_scalars_and_units(tmp_path):
+    """VTK ImageData written by pyvista: cell scalars are voxels with the file's origin;
+    point scalars are voxels centred on the points."""
+    xyz = np.zeros((3, 4, 5), np.uint8)
+    xyz[0, 1, 2] = 1
+    img = pv.ImageData(dimensions=(4, 5, 6), spacing=(2, 3, 4), origin=(10, 20, 30))
+    img.cell_data["seg"] = xyz.ravel(order="F")
+    p = tmp_path / "cells.vti"
+    img.save(p)
+    g = sv.read(p)
+    assert g.labels[0, 1, 2] == SOLID and g.labels.sum() == SOLID + GEL * (xyz.size - 1)
+    assert g.spacing == (2, 3, 4) and g.origin == (10, 20, 30)
+    g = sv.read(p, units="A")
+    assert g.spacing == pytest.approx((0.2, 0.3, 0.4)) and g.origin == pytest.approx((1, 2, 3))
+    pts = pv.ImageData(dimensions=(3, 4, 5), spacing=(2, 2, 2), origin=(0, 0, 0))
+    pts.point_data["seg"] = xyz.ravel(order="F")
+    p = tmp_path / "points.vti"
+    pts.save(p)
+    g = sv.read(p)
+    assert g.shape == (3, 4, 5) and g.labels[0, 1, 2] == SOLID
+    assert g.origin == (-1.0, -1.0, -1.0)
+
+
+def test_phase_mapping(tmp_path):
+    a = np.array([0, 50, 255, 50], np.uint8).reshape(1, 2, 2).repeat(2, axis=0)
+    p = tmp_path / "a.npy"
+    np.save(p, a)
+    with pytest.raises(InputError) as ei:
+        sv.read(p, voxel_size=1)
+    msg = str(ei.value)
+    assert str(p) in msg and "0, 50, 255" in msg and "--phases" in msg
+    g = sv.read(p, voxel_size=1, phases={0: "outside", 50: "interlayer", 255: "solid"})
+    np.testing.assert_array_equal(
+        g.labels, np.where(a == 0, OUTSIDE, np.where(a == 50, INTERLAYER, SOLID)))
+    with pytest.raises(InputError) as ei:
+        sv.read(p, voxel_size=1, phases={0: "gel", 50: "solid"})
+    assert "255" in str(ei.value) and str(p) in str(ei.value)
+    with pytest.raises(OptionError):
+        sv.read(p, voxel_size=1, phases={0: "gel", 50: "rock", 255: "solid"})
+    f = tmp_path / "f.npy"
+    np.save(f, a.astype(np.float32) / 10)
+    g = sv.read(f, voxel_size=1, phases={0: "void", 5: "solid", 25.5: "solid"})
+    assert set(np.unique(g.labels)) == {GEL, SOLID}
+
+
+def test_many_values_listed_up_to_ten(tmp_path):
+    p = tmp_path / "many.npy"
+    np.save(p, np.arange(60, dtype=np.int32).reshape(3, 4, 5))
+    with pytest.raises(InputError) as ei:
+        sv.read(p, voxel_size=1)
+    assert "0, 1, 2, 3, 4, 5, 6, 7, 8, 9 and 50 more" in str(ei.value)
+
+
+def test_bad_volume_files(tmp_path):
+    cases = []
+    p = tmp_path / "obj.npy"
+    np.save(p, np.array([[[{}]]], dtype=object), allow_pickle=True)
+    cases.append((p, "objects"))
+    p = tmp_path / "two.npy"
+    np.save(p, np.zeros((3, 4), np.uint8))
+    cases.append((p, "2D"))
+    p = tmp_path / "garbled.npy"
+    p.write_bytes(b"not an npy file at all")
+    cases.append((p, "cannot be read"))
+    p = tmp_path / "page.tif"
+    tifffile.imwrite(p, np.zeros((4, 5), np.uint8))
+    cases.append((p, "2D image"))
+    p = tmp_path / "rgb.tif"
+    tifffile.imwrite(p, np.zeros((3, 4, 5, 3), np.uint8), photometric="rgb")
+    cases.append((p, "RGB"))
+    p = tmp_path / "4d.tif"
+    tifffile.imwrite(p, np.zeros((2, 3, 4, 5), np.uint8), imagej=True,
+                     metadata={"axes": "TZYX"})
+    cases.append((p, "4D"))
+    p = tmp_path / "garbled.tif"
+    p.write_bytes(b"II*\x00garbage" * 4)
+    cases.append((p, "TIFF"))
+    p = tmp_path / "garbled.vti"
+    p.write_text("<VTKFile garbage")
+    cases.append((p, "ImageData"))
+    for path, word in cases:
+        with pytest.raises(InputError) as ei:
+            sv.read(path, voxel_size=1)
+        assert str(path) in str(ei.value), str(ei.value)
+        assert word in str(ei.value), str(ei.value)
+
+
+def test_memory_limit_checked_before_loading(tmp_path, monkeypatch):
+    p = tmp_path / "a.npy"
+    np.save(p, np.zeros((10, 10, 10), np.uint8))
+    monkeypatch.setattr(volumes, "memory_budget", lambda: 1000)
+    with pytest.raises(MemoryLimitError) as ei:
+        sv.read(p, voxel_size=1)
+    assert str(p) in str(ei.value) and "10 x 10 x 10" in str(ei.value)
+    raw = tmp_path / "a.raw"
+    np.zeros(1000, np.uint8).tofile(raw)
+    with pytest.raises(MemoryLimitError):
+        sv.read(raw, shape=(10, 10, 10), dtype="uint8", voxel_size=1)
+
+
+def test_memory_budget_is_positive():
+    assert 0 < volumes.memory_budget() <= volumes.available_memory()
+
+
+def test_write_refuses_unknown_suffix(tmp_path, grid):
+    with pytest.raises(OptionError):
+        sv.write(grid, tmp_path / "g.raw")
+    assert not (tmp_path / "g.raw").exists()
