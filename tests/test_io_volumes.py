@@ -38,6 +38,18 @@ def test_round_trip_exact(tmp_path, grid, suffix):
     sv.write(grid, p, force=True)
 
 
+def test_bigtiff_form_round_trip(tmp_path, grid, monkeypatch):
+    """Past the ImageJ size limit the TIFF is a BigTIFF with the same metadata."""
+    monkeypatch.setattr(volumes, "IMAGEJ_TIFF_LIMIT", 0)
+    p = tmp_path / "big.tif"
+    sv.write(grid, p)
+    with tifffile.TiffFile(p) as t:
+        assert t.is_bigtiff and not t.is_imagej
+    back = sv.read(p)
+    np.testing.assert_array_equal(back.labels, grid.labels)
+    assert back.spacing == grid.spacing and back.origin == grid.origin
+
+
 def test_round_trip_only_outside_and_solid(tmp_path):
     """A written grid holding just codes 0 and 1 keeps them (the marker wins over the
     {0, 1} -> gel/solid default)."""

@@ -55,6 +55,9 @@ from .output import atomic_path
 from .prisms import unit_factor
 
 MARKER = "sheetview phase codes v1"
+#: Largest image data written as an ImageJ (classic, 32-bit offset) TIFF; beyond it a
+#: BigTIFF with the same metadata in its JSON description.
+IMAGEJ_TIFF_LIMIT = 2**32 - 2**25
 #: Fraction of the available memory a volume may use when read.
 MEMORY_FRACTION = 0.75
 
@@ -626,7 +629,7 @@ def write_volume(grid: PhaseGrid, path, *, force: bool = False) -> Path:
         zyx = np.ascontiguousarray(labels.transpose(2, 1, 0))
         dx, dy, dz = grid.spacing
         mk = json.dumps(_marker(grid))
-        big = zyx.nbytes > 2**32 - 2**25
+        big = zyx.nbytes > IMAGEJ_TIFF_LIMIT
         common = dict(photometric="minisblack", resolution=(1.0 / dx, 1.0 / dy),
                       metadata={"axes": "ZYX", "unit": "nm", "spacing": dz, "sheetview": mk})
         with atomic_path(path, force) as tmp:
