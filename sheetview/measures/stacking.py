@@ -498,7 +498,7 @@ def candidate_pairs(centroids, radius, domain):
         w[w >= L] = 0.0
         tree = cKDTree(w, boxsize=L, balanced_tree=False, compact_nodes=False)
     else:
-        tree = cKDTree(c, balanced_tree=False, compact_nodes=False)
+        tree = cKDTree(np.array(c), balanced_tree=False, compact_nodes=False)
     pairs = tree.query_pairs(radius, output_type="ndarray")
     return np.ascontiguousarray(pairs[:, 0]), np.ascontiguousarray(pairs[:, 1])
 
