@@ -277,3 +277,20 @@ def test_prism_surface_triangles_are_outward():
     tm = trimesh.Trimesh(s.prism_corners()[0], meshes.prism_surface_triangles(), process=False)
     assert tm.is_watertight and tm.is_winding_consistent
     assert tm.volume == pytest.approx(1.0)
+
+
+def test_vertex_merge_matches_numpy_unique():
+    """The hashed vertex merge gives the same vertex classes as np.unique(axis=0)
+    (reference: NumPy), with -0.0 and 0.0 merged and faces kept in order."""
+    rng = np.random.default_rng(4)
+    base = rng.integers(-3, 3, (200, 3)).astype(float)
+    base[base == 0] = -0.0
+    v = np.concatenate([base, np.abs(base), rng.normal(size=(50, 3))])
+    faces = rng.integers(0, len(v), (300, 3))
+    uniq, f = meshes._merge(v, faces)
+    ref, inv = np.unique(v + 0.0, axis=0, return_inverse=True)
+    assert len(uniq) == len(ref)
+    np.testing.assert_array_equal(uniq[f], (v + 0.0)[faces])
+    # same partition of the vertices into classes
+    _, f_all = meshes._merge(v, np.arange(len(v))[:, None])
+    assert len(np.unique(np.stack([f_all[:, 0], inv.ravel()], 1), axis=0)) == len(ref)

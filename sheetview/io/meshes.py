@@ -40,7 +40,7 @@ from pathlib import Path
 import numpy as np
 
 from ..domain import bounding_box
-from ..errors import InputError, OptionError
+from ..errors import InputError, OptionError, SheetviewError
 from ..structure import DEFAULT_SPACING_NM, KNOWN_COLUMNS, Structure, SurfaceBody, with_inferred_domain
 from .output import atomic_path
 from .prisms import unit_factor
@@ -283,28 +283,56 @@ def _short(e) -> str:
 
 
 def _merge(vertices: np.ndarray, faces: np.ndarray):
-    """Merge vertices with identical coordinates; face order is kept."""
-    uniq, inv = np.unique(vertices, axis=0, return_inverse=True)
-    return uniq, inv.reshape(-1)[faces]
+    """Merge vertices with identical coordinates (exact match); face order is kept.
+
+    Rows are sorted by a 64-bit hash of their bit patterns (one ``argsort``), and rows
+    with equal hashes are checked to be equal; on a hash collision it falls back to a
+    ``np.lexsort`` over the coordinates. Either is several times faster than
+    ``np.unique(axis=0)`` on millions of rows. Coordinates must be finite.
+    """
+    v = np.ascontiguousarray(vertices, dtype=np.float64) + 0.0  # -0.0 -> 0.0
+    if len(v) == 0:
+        return v, faces
+    bits = v.view(np.uint64)
+    h = bits[:, 0] * np.uint64(0x9E3779B97F4A7C15)
+    h ^= (h >> np.uint64(31)) + bits[:, 1] * np.uint64(0xC2B2AE3D27D4EB4F)
+    h ^= (h >> np.uint64(29)) + bits[:, 2] * np.uint64(0x165667B19E3779F9)
+    order = np.argsort(h)
+    hs = h[order]
+    sv_ = v[order]
+    new = np.empty(len(v), dtype=bool)
+    new[0] = True
+    np.not_equal(hs[1:], hs[:-1], out=new[1:])
+    same = ~new[1:]
+    if not np.array_equal(sv_[1:][same], sv_[:-1][same]):  # collision: sort exactly
+        order = np.lexsort((v[:, 2], v[:, 1], v[:, 0]))
+        sv_ = v[order]
+        np.any(sv_[1:] != sv_[:-1], axis=1, out=new[1:])
+    ids = np.cumsum(new) - 1
+    inv = np.empty(len(v), dtype=np.int64)
+    inv[order] = ids
+    return sv_[new], inv[faces]
 
 
 def _is_closed(vertices: np.ndarray, faces: np.ndarray) -> bool:
     """True when, after merging coincident vertices, every edge joins exactly two faces
-    that traverse it in opposite directions (watertight and consistently wound)."""
+    that traverse it in opposite directions (watertight and consistently wound).
+
+    Test: every directed edge occurs once, and every undirected edge exactly twice
+    (so its two uses run in opposite directions).
+    """
     _, f = _merge(vertices, faces)
     edges = np.stack([f[:, [0, 1]], f[:, [1, 2]], f[:, [2, 0]]], axis=1).reshape(-1, 2)
-    if np.any(edges[:, 0] == edges[:, 1]):
+    if np.any(edges[:, 0] == edges[:, 1]) or len(edges) % 2:
         return False
     n = int(f.max()) + 1
-    directed = edges[:, 0] * n + edges[:, 1]
-    # each directed edge at most once, and its reverse present
-    d_sorted = np.sort(directed)
-    if np.any(d_sorted[1:] == d_sorted[:-1]):
+    directed = np.sort(edges[:, 0] * n + edges[:, 1])
+    if np.any(directed[1:] == directed[:-1]):
         return False
-    reverse = edges[:, 1] * n + edges[:, 0]
-    idx = np.searchsorted(d_sorted, reverse)
-    idx = np.minimum(idx, len(d_sorted) - 1)
-    return bool(np.all(d_sorted[idx] == reverse))
+    undirected = np.sort(edges.min(axis=1) * n + edges.max(axis=1))
+    pairs_equal = np.all(undirected[0::2] == undirected[1::2])
+    no_triples = np.all(undirected[2::2] != undirected[1:-1:2])
+    return bool(pairs_equal and no_triples)
 
 
 def _check_degenerate(tri: np.ndarray, path):
@@ -371,8 +399,9 @@ def prism_polydata(structure: Structure):
 
 
 def write_prisms_vtk(structure: Structure, path, *, force: bool = False) -> Path:
-    """Write the prisms as closed solids in VTK PolyData: binary XML ``.vtp`` or legacy
-    binary ``.vtk`` (by suffix), through :func:`~sheetview.io.output.atomic_path`.
+    """Write the prisms as closed solids in VTK PolyData: binary XML ``.vtp`` (appended raw
+    data, LZ4-compressed, see :func:`write_vtk_xml`) or legacy binary ``.vtk`` (by suffix),
+    through :func:`~sheetview.io.output.atomic_path`.
 
     See :func:`prism_polydata` for the content. The spacing, domain and metadata go into
     field data ``sheetview`` as a JSON string.
@@ -388,12 +417,40 @@ def write_prisms_vtk(structure: Structure, path, *, force: bool = False) -> Path
               "domain_inferred": bool(structure.domain.inferred), "metadata": structure.metadata}
     poly.field_data["sheetview"] = np.array([json.dumps(header, default=_json_default)])
     with atomic_path(path, force) as tmp:
-        with _quiet_vtk():
-            if suffix == ".vtp":
-                poly.save(str(tmp), binary=True, compression=None)
-            else:
+        if suffix == ".vtp":
+            write_vtk_xml(poly, tmp)
+        else:
+            with _quiet_vtk():
                 poly.save(str(tmp), binary=True)
     return path
+
+
+def write_vtk_xml(dataset, fname) -> None:
+    """Write a pyvista dataset as VTK XML (``.vtp``, ``.vti``...) in appended raw binary
+    with LZ4 compression and 64-bit block headers: several times faster than base64
+    inline data and about half the size; read by every VTK-based viewer (VTK >= 8.2)."""
+    from vtkmodules import vtkIOXML
+
+    import pyvista as pv
+
+    writers = {pv.PolyData: "vtkXMLPolyDataWriter", pv.ImageData: "vtkXMLImageDataWriter",
+               pv.UnstructuredGrid: "vtkXMLUnstructuredGridWriter"}
+    cls = next((getattr(vtkIOXML, w) for t, w in writers.items() if isinstance(dataset, t)), None)
+    if cls is None:
+        raise TypeError(f"no XML writer for {type(dataset).__name__}")
+    w = cls()
+    w.SetInputData(dataset)
+    w.SetFileName(str(fname))
+    w.SetDataModeToAppended()
+    w.EncodeAppendedDataOff()
+    w.SetHeaderTypeToUInt64()
+    w.SetCompressorTypeToLZ4()
+    with _quiet_vtk() as catcher:
+        ok = w.Write()
+    errors = [str(getattr(ev, "alert", ev)) for ev in getattr(catcher, "error_events", [])]
+    if not ok or errors:
+        raise SheetviewError(f"VTK could not write the file: "
+                             f"{_short(errors[0]) if errors else 'unknown error'}", path=fname)
 
 
 def _json_default(o):
@@ -423,8 +480,11 @@ def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
 
         poly = pv.PolyData.from_regular_faces(np.asarray(body.vertices), np.asarray(body.faces))
         with atomic_path(path, force) as tmp:
-            with _quiet_vtk():
-                poly.save(str(tmp), binary=True)
+            if suffix == ".vtp":
+                write_vtk_xml(poly, tmp)
+            else:
+                with _quiet_vtk():
+                    poly.save(str(tmp), binary=True)
         return path
     if suffix == ".ply":
         with atomic_path(path, force) as tmp:

@@ -609,15 +609,14 @@ def write_volume(grid: PhaseGrid, path, *, force: bool = False) -> Path:
     if suffix == ".vti":
         import pyvista as pv
 
-        from .meshes import _quiet_vtk
+        from .meshes import write_vtk_xml
 
         img = pv.ImageData(dimensions=tuple(int(s) + 1 for s in labels.shape),
                            spacing=grid.spacing, origin=grid.origin)
         img.cell_data["phase"] = labels.ravel(order="F")
         img.field_data["sheetview"] = np.array([json.dumps(_marker(grid))])
         with atomic_path(path, force) as tmp:
-            with _quiet_vtk():
-                img.save(str(tmp), binary=True)
+            write_vtk_xml(img, tmp)
         return path
     if suffix == ".npy":
         with atomic_path(path, force) as tmp:
