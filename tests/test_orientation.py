@@ -60,8 +60,8 @@ def test_empty_structure():
     r.to_dict()
 
 
-@pytest.mark.parametrize("periodic", [False, True])
-def test_local_order_matches_brute_force(periodic):
+@pytest.mark.parametrize("periodic,radius", [(False, 2.7), (True, 2.7), (True, 4.0)])
+def test_local_order_matches_brute_force(periodic, radius):
     rng = np.random.default_rng(3)
     n = 400
     L = 10.0
@@ -69,11 +69,11 @@ def test_local_order_matches_brute_force(periodic):
     nrm = random_unit(n, rng)
     w = rng.uniform(0.2, 1.0, n)
     dom = Box((0, 0, 0), (L, L, L), periodic=periodic)
-    S = local_order(P, nrm, w, 2.7, dom)
+    S = local_order(P, nrm, w, radius, dom)
     d = P[:, None] - P[None]
     if periodic:
         d -= L * np.round(d / L)
-    nb = (d ** 2).sum(-1) <= 2.7 ** 2
+    nb = (d ** 2).sum(-1) <= radius ** 2
     ref = np.array([q_summary(q_tensor(nrm[nb[i]], w[nb[i]]))[0] for i in range(n)])
     np.testing.assert_allclose(S, ref, atol=1e-12)
 

@@ -60,64 +60,89 @@ def q_summary(Q):
 
 # ----------------------------------------------------------------------- local order
 @numba.njit(cache=True)
-def _axis_cells(c, n, periodic, out):
-    """Neighbouring cell indices of cell ``c`` along one axis (each listed once)."""
+def _axis_cells(c, n, periodic, length, out, shift):
+    """Neighbouring cells of cell ``c`` along one axis (each listed once) and the image
+    shift to add to their points' coordinate; returns the count, or -1 when a periodic
+    axis has fewer than 3 cells (then the minimum image is taken per pair)."""
     if periodic:
-        if n >= 3:
-            out[0] = (c - 1) % n
-            out[1] = c
-            out[2] = (c + 1) % n
-            return 3
-        for k in range(n):
-            out[k] = k
-        return n
+        if n < 3:
+            for k in range(n):
+                out[k] = k
+                shift[k] = 0.0
+            return -n
+        for o in range(3):
+            g = c + o - 1
+            shift[o] = 0.0
+            if g < 0:
+                g += n
+                shift[o] = -length
+            elif g >= n:
+                g -= n
+                shift[o] = length
+            out[o] = g
+        return 3
     m = 0
     for o in range(-1, 2):
         g = c + o
         if 0 <= g < n:
             out[m] = g
+            shift[m] = 0.0
             m += 1
     return m
 
 
 @numba.njit(cache=True, parallel=True)
-def _local_moments(P, T, W, cell_of, cell_start, ncell, radius, periodic, L):
+def _local_moments(P, T, W, cells, cell_start, ncell, radius, periodic, L):
     """Sum of w n n^T (6 components) and of w over the points within ``radius`` of each
-    point (itself included). Points are sorted by cell; cells are at least ``radius`` wide."""
+    point (itself included). Points are sorted by cell; cells are at least ``radius``
+    wide; ``cells`` lists the non-empty cells. Parallel over cells."""
     n = P.shape[0]
     out = np.zeros((n, 7))
     r2 = radius * radius
     nx, ny, nz = ncell[0], ncell[1], ncell[2]
-    for i in numba.prange(n):
-        c = cell_of[i]
+    for q in numba.prange(cells.shape[0]):
+        c = cells[q]
         cz = c % nz
         cy = (c // nz) % ny
         cx = c // (ny * nz)
-        acc = np.zeros(7)
         gx = np.empty(3, np.int64)
         gy = np.empty(3, np.int64)
         gz = np.empty(3, np.int64)
-        mx = _axis_cells(cx, nx, periodic, gx)
-        my = _axis_cells(cy, ny, periodic, gy)
-        mz = _axis_cells(cz, nz, periodic, gz)
-        for a in range(mx):
-            for b in range(my):
-                for e in range(mz):
-                    g = (gx[a] * ny + gy[b]) * nz + gz[e]
-                    for j in range(cell_start[g], cell_start[g + 1]):
-                        d0 = P[j, 0] - P[i, 0]
-                        d1 = P[j, 1] - P[i, 1]
-                        d2 = P[j, 2] - P[i, 2]
-                        if periodic:
-                            d0 -= L[0] * np.round(d0 / L[0])
-                            d1 -= L[1] * np.round(d1 / L[1])
-                            d2 -= L[2] * np.round(d2 / L[2])
-                        if d0 * d0 + d1 * d1 + d2 * d2 <= r2:
-                            for k in range(6):
-                                acc[k] += T[j, k]
-                            acc[6] += W[j]
-        for k in range(7):
-            out[i, k] = acc[k]
+        sx = np.empty(3)
+        sy = np.empty(3)
+        sz = np.empty(3)
+        mx = _axis_cells(cx, nx, periodic, L[0], gx, sx)
+        my = _axis_cells(cy, ny, periodic, L[1], gy, sy)
+        mz = _axis_cells(cz, nz, periodic, L[2], gz, sz)
+        rnd = mx < 0 or my < 0 or mz < 0
+        mx = abs(mx)
+        my = abs(my)
+        mz = abs(mz)
+        acc = np.zeros(7)
+        for i in range(cell_start[c], cell_start[c + 1]):
+            for k in range(7):
+                acc[k] = 0.0
+            for a in range(mx):
+                for b in range(my):
+                    for e in range(mz):
+                        g = (gx[a] * ny + gy[b]) * nz + gz[e]
+                        px = P[i, 0] - sx[a]
+                        py = P[i, 1] - sy[b]
+                        pz = P[i, 2] - sz[e]
+                        for j in range(cell_start[g], cell_start[g + 1]):
+                            d0 = P[j, 0] - px
+                            d1 = P[j, 1] - py
+                            d2 = P[j, 2] - pz
+                            if rnd:
+                                d0 -= L[0] * np.round(d0 / L[0])
+                                d1 -= L[1] * np.round(d1 / L[1])
+                                d2 -= L[2] * np.round(d2 / L[2])
+                            if d0 * d0 + d1 * d1 + d2 * d2 <= r2:
+                                for k in range(6):
+                                    acc[k] += T[j, k]
+                                acc[6] += W[j]
+            for k in range(7):
+                out[i, k] = acc[k]
     return out
 
 
@@ -177,8 +202,9 @@ def local_order(centroids, normals, weights, radius, domain=None) -> np.ndarray:
     cell_s = cell[order]
     start = np.searchsorted(cell_s, np.arange(int(np.prod(ncell)) + 1)).astype(np.int64)
     T = np.ascontiguousarray(_moments6(nrm, w)[order])
+    cells = np.unique(cell_s)
     mom = _local_moments(np.ascontiguousarray(P[order]), T, np.ascontiguousarray(w[order]),
-                         cell_s, start, ncell, float(radius), periodic, L)
+                         cells, start, ncell, float(radius), periodic, L)
     S = np.empty(n)
     S[order] = _largest_eig(mom[:, :6], mom[:, 6])
     return S

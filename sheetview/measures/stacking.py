@@ -107,16 +107,22 @@ def _shoelace(x, y, n):
 
 @numba.njit(cache=True)
 def _clip_area(ax, ay, bx, by):
+    """Intersection area of two counter-clockwise 2D triangles (allocating wrapper)."""
+    return _clip_area_buf(ax, ay, bx, by, np.empty((4, 12)))
+
+
+@numba.njit(cache=True)
+def _clip_area_buf(ax, ay, bx, by, buf):
     """Area of the intersection of two 2D triangles A and B, both counter-clockwise.
 
     Sutherland-Hodgman: B is clipped successively by the three edge half-planes of A
     (Sutherland & Hodgman, Commun. ACM 17 (1974) 32). The clipped polygon has at most
     six vertices.
     """
-    px = np.empty(12)
-    py = np.empty(12)
-    qx = np.empty(12)
-    qy = np.empty(12)
+    px = buf[0]
+    py = buf[1]
+    qx = buf[2]
+    qy = buf[3]
     for k in range(3):
         px[k] = bx[k]
         py[k] = by[k]
@@ -219,17 +225,33 @@ def _shares_edge(ax, ay, bx, by, tol):
 @numba.njit(cache=True, parallel=True)
 def _classify_pairs(pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing,
                     overlap, edge_tol, code, angle):
-    """Classify candidate pairs: 0 none, 1 in-plane, 2 stacked, 3 tilted contact."""
-    for p in numba.prange(pi.shape[0]):
+    """Classify candidate pairs: 0 none, 1 in-plane, 2 stacked, 3 tilted contact.
+
+    Work is split into chunks, each with its own scratch buffers (no allocation per pair).
+    """
+    npair = pi.shape[0]
+    nchunk = max(1, min(1024, npair // 4096))
+    for ch in numba.prange(nchunk):
+        buf = np.empty((4, 12))
+        tri = np.empty((4, 3))
+        for p in range(ch * npair // nchunk, (ch + 1) * npair // nchunk):
+            _classify_one(p, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol,
+                          spacing, overlap, edge_tol, code, angle, buf, tri)
+
+
+@numba.njit(cache=True)
+def _classify_one(p, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing,
+                  overlap, edge_tol, code, angle, buf, tri):
+    if True:
         i = pi[p]
         j = pj[p]
         code[p] = 0
         dn = Nrm[i, 0] * Nrm[j, 0] + Nrm[i, 1] * Nrm[j, 1] + Nrm[i, 2] * Nrm[j, 2]
         s = 1.0 if dn >= 0.0 else -1.0
         c = abs(dn)
-        angle[p] = math.degrees(math.acos(min(c, 1.0)))
+        angle[p] = np.nan
         if c < cos_tilt:
-            continue
+            return
         m0 = Nrm[i, 0] + s * Nrm[j, 0]
         m1 = Nrm[i, 1] + s * Nrm[j, 1]
         m2 = Nrm[i, 2] + s * Nrm[j, 2]
@@ -251,7 +273,8 @@ def _classify_pairs(pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, 
         elif abs(gap - spacing) <= gap_tol:
             kind = 2 if parallel else 3
         else:
-            continue
+            return
+        angle[p] = math.degrees(math.acos(min(c, 1.0)))
         # in-plane basis (u, v) of the common plane
         a0 = abs(m0)
         a1 = abs(m1)
@@ -269,10 +292,10 @@ def _classify_pairs(pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, 
         v0 = m1 * u2 - m2 * u1
         v1 = m2 * u0 - m0 * u2
         v2 = m0 * u1 - m1 * u0
-        ax = np.empty(3)
-        ay = np.empty(3)
-        bx = np.empty(3)
-        by = np.empty(3)
+        ax = tri[0]
+        ay = tri[1]
+        bx = tri[2]
+        by = tri[3]
         for k in range(3):
             x0 = V[i, k, 0] - C[i, 0]
             x1 = V[i, k, 1] - C[i, 1]
@@ -286,7 +309,7 @@ def _classify_pairs(pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, 
             by[k] = y0 * v0 + y1 * v1 + y2 * v2
         area_a = _ccw(ax, ay)
         area_b = _ccw(bx, by)
-        inter = _clip_area(ax, ay, bx, by)
+        inter = _clip_area_buf(ax, ay, bx, by, buf)
         if inter >= overlap * min(area_a, area_b) and inter > 0.0:
             code[p] = kind
         elif kind == 1 and _shares_edge(ax, ay, bx, by, edge_tol):
