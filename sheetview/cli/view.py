@@ -1,0 +1,189 @@
+"""``sheetview view``, ``render`` and ``slices``: look at a structure in a window, draw it
+off-screen, or draw a contact sheet of sections."""
+from __future__ import annotations
+
+import click
+
+from ..errors import OptionError
+from .common import load, read_options
+
+_COLOURINGS = ["stacking", "stack", "order", "director", "wall", "born", "tag"]
+_CAMERAS = ["iso", "cut", "+x", "-x", "+y", "-y", "+z", "-z"]
+
+
+def _plane_options(f):
+    opts = [
+        click.option("--slice-axis", type=click.Choice(["x", "y", "z"]), default=None,
+                     help="Cut at a plane across this axis (with --slice-at)."),
+        click.option("--slice-at", type=float, default=None,
+                     help="Position of the cut along --slice-axis in nm (default: the "
+                          "domain's centre)."),
+        click.option("--slice-normal", default=None,
+                     help="Cut at a plane of any orientation: its normal as X,Y,Z."),
+        click.option("--slice-origin", default=None,
+                     help="A point of that plane as X,Y,Z in nm (default: the domain's centre)."),
+        click.option("--voxel", type=float, default=None,
+                     help="Voxel edge in nm of the phase grid shown on the cut (default: "
+                          "chosen from the sheet thickness and repeat)."),
+        click.option("--colour-by", "colour_by", type=click.Choice(_COLOURINGS),
+                     default="stacking", show_default=True,
+                     help="What the prism colours show: stacking number, stack, local order, "
+                          "angle to the director or to the wall (deg), birth time, tag."),
+        click.option("--export", "export_dir", type=click.Path(file_okay=False), default=None,
+                     help="Also write FOLDER/NAME_prisms.vtp (prisms with every per-prism "
+                          "array, computed ones included) and FOLDER/NAME_phases.vti (the "
+                          "phase grid) for general-purpose viewers."),
+    ]
+    for o in reversed(opts):
+        f = o(f)
+    return f
+
+
+def _structure(file, read_opts, what):
+    from ..structure import Structure
+
+    obj = load(file, **read_opts)
+    if not isinstance(obj, Structure):
+        kind = type(obj).__name__
+        hint = ("use `sheetview slices` to look at a voxel volume" if kind == "PhaseGrid"
+                else "convert it or read it as sheets (--as sheets)")
+        raise OptionError(f"`sheetview {what}` draws prisms, but this file holds a {kind}; {hint}",
+                          path=file)
+    return obj
+
+
+def _plane(structure, slice_axis, slice_at, slice_normal, slice_origin):
+    from ..view import slice_plane
+    return slice_plane(structure.domain, axis=slice_axis, at=slice_at, normal=slice_normal,
+                       origin=slice_origin)
+
+
+def _export(structure, export_dir, grid, voxel, force, cache):
+    from ..view import export
+    paths = export(structure, export_dir, grid=grid, voxel_size=voxel, force=force, cache=cache)
+    for p in paths:
+        click.echo(f"wrote {p}", err=True)
+
+
+@click.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@read_options
+@_plane_options
+@click.option("--step", type=float, default=None,
+              help="Distance in nm the cut moves per key press (default: the repeat).")
+@click.option("--force", is_flag=True, help="Overwrite files written by --export.")
+def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_by, export_dir,
+         step, force, **read_opts):
+    """Open a window on the prisms of FILE, cut by a movable plane showing the phases.
+
+    \b
+    Keys:  . ,      move the cut one step forward / back
+           n        next colouring
+           1 2 3 4  show or hide solid, interlayer, gel pore, outside on the cut
+           x y z    turn the cut to face an axis
+           h        cut on / off
+           o        domain outline on / off
+           i        save a picture (NAME_view_001.png, ...)
+    Right click on a prism: figures of its stack (layers, extent, orientation).
+    Drag the plane's arrow or outline to move or turn the cut.
+
+    Needs a display; without one use `sheetview render` or `sheetview slices`.
+    """
+    from pathlib import Path
+
+    from ..view import Scene, check_display, open_window
+
+    check_display()
+    s = _structure(file, read_opts, "view")
+    plane = _plane(s, slice_axis, slice_at, slice_normal, slice_origin)
+    click.echo(f"preparing {len(s):,} prisms (stacking, phase grid) ...", err=True)
+    cache = {}
+    scene = Scene(s, colour_by=colour_by, voxel_size=voxel, plane=plane, step=step,
+                  screenshot_stem=Path(file).stem, cache=cache)
+    if export_dir:
+        _export(s, export_dir, scene.grid, voxel, force, cache)
+    open_window(scene, title=f"sheetview: {Path(file).name}")
+    for p in scene.saved:
+        click.echo(f"saved {p}", err=True)
+
+
+@click.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="PNG picture to write.")
+@read_options
+@_plane_options
+@click.option("--camera", type=click.Choice(_CAMERAS), default=None,
+              help="Viewpoint: iso, cut (facing the cut), or from a side such as +x or -z "
+                   "[default: cut with a cut, iso without].")
+@click.option("--size", default="1200x900", show_default=True, help="Picture size WIDTHxHEIGHT.")
+@click.option("--flat", is_flag=True,
+              help="Unshaded colours (each prism exactly its colormap colour).")
+@click.option("--force", is_flag=True, help="Overwrite the picture (and exported files).")
+def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_by,
+           export_dir, camera, size, flat, force, **read_opts):
+    """Draw the prisms of FILE to a PNG without a window (for batch use and documents).
+
+    With --slice-axis/--slice-at or --slice-normal/--slice-origin the prisms are cut at
+    that plane and the phases (solid, interlayer, gel pore, outside) are drawn on it.
+    """
+    from ..io.output import check_writable
+    from ..view import parse_size
+    from ..view import render as draw
+
+    check_writable(output, force)
+    wh = parse_size(size)
+    s = _structure(file, read_opts, "render")
+    plane = _plane(s, slice_axis, slice_at, slice_normal, slice_origin)
+    cache = {}
+    grid = None
+    if export_dir or plane is not None:
+        from ..view import phase_grid
+        grid = phase_grid(s, voxel)
+    draw(s, output, colour_by=colour_by, plane=plane, grid=grid, camera=camera, size=wh,
+         force=force, lighting=not flat, cache=cache)
+    click.echo(f"wrote {output}", err=True)
+    if export_dir:
+        _export(s, export_dir, grid, voxel, force, cache)
+
+
+@click.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="PNG contact sheet to write.")
+@read_options
+@click.option("--axis", type=click.Choice(["x", "y", "z"]), default="z", show_default=True,
+              help="Sections across this axis.")
+@click.option("--count", type=int, default=9, show_default=True,
+              help="Number of sections, evenly spread through the grid.")
+@click.option("--voxel", type=float, default=None,
+              help="Voxel edge in nm for prisms (default: chosen from thickness and repeat).")
+@click.option("--force", is_flag=True, help="Overwrite the picture.")
+def slices(file, output, axis, count, voxel, force, **read_opts):
+    """Draw a contact sheet of sections of FILE: the phases voxel layer by voxel layer.
+
+    Prisms are rasterized first (--voxel); voxel volumes are drawn as they are. Each
+    panel is labelled with its position in nm; a scale bar and a phase legend are drawn.
+    """
+    from pathlib import Path
+
+    from ..grid import PhaseGrid
+    from ..io.output import check_writable
+    from ..structure import Structure
+    from ..view import contact_sheet, phase_grid
+
+    check_writable(output, force)
+    obj = load(file, **read_opts)
+    if isinstance(obj, Structure):
+        grid = phase_grid(obj, voxel)
+    elif isinstance(obj, PhaseGrid):
+        if voxel is not None:
+            raise OptionError("--voxel applies to prisms; a volume's voxel size comes from the "
+                              "file or --voxel-size", path=file)
+        grid = obj
+    else:
+        raise OptionError("`sheetview slices` needs prisms or a voxel volume, but this file "
+                          "holds a solid body; convert it first", path=file)
+    contact_sheet(grid, output, axis=axis, count=count, force=force,
+                  title=f"{Path(file).name}: sections across {axis}")
+    click.echo(f"wrote {output}", err=True)
