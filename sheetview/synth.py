@@ -43,6 +43,9 @@ from .domain import Box, Sphere
 from .errors import OptionError
 from .structure import Structure
 
+#: Packing stops early once this many candidates in a row have failed (the domain is full).
+STALL_ATTEMPTS = 10_000
+
 SCENARIO_NOTE = ("invented demonstration structure: random sequential packing of layered "
                  "sheet stacks (sheetview.synth), not a growth simulation")
 
@@ -628,7 +631,8 @@ def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: 
         has ``born = s + j`` (a tilt-defect layer ``s + n``). Arbitrary time units; no
         kinetics is modelled.
     max_attempts : int, optional
-        Candidate stacks to try at most (default ``100 * n_stacks + 1000``).
+        Candidate stacks to try at most (default ``100 * n_stacks + 1000``). Packing
+        also stops once :data:`STALL_ATTEMPTS` (10,000) candidates in a row have failed.
     seed : int
         Random seed; the same inputs and seed give the same structure.
 
@@ -716,7 +720,8 @@ def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: 
     per_cand = max(1.0, ldist.mean * (1 + tilt_probability)
                    * max(1.0, 3.6 * (sdist.mean / edge) ** 2))
     tpl_all = None
-    while n_placed < n_stacks and attempts < max_attempts:
+    failed_run = 0  # candidates tried since the last accepted one (counted per batch)
+    while n_placed < n_stacks and attempts < max_attempts and failed_run < STALL_ATTEMPTS:
         remaining = n_stacks - n_placed
         budget = max(8, int(40000 / per_cand))
         m = int(min(max(8, math.ceil(1.3 * remaining / max(rate, 0.01))), budget,
@@ -842,6 +847,7 @@ def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: 
             accepted.append(i)
             acc_set.add(i)
         rate = max(len(accepted) / m, 0.0)
+        failed_run = 0 if accepted else failed_run + m
         per_cand = max(1.0, len(owner) / max(mc, 1))
         if accepted:
             acc = np.asarray(accepted)
