@@ -31,7 +31,6 @@ from __future__ import annotations
 
 import math
 import re
-import sys
 import time
 from dataclasses import dataclass, field
 from functools import lru_cache
@@ -564,6 +563,7 @@ def perfect_stack(n_layers: int, lateral_size: float, repeat: float = 1.4, thick
 
 
 def _inside(domain, pts):
+    """Corner-wise membership (an explicit hook: a domain is convex, so corners suffice)."""
     return domain.contains(pts)
 
 
