@@ -294,3 +294,17 @@ def test_vertex_merge_matches_numpy_unique():
     # same partition of the vertices into classes
     _, f_all = meshes._merge(v, np.arange(len(v))[:, None])
     assert len(np.unique(np.stack([f_all[:, 0], inv.ravel()], 1), axis=0)) == len(ref)
+
+
+def test_vtk_lines_and_vertices_are_ignored(tmp_path):
+    """A PolyData holding a line and a vertex cell besides two triangles gives two prisms,
+    with their cell arrays in file order."""
+    pts = np.array([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1], [5, 5, 5]], float)
+    poly = pv.PolyData(pts, faces=[3, 0, 1, 2, 3, 0, 1, 3], lines=[2, 3, 4], verts=[1, 4])
+    poly.cell_data["sheet"] = np.array([9, 8, 7, 6])  # VTK orders verts, lines, polys
+    p = tmp_path / "mixed.vtp"
+    poly.save(p)
+    s = sv.read(p, thickness=0.4)
+    assert len(s) == 2
+    np.testing.assert_allclose(s.vertices, pts[[[0, 1, 2], [0, 1, 3]]])
+    np.testing.assert_array_equal(s.columns["sheet"], [7, 6])

@@ -238,41 +238,35 @@ def _load_vtk(path: Path):
     if isinstance(mesh, pv.MultiBlock):
         mesh = mesh.combine()
     if mesh.n_cells == 0:
-        return np.asarray(mesh.points, dtype=np.float64).reshape(-1, 3), np.zeros((0, 3), np.int64), {}
+        return np.array(mesh.points, dtype=np.float64).reshape(-1, 3), np.zeros((0, 3), np.int64), {}
     with _quiet_vtk():
         if not isinstance(mesh, pv.PolyData):
             mesh = mesh.extract_surface()
+        mesh = _polygons_only(mesh)
+        if mesh.n_cells == 0:
+            return np.array(mesh.points, dtype=np.float64).reshape(-1, 3), np.zeros((0, 3), np.int64), {}
         surf = mesh.triangulate()
-    if surf.n_cells == 0 or not surf.is_all_triangles:
-        # lines or vertices only, or cells that did not triangulate
-        tri_faces = np.zeros((0, 3), np.int64)
-        if surf.n_cells and surf.faces.size:
-            fc = surf.faces.reshape(-1, 4) if surf.faces.size % 4 == 0 else None
-            if fc is not None and np.all(fc[:, 0] == 3):
-                tri_faces = fc[:, 1:].astype(np.int64)
-        if len(tri_faces) == 0:
-            return np.asarray(surf.points, dtype=np.float64).reshape(-1, 3), tri_faces, {}
-        faces = tri_faces
-    else:
-        faces = np.asarray(surf.regular_faces, dtype=np.int64)
-    if faces.shape[0] != surf.n_cells:
-        # lines or vertices among the cells: keep the polygons only
-        return _load_vtk_polys_only(surf, path)
-    arrays = {k: np.asarray(surf.cell_data[k]) for k in surf.cell_data.keys()
+    # copies: views into VTK memory must not outlive the dataset
+    faces = np.array(surf.regular_faces, dtype=np.int64).reshape(-1, 3)
+    arrays = {k: np.array(surf.cell_data[k]) for k in surf.cell_data.keys()
               if np.asarray(surf.cell_data[k]).ndim == 1}
-    return np.asarray(surf.points, dtype=np.float64), faces, arrays
+    return np.array(surf.points, dtype=np.float64), faces, arrays
 
 
-def _load_vtk_polys_only(surf, path):
+def _polygons_only(poly):
+    """Drop vertex and line cells of a PolyData (VTK orders its cells verts, lines, polys,
+    strips), keeping the polygons and strips with their cell arrays."""
     import pyvista as pv
 
-    ctype = np.asarray(surf.celltypes)
-    keep = np.flatnonzero(ctype == pv.CellType.TRIANGLE)
-    sub = surf.extract_cells(keep).extract_surface()
-    faces = np.asarray(sub.regular_faces, dtype=np.int64) if sub.n_cells else np.zeros((0, 3), np.int64)
-    arrays = {k: np.asarray(sub.cell_data[k]) for k in sub.cell_data.keys()
-              if np.asarray(sub.cell_data[k]).ndim == 1}
-    return np.asarray(sub.points, dtype=np.float64), faces, arrays
+    nv, nl = poly.n_verts, poly.n_lines
+    if nv == 0 and nl == 0:
+        return poly
+    out = pv.PolyData(np.array(poly.points), faces=np.array(poly.faces),
+                      strips=np.array(poly.strips))
+    start = nv + nl
+    for k in poly.cell_data.keys():
+        out.cell_data[k] = np.array(poly.cell_data[k])[start:]
+    return out
 
 
 def _short(e) -> str:

@@ -172,14 +172,14 @@ def read_volume(path, *, voxel_size=None, phases=None, shape=None, dtype=None, u
     marker = info.get("marker")
     if vs is not None:
         spacing = vs
-    elif marker is not None and "spacing" in marker and ufac is None:
+    elif marker is not None and "spacing" in marker:  # nm by definition
         spacing = tuple(float(v) for v in marker["spacing"])
     elif info.get("spacing") is not None:
         spacing = info["spacing"]
     else:
         why = info.get("no_spacing_reason", "the file gives no voxel size")
         raise InputError(f"{why}; pass --voxel-size <nm> (voxel_size=...)", path=path)
-    if marker is not None and "origin" in marker and ufac is None:
+    if marker is not None and "origin" in marker:
         origin = tuple(float(v) for v in marker["origin"])
     else:
         origin = info.get("origin", (0.0, 0.0, 0.0))
