@@ -28,9 +28,11 @@ DEGENERATE_REL_AREA = 1e-12
 
 
 def _readonly(a: np.ndarray) -> np.ndarray:
+    """A read-only contiguous array; a writeable input is copied, so the caller's array
+    is never frozen behind its back."""
     a = np.ascontiguousarray(a)
     if a.flags.writeable:
-        a = a.copy() if a.base is not None else a
+        a = a.copy()
         a.flags.writeable = False
     return a
 
