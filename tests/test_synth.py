@@ -126,16 +126,23 @@ def test_stacks_keep_the_clearance(which, request):
 
 
 def test_periodic_box_clearance_uses_minimum_image():
-    """In a periodic box, stacks near opposite faces are neighbours across the boundary."""
-    box = Box((-5, 0, 0), (9, 14, 14), periodic=True)
-    r = pack_stacks(box, 40, lateral_size="fixed:4", layers="fixed:2", seed=2)
-    s = r.structure
-    lo, hi = box.bounds
-    d, n_pairs = min_distance_between_groups(s.vertices, s.thickness, r.stack, boxsize=hi - lo,
-                                             lo=lo)
-    assert n_pairs > 0 and d >= 0.3
-    c = corners(s.vertices, s.thickness).reshape(-1, 3)
-    assert np.all((c >= lo) & (c <= hi))
+    """In a periodic box, stacks near opposite faces are neighbours across the boundary.
+    A large clearance (1.5 nm) makes the check discriminating: the same packing in the
+    non-periodic box violates it across the boundary (asserted as a control)."""
+    lo, hi = np.array([-5.0, 0, 0]), np.array([9.0, 14, 14])
+    kw = dict(lateral_size="fixed:3", layers="fixed:1", clearance=1.5, seed=0, max_attempts=3000)
+    for periodic in (True, False):
+        box = Box(tuple(lo), tuple(hi), periodic=periodic)
+        r = pack_stacks(box, 60, **kw)
+        s = r.structure
+        d, n_pairs = min_distance_between_groups(s.vertices, s.thickness, r.stack,
+                                                 boxsize=hi - lo, lo=lo, margin=2.0)
+        if periodic:
+            assert n_pairs > 0 and d >= 1.5
+            c = corners(s.vertices, s.thickness).reshape(-1, 3)
+            assert np.all((c >= lo) & (c <= hi))
+        else:
+            assert d < 1.5
 
 
 @pytest.mark.parametrize("which", ["box_tilted", "sphere_wall"])
