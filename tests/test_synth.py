@@ -125,6 +125,26 @@ def test_stacks_keep_the_clearance(which, request):
     assert n_pairs > 0 and d >= 0.3
 
 
+@pytest.mark.parametrize("scenario", ["box", "sphere_wall"])
+def test_clearance_option_is_honoured(scenario):
+    """A 1 nm clearance holds by the sampling check, while the same packing with
+    clearance 0 comes closer than 1 nm (control: the check can fail)."""
+    def make(c):
+        if scenario == "box":
+            return pack_stacks(Box((0, 0, 0), (18, 18, 18)), 25, layers="uniform:2,4",
+                               lateral_size="uniform:3,5", tilt_probability=0.5,
+                               tilt_angle=15.0, clearance=c, seed=3)
+        return pack_stacks(Sphere((1, -2, 0.5), 11.0), 30, seeding="wall", orientation="wall",
+                           kappa=20, layers="poisson:2.5", lateral_size="lognormal:4,0.2",
+                           clearance=c, seed=11)
+    for c, ok in ((1.0, True), (0.0, False)):
+        r = make(c)
+        s = r.structure
+        d, n_pairs = min_distance_between_groups(s.vertices, s.thickness, r.stack, margin=1.5)
+        assert n_pairs > 0
+        assert (d >= 1.0) == ok
+
+
 def test_periodic_box_clearance_uses_minimum_image():
     """In a periodic box, stacks near opposite faces are neighbours across the boundary.
     A large clearance (1.5 nm) makes the check discriminating: the same packing in the
