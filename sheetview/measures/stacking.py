@@ -113,11 +113,21 @@ def _clip_area(ax, ay, bx, by):
 
 @numba.njit(cache=True)
 def _clip_area_buf(ax, ay, bx, by, buf):
-    """Area of the intersection of two 2D triangles A and B, both counter-clockwise.
+    """Area of the intersection of two 2D triangles A and B, both counter-clockwise."""
+    n = clip_polygon_buf(ax, ay, bx, by, buf)
+    if n < 3:
+        return 0.0
+    return abs(_shoelace(buf[0], buf[1], n))
+
+
+@numba.njit(cache=True)
+def clip_polygon_buf(ax, ay, bx, by, buf):
+    """Intersection polygon of two 2D triangles A and B, both counter-clockwise.
 
     Sutherland-Hodgman: B is clipped successively by the three edge half-planes of A
-    (Sutherland & Hodgman, Commun. ACM 17 (1974) 32). The clipped polygon has at most
-    six vertices.
+    (Sutherland & Hodgman, Commun. ACM 17 (1974) 32). The clipped polygon (at most six
+    vertices, counter-clockwise) is left in ``buf[0, :n]``, ``buf[1, :n]``; returns ``n``
+    (0 when the triangles do not overlap). ``buf`` is a (4, 12) scratch array.
     """
     px = buf[0]
     py = buf[1]
@@ -157,12 +167,12 @@ def _clip_area_buf(ax, ay, bx, by, buf):
                 qy[m] = cy + t * (ny - cy)
                 m += 1
         if m < 3:
-            return 0.0
+            return 0
         for k in range(m):
             px[k] = qx[k]
             py[k] = qy[k]
         n = m
-    return abs(_shoelace(px, py, n))
+    return n
 
 
 @numba.njit(cache=True)
@@ -276,22 +286,7 @@ def _classify_one(p, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol,
             return
         angle[p] = math.degrees(math.acos(min(c, 1.0)))
         # in-plane basis (u, v) of the common plane
-        a0 = abs(m0)
-        a1 = abs(m1)
-        a2 = abs(m2)
-        if a0 <= a1 and a0 <= a2:
-            u0, u1, u2 = 0.0, m2, -m1
-        elif a1 <= a2:
-            u0, u1, u2 = -m2, 0.0, m0
-        else:
-            u0, u1, u2 = m1, -m0, 0.0
-        un = math.sqrt(u0 * u0 + u1 * u1 + u2 * u2)
-        u0 /= un
-        u1 /= un
-        u2 /= un
-        v0 = m1 * u2 - m2 * u1
-        v1 = m2 * u0 - m0 * u2
-        v2 = m0 * u1 - m1 * u0
+        u0, u1, u2, v0, v1, v2 = plane_basis(m0, m1, m2)
         ax = tri[0]
         ay = tri[1]
         bx = tri[2]
@@ -314,6 +309,28 @@ def _classify_one(p, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol,
             code[p] = kind
         elif kind == 1 and _shares_edge(ax, ay, bx, by, edge_tol):
             code[p] = 1
+
+
+@numba.njit(cache=True)
+def plane_basis(m0, m1, m2):
+    """Orthonormal in-plane basis (u, v) of the plane with unit normal m, u x v = m."""
+    a0 = abs(m0)
+    a1 = abs(m1)
+    a2 = abs(m2)
+    if a0 <= a1 and a0 <= a2:
+        u0, u1, u2 = 0.0, m2, -m1
+    elif a1 <= a2:
+        u0, u1, u2 = -m2, 0.0, m0
+    else:
+        u0, u1, u2 = m1, -m0, 0.0
+    un = math.sqrt(u0 * u0 + u1 * u1 + u2 * u2)
+    u0 /= un
+    u1 /= un
+    u2 /= un
+    v0 = m1 * u2 - m2 * u1
+    v1 = m2 * u0 - m0 * u2
+    v2 = m0 * u1 - m1 * u0
+    return u0, u1, u2, v0, v1, v2
 
 
 @numba.njit(cache=True)
