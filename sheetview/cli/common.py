@@ -59,6 +59,8 @@ def read_options(f):
                      help="Raw volumes: NX,NY,NZ."),
         click.option("--dtype", "raw_dtype", default=None,
                      help="Raw volumes: numpy dtype such as uint8, <u2, float32."),
+        click.option("--byte-order", "raw_byte_order", type=click.Choice(["little", "big"]),
+                     default=None, help="Raw volumes: byte order of multi-byte values."),
     ]
     for o in reversed(opts):
         f = o(f)
@@ -66,7 +68,7 @@ def read_options(f):
 
 
 def load(path, thickness=None, spacing=None, units=None, as_="auto", voxel_size=None,
-         phases=None, raw_shape=None, raw_dtype=None):
+         phases=None, raw_shape=None, raw_dtype=None, raw_byte_order=None):
     """Read a file with the options of :func:`read_options` (only those that apply)."""
     from ..io import family_of, read
 
@@ -77,10 +79,11 @@ def load(path, thickness=None, spacing=None, units=None, as_="auto", voxel_size=
         if fam == "meshes" and as_ != "auto":
             opts["as_"] = as_
         ignored = [n for n, v in (("--voxel-size", voxel_size), ("--phases", phases),
-                                  ("--shape", raw_shape), ("--dtype", raw_dtype)) if v is not None]
+                                  ("--shape", raw_shape), ("--dtype", raw_dtype),
+                                  ("--byte-order", raw_byte_order)) if v is not None]
     else:
         opts.update(voxel_size=voxel_size, phases=_parse_phases(phases), shape=_parse_shape(raw_shape),
-                    dtype=raw_dtype, units=units)
+                    dtype=raw_dtype, byte_order=raw_byte_order, units=units)
         ignored = [n for n, v in (("--thickness", thickness), ("--spacing", spacing)) if v is not None]
     if ignored:
         raise OptionError(f"{', '.join(ignored)} do(es) not apply to {fam} files", path=path)
