@@ -141,6 +141,16 @@ def test_writer_refuses_existing_output_and_leaves_it_untouched(tmp_path):
     assert [q.name for q in tmp_path.iterdir()] == ["out.csv"]  # no temporary left
 
 
+def test_written_files_get_the_usual_permissions(tmp_path):
+    import os
+    import stat
+    p = tmp_path / "perm.npz"
+    sv.write(random_structure(3), p)
+    mask = os.umask(0)
+    os.umask(mask)
+    assert stat.S_IMODE(p.stat().st_mode) == 0o666 & ~mask
+
+
 # ----------------------------------------------------------------------------- bad input
 @pytest.mark.parametrize("text,pattern", [
     ("", "empty"),

@@ -50,6 +50,7 @@ def atomic_path(path: str | Path, force: bool = False, suffix: str | None = None
             raise SheetviewError("writer produced no data", path=path)
         if path.exists() and not force:  # appeared while we were writing
             raise OutputExistsError("appeared while writing; not overwritten", path=path)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual mode
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):
@@ -59,3 +60,9 @@ def atomic_path(path: str | Path, force: bool = False, suffix: str | None = None
 
 def _empty_ok(path: Path) -> bool:
     return False
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
