@@ -429,3 +429,91 @@ def test_cli_view_without_display(stack_file, monkeypatch):
     res = CliRunner().invoke(_group(view), ["view", str(stack_file)])
     assert res.exit_code == 2
     assert "sheetview render" in res.output and "sheetview slices" in res.output
+
+
+def test_pick_at_finds_the_top_prism(stack4):
+    """Picking at the window centre of a view from +z returns a prism of the top layer
+    whose triangle contains the stack's axis (a VTK cell picker, reference library; the
+    cell -> prism map is 5 cells per prism)."""
+    sc = V.Scene(stack4, section=False, colour_by="tag", decorations=False)
+    p = pv.Plotter(off_screen=True, window_size=(201, 201))
+    try:
+        sc.attach(p)
+        sc.camera("+z", (201, 201))
+        p.render()
+        k = sc.pick_at(100.5, 100.5)
+    finally:
+        sc.plotter = None
+        p.close()
+    assert k is not None
+    assert stack4.centroids[k, 2] == pytest.approx(stack4.centroids[:, 2].max())
+    assert np.linalg.norm(stack4.centroids[k, :2]) < 1.0  # one triangle edge
+    assert "prism %d in stack" % k in sc.panel_text
+
+
+class FakePlotter:
+    """Records what bind_keys registers (no window)."""
+
+    def __init__(self):
+        self.keys, self.texts, self.clicks, self.widget = {}, {}, [], None
+
+    def add_key_event(self, key, fn):
+        self.keys[key] = fn
+
+    def add_plane_widget(self, callback, **kw):
+        self.widget_cb = callback
+        return None
+
+    def track_click_position(self, callback, **kw):
+        self.clicks.append(callback)
+
+    def add_text(self, text, **kw):
+        self.texts[kw.get("name")] = text
+
+
+def test_key_bindings_call_scene_methods(stack4, grid4):
+    """Each bound key calls its scene method: '.' and ',' step the cut, 'n' changes the
+    colouring, '2' hides the interlayer, 'o' the outline, 'z' turns the cut; the plane
+    widget's callback moves the cut."""
+    sc = V.Scene(stack4, grid=grid4, plane=((0, 0, 0), (1, 0, 0)), step=0.5)
+    fp = FakePlotter()
+    sc.bind_keys(fp)
+    sc.plotter = None  # bind_keys does not attach; the methods run on the state alone
+    assert set(fp.keys) == set(V.KEYS) and "right click" in fp.texts["help"]
+    fp.keys["period"]()
+    assert sc.plane_origin[0] == pytest.approx(0.5)
+    fp.keys["comma"]()
+    fp.keys["comma"]()
+    assert sc.plane_origin[0] == pytest.approx(-0.5)
+    before = sc.colour_by
+    fp.keys["n"]()
+    assert sc.colour_by != before
+    fp.keys["2"]()
+    assert V.INTERLAYER not in sc.visible_phases
+    fp.keys["o"]()
+    assert sc.outline_on is False
+    fp.keys["z"]()
+    assert np.array_equal(sc.plane_normal, [0, 0, 1])
+    fp.widget_cb((0, 1, 0), (1.0, 2.0, 3.0))
+    assert np.array_equal(sc.plane_normal, [0, 1, 0]) and sc.plane_origin[1] == 2.0
+
+
+def test_cli_volume_files(tmp_path):
+    """A voxel volume is drawn by slices as read; render refuses it (exit 2) and points
+    to slices."""
+    from click.testing import CliRunner
+
+    import sheetview as sv
+    from sheetview.cli.view import render, slices
+
+    vol = tmp_path / "g.vti"
+    sv.write(hand_grid(2), vol)
+    g = _group(render, slices)
+    r = CliRunner()
+    res = r.invoke(g, ["slices", str(vol), "-o", str(tmp_path / "s.png"), "--axis", "y",
+                       "--count", "2"])
+    assert res.exit_code == 0, res.output
+    res = r.invoke(g, ["slices", str(vol), "-o", str(tmp_path / "t.png"), "--voxel", "0.2"])
+    assert res.exit_code == 2 and "--voxel" in res.output
+    res = r.invoke(g, ["render", str(vol), "-o", str(tmp_path / "r.png")])
+    assert res.exit_code == 2 and "sheetview slices" in res.output
