@@ -1,6 +1,8 @@
 """``sheetview info FILE``: what is in a file, and what looks wrong."""
 from __future__ import annotations
 
+import json
+
 import click
 
 from .common import dumps, load, read_options
@@ -80,7 +82,7 @@ def info(file, as_json, **read_opts):
             "phases        " + ", ".join(f"{k} {100 * v:.3g}%" for k, v in d["phase_fractions"].items()),
         ]
     for k, v in (d.get("metadata") or {}).items():
-        lines.append(f"metadata      {k}: {v}")
+        lines.append(f"metadata      {k}: {v if isinstance(v, str) else json.dumps(v)}")
     for w in d["warnings"]:
         lines.append(f"warning       {w}")
     click.echo("\n".join(lines))
