@@ -522,13 +522,32 @@ def section_mesh(section: Section, visible=PHASE_ORDER, lift: float = 0.0, opaci
 
 
 # ============================================================================ the grid
+#: Largest number of voxels of the grid the viewer rasterizes when no voxel size is given.
+VIEW_MAX_VOXELS = 40_000_000
+
+
+def view_voxel_size(structure) -> float:
+    """Default voxel edge (nm) of the viewer's grid: the rasterizer's default
+    (:func:`sheetview.grid.default_voxel_size`), coarsened if needed so that the domain's
+    bounding box holds at most :data:`VIEW_MAX_VOXELS` voxels (rounded up to 3 digits)."""
+    from .grid import default_voxel_size
+
+    v = default_voxel_size(structure)
+    lo, hi = (np.asarray(b, float) for b in structure.domain.bounds)
+    floor = float(np.prod(hi - lo) / VIEW_MAX_VOXELS) ** (1.0 / 3.0)
+    if floor > v:
+        e = math.floor(math.log10(floor)) - 2
+        v = math.ceil(floor / 10 ** e) * 10 ** e
+    return float(v)
+
+
 def phase_grid(structure, voxel_size=None):
-    """Rasterize ``structure`` for sections (:func:`sheetview.grid.rasterize`)."""
-    try:
-        from .grid import rasterize
-    except ImportError:  # pragma: no cover - until the rasterizer lands
-        raise SheetviewError("phase sections need sheetview.grid.rasterize, which this "
-                             "installation lacks") from None
+    """Rasterize ``structure`` for sections (:func:`sheetview.grid.rasterize`) at
+    ``voxel_size`` nm (default :func:`view_voxel_size`)."""
+    from .grid import rasterize
+
+    if voxel_size is None:
+        voxel_size = view_voxel_size(structure)
     return rasterize(structure, voxel_size)
 
 

@@ -517,3 +517,16 @@ def test_cli_volume_files(tmp_path):
     assert res.exit_code == 2 and "--voxel" in res.output
     res = r.invoke(g, ["render", str(vol), "-o", str(tmp_path / "r.png")])
     assert res.exit_code == 2 and "sheetview slices" in res.output
+
+
+def test_view_voxel_size_caps_the_grid(stack4):
+    """The viewer's default voxel is the rasterizer's default for a small domain, and is
+    coarsened so that a large domain's box holds at most VIEW_MAX_VOXELS voxels."""
+    from sheetview.grid import default_voxel_size
+
+    assert V.view_voxel_size(stack4) == pytest.approx(default_voxel_size(stack4))
+    big = make_structure(stack4.vertices, domain=Box((0, 0, 0), (500, 400, 300)))
+    v = V.view_voxel_size(big)
+    assert v > default_voxel_size(big)
+    assert 500 * 400 * 300 / v ** 3 <= V.VIEW_MAX_VOXELS
+    assert 500 * 400 * 300 / (0.99 * v) ** 3 > V.VIEW_MAX_VOXELS * 0.97
