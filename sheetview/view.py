@@ -23,7 +23,7 @@ from __future__ import annotations
 import math
 import os
 import sys
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import NamedTuple
 
@@ -541,14 +541,16 @@ def view_voxel_size(structure) -> float:
     return float(v)
 
 
-def phase_grid(structure, voxel_size=None):
-    """Rasterize ``structure`` for sections (:func:`sheetview.grid.rasterize`) at
-    ``voxel_size`` nm (default :func:`view_voxel_size`)."""
-    from .grid import rasterize
+def phase_grid(structure, voxel_size=None, cache: dict | None = None):
+    """The phase map shown on cuts: solid, interlayer, gel pore, outside
+    (:func:`sheetview.measures.phases.classify`, the stacking graph taken from ``cache``
+    or computed and kept there), at ``voxel_size`` nm (default :func:`view_voxel_size`)."""
+    from .measures.phases import classify
 
     if voxel_size is None:
         voxel_size = view_voxel_size(structure)
-    return rasterize(structure, voxel_size)
+    graph = stacking_result(structure, cache).graph
+    return classify(structure, voxel_size, graph=graph)
 
 
 # =============================================================================== scene
@@ -662,7 +664,7 @@ class Scene:
     @property
     def grid(self):
         if self._grid is None:
-            self._grid = phase_grid(self.structure, self.voxel_size)
+            self._grid = phase_grid(self.structure, self.voxel_size, self.cache)
         return self._grid
 
     def update_section(self) -> Section:
@@ -1187,6 +1189,7 @@ class SheetLayout:
     size: tuple
     scale_bar_nm: float
     path: Path | None = None
+    figure: object = None  # the matplotlib Figure (for notebooks)
 
 
 #: Panel axes of each section axis: (horizontal, vertical); z is kept vertical where possible.
@@ -1314,11 +1317,10 @@ def contact_sheet(grid, path=None, *, axis: str = "z", count: int = 9, force: bo
         boxes.append((int(round(H - bb.y1)), int(round(H - bb.y0)),
                       int(round(bb.x0)), int(round(bb.x1))))
     layout = SheetLayout(axis, pos, idx, boxes, ext, ha, va, (H, W), bar,
-                         None if path is None else Path(path))
+                         None if path is None else Path(path), fig)
     if path is not None:
         with atomic_path(path, force) as tmp:
             fig.savefig(str(tmp), format="png", dpi=dpi, facecolor=BACKGROUND)
-    layout.figure = fig
     return layout
 
 
@@ -1370,7 +1372,7 @@ def export(structure, folder, *, grid=None, voxel_size=None, stem: str | None = 
                    cols, structure.metadata, structure.source)
     written = [write(s2, targets[0], force=force)]
     if with_grid:
-        g = grid if grid is not None else phase_grid(structure, voxel_size)
+        g = grid if grid is not None else phase_grid(structure, voxel_size, cache)
         written.append(write(g, targets[1], force=force))
     return [Path(p) for p in written]
 

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from sheetview import Box, Sphere, Structure
-from sheetview.grid import GEL, OUTSIDE, SOLID, PhaseGrid
+from sheetview.grid import GEL, INTERLAYER, SOLID, PhaseGrid
 from sheetview import view as V
 from sheetview.errors import OptionError, OutputExistsError, SheetviewError
 
@@ -228,12 +228,15 @@ def test_contact_sheet_counts_bands(tmp_path):
 
 def test_render_section_crosses_n_bands(stack4, grid4, tmp_path):
     """Off-screen render of the cut of a perfect stack of 4 layers, seen face on: a line
-    across the layers crosses 4 solid bands (common practice: one per layer)."""
+    across the layers crosses 4 solid bands (common practice: one per layer) and 3
+    interlayer bands (the gaps of the 3 stacked pairs; derived from the definition of the
+    interlayer class in sheetview.measures.phases)."""
     img = V.render(stack4, tmp_path / "cut.png", plane=((0, 0, 0), (1, 0, 0)), grid=grid4,
                    camera="+x", size=(300, 300), lighting=False, decorations=False)
     assert (tmp_path / "cut.png").exists()
     col = img[:, 150]
     assert runs(close_to(col, V._rgb(V.PHASE_COLOURS[SOLID]), tol=2)) == 4
+    assert runs(close_to(col, V._rgb(V.PHASE_COLOURS[INTERLAYER]), tol=2)) == 3
     # the pore around the stack is drawn (blended) too: no background inside the domain
     assert not close_to(col[140:160], V._rgb(V.BACKGROUND), tol=0).any()
 
@@ -270,8 +273,8 @@ def test_render_stacking_number_colours(tmp_path):
 def test_step_plane_moves_section(stack4, grid4):
     """Stepping the cut by half a repeat (0.7 nm) moves its origin by exactly that along
     the normal, and the point on the stack's axis goes from a sheet (solid) to the gap
-    between sheets (pore) and back to the next sheet (derived from the construction:
-    layers at (j - 1.5) * 1.4 nm)."""
+    between sheets (interlayer) and back to the next sheet (derived from the
+    construction: layers at (j - 1.5) * 1.4 nm); above the top sheet it is gel pore."""
     z0 = -0.5 * REPEAT  # mid-plane of layer 1
     sc = V.Scene(stack4, grid=grid4, plane=((0, 0, z0), (0, 0, 1)), step=0.5 * REPEAT,
                  colour_by="tag")
@@ -285,12 +288,16 @@ def test_step_plane_moves_section(stack4, grid4):
     assert centre_phase() == SOLID
     o = sc.step_plane(+1)
     assert o == pytest.approx([0, 0, z0 + 0.7], abs=1e-12)
-    assert centre_phase() == GEL
+    assert centre_phase() == INTERLAYER
     sc.step_plane(+1)
     assert sc.plane_origin[2] == pytest.approx(z0 + 1.4)
     assert centre_phase() == SOLID
-    sc.step_plane(-1)
-    sc.step_plane(-1)
+    for _ in range(3):
+        sc.step_plane(+1)
+    assert sc.plane_origin[2] == pytest.approx(z0 + 3.5)  # half a repeat above the top sheet
+    assert centre_phase() == GEL
+    for _ in range(5):
+        sc.step_plane(-1)
     assert sc.plane_origin[2] == pytest.approx(z0)
     sc.face_axis(0)
     assert np.array_equal(sc.plane_normal, [1, 0, 0])
@@ -337,7 +344,8 @@ def test_attached_scene_screenshot(stack4, grid4, tmp_path, monkeypatch):
         sc.step_plane(+1)
         assert "prisms" in p.actors and "section" in p.actors
         first = sc.save_screenshot()
-        sc.toggle_phase(GEL)  # the cut now lies between sheets: nothing left to draw
+        sc.toggle_phase(GEL)
+        sc.toggle_phase(INTERLAYER)  # the cut lies between sheets: nothing left to draw
         assert "section" not in p.actors
         second = sc.save_screenshot()
         assert first.name == "st_view_001.png" and second.name == "st_view_002.png"
@@ -489,7 +497,7 @@ def test_key_bindings_call_scene_methods(stack4, grid4):
     fp.keys["n"]()
     assert sc.colour_by != before
     fp.keys["2"]()
-    assert V.INTERLAYER not in sc.visible_phases
+    assert INTERLAYER not in sc.visible_phases
     fp.keys["o"]()
     assert sc.outline_on is False
     fp.keys["z"]()

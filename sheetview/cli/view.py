@@ -139,7 +139,7 @@ def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel
     grid = None
     if export_dir or plane is not None:
         from ..view import phase_grid
-        grid = phase_grid(s, voxel)
+        grid = phase_grid(s, voxel, cache)
     draw(s, output, colour_by=colour_by, plane=plane, grid=grid, camera=camera, size=wh,
          force=force, lighting=not flat, cache=cache)
     click.echo(f"wrote {output}", err=True)
