@@ -45,8 +45,11 @@ def main():
 def _register():
     from .convert import convert
     from .info import info
+    from .view import render, slices, view
     main.add_command(info)
     main.add_command(convert)
+    for cmd in (view, render, slices):
+        main.add_command(cmd)
     for modname, cmdname in (("synth", "synth"), ("measure", "measure")):
         try:
             mod = __import__(f"{__name__}.{modname}", fromlist=[cmdname])
