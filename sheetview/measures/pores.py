@@ -1,0 +1,849 @@
+"""Pore sizes of a voxel phase: local thickness and simulated intrusion.
+
+Both measures describe a phase (by default the gel pore space of a :class:`PhaseGrid`)
+by the diameters of balls that fit inside it.
+
+*Local thickness* (Hildebrand & Rüegsegger, J. Microsc. 185 (1997) 67,
+doi:10.1046/j.1365-2818.1997.1340694.x): the local thickness at a point ``p`` of a phase
+``X`` is the diameter of the largest ball inside ``X`` that contains ``p``,
+
+.. math:: \\tau(p) = 2 \\max\\{ r : p \\in B(x, r) \\subseteq X \\}.
+
+A slab of width ``w`` gives ``w`` everywhere, a ball or a cylinder of radius ``R`` gives
+``2R``. It is the "continuous pore size distribution" of Münch & Holzer (2008): a pore
+is seen at its own size whatever the openings leading to it.
+
+*Simulated intrusion* (Münch & Holzer, J. Am. Ceram. Soc. 91 (2008) 4059,
+doi:10.1111/j.1551-2916.2008.02736.x), the geometric analogue of mercury intrusion
+porosimetry: for decreasing diameter ``D``, the phase voxels a ball of diameter ``D`` can
+reach when it enters from a reservoir and moves through the phase without leaving it;
+each voxel's intrusion diameter is the largest ``D`` at which it is reached. A big
+cavity behind a narrow throat (an "ink bottle") takes the throat's diameter.
+
+Discretisation (both measures, this program's conventions):
+
+* ``d(x)`` is the Euclidean distance from the centre of phase voxel ``x`` to the centre of
+  the nearest voxel not in the phase (computed by the ``edt`` package with the voxel
+  spacing as anisotropy; for a non-periodic grid the grid border counts as wall; a
+  periodic grid is padded with its own wrapped content until every distance is exact).
+* The candidate balls are centred on voxel centres: ball ``x`` holds the voxels ``q``
+  with ``|q - x| < d(x)`` (exact radii, not rounded to whole voxels), so it holds phase
+  voxels only.
+* Its diameter is reported as ``2 d(x) - h`` with ``h = (h_x h_y h_z)^{1/3}`` the voxel
+  edge: the wall lies half a voxel before the centre of the first wall voxel. A slab
+  ``m`` voxels wide then measures exactly ``m h`` when ``m`` is odd and ``(m - 1) h`` when
+  ``m`` is even (ball centres sit on voxel centres), a ball of radius ``R`` about ``2R``.
+
+Ball painting: every voxel takes the largest diameter of the balls holding it. A ball
+contained in a neighbour's ball (``d(y) >= d(x) + |x - y|`` for one of its 26
+neighbours) changes nothing and is skipped (the "distance ridge" speed-up, common
+practice); the rest are painted row by row by a parallel numba kernel.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numba
+import numpy as np
+
+from ..errors import OptionError
+from ..grid import GEL, OUTSIDE, PhaseGrid, _phase_code
+
+#: Threads used for the distance transforms.
+EDT_THREADS = 2
+
+# 26-neighbour offsets
+_OFFS = np.array([(a, b, c) for a in (-1, 0, 1) for b in (-1, 0, 1) for c in (-1, 0, 1)
+                  if (a, b, c) != (0, 0, 0)], dtype=np.int64)
+
+
+# ================================================================ helpers
+def _check_mask(mask, spacing):
+    m = np.asarray(mask)
+    if m.ndim != 3:
+        raise OptionError(f"the phase mask must be a 3D array, not {m.ndim}D", field="mask")
+    if m.dtype != bool:
+        m = m != 0
+    sp = np.broadcast_to(np.asarray(spacing, dtype=float), (3,)).copy()
+    if not np.all(np.isfinite(sp)) or np.any(sp <= 0):
+        raise OptionError(f"voxel spacing must be three positive numbers (nm), not {spacing!r}",
+                          field="spacing")
+    return np.ascontiguousarray(m), sp
+
+
+def _units(sp):
+    """Internal length unit (the smallest spacing), relative anisotropy and the half-voxel
+    wall correction ``h`` in internal units."""
+    unit = float(sp.min())
+    rel = sp / unit
+    hc = float(np.prod(rel) ** (1.0 / 3.0))
+    return unit, rel, hc
+
+
+def squared_distance(fg, rel, *, periodic=False, black_border=True):
+    """Squared distance (internal units, float32) from each foreground voxel to the
+    nearest background voxel centre; 0 on the background.
+
+    Non-periodic: ``edt.edtsq`` with the grid border as background when
+    ``black_border``. Periodic: the volume is padded on every side with its own wrapped
+    content, the pad doubled until the largest distance found is within the pad (so the
+    nearest background over the periodic images lies in the padded volume, and every
+    distance is exact). Raises :class:`OptionError` when a periodic phase has no
+    background at all.
+    """
+    import edt
+
+    fg = np.ascontiguousarray(fg, dtype=np.uint8)
+    anis = tuple(float(a) for a in rel)
+    if not periodic:
+        return edt.edtsq(fg, anisotropy=anis, black_border=black_border,
+                         parallel=EDT_THREADS).astype(np.float32, copy=False)
+    if fg.all():
+        raise OptionError("the phase fills the whole periodic grid: it has no wall, so its "
+                          "pore sizes are undefined", field="phases")
+    shape = np.asarray(fg.shape)
+    pad = np.minimum(shape, 16)
+    while True:
+        padded = np.pad(fg, [(int(p), int(p)) for p in pad], mode="wrap")
+        d2 = edt.edtsq(padded, anisotropy=anis, black_border=False, parallel=EDT_THREADS)
+        sl = tuple(slice(int(p), int(p) + int(n)) for p, n in zip(pad, shape))
+        core = np.ascontiguousarray(d2[sl], dtype=np.float32)
+        reach = float(np.min(pad * np.asarray(rel)))
+        full = bool(np.all(pad >= 2 * shape))
+        if float(core.max()) <= reach * reach or full:
+            return core
+        pad = np.minimum(2 * shape, 2 * pad)
+
+
+@numba.njit(cache=True, parallel=True)
+def _ridge(idx, r, rel, shape, periodic):
+    """Mask (over ``idx``) of the balls not contained in a 26-neighbour's ball.
+
+    ``idx`` are flat voxel indices of candidate centres and ``r`` (flat, full grid) the
+    ball radii, 0 where there is no ball. Ball x lies in ball y when
+    ``r[y] >= r[x] + |x - y|``; the tolerance of 1e-5 internal units is far below the
+    gap between distinct distances on a grid of moderate size, and a kept ball is never
+    wrong (it is only painted for nothing).
+    """
+    n0, n1, n2 = shape[0], shape[1], shape[2]
+    keep = np.ones(idx.size, dtype=np.bool_)
+    dist = np.empty(27)
+    for a in range(3):
+        for b in range(3):
+            for e in range(3):
+                dist[a * 9 + b * 3 + e] = math.sqrt(((a - 1) * rel[0]) ** 2
+                                                    + ((b - 1) * rel[1]) ** 2
+                                                    + ((e - 1) * rel[2]) ** 2)
+    nchunk = 64
+    for ch in numba.prange(nchunk):
+        t0 = (ch * idx.size) // nchunk
+        t1 = ((ch + 1) * idx.size) // nchunk
+        for t in range(t0, t1):
+            f = idx[t]
+            i = f // (n1 * n2)
+            j = (f // n2) % n1
+            k = f % n2
+            rx = np.float64(r[f])
+            done = False
+            for a in range(3):
+                if done:
+                    break
+                ii = i + a - 1
+                if periodic:
+                    ii %= n0
+                elif ii < 0 or ii >= n0:
+                    continue
+                for b in range(3):
+                    if done:
+                        break
+                    jj = j + b - 1
+                    if periodic:
+                        jj %= n1
+                    elif jj < 0 or jj >= n1:
+                        continue
+                    base = (ii * n1 + jj) * n2
+                    for e in range(3):
+                        if a == 1 and b == 1 and e == 1:
+                            continue
+                        kk = k + e - 1
+                        if periodic:
+                            kk %= n2
+                        elif kk < 0 or kk >= n2:
+                            continue
+                        if np.float64(r[base + kk]) >= rx + dist[a * 9 + b * 3 + e] - 1e-5:
+                            keep[t] = False
+                            done = True
+                            break
+    return keep
+
+
+@numba.njit(cache=True, parallel=True)
+def _paint(ci, cj, ck, r2, val, rel, out, periodic, nchunks):
+    """``out[q] = max(out[q], val[b])`` for every ball b and voxel q with
+    ``|q - centre_b|^2 < r2[b]`` (internal units, exact squared radii). The x axis is split
+    into ``nchunks`` chunks painted in parallel, each by one thread, so no two threads
+    write one voxel."""
+    n0, n1, n2 = out.shape
+    nb = ci.size
+    for ch in numba.prange(nchunks):
+        x0 = (ch * n0) // nchunks
+        x1 = ((ch + 1) * n0) // nchunks
+        for b in range(nb):
+            rr = r2[b]
+            if rr <= 0.0:
+                continue
+            v = val[b]
+            ri = int(math.sqrt(rr) / rel[0])
+            while ri >= 0 and (ri * rel[0]) ** 2 >= rr:
+                ri -= 1
+            if ri < 0:
+                continue
+            if not periodic:
+                lo = max(-ri, x0 - ci[b])
+                hi = min(ri, x1 - 1 - ci[b])
+            else:
+                lo = -ri
+                hi = ri
+            for di in range(lo, hi + 1):
+                i = ci[b] + di
+                if periodic:
+                    i %= n0
+                    if i < x0 or i >= x1:
+                        continue
+                dx2 = (di * rel[0]) ** 2
+                rj = int(math.sqrt(rr - dx2) / rel[1])
+                while rj >= 0 and dx2 + (rj * rel[1]) ** 2 >= rr:
+                    rj -= 1
+                if rj < 0:
+                    continue
+                for dj in range(-rj, rj + 1):
+                    j = cj[b] + dj
+                    if periodic:
+                        j %= n1
+                    elif j < 0 or j >= n1:
+                        continue
+                    dxy2 = dx2 + (dj * rel[1]) ** 2
+                    rk = int(math.sqrt(rr - dxy2) / rel[2])
+                    while rk >= 0 and dxy2 + (rk * rel[2]) ** 2 >= rr:
+                        rk -= 1
+                    if rk < 0:
+                        continue
+                    if periodic:
+                        for kk in range(ck[b] - rk, ck[b] + rk + 1):
+                            k = kk % n2
+                            out[i, j, k] = max(out[i, j, k], v)
+                    else:
+                        k0 = max(ck[b] - rk, 0)
+                        k1 = min(ck[b] + rk, n2 - 1)
+                        row = out[i, j]
+                        for k in range(k0, k1 + 1):
+                            row[k] = max(row[k], v)
+
+
+#: Neighbourhood (voxels per axis) searched for a containing ball on isotropic grids.
+RIDGE_REACH = 2
+#: Largest squared radius (voxel units) covered by the discrete containment table; larger
+#: balls fall back to the continuous test.
+DISCRETE_TABLE_MAX_K = 160_000
+
+
+#: Neighbour offset types (sorted absolute components) of the discrete containment test.
+_TYPES = np.array([(0, 0, 1), (0, 1, 1), (1, 1, 1), (0, 0, 2), (0, 1, 2), (1, 1, 2),
+                   (0, 2, 2), (1, 2, 2), (2, 2, 2)], dtype=np.int64)
+
+
+@numba.njit(cache=True)
+def _containment_table(kmax, types):
+    """``M[t, K] = max |p - e_t|^2`` over lattice points ``p`` with ``|p|^2 < K``, for the
+    offset types ``e_t`` (by the lattice ball's symmetry under signed axis permutations one
+    offset per type covers them all). The lattice ball of squared radius ``K`` about ``x``
+    lies in that of ``K'`` about ``x + e`` iff ``M[type(e), K] < K'``."""
+    r = int(math.sqrt(kmax)) + 1
+    nt = types.shape[0]
+    A = np.full((nt, kmax + 2), -1, dtype=np.int64)
+    for a in range(-r, r + 1):
+        for b in range(-r, r + 1):
+            for c in range(-r, r + 1):
+                q = a * a + b * b + c * c
+                if q > kmax:
+                    continue
+                for t in range(nt):
+                    v = (a - types[t, 0]) ** 2 + (b - types[t, 1]) ** 2 + (c - types[t, 2]) ** 2
+                    if v > A[t, q]:
+                        A[t, q] = v
+    M = np.full((nt, kmax + 2), -1, dtype=np.int64)
+    for t in range(nt):
+        run = -1
+        for K in range(1, kmax + 2):
+            if A[t, K - 1] > run:
+                run = A[t, K - 1]
+            M[t, K] = run
+    return M
+
+
+@numba.njit(cache=True)
+def _type_index(a, b, c):
+    x = abs(a)
+    y = abs(b)
+    z = abs(c)
+    # sort ascending
+    if x > y:
+        x, y = y, x
+    if y > z:
+        y, z = z, y
+    if x > y:
+        x, y = y, x
+    if z == 1:
+        return x + y  # (0,0,1)->0, (0,1,1)->1, (1,1,1)->2
+    # z == 2
+    if y == 0:
+        return 3
+    if y == 1:
+        return 4 + x  # (0,1,2)->4, (1,1,2)->5
+    return 6 + x  # (0,2,2)->6, (1,2,2)->7, (2,2,2)->8
+
+
+@numba.njit(cache=True, parallel=True)
+def _ridge_discrete(idx, K, M, shape, periodic, reach):
+    """Mask (over ``idx``) of the lattice balls ``{q : |q - x|^2 < K[x]}`` (isotropic
+    voxel units, integer ``K``) not contained in the lattice ball of a neighbour within
+    ``reach`` voxels per axis (1: 26 neighbours, 2: 124), by the exact table of
+    :func:`_containment_table`; balls too large for the table use the continuous test
+    ``sqrt(K_y) >= sqrt(K_x) + |e|``."""
+    n0, n1, n2 = shape[0], shape[1], shape[2]
+    kmax = M.shape[1] - 2
+    keep = np.ones(idx.size, dtype=np.bool_)
+    nchunk = 64
+    for ch in numba.prange(nchunk):
+        t0 = (ch * idx.size) // nchunk
+        t1 = ((ch + 1) * idx.size) // nchunk
+        for t in range(t0, t1):
+            f = idx[t]
+            i = f // (n1 * n2)
+            j = (f // n2) % n1
+            k = f % n2
+            kx = int(K[f])
+            done = False
+            for a in range(-reach, reach + 1):
+                if done:
+                    break
+                ii = i + a
+                if periodic:
+                    ii %= n0
+                elif ii < 0 or ii >= n0:
+                    continue
+                for b in range(-reach, reach + 1):
+                    if done:
+                        break
+                    jj = j + b
+                    if periodic:
+                        jj %= n1
+                    elif jj < 0 or jj >= n1:
+                        continue
+                    base = (ii * n1 + jj) * n2
+                    for c in range(-reach, reach + 1):
+                        if a == 0 and b == 0 and c == 0:
+                            continue
+                        kk = k + c
+                        if periodic:
+                            kk %= n2
+                        elif kk < 0 or kk >= n2:
+                            continue
+                        ky = int(K[base + kk])
+                        if ky <= kx:
+                            continue
+                        if kx <= kmax:
+                            inside = M[_type_index(a, b, c), kx] < ky
+                        else:
+                            inside = math.sqrt(ky) >= math.sqrt(kx) + math.sqrt(
+                                a * a + b * b + c * c) - 1e-9
+                        if inside:
+                            keep[t] = False
+                            done = True
+                            break
+    return keep
+
+
+def _isotropic_integer(rel, r2):
+    return bool(np.all(rel == 1.0)) and bool(np.all(np.floor(r2) == r2))
+
+
+def _paint_balls(shape, flat_idx, r2, values, rel, periodic, r_map, out):
+    """Paint the balls (centres ``flat_idx``, squared radii ``r2``, ``values``) into
+    ``out`` (float32, zeroed here) after dropping balls contained in a neighbour's ball.
+    ``r_map`` is a flat float32 scratch array of the grid size (overwritten); ``out`` may
+    share its memory."""
+    r_map[:] = 0
+    exact = _isotropic_integer(np.asarray(rel), r2)
+    if exact:
+        # exact lattice-ball containment (isotropic voxels, integer squared distances)
+        r_map[flat_idx] = r2
+        kmax = int(min(float(r2.max()) if r2.size else 1.0, DISCRETE_TABLE_MAX_K))
+        M = _containment_table(max(kmax, 1), _TYPES)
+        keep = _ridge_discrete(flat_idx, r_map, M, np.asarray(shape, dtype=np.int64),
+                               bool(periodic), RIDGE_REACH)
+    else:
+        r_map[flat_idx] = np.sqrt(r2)
+        keep = _ridge(flat_idx, r_map, np.asarray(rel, dtype=np.float64),
+                      np.asarray(shape, dtype=np.int64), bool(periodic))
+    sel = flat_idx[keep]
+    i, j, k = np.unravel_index(sel, shape)
+    out.fill(0)
+    nch = max(1, min(shape[0], 4 * numba.get_num_threads()))
+    rr = np.asarray(r2[keep], dtype=np.float64)
+    if not exact:
+        # squared radii rounded to float32: a voxel at exactly the wall distance (a tie,
+        # common on anisotropic grids) must stay outside the open ball
+        rr *= 1.0 - 1e-6
+    _paint(i.astype(np.int64), j.astype(np.int64), k.astype(np.int64), rr, np.asarray(values[keep], dtype=np.float32),
+           np.asarray(rel, dtype=np.float64), out, bool(periodic), nch)
+    return out, int(sel.size)
+
+
+# ============================================================ local thickness
+def local_thickness(mask, spacing, *, periodic: bool = False, out=None) -> np.ndarray:
+    """Local thickness (nm) of a phase (Hildebrand & Rüegsegger 1997).
+
+    .. math:: \\tau(p) = 2 \\max\\{ r : p \\in B(x, r) \\subseteq X \\}
+
+    on a voxel grid, with the conventions of the module docstring: balls centred on
+    voxel centres with the exact radius ``d(x)`` (distance to the nearest non-phase voxel
+    centre), a diameter of ``2 d(x) - h``.
+
+    Parameters
+    ----------
+    mask : (nx, ny, nz) bool array
+        The phase (True). Voxels outside it (other phases, outside the domain) are walls;
+        on a non-periodic grid so is the grid border.
+    spacing : float or three floats
+        Voxel edges (nm).
+    periodic : bool
+        Wrap around the grid faces (a periodic box).
+    out : (nx, ny, nz) float32 array, optional
+        Buffer to write into.
+
+    Returns
+    -------
+    (nx, ny, nz) float32 array
+        Local thickness in nm; NaN outside the phase.
+
+    References
+    ----------
+    T. Hildebrand, P. Rüegsegger, "A new method for the model-independent assessment of
+    thickness in three-dimensional images", J. Microsc. 185 (1997) 67-75.
+    """
+    m, sp = _check_mask(mask, spacing)
+    unit, rel, hc = _units(sp)
+    d2 = squared_distance(m, rel, periodic=periodic)
+    flat = d2.reshape(-1)
+    idx = np.flatnonzero(flat)
+    r2 = flat[idx]
+    vals = ((2.0 * np.sqrt(r2.astype(np.float64)) - hc) * unit).astype(np.float32)
+    if out is None:
+        out = d2  # reuse the distance buffer (already touched memory)
+    elif out.shape != m.shape or out.dtype != np.float32 or not out.flags.c_contiguous:
+        raise OptionError(f"out must be a C-contiguous float32 array of shape {m.shape}",
+                          field="out")
+    res, _ = _paint_balls(m.shape, idx, r2, vals, rel, periodic, flat, out)
+    res[~m] = np.nan
+    return res
+
+
+# ================================================================== intrusion
+@numba.njit(cache=True)
+def _find(parent, x):
+    while parent[x] != x:
+        x = parent[x]
+    return x
+
+
+@numba.njit(cache=True)
+def _invade(order_flat, comp, v, g, shape, periodic):
+    """Largest diameter at which each ball centre is reached from the reservoir
+    (monotone drainage), by a union-find over centres added in decreasing ``v``.
+
+    ``order_flat`` are flat voxel indices of the phase sorted by decreasing ``v``;
+    ``comp`` maps flat index -> compact index (-1 off the phase); ``v`` (compact) is the
+    largest diameter a ball centred there may have and ``g`` the smallest diameter whose
+    ball centred there holds a reservoir voxel (``2 d_R - h``). At level ``D`` the centres
+    with ``v >= D`` form clusters (26-connectivity); a cluster is invaded when one of its
+    balls of diameter ``D`` holds a reservoir voxel (``min g < D``) or when it merges with an
+    invaded cluster. The level is stored on the cluster's root at that moment, so a node's
+    level is that of its first ancestor (itself included) holding one. Returns the level
+    per compact index (-1: never).
+    """
+    n = v.size
+    n0, n1, n2 = shape[0], shape[1], shape[2]
+    parent = np.arange(n).astype(np.int64)
+    rank = np.zeros(n, dtype=np.int8)
+    ming = g.copy()
+    level = np.full(n, -1.0, dtype=np.float32)
+    added = np.zeros(n, dtype=np.bool_)
+    for t in range(order_flat.size):
+        f = order_flat[t]
+        x = comp[f]
+        D = v[x]
+        added[x] = True
+        i = f // (n1 * n2)
+        j = (f // n2) % n1
+        k = f % n2
+        for a in range(-1, 2):
+            for b in range(-1, 2):
+                for c in range(-1, 2):
+                    if a == 0 and b == 0 and c == 0:
+                        continue
+                    ii = i + a
+                    jj = j + b
+                    kk = k + c
+                    if periodic:
+                        ii %= n0
+                        jj %= n1
+                        kk %= n2
+                    elif ii < 0 or jj < 0 or kk < 0 or ii >= n0 or jj >= n1 or kk >= n2:
+                        continue
+                    y = comp[(ii * n1 + jj) * n2 + kk]
+                    if y < 0 or not added[y]:
+                        continue
+                    rx = _find(parent, x)
+                    ry = _find(parent, y)
+                    if rx == ry:
+                        continue
+                    cx = level[rx] >= 0
+                    cy = level[ry] >= 0
+                    if cx and not cy:
+                        level[ry] = D
+                    elif cy and not cx:
+                        level[rx] = D
+                    if rank[rx] < rank[ry]:
+                        rx, ry = ry, rx
+                    parent[ry] = rx
+                    if rank[rx] == rank[ry]:
+                        rank[rx] += 1
+                    if ming[ry] < ming[rx]:
+                        ming[rx] = ming[ry]
+        r = _find(parent, x)
+        if level[r] < 0 and ming[r] < D:
+            level[r] = D
+    # each node: the level of its first ancestor (itself included) that has one
+    out = np.full(n, -1.0, dtype=np.float32)
+    for x in range(n):
+        y = x
+        while True:
+            if level[y] >= 0:
+                out[x] = level[y]
+                break
+            if parent[y] == y:
+                break
+            y = parent[y]
+    return out
+
+
+def default_reservoir(mask, *, outside=None, periodic=False) -> np.ndarray:
+    """Phase voxels on the sample boundary: with a face neighbour off the grid
+    (non-periodic grids) or in ``outside`` (a boolean mask, e.g. OUTSIDE voxels)."""
+    m = np.asarray(mask, dtype=bool)
+    touch = np.zeros_like(m)
+    if not periodic:
+        for ax in range(3):
+            sl = [slice(None)] * 3
+            sl[ax] = 0
+            touch[tuple(sl)] = True
+            sl[ax] = -1
+            touch[tuple(sl)] = True
+    if outside is not None:
+        o = np.asarray(outside, dtype=bool)
+        for ax in range(3):
+            for sh in (1, -1):
+                rolled = np.roll(o, sh, axis=ax)
+                if not periodic:
+                    sl = [slice(None)] * 3
+                    sl[ax] = 0 if sh == 1 else -1
+                    rolled[tuple(sl)] = False
+                touch |= rolled
+    return touch & m
+
+
+def intrusion_diameter(mask, spacing, reservoir=None, *, diameters=None,
+                       periodic: bool = False, out=None) -> np.ndarray:
+    """Simulated intrusion diameter (nm) of each phase voxel (Münch & Holzer 2008).
+
+    For decreasing ``D``, a ball of diameter ``D`` enters the phase from the reservoir and
+    moves through it: its centre may be at ``x`` when ``2 d(x) - h >= D`` (the ball fits,
+    module conventions), centres move between 26-neighbours, and the ball first enters
+    where a ball of diameter ``D`` centred at ``x`` holds a reservoir voxel
+    (``|x - q| < (D + h)/2``). Once a region is invaded it stays invaded (drainage). Each
+    voxel takes the largest ``D`` whose invaded balls hold it. Where every pore is open to
+    the reservoir this equals the local thickness; a cavity behind a narrow throat takes
+    the throat diameter.
+
+    Parameters
+    ----------
+    mask : (nx, ny, nz) bool array
+        The phase.
+    spacing : float or three floats
+        Voxel edges (nm).
+    reservoir : (nx, ny, nz) bool array, optional
+        Voxels in contact with the intruding fluid. Default: the phase voxels on the grid
+        border (:func:`default_reservoir`); required on a periodic grid.
+    diameters : array of float, optional
+        Pressure steps (nm): each voxel's diameter is rounded down to the largest step at
+        or below it (voxels below the smallest step count as not invaded). Default: the
+        exact continuous result.
+    periodic : bool
+        Wrap around the grid faces.
+
+    Returns
+    -------
+    (nx, ny, nz) float32 array
+        Intrusion diameter in nm; 0 for phase voxels never reached; NaN outside the phase.
+
+    References
+    ----------
+    B. Münch, L. Holzer, "Contradicting geometrical concepts in pore size analysis
+    attained with electron microscopy and mercury intrusion", J. Am. Ceram. Soc. 91 (2008)
+    4059-4067.
+    """
+    import edt
+
+    m, sp = _check_mask(mask, spacing)
+    unit, rel, hc = _units(sp)
+    if reservoir is None:
+        if periodic:
+            raise OptionError("a periodic grid has no boundary: give the reservoir voxels "
+                              "explicitly", field="reservoir")
+        res = default_reservoir(m)
+    else:
+        res = np.asarray(reservoir, dtype=bool)
+        if res.shape != m.shape:
+            raise OptionError(f"the reservoir mask has shape {res.shape}, expected {m.shape}",
+                              field="reservoir")
+        res = res & m
+    if not res.any():
+        raise OptionError("the reservoir touches no voxel of the phase: nothing can be "
+                          "intruded", field="reservoir")
+    steps = None
+    if diameters is not None:
+        steps = np.unique(np.asarray(diameters, dtype=float).ravel())
+        if steps.size == 0 or not np.all(np.isfinite(steps)) or steps[0] <= 0:
+            raise OptionError("diameters must be positive finite numbers (nm)",
+                              field="diameters")
+    d2 = squared_distance(m, rel, periodic=periodic)
+    flat = d2.reshape(-1)
+    idx = np.flatnonzero(m.reshape(-1))
+    r2 = flat[idx].astype(np.float64)
+    del d2, flat
+    v = (2.0 * np.sqrt(r2) - hc)  # internal units
+    # distance to the reservoir (voxel centres), internal units
+    if periodic:
+        dr2 = squared_distance(~res, rel, periodic=True)
+    else:
+        dr2 = edt.edtsq(np.ascontiguousarray(~res, dtype=np.uint8),
+                        anisotropy=tuple(float(a) for a in rel), black_border=False,
+                        parallel=EDT_THREADS)
+    g = 2.0 * np.sqrt(dr2.reshape(-1)[idx].astype(np.float64)) - hc
+    del dr2
+    comp = np.full(m.size, -1, dtype=np.int64)
+    comp[idx] = np.arange(idx.size)
+    order = idx[np.argsort(-v, kind="stable")]
+    lev = _invade(order, comp, v.astype(np.float64), g, np.asarray(m.shape, dtype=np.int64),
+                  bool(periodic)).astype(np.float64)
+    del comp
+    if steps is not None:
+        s_int = steps / unit
+        pos = np.searchsorted(s_int, lev * (1 + 1e-12), side="right") - 1
+        lev = np.where(pos >= 0, s_int[np.maximum(pos, 0)], -1.0)
+    ok = lev > 0
+    rho2 = np.minimum(((lev + hc) / 2.0) ** 2, r2)
+    rho2 = np.where(lev >= v - 1e-12, r2, rho2)  # at full size: the exact radius
+    sel = np.flatnonzero(ok)
+    scratch = np.empty(m.size, dtype=np.float32)
+    if out is None:
+        out = scratch.reshape(m.shape)
+    res_map, _ = _paint_balls(m.shape, idx[sel], rho2[sel].astype(np.float32),
+                              (lev[sel] * unit).astype(np.float32), rel, periodic, scratch,
+                              out)
+    res_map[~m] = np.nan
+    return res_map
+
+
+# ================================================================== results
+@dataclass
+class PoreSizeResult:
+    """Volume-weighted pore size distribution of a phase.
+
+    Attributes
+    ----------
+    method : "local_thickness" or "intrusion"
+    phases : names of the phases measured
+    diameter : (nx, ny, nz) float32, per-voxel diameter in nm (NaN off the phase, 0 for
+        voxels never intruded)
+    bin_edges : (nb + 1,) nm
+    volume_fraction : (nb,) fraction of the (sized) phase volume with a diameter in each bin
+    density : (nb,) ``volume_fraction / bin width`` (per nm), or per unit ``ln D`` for log bins
+    cumulative_finer : (nb,) fraction with diameter below each bin's upper edge
+    cumulative_coarser : (nb,) fraction with diameter at or above each bin's lower edge
+        (the intrusion curve: volume intruded once the diameter reaches the lower edge)
+    d10, d50, d90 : volume-weighted quantiles (nm): that fraction of the sized volume has a
+        smaller diameter
+    mean : volume-weighted mean diameter (nm)
+    phase_volume : phase volume (nm^3)
+    sized_fraction : fraction of the phase volume that was given a size (1 for local
+        thickness; the intruded fraction for intrusion)
+    voxel_size : voxel edges (nm)
+    log_bins : whether the bins are logarithmic
+    """
+
+    method: str
+    phases: tuple
+    diameter: np.ndarray = field(repr=False)
+    bin_edges: np.ndarray
+    volume_fraction: np.ndarray
+    density: np.ndarray
+    cumulative_finer: np.ndarray
+    cumulative_coarser: np.ndarray
+    d10: float
+    d50: float
+    d90: float
+    mean: float
+    phase_volume: float
+    sized_fraction: float
+    voxel_size: tuple
+    log_bins: bool
+
+    @property
+    def bin_centers(self) -> np.ndarray:
+        e = self.bin_edges
+        return np.sqrt(e[:-1] * e[1:]) if self.log_bins else 0.5 * (e[:-1] + e[1:])
+
+    def table(self) -> dict:
+        """Columns of the histogram (equal lengths)."""
+        return {"d_lower_nm": self.bin_edges[:-1].tolist(),
+                "d_upper_nm": self.bin_edges[1:].tolist(),
+                "d_center_nm": self.bin_centers.tolist(),
+                "volume_fraction": self.volume_fraction.tolist(),
+                "density": self.density.tolist(),
+                "cumulative_finer": self.cumulative_finer.tolist(),
+                "cumulative_coarser": self.cumulative_coarser.tolist()}
+
+    def to_dict(self) -> dict:
+        def f(x):
+            return None if not np.isfinite(x) else float(x)
+        return {"method": self.method, "phases": list(self.phases),
+                "d10_nm": f(self.d10), "d50_nm": f(self.d50), "d90_nm": f(self.d90),
+                "mean_nm": f(self.mean), "phase_volume_nm3": float(self.phase_volume),
+                "sized_fraction": float(self.sized_fraction),
+                "voxel_size_nm": [float(v) for v in self.voxel_size],
+                "log_bins": bool(self.log_bins),
+                "density_per": "ln(nm)" if self.log_bins else "nm",
+                "histogram": self.table()}
+
+
+def _bin_edges(values, bins, h):
+    vmax = float(values.max()) if values.size else h
+    vmin = float(values.min()) if values.size else h
+    if isinstance(bins, str):
+        if bins == "log":
+            lo = math.floor(10 * math.log10(max(min(vmin, h), 1e-6))) / 10
+            hi = math.ceil(10 * math.log10(max(vmax, h)) + 1e-9) / 10
+            if hi <= lo:
+                hi = lo + 0.1
+            n = int(round((hi - lo) * 10))
+            return 10.0 ** np.linspace(lo, hi, n + 1), True
+        if bins == "linear":
+            n = max(1, int(math.ceil(vmax / h + 1e-9)))
+            return np.arange(n + 1) * h, False
+        raise OptionError(f'bins must be "log", "linear", a number of bins or an array of '
+                          f'edges, not {bins!r}', field="bins")
+    arr = np.asarray(bins, dtype=float)
+    if arr.ndim == 0:
+        n = int(arr)
+        if n < 1 or n != arr:
+            raise OptionError(f"number of bins must be a positive integer, not {bins!r}",
+                              field="bins")
+        return np.linspace(0.0, vmax * (1 + 1e-9) if vmax > 0 else h, n + 1), False
+    if arr.ndim != 1 or arr.size < 2 or np.any(np.diff(arr) <= 0) or not np.all(np.isfinite(arr)):
+        raise OptionError("bin edges must be an increasing 1D array of at least 2 numbers",
+                          field="bins")
+    return arr, bool(arr[0] > 0 and np.allclose(np.diff(np.log(arr)), np.log(arr[1] / arr[0])))
+
+
+def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
+                      method="local_thickness", phases=("gel",)) -> PoreSizeResult:
+    """Histogram, cumulative curves, quantiles and mean of a per-voxel diameter map
+    (NaN: not in the phase; 0: in the phase but not sized). Equal voxels, so voxel counts
+    are volume weights."""
+    d = np.asarray(diameter)
+    vals = d[np.isfinite(d)]
+    n_phase = vals.size
+    vals = vals[vals > 0].astype(np.float64)
+    sp = np.broadcast_to(np.asarray(voxel_size, dtype=float), (3,))
+    h = float(np.prod(sp) ** (1 / 3))
+    edges, log_bins = _bin_edges(vals, bins, h)
+    counts, _ = np.histogram(vals, bins=edges)
+    total = max(vals.size, 1)
+    frac = counts / total
+    width = np.diff(np.log(edges)) if log_bins else np.diff(edges)
+    if vals.size:
+        q = np.quantile(vals, [0.1, 0.5, 0.9], method="inverted_cdf")
+        mean = float(vals.mean())
+    else:
+        q = np.full(3, np.nan)
+        mean = float("nan")
+    below = np.searchsorted(np.sort(vals), edges, side="left") / total
+    return PoreSizeResult(
+        method=method, phases=tuple(phases), diameter=d, bin_edges=edges,
+        volume_fraction=frac, density=frac / width,
+        cumulative_finer=below[1:], cumulative_coarser=1.0 - below[:-1],
+        d10=float(q[0]), d50=float(q[1]), d90=float(q[2]), mean=mean,
+        phase_volume=float(n_phase * np.prod(sp)),
+        sized_fraction=float(vals.size / n_phase) if n_phase else 0.0,
+        voxel_size=tuple(float(x) for x in sp), log_bins=log_bins)
+
+
+def pore_size_distribution(grid: PhaseGrid, phases=(GEL,), *, bins="log",
+                           method: str = "local_thickness", reservoir=None,
+                           diameters=None) -> PoreSizeResult:
+    """Pore size distribution of the given phases of a PhaseGrid.
+
+    Parameters
+    ----------
+    grid : PhaseGrid
+    phases : phase codes or names making up the pore space (default: gel)
+    bins : "log" (10 per decade, aligned to decades), "linear" (one voxel wide), a
+        number of equal bins from 0, or an array of edges (nm)
+    method : "local_thickness" (:func:`local_thickness`) or "intrusion"
+        (:func:`intrusion_diameter`; the reservoir defaults to the phase voxels touching
+        OUTSIDE voxels or the grid border)
+    reservoir : bool array, optional (intrusion only)
+    diameters : pressure steps (nm), optional (intrusion only)
+
+    Returns
+    -------
+    PoreSizeResult
+    """
+    if not isinstance(grid, PhaseGrid):
+        raise OptionError(f"pore sizes need a PhaseGrid, not {type(grid).__name__}")
+    if isinstance(phases, (str, int, np.integer)):
+        phases = (phases,)
+    codes = [_phase_code(p, grid.names) for p in phases]
+    names = tuple(grid.names.get(c, f"phase_{c}") for c in codes)
+    mask = np.isin(grid.labels, np.asarray(codes, dtype=np.uint8))
+    if not mask.any():
+        raise OptionError(f"the grid has no voxel of phase(s) {', '.join(names)}",
+                          path=grid.source, field="phases")
+    if method == "local_thickness":
+        d = local_thickness(mask, grid.spacing, periodic=grid.periodic)
+    elif method == "intrusion":
+        if reservoir is None:
+            if grid.periodic:
+                raise OptionError("intrusion on a periodic grid needs an explicit reservoir",
+                                  field="reservoir")
+            reservoir = default_reservoir(mask, outside=grid.labels == OUTSIDE)
+        d = intrusion_diameter(mask, grid.spacing, reservoir, diameters=diameters,
+                               periodic=grid.periodic)
+    else:
+        raise OptionError(f'method must be "local_thickness" or "intrusion", not {method!r}',
+                          field="method")
+    return size_distribution(d, bins=bins, voxel_size=grid.spacing, method=method,
+                             phases=names)
