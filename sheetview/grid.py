@@ -344,19 +344,23 @@ def _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, x0,
                         out[i, j, k] = value
 
 
-def _fill_domain(labels, domain, spacing, origin):
-    """Write GEL inside the domain and OUTSIDE elsewhere (voxel centres), slab by slab."""
+def _fill_domain(labels, domain, spacing, origin) -> bool:
+    """Write GEL inside the domain and OUTSIDE elsewhere (voxel centres), slab by slab;
+    return whether any voxel centre is inside."""
     if getattr(domain, "shape", None) == "sphere":
         c = np.asarray(domain.center, dtype=float)
         r2 = float(domain.radius) ** 2
         x, y, z = (origin[a] + (np.arange(labels.shape[a]) + 0.5) * spacing[a] for a in range(3))
         yz = (y - c[1])[:, None] ** 2 + (z - c[2])[None, :] ** 2
         tmp = np.empty(yz.shape, dtype=bool)
+        any_in = False
         for i in range(labels.shape[0]):
             np.less_equal(yz, r2 - (x[i] - c[0]) ** 2, out=tmp)
             np.multiply(tmp, np.uint8(GEL), out=labels[i], casting="unsafe")
-    else:
-        labels.fill(GEL)  # a box grid tiles the box: every voxel centre is inside
+            any_in = any_in or bool(tmp.any())
+        return any_in
+    labels.fill(GEL)  # a box grid tiles the box: every voxel centre is inside
+    return labels.size > 0
 
 
 def _check_voxel_size(structure, voxel_size):
@@ -461,13 +465,13 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
                 or not out.flags.c_contiguous or not out.flags.writeable):
             raise OptionError(f"out must be a writeable C-contiguous uint8 array of shape "
                               f"{shape}", field="out")
-    _fill_domain(labels, dom, spacing, origin)
+    nonempty = _fill_domain(labels, dom, spacing, origin)
     periodic = bool(getattr(dom, "periodic", False))
     nrm, d0, half, G, C, lo, hi, axis, keep = _prism_coefficients(structure)
     org = np.asarray(origin, dtype=np.float64)
     sp = np.asarray(spacing, dtype=np.float64)
     full = np.asarray(shape, dtype=np.int64)
-    if not (labels != OUTSIDE).any():
+    if not nonempty:
         raise OptionError("the domain contains no voxel centre at this voxel size "
                           f"({v:g} nm): the domain is empty", field="voxel_size")
     _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, 0, labels,

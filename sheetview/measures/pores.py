@@ -242,7 +242,7 @@ def _paint(ci, cj, ck, r2, val, rel, out, periodic, nchunks):
 
 
 #: Neighbourhood (voxels per axis) searched for a containing ball on isotropic grids.
-RIDGE_REACH = 2
+RIDGE_REACH = 1
 #: Largest squared radius (voxel units) covered by the discrete containment table; larger
 #: balls fall back to the continuous test.
 DISCRETE_TABLE_MAX_K = 160_000
