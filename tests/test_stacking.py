@@ -169,3 +169,79 @@ def test_graph_links_counts():
     pair of adjacent layers (by construction)."""
     g = stacking_graph(Structure(make_stack(3), 0.7, BIG), StackingSettings())
     assert len(g.inplane) == 3 * 40 and len(g.stacked) == 2 * 32 and len(g.tilted) == 0
+
+
+@pytest.mark.parametrize("periodic", [False, True])
+@pytest.mark.parametrize("seed", [0, 1])
+def test_cell_list_pairs_match_kdtree(periodic, seed):
+    """The numba cell-list neighbour search returns exactly the pair set of
+    scipy.spatial.cKDTree.query_pairs (general-purpose reference library; Maneewongvatana
+    & Mount, "Analysis of approximate nearest neighbor searching with clustered point
+    sets", 1999, for its sliding-midpoint tree), with the minimum image (``boxsize``)
+    in a periodic box; each pair once, ``i < j``."""
+    from scipy.spatial import cKDTree
+
+    from sheetview.measures.stacking import candidate_pairs
+    rng = np.random.default_rng(seed)
+    L = np.array([9.0, 12.0, 7.5])
+    # clustered points plus points on the box faces, so that wrapping matters
+    c = np.concatenate([rng.random((2500, 3)) * L,
+                        rng.normal(0, 0.3, (300, 3)) % L,
+                        rng.random((50, 3)) * L * [1, 1, 0]])
+    box = Box((0, 0, 0), tuple(L), periodic=periodic)
+    r = 1.1
+    i, j = candidate_pairs(c, r, box)
+    assert np.all(i < j)
+    mine = np.sort(i * len(c) + j)
+    assert np.all(np.diff(mine) > 0)  # no pair twice
+    tree = cKDTree(c, boxsize=L if periodic else None)
+    ref = tree.query_pairs(r, output_type="ndarray")
+    np.testing.assert_array_equal(mine, np.sort(ref[:, 0] * len(c) + ref[:, 1]))
+    # a box thinner than 3 cells along an axis falls back to the k-d tree
+    thin = Box((0, 0, 0), (9.0, 12.0, 2.5), periodic=True)
+    c2 = rng.random((800, 3)) * [9.0, 12.0, 2.5]
+    i2, j2 = candidate_pairs(c2, r, thin)
+    ref2 = cKDTree(c2, boxsize=[9.0, 12.0, 2.5]).query_pairs(r, output_type="ndarray")
+    np.testing.assert_array_equal(np.sort(i2 * 800 + j2), np.sort(ref2[:, 0] * 800 + ref2[:, 1]))
+
+
+@pytest.mark.parametrize("periodic", [False, True])
+def test_fused_graph_matches_kdtree_and_pairwise_classification(periodic):
+    """The fused cell-list pass (search + lateral pretest + classification) links exactly
+    the pairs found by classifying every cKDTree candidate pair one by one (scipy
+    cKDTree as the general-purpose reference for the search), with bit-identical angles."""
+    import math
+
+    from sheetview.measures.stacking import (_box_lengths, _candidate_pairs_kdtree,
+                                             _classify_pairs, candidate_radius)
+    rng = np.random.default_rng(3)
+    parts = []
+    for k in range(27):
+        rot = Rotation.from_rotvec(rng.normal(0, 0.08, 3)) if k % 2 else Rotation.random(random_state=k)
+        parts.append(make_stack(3 + k % 3, n=3, center=(np.array([k % 3, k // 3 % 3, k // 9]) + 0.5) * 7.0,
+                                rot=rot))
+    v = np.concatenate(parts)
+    v += rng.normal(0, 0.05, v.shape)  # jitter: some pairs fail, some tilted
+    dom = Box((0, 0, 0), (21, 21, 21), periodic=periodic)
+    s = Structure(v, 0.7, dom)
+    st = StackingSettings(angle_tol=3.0)
+    g = stacking_graph(s, st)
+    r = candidate_radius(s, st)
+    C = np.ascontiguousarray(s.centroids)
+    pi, pj = _candidate_pairs_kdtree(C, r, dom)
+    per, L = _box_lengths(dom)
+    code = np.empty(len(pi), np.int8)
+    ang = np.empty(len(pi))
+    _classify_pairs(pi, pj, np.ascontiguousarray(s.vertices), C, np.ascontiguousarray(s.normals),
+                    L, per, math.cos(math.radians(st.angle_tol)), math.cos(math.radians(st.tilt_limit)),
+                    st.gap_tol, st.spacing, st.overlap, st.edge_tol, code, ang)
+    assert g.n_candidates == len(pi)
+    for c, got in ((1, g.inplane), (2, g.stacked), (3, g.tilted)):
+        k = code == c
+        assert len(got) == k.sum()
+        np.testing.assert_array_equal(np.sort(got[:, 0] * len(s) + got[:, 1]),
+                                      np.sort(pi[k] * len(s) + pj[k]))
+    assert len(g.tilted) > 0 and len(g.stacked) > 0 and len(g.inplane) > 0
+    k = np.flatnonzero(code == 3)
+    ref = dict(zip((pi[k] * len(s) + pj[k]).tolist(), ang[k].tolist()))
+    assert [ref[a * len(s) + b] for a, b in g.tilted.tolist()] == g.tilted_angle.tolist()

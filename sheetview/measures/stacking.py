@@ -252,63 +252,286 @@ def _classify_pairs(pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, 
 @numba.njit(cache=True)
 def _classify_one(p, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing,
                   overlap, edge_tol, code, angle, buf, tri):
-    if True:
-        i = pi[p]
-        j = pj[p]
-        code[p] = 0
-        dn = Nrm[i, 0] * Nrm[j, 0] + Nrm[i, 1] * Nrm[j, 1] + Nrm[i, 2] * Nrm[j, 2]
-        s = 1.0 if dn >= 0.0 else -1.0
-        c = abs(dn)
-        angle[p] = np.nan
-        if c < cos_tilt:
-            return
-        m0 = Nrm[i, 0] + s * Nrm[j, 0]
-        m1 = Nrm[i, 1] + s * Nrm[j, 1]
-        m2 = Nrm[i, 2] + s * Nrm[j, 2]
-        mn = math.sqrt(m0 * m0 + m1 * m1 + m2 * m2)
-        m0 /= mn
-        m1 /= mn
-        m2 /= mn
-        d0 = C[j, 0] - C[i, 0]
-        d1 = C[j, 1] - C[i, 1]
-        d2 = C[j, 2] - C[i, 2]
-        if periodic:
-            d0 -= L[0] * np.round(d0 / L[0])
-            d1 -= L[1] * np.round(d1 / L[1])
-            d2 -= L[2] * np.round(d2 / L[2])
-        gap = abs(m0 * d0 + m1 * d1 + m2 * d2)
-        parallel = c >= cos_tol
-        if parallel and gap <= gap_tol:
-            kind = 1
-        elif abs(gap - spacing) <= gap_tol:
-            kind = 2 if parallel else 3
-        else:
-            return
-        angle[p] = math.degrees(math.acos(min(c, 1.0)))
-        # in-plane basis (u, v) of the common plane
-        u0, u1, u2, v0, v1, v2 = plane_basis(m0, m1, m2)
-        ax = tri[0]
-        ay = tri[1]
-        bx = tri[2]
-        by = tri[3]
-        for k in range(3):
-            x0 = V[i, k, 0] - C[i, 0]
-            x1 = V[i, k, 1] - C[i, 1]
-            x2 = V[i, k, 2] - C[i, 2]
-            ax[k] = x0 * u0 + x1 * u1 + x2 * u2
-            ay[k] = x0 * v0 + x1 * v1 + x2 * v2
-            y0 = V[j, k, 0] - C[j, 0] + d0
-            y1 = V[j, k, 1] - C[j, 1] + d1
-            y2 = V[j, k, 2] - C[j, 2] + d2
-            bx[k] = y0 * u0 + y1 * u1 + y2 * u2
-            by[k] = y0 * v0 + y1 * v1 + y2 * v2
-        area_a = _ccw(ax, ay)
-        area_b = _ccw(bx, by)
-        inter = _clip_area_buf(ax, ay, bx, by, buf)
-        if inter >= overlap * min(area_a, area_b) and inter > 0.0:
-            code[p] = kind
-        elif kind == 1 and _shares_edge(ax, ay, bx, by, edge_tol):
-            code[p] = 1
+    i = pi[p]
+    j = pj[p]
+    kind, c, m0, m1, m2, d0, d1, d2 = _pair_kind(i, j, C, Nrm, L, periodic, cos_tol, cos_tilt,
+                                                 gap_tol, spacing)
+    code[p] = 0
+    angle[p] = np.nan
+    if kind == 0:
+        return
+    angle[p] = math.degrees(math.acos(min(c, 1.0)))
+    code[p] = _pair_overlap(kind, i, j, V, C, m0, m1, m2, d0, d1, d2, overlap, edge_tol,
+                            buf, tri)
+
+
+@numba.njit(cache=True, inline="always")
+def _pair_kind(i, j, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing):
+    """Cheap tests of a pair (angle between normals, gap along the mean normal).
+
+    Returns ``(kind, |cos|, m, d)``: kind 0 rejected, 1 in-plane, 2 stacked, 3 tilted
+    candidate (the overlap test still to come), the mean unit normal ``m`` and the
+    minimum-image centroid offset ``d = C_j - C_i``."""
+    dn = Nrm[i, 0] * Nrm[j, 0] + Nrm[i, 1] * Nrm[j, 1] + Nrm[i, 2] * Nrm[j, 2]
+    s = 1.0 if dn >= 0.0 else -1.0
+    c = abs(dn)
+    if c < cos_tilt:
+        return 0, c, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0
+    m0 = Nrm[i, 0] + s * Nrm[j, 0]
+    m1 = Nrm[i, 1] + s * Nrm[j, 1]
+    m2 = Nrm[i, 2] + s * Nrm[j, 2]
+    mn = math.sqrt(m0 * m0 + m1 * m1 + m2 * m2)
+    m0 /= mn
+    m1 /= mn
+    m2 /= mn
+    d0 = C[j, 0] - C[i, 0]
+    d1 = C[j, 1] - C[i, 1]
+    d2 = C[j, 2] - C[i, 2]
+    if periodic:
+        d0 -= L[0] * np.round(d0 / L[0])
+        d1 -= L[1] * np.round(d1 / L[1])
+        d2 -= L[2] * np.round(d2 / L[2])
+    gap = abs(m0 * d0 + m1 * d1 + m2 * d2)
+    parallel = c >= cos_tol
+    if parallel and gap <= gap_tol:
+        kind = 1
+    elif abs(gap - spacing) <= gap_tol:
+        kind = 2 if parallel else 3
+    else:
+        kind = 0
+    return kind, c, m0, m1, m2, d0, d1, d2
+
+
+@numba.njit(cache=True)
+def _pair_overlap(kind, i, j, V, C, m0, m1, m2, d0, d1, d2, overlap, edge_tol, buf, tri):
+    """Overlap test of a pair that passed :func:`_pair_kind`: returns ``kind`` when the
+    projected triangles overlap by at least ``overlap`` of the smaller one (or, in-plane,
+    share an edge), else 0."""
+    # in-plane basis (u, v) of the common plane
+    u0, u1, u2, v0, v1, v2 = plane_basis(m0, m1, m2)
+    ax = tri[0]
+    ay = tri[1]
+    bx = tri[2]
+    by = tri[3]
+    for k in range(3):
+        x0 = V[i, k, 0] - C[i, 0]
+        x1 = V[i, k, 1] - C[i, 1]
+        x2 = V[i, k, 2] - C[i, 2]
+        ax[k] = x0 * u0 + x1 * u1 + x2 * u2
+        ay[k] = x0 * v0 + x1 * v1 + x2 * v2
+        y0 = V[j, k, 0] - C[j, 0] + d0
+        y1 = V[j, k, 1] - C[j, 1] + d1
+        y2 = V[j, k, 2] - C[j, 2] + d2
+        bx[k] = y0 * u0 + y1 * u1 + y2 * u2
+        by[k] = y0 * v0 + y1 * v1 + y2 * v2
+    area_a = _ccw(ax, ay)
+    area_b = _ccw(bx, by)
+    inter = _clip_area_buf(ax, ay, bx, by, buf)
+    if inter >= overlap * min(area_a, area_b) and inter > 0.0:
+        return kind
+    if kind == 1 and _shares_edge(ax, ay, bx, by, edge_tol):
+        return 1
+    return 0
+
+
+# ------------------------------------------------------------------ cell list
+#: The 13 "forward" neighbour offsets of the half shell (the cell itself is the 14th):
+#: every unordered pair of adjacent cells is visited once, from its lower cell.
+_HALF_SHELL = np.array([(dx, dy, dz) for dx in (-1, 0, 1) for dy in (-1, 0, 1)
+                        for dz in (-1, 0, 1) if (dx, dy, dz) > (0, 0, 0)], dtype=np.int64)
+
+
+@numba.njit(cache=True, inline="always")
+def _neighbour_cell(cx, cy, cz, off, ncell, periodic, L, shift):
+    """Index of the cell at offset ``off`` from (cx, cy, cz), or -1 outside a closed box;
+    ``shift`` receives the image shift to add to that cell's points (periodic)."""
+    g = 0
+    for a in range(3):
+        c = (cx, cy, cz)[a] + off[a]
+        shift[a] = 0.0
+        if c < 0:
+            if not periodic:
+                return -1
+            c += ncell[a]
+            shift[a] = -L[a]
+        elif c >= ncell[a]:
+            if not periodic:
+                return -1
+            c -= ncell[a]
+            shift[a] = L[a]
+        g = g * ncell[a] + c
+    return g
+
+
+@numba.njit(cache=True, parallel=True)
+def _cell_pairs(P, start, cells, ncell, radius, periodic, L, chunk_bounds, offsets, mode,
+                classify, order, V, C, Nrm, Rad, cos_tol, cos_tilt, gap_tol, spacing, overlap, edge_tol,
+                n_cand, n_kept, out_i, out_j, out_code, out_angle):
+    """Cell-list pair search over points ``P`` sorted by cell (cells at least ``radius``
+    wide, at least 3 per periodic axis), half-shell enumeration, minimum image.
+
+    ``mode`` 0: count, per chunk of cells, the pairs within ``radius`` (``n_cand``) and
+    those passing the cheap tests of :func:`_pair_kind` (``n_kept``). ``mode`` 1: redo
+    the search and fill, from ``offsets[chunk]`` on, the kept pairs (original indices
+    ``i < j``), their code after the overlap test (0 when it fails) and angle (deg).
+    Pairs are classified with the lower original index first, exactly as
+    :func:`_classify_pairs` does. ``V, C, Nrm`` are in sorted order. With ``classify``
+    False every pair within ``radius`` is kept (plain neighbour search). ``Rad`` is
+    each prism's largest centroid-to-corner distance of its mid-plane triangle (exact
+    lateral pretest before the overlap test).
+    """
+    r2 = radius * radius
+    nchunk = chunk_bounds.shape[0] - 1
+    for ch in numba.prange(nchunk):
+        shift = np.zeros(3)
+        buf = np.empty((4, 12))
+        tri = np.empty((4, 3))
+        nc = 0
+        nk = 0
+        w = offsets[ch] if mode == 1 else 0
+        for q in range(chunk_bounds[ch], chunk_bounds[ch + 1]):
+            c = cells[q]
+            cz = c % ncell[2]
+            cy = (c // ncell[2]) % ncell[1]
+            cx = c // (ncell[1] * ncell[2])
+            for o in range(14):
+                if o == 0:
+                    g = c
+                    shift[0] = 0.0
+                    shift[1] = 0.0
+                    shift[2] = 0.0
+                else:
+                    g = _neighbour_cell(cx, cy, cz, _HALF_SHELL[o - 1], ncell, periodic, L,
+                                        shift)
+                    if g < 0:
+                        continue
+                j0 = start[g]
+                j1 = start[g + 1]
+                if j0 == j1:
+                    continue
+                for a in range(start[c], start[c + 1]):
+                    px = P[a, 0] - shift[0]
+                    py = P[a, 1] - shift[1]
+                    pz = P[a, 2] - shift[2]
+                    for b in range(a + 1 if o == 0 else j0, j1):
+                        e0 = P[b, 0] - px
+                        e1 = P[b, 1] - py
+                        e2 = P[b, 2] - pz
+                        if e0 * e0 + e1 * e1 + e2 * e2 > r2:
+                            continue
+                        nc += 1
+                        if order[a] < order[b]:
+                            i = a
+                            j = b
+                        else:
+                            i = b
+                            j = a
+                        if not classify:
+                            if mode == 1:
+                                out_i[w] = order[i]
+                                out_j[w] = order[j]
+                                w += 1
+                            nk += 1
+                            continue
+                        kind, cs, m0, m1, m2, d0, d1, d2 = _pair_kind(
+                            i, j, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing)
+                        if kind == 0:
+                            continue
+                        # lateral pretest: the projected triangles lie in discs of radius
+                        # R about their projected centroids, so they can neither overlap
+                        # nor share an edge (within edge_tol) when farther apart laterally
+                        gd = m0 * d0 + m1 * d1 + m2 * d2
+                        lat2 = d0 * d0 + d1 * d1 + d2 * d2 - gd * gd
+                        reach = Rad[i] + Rad[j] + edge_tol
+                        if lat2 > reach * reach * (1.0 + 1e-6) + 1e-12:
+                            continue
+                        if mode == 1:
+                            out_i[w] = order[i]
+                            out_j[w] = order[j]
+                            out_angle[w] = math.degrees(math.acos(min(cs, 1.0)))
+                            out_code[w] = _pair_overlap(kind, i, j, V, C, m0, m1, m2, d0, d1,
+                                                        d2, overlap, edge_tol, buf, tri)
+                            w += 1
+                        nk += 1
+        n_cand[ch] = nc
+        n_kept[ch] = nk
+
+
+def _cell_list(centroids, radius, domain):
+    """Sort points into a grid of cells at least ``radius`` wide.
+
+    Returns ``(P, order, start, cells, ncell, periodic, L)``: ``P`` the (wrapped) points in
+    cell order, ``order`` their original indices, ``start`` the CSR cell bounds, ``cells``
+    the non-empty cells; ``None`` when a periodic axis would have fewer than 3 cells (the
+    half shell would then meet a cell twice).
+    """
+    c = np.asarray(centroids, dtype=np.float64)
+    n = len(c)
+    periodic, L = _box_lengths(domain)
+    if periodic:
+        lo = np.asarray(domain.min, dtype=np.float64)
+        P = np.mod(c - lo, L)
+        P[P >= L] = 0.0
+        ncell = np.floor(L / radius).astype(np.int64)
+        if np.any(ncell < 3):
+            return None
+        size = L / ncell
+    else:
+        P = c - c.min(axis=0)
+        ext = P.max(axis=0)
+        size = np.full(3, float(radius))
+        ncell = np.floor(ext / size).astype(np.int64) + 1
+        while np.prod(ncell.astype(float)) > 2.0 * n + 64:  # sparse points: coarser cells
+            size = size * 2.0
+            ncell = np.floor(ext / size).astype(np.int64) + 1
+    idx = np.minimum((P / size).astype(np.int64), ncell - 1)
+    cell = (idx[:, 0] * ncell[1] + idx[:, 1]) * ncell[2] + idx[:, 2]
+    order = np.argsort(cell, kind="stable")
+    cs = cell[order]
+    start = np.zeros(int(np.prod(ncell)) + 1, np.int64)
+    np.cumsum(np.bincount(cs, minlength=len(start) - 1), out=start[1:])
+    cells = np.flatnonzero(start[1:] != start[:-1])
+    return np.ascontiguousarray(P[order]), order, start, cells, ncell, periodic, L
+
+
+def _chunks(n_items, per=64, most=1 << 14):
+    """Chunk bounds over ``n_items`` (independent of the thread count, so that outputs
+    come in the same order whatever the number of threads)."""
+    k = max(1, min(most, n_items // per))
+    return np.linspace(0, n_items, k + 1).astype(np.int64)
+
+
+def _fused_graph(structure, settings, radius):
+    """Candidate search and classification in one cell-list pass (see
+    :func:`_cell_pairs`); returns ``(pi, pj, code, angle, n_candidates)`` for the pairs
+    that passed the cheap tests, or None when the cell list does not apply."""
+    cl = _cell_list(structure.centroids, radius, structure.domain)
+    if cl is None:
+        return None
+    P, order, start, cells, ncell, periodic, L = cl
+    C = np.ascontiguousarray(np.asarray(structure.centroids, dtype=np.float64)[order])
+    V = np.ascontiguousarray(np.asarray(structure.vertices, dtype=np.float64)[order])
+    Nrm = np.ascontiguousarray(np.asarray(structure.normals, dtype=np.float64)[order])
+    Rad = np.sqrt(((V - C[:, None, :]) ** 2).sum(axis=2).max(axis=1))
+    bounds = _chunks(len(cells))
+    k = len(bounds) - 1
+    n_cand = np.zeros(k, np.int64)
+    n_kept = np.zeros(k, np.int64)
+    args = (math.cos(math.radians(settings.angle_tol)), math.cos(math.radians(settings.tilt_limit)),
+            settings.gap_tol, settings.spacing, settings.overlap, settings.edge_tol)
+    zi = np.zeros(0, np.int64)
+    _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, zi, 0, True, order,
+                V, C, Nrm, Rad, *args, n_cand, n_kept, zi, zi, np.zeros(0, np.int8), np.zeros(0))
+    offsets = np.zeros(k + 1, np.int64)
+    np.cumsum(n_kept, out=offsets[1:])
+    m = int(offsets[-1])
+    pi = np.empty(m, np.int64)
+    pj = np.empty(m, np.int64)
+    code = np.empty(m, np.int8)
+    angle = np.empty(m, np.float64)
+    _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, offsets, 1, True,
+                order, V, C, Nrm, Rad, *args, n_cand, n_kept, pi, pj, code, angle)
+    return pi, pj, code, angle, int(n_cand.sum())
 
 
 @numba.njit(cache=True)
@@ -526,7 +749,43 @@ def candidate_radius(structure, settings: StackingSettings) -> float:
 
 def candidate_pairs(centroids, radius, domain):
     """All centroid pairs closer than ``radius`` (minimum image in periodic boxes), as two
-    int64 arrays ``i < j``. Uses :class:`scipy.spatial.cKDTree` with ndarray output."""
+    int64 arrays ``i < j``.
+
+    A numba cell list (cells at least ``radius`` wide, half-shell enumeration so that
+    each pair is met once, parallel over cells with a count-then-fill pass); a periodic
+    box with fewer than 3 cells along an axis falls back to :class:`scipy.spatial.cKDTree`.
+    Pairs come in a fixed order (by cell), whatever the number of threads.
+    """
+    c = np.asarray(centroids, dtype=np.float64).reshape(-1, 3)
+    if len(c) < 2:
+        e = np.zeros(0, np.int64)
+        return e, e
+    cl = _cell_list(c, radius, domain)
+    if cl is None:
+        return _candidate_pairs_kdtree(c, radius, domain)
+    P, order, start, cells, ncell, periodic, L = cl
+    bounds = _chunks(len(cells))
+    k = len(bounds) - 1
+    n_cand = np.zeros(k, np.int64)
+    n_kept = np.zeros(k, np.int64)
+    z = np.zeros((0, 3))
+    zi = np.zeros(0, np.int64)
+    rest = (z, z, np.zeros(0), 1.0, 0.0, 0.0, 1.0, 1.0, 1.0)
+    _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, zi, 0, False, order,
+                np.zeros((0, 3, 3)), *rest, n_cand, n_kept, zi, zi, np.zeros(0, np.int8),
+                np.zeros(0))
+    offsets = np.zeros(k + 1, np.int64)
+    np.cumsum(n_kept, out=offsets[1:])
+    pi = np.empty(int(offsets[-1]), np.int64)
+    pj = np.empty(int(offsets[-1]), np.int64)
+    _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, offsets, 1, False,
+                order, np.zeros((0, 3, 3)), *rest, n_cand, n_kept, pi, pj, np.zeros(0, np.int8),
+                np.zeros(0))
+    return pi, pj
+
+
+def _candidate_pairs_kdtree(centroids, radius, domain):
+    """Reference search: :meth:`scipy.spatial.cKDTree.query_pairs` (ndarray output)."""
     c = np.asarray(centroids, dtype=np.float64)
     if len(c) < 2:
         e = np.zeros(0, np.int64)
@@ -539,7 +798,7 @@ def candidate_pairs(centroids, radius, domain):
         tree = cKDTree(w, boxsize=L, balanced_tree=False, compact_nodes=False)
     else:
         tree = cKDTree(np.array(c), balanced_tree=False, compact_nodes=False)
-    pairs = tree.query_pairs(radius, output_type="ndarray")
+    pairs = tree.query_pairs(radius, output_type="ndarray").astype(np.int64, copy=False)
     return np.ascontiguousarray(pairs[:, 0]), np.ascontiguousarray(pairs[:, 1])
 
 
@@ -581,10 +840,11 @@ def _check_structure(structure):
 def stacking_graph(structure, settings: StackingSettings | None = None) -> StackingGraph:
     """Find and classify neighbour pairs (in-plane, stacked, tilted contact).
 
-    Candidates come from a k-d tree over centroids (:func:`candidate_radius`); each
-    candidate is classified by a parallel numba kernel that computes the angle between
-    normals, the gap along the mean normal and the exact overlap of the triangles
-    projected on the common plane (Sutherland-Hodgman clipping).
+    Candidates are the centroid pairs within :func:`candidate_radius`, found by a cell
+    list; each is classified in the same parallel numba pass (no candidate list is
+    stored) from the angle between normals, the gap along the mean normal and the exact
+    overlap of the triangles projected on the common plane (Sutherland-Hodgman
+    clipping). Links come in a fixed order whatever the number of threads.
     """
     _check_structure(structure)
     if settings is None:
@@ -593,17 +853,22 @@ def stacking_graph(structure, settings: StackingSettings | None = None) -> Stack
     if len(structure) < 2:
         return StackingGraph(empty, empty, empty, np.zeros(0), 0, 0.0)
     radius = candidate_radius(structure, settings)
-    C = np.ascontiguousarray(structure.centroids)
-    pi, pj = candidate_pairs(C, radius, structure.domain)
-    periodic, L = _box_lengths(structure.domain)
-    code = np.empty(pi.shape[0], np.int8)
-    angle = np.empty(pi.shape[0], np.float64)
-    _classify_pairs(pi, pj, np.ascontiguousarray(structure.vertices), C,
-                    np.ascontiguousarray(structure.normals), L, periodic,
-                    math.cos(math.radians(settings.angle_tol)),
-                    math.cos(math.radians(settings.tilt_limit)),
-                    settings.gap_tol, settings.spacing, settings.overlap, settings.edge_tol,
-                    code, angle)
+    fused = _fused_graph(structure, settings, radius)
+    if fused is not None:
+        pi, pj, code, angle, n_cand = fused
+    else:
+        C = np.ascontiguousarray(structure.centroids)
+        pi, pj = _candidate_pairs_kdtree(C, radius, structure.domain)
+        n_cand = int(pi.shape[0])
+        periodic, L = _box_lengths(structure.domain)
+        code = np.empty(pi.shape[0], np.int8)
+        angle = np.empty(pi.shape[0], np.float64)
+        _classify_pairs(pi, pj, np.ascontiguousarray(structure.vertices), C,
+                        np.ascontiguousarray(structure.normals), L, periodic,
+                        math.cos(math.radians(settings.angle_tol)),
+                        math.cos(math.radians(settings.tilt_limit)),
+                        settings.gap_tol, settings.spacing, settings.overlap, settings.edge_tol,
+                        code, angle)
 
     def pick(c):
         k = np.flatnonzero(code == c)
@@ -612,7 +877,7 @@ def stacking_graph(structure, settings: StackingSettings | None = None) -> Stack
     inplane, _ = pick(CODE_INPLANE)
     stacked, _ = pick(CODE_STACKED)
     tilted, kt = pick(CODE_TILTED)
-    return StackingGraph(inplane, stacked, tilted, angle[kt], int(pi.shape[0]), radius)
+    return StackingGraph(inplane, stacked, tilted, angle[kt], n_cand, radius)
 
 
 # -------------------------------------------------------------------------- results
