@@ -46,6 +46,7 @@ from dataclasses import dataclass, field
 
 import numba
 import numpy as np
+from numba.cpython.unsafe.numbers import trailing_zeros as _tz
 
 from ..errors import OptionError
 from ..grid import GEL, OUTSIDE, PhaseGrid, _phase_code
@@ -178,67 +179,151 @@ def _ridge(idx, r, rel, shape, periodic):
     return keep
 
 
+_ONES = np.uint64(0xFFFFFFFFFFFFFFFF)
+
+
 @numba.njit(cache=True, parallel=True)
-def _paint(ci, cj, ck, r2, val, rel, out, periodic, nchunks):
-    """``out[q] = max(out[q], val[b])`` for every ball b and voxel q with
-    ``|q - centre_b|^2 < r2[b]`` (internal units, exact squared radii). The x axis is split
-    into ``nchunks`` chunks painted in parallel, each by one thread, so no two threads
-    write one voxel."""
-    n0, n1, n2 = out.shape
+def _unpainted_bits(mask):
+    """Bit set of the phase voxels, one bit per voxel along the last (contiguous) axis:
+    bit ``k & 63`` of ``U[i, j, k >> 6]`` is set when ``mask[i, j, k]``."""
+    n0, n1, n2 = mask.shape
+    nw = (n2 + 63) >> 6
+    U = np.zeros((n0, n1, nw), dtype=np.uint64)
+    for i in numba.prange(n0):
+        for j in range(n1):
+            for k in range(n2):
+                if mask[i, j, k]:
+                    U[i, j, k >> 6] |= np.uint64(1) << np.uint64(k & 63)
+    return U
+
+
+@numba.njit(cache=True, inline="always")
+def _take_span(U, out, i, j, k0, k1, v):
+    """Write ``v`` on the still unpainted voxels ``k0 <= k <= k1`` of row ``(i, j)`` and
+    mark them painted (``0 <= k0 <= k1 < n2``)."""
+    w0 = k0 >> 6
+    w1 = k1 >> 6
+    for w in range(w0, w1 + 1):
+        word = U[i, j, w]
+        if word == 0:
+            continue
+        lo = k0 - (w << 6) if w == w0 else 0
+        hi = k1 - (w << 6) if w == w1 else 63
+        msk = (_ONES >> np.uint64(63 - hi)) & (_ONES << np.uint64(lo))
+        bits = word & msk
+        if bits == 0:
+            continue
+        U[i, j, w] = word & ~msk
+        base = w << 6
+        while bits != 0:
+            out[i, j, base + _tz(bits)] = v
+            bits &= bits - np.uint64(1)
+
+
+@numba.njit(cache=True, inline="always")
+def _paint_plane(U, out, i, dx2, rr, c1, c2, v, rel, periodic):
+    """Paint the disc ``|(j, k) - (c1, c2)|^2 < rr - dx2`` of plane ``i`` (first cover)."""
+    n1 = out.shape[1]
+    n2 = out.shape[2]
+    rj = int(math.sqrt(rr - dx2) / rel[1])
+    while rj >= 0 and dx2 + (rj * rel[1]) ** 2 >= rr:
+        rj -= 1
+    for dj in range(-rj, rj + 1):
+        j = c1 + dj
+        if periodic:
+            j %= n1
+        elif j < 0 or j >= n1:
+            continue
+        dxy2 = dx2 + (dj * rel[1]) ** 2
+        rk = int(math.sqrt(rr - dxy2) / rel[2])
+        while rk >= 0 and dxy2 + (rk * rel[2]) ** 2 >= rr:
+            rk -= 1
+        if rk < 0:
+            continue
+        if not periodic:
+            _take_span(U, out, i, j, max(c2 - rk, 0), min(c2 + rk, n2 - 1), v)
+        elif 2 * rk + 1 >= n2:
+            _take_span(U, out, i, j, 0, n2 - 1, v)
+        else:
+            a = (c2 - rk) % n2
+            b = a + 2 * rk
+            if b < n2:
+                _take_span(U, out, i, j, a, b, v)
+            else:
+                _take_span(U, out, i, j, a, n2 - 1, v)
+                _take_span(U, out, i, j, 0, b - n2, v)
+
+
+@numba.njit(cache=True, parallel=True)
+def _paint_first(ci, cj, ck, r2, val, rel, out, U, periodic, nslabs):
+    """First-cover ball painting: the balls, given in order of decreasing ``val``, write
+    ``val[b]`` on the voxels ``q`` with ``|q - centre_b|^2 < r2[b]`` (internal units) not
+    yet painted; ``U`` (:func:`_unpainted_bits`) marks the voxels that may still be
+    painted and is consumed. Since every voxel keeps the first (largest) value offered,
+    the result is ``max`` over the balls holding it, as in plain max-painting, but each
+    voxel is written once and rows already painted are skipped a 64-voxel word at a time.
+    The x axis is split into ``nslabs`` slabs, each painted by one thread (no two threads
+    write one voxel)."""
+    n0 = out.shape[0]
     nb = ci.size
-    for ch in numba.prange(nchunks):
-        x0 = (ch * n0) // nchunks
-        x1 = ((ch + 1) * n0) // nchunks
+    for s in numba.prange(nslabs):
+        x0 = (s * n0) // nslabs
+        x1 = ((s + 1) * n0) // nslabs
         for b in range(nb):
             rr = r2[b]
-            if rr <= 0.0:
-                continue
-            v = val[b]
             ri = int(math.sqrt(rr) / rel[0])
             while ri >= 0 and (ri * rel[0]) ** 2 >= rr:
                 ri -= 1
             if ri < 0:
                 continue
-            if not periodic:
-                lo = max(-ri, x0 - ci[b])
-                hi = min(ri, x1 - 1 - ci[b])
+            c = ci[b]
+            if periodic:
+                qa = -((x1 - 1 - (c - ri)) // n0)  # ceil((c - ri - x1 + 1) / n0)
+                qb = (c + ri - x0) // n0
             else:
-                lo = -ri
-                hi = ri
-            for di in range(lo, hi + 1):
-                i = ci[b] + di
-                if periodic:
-                    i %= n0
-                    if i < x0 or i >= x1:
-                        continue
-                dx2 = (di * rel[0]) ** 2
-                rj = int(math.sqrt(rr - dx2) / rel[1])
-                while rj >= 0 and dx2 + (rj * rel[1]) ** 2 >= rr:
-                    rj -= 1
-                if rj < 0:
-                    continue
-                for dj in range(-rj, rj + 1):
-                    j = cj[b] + dj
-                    if periodic:
-                        j %= n1
-                    elif j < 0 or j >= n1:
-                        continue
-                    dxy2 = dx2 + (dj * rel[1]) ** 2
-                    rk = int(math.sqrt(rr - dxy2) / rel[2])
-                    while rk >= 0 and dxy2 + (rk * rel[2]) ** 2 >= rr:
-                        rk -= 1
-                    if rk < 0:
-                        continue
-                    if periodic:
-                        for kk in range(ck[b] - rk, ck[b] + rk + 1):
-                            k = kk % n2
-                            out[i, j, k] = max(out[i, j, k], v)
-                    else:
-                        k0 = max(ck[b] - rk, 0)
-                        k1 = min(ck[b] + rk, n2 - 1)
-                        row = out[i, j]
-                        for k in range(k0, k1 + 1):
-                            row[k] = max(row[k], v)
+                qa = 0
+                qb = 0
+            for q in range(qa, qb + 1):
+                lo = max(c - ri, x0 + q * n0)
+                hi = min(c + ri, x1 - 1 + q * n0)
+                for ii in range(lo, hi + 1):
+                    di = ii - c
+                    _paint_plane(U, out, ii - q * n0, (di * rel[0]) ** 2, rr, cj[b], ck[b],
+                                 val[b], rel, periodic)
+
+
+@numba.njit(cache=True)
+def _argsort_desc(bits):
+    """Indices sorting ``bits`` (the uint32 bit patterns of positive float32 values, which
+    order like the values) in decreasing order: LSD radix sort, 11-bit digits, passes on
+    which every key has the same digit skipped."""
+    n = bits.size
+    key = np.empty(n, dtype=np.uint32)
+    idx = np.empty(n, dtype=np.int64)
+    for t in range(n):
+        key[t] = ~bits[t]
+        idx[t] = t
+    key2 = np.empty_like(key)
+    idx2 = np.empty_like(idx)
+    count = np.empty(2049, dtype=np.int64)
+    for p in range(3):
+        sh = np.uint32(11 * p)
+        count[:] = 0
+        for t in range(n):
+            count[((key[t] >> sh) & np.uint32(2047)) + 1] += 1
+        if count.max() == n:
+            continue
+        for d in range(2048):
+            count[d + 1] += count[d]
+        for t in range(n):
+            d = (key[t] >> sh) & np.uint32(2047)
+            pos = count[d]
+            count[d] = pos + 1
+            key2[pos] = key[t]
+            idx2[pos] = idx[t]
+        key, key2 = key2, key
+        idx, idx2 = idx2, idx
+    return idx
 
 
 #: Neighbourhood (voxels per axis) searched for a containing ball on isotropic grids.
@@ -369,11 +454,12 @@ def _isotropic_integer(rel, r2):
     return bool(np.all(rel == 1.0)) and bool(np.all(np.floor(r2) == r2))
 
 
-def _paint_balls(shape, flat_idx, r2, values, rel, periodic, r_map, out):
+def _paint_balls(shape, flat_idx, r2, values, rel, periodic, r_map, out, mask):
     """Paint the balls (centres ``flat_idx``, squared radii ``r2``, ``values``) into
-    ``out`` (float32, zeroed here) after dropping balls contained in a neighbour's ball.
-    ``r_map`` is a flat float32 scratch array of the grid size (overwritten); ``out`` may
-    share its memory."""
+    ``out`` (float32, zeroed here; each voxel gets the largest value of the balls holding
+    it, 0 if none) after dropping balls contained in a neighbour's ball. ``r_map`` is a
+    flat float32 scratch array of the grid size (overwritten); ``out`` may share its
+    memory. ``mask`` (bool, the grid's shape) holds every voxel a ball can hold."""
     r_map[:] = 0
     exact = _isotropic_integer(np.asarray(rel), r2)
     if exact:
@@ -387,17 +473,24 @@ def _paint_balls(shape, flat_idx, r2, values, rel, periodic, r_map, out):
         r_map[flat_idx] = np.sqrt(r2)
         keep = _ridge(flat_idx, r_map, np.asarray(rel, dtype=np.float64),
                       np.asarray(shape, dtype=np.int64), bool(periodic))
+    vals = np.asarray(values, dtype=np.float32)
+    keep &= vals > 0  # max(0, v) = 0: a ball of non-positive value changes nothing
     sel = flat_idx[keep]
-    i, j, k = np.unravel_index(sel, shape)
-    out.fill(0)
-    nch = max(1, min(shape[0], 4 * numba.get_num_threads()))
-    rr = np.asarray(r2[keep], dtype=np.float64)
+    vals = vals[keep]
+    order = _argsort_desc(vals.view(np.uint32))
+    sel = sel[order]
+    vals = vals[order]
+    rr = np.asarray(r2, dtype=np.float64)[keep][order]
     if not exact:
         # squared radii rounded to float32: a voxel at exactly the wall distance (a tie,
         # common on anisotropic grids) must stay outside the open ball
         rr *= 1.0 - 1e-6
-    _paint(i.astype(np.int64), j.astype(np.int64), k.astype(np.int64), rr, np.asarray(values[keep], dtype=np.float32),
-           np.asarray(rel, dtype=np.float64), out, bool(periodic), nch)
+    i, j, k = np.unravel_index(sel, shape)
+    U = _unpainted_bits(np.ascontiguousarray(mask, dtype=np.bool_))
+    out.fill(0)
+    nslabs = max(1, min(shape[0], 8 * numba.get_num_threads()))
+    _paint_first(i.astype(np.int64), j.astype(np.int64), k.astype(np.int64), rr, vals,
+                 np.asarray(rel, dtype=np.float64), out, U, bool(periodic), nslabs)
     return out, int(sel.size)
 
 
@@ -445,7 +538,7 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None) -> np.nd
     elif out.shape != m.shape or out.dtype != np.float32 or not out.flags.c_contiguous:
         raise OptionError(f"out must be a C-contiguous float32 array of shape {m.shape}",
                           field="out")
-    res, _ = _paint_balls(m.shape, idx, r2, vals, rel, periodic, flat, out)
+    res, _ = _paint_balls(m.shape, idx, r2, vals, rel, periodic, flat, out, m)
     res[~m] = np.nan
     return res
 
@@ -662,7 +755,7 @@ def intrusion_diameter(mask, spacing, reservoir=None, *, diameters=None,
         out = scratch.reshape(m.shape)
     res_map, _ = _paint_balls(m.shape, idx[sel], rho2[sel].astype(np.float32),
                               (lev[sel] * unit).astype(np.float32), rel, periodic, scratch,
-                              out)
+                              out, m)
     res_map[~m] = np.nan
     return res_map
 
