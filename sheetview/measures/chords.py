@@ -289,64 +289,151 @@ def _merge_append(s, e, m, eps, line, out_l, out_s, out_e, no):
     return out_l, out_s, out_e, no
 
 
+@numba.njit(cache=True)
+def _fill_spheres(items, spheres, out):
+    """Copy each grid item's bounding sphere next to it (sequential reads in the walk)."""
+    for q in range(items.shape[0]):
+        p = items[q]
+        for k in range(4):
+            out[q, k] = spheres[p, k]
+
+
 @numba.njit(cache=True, nogil=True)
-def _prism_intervals(o, u, tlo, thi, line_ids, planes, spheres, glo, h, dims, start, items, eps):
+def _prism_intervals(o, u, tlo, thi, line_ids, planes, glo, h, dims, start, items, isph, eps):
     """Merged solid intervals (line, start, end) of lines against prisms, clipped to
-    [tlo, thi] per line."""
+    [tlo, thi] per line.
+
+    Each line walks the grid cells it crosses (3D DDA, Amanatides & Woo 1987); in each
+    cell the bounding sphere of every listed prism (stored next to the item, ``isph``:
+    centre and squared radius) is tested against the line first; a prism passing it is
+    clipped once per line (stamp) against its 5 face planes (Cyrus-Beck).
+    """
     n = o.shape[0]
     stamp = np.full(planes.shape[0], -1, np.int64)
-    cand = np.empty(64, np.int64)
     bs = np.empty(64)
     be = np.empty(64)
     out_l = np.empty(256, np.int64)
     out_s = np.empty(256)
     out_e = np.empty(256)
     no = 0
+    nx = dims[0]
+    ny = dims[1]
+    nz = dims[2]
     for i in range(n):
         if not tlo[i] < thi[i]:
             continue
-        cand, nc = _dda_candidates(o[i, 0], o[i, 1], o[i, 2], u[i, 0], u[i, 1], u[i, 2],
-                                   tlo[i], thi[i], glo, h, dims, start, items, stamp, i, cand, 0)
+        ox = o[i, 0]
+        oy = o[i, 1]
+        oz = o[i, 2]
+        ux = u[i, 0]
+        uy = u[i, 1]
+        uz = u[i, 2]
+        # clip [tlo, thi] to the grid box
+        tn = tlo[i]
+        tf = thi[i]
+        empty = False
+        for a in range(3):
+            oa = (ox, oy, oz)[a]
+            ua = (ux, uy, uz)[a]
+            lo = glo[a]
+            hi = glo[a] + dims[a] * h
+            if abs(ua) < 1e-300:
+                if oa < lo or oa > hi:
+                    empty = True
+            else:
+                ta = (lo - oa) / ua
+                tb = (hi - oa) / ua
+                if ta > tb:
+                    ta, tb = tb, ta
+                tn = max(tn, ta)
+                tf = min(tf, tb)
+        if empty or tn > tf:
+            continue
+        # DDA set-up
+        ix, sx, tmx, tdx = _dda_axis(ox, ux, tn, glo[0], h, nx)
+        iy, sy, tmy, tdy = _dda_axis(oy, uy, tn, glo[1], h, ny)
+        iz, sz, tmz, tdz = _dda_axis(oz, uz, tn, glo[2], h, nz)
         m = 0
-        for q in range(nc):
-            p = cand[q]
-            # bounding-sphere pretest: distance from the line to the prism's centre
-            wx = spheres[p, 0] - o[i, 0]
-            wy = spheres[p, 1] - o[i, 1]
-            wz = spheres[p, 2] - o[i, 2]
-            pr = wx * u[i, 0] + wy * u[i, 1] + wz * u[i, 2]
-            if wx * wx + wy * wy + wz * wz - pr * pr > spheres[p, 3]:
-                continue
-            t0 = tlo[i]
-            t1 = thi[i]
-            ok = True
-            for f in range(5):
-                den = planes[p, f, 0] * u[i, 0] + planes[p, f, 1] * u[i, 1] + planes[p, f, 2] * u[i, 2]
-                num = planes[p, f, 3] - (planes[p, f, 0] * o[i, 0] + planes[p, f, 1] * o[i, 1]
-                                         + planes[p, f, 2] * o[i, 2])
-                if den == 0.0:
-                    if num < 0.0:
-                        ok = False
-                        break
-                else:
-                    t = num / den
-                    if den > 0.0:
-                        if t < t1:
-                            t1 = t
+        while True:
+            c = (ix * ny + iy) * nz + iz
+            for q in range(start[c], start[c + 1]):
+                # bounding-sphere pretest: squared distance from the line to the centre
+                wx = isph[q, 0] - ox
+                wy = isph[q, 1] - oy
+                wz = isph[q, 2] - oz
+                pr = wx * ux + wy * uy + wz * uz
+                if wx * wx + wy * wy + wz * wz - pr * pr > isph[q, 3]:
+                    continue
+                p = items[q]
+                if stamp[p] == i:
+                    continue
+                stamp[p] = i
+                t0 = tlo[i]
+                t1 = thi[i]
+                ok = True
+                for f in range(5):
+                    den = planes[p, f, 0] * ux + planes[p, f, 1] * uy + planes[p, f, 2] * uz
+                    num = planes[p, f, 3] - (planes[p, f, 0] * ox + planes[p, f, 1] * oy
+                                             + planes[p, f, 2] * oz)
+                    if den == 0.0:
+                        if num < 0.0:
+                            ok = False
+                            break
                     else:
-                        if t > t0:
-                            t0 = t
-                    if t0 >= t1:
-                        ok = False
-                        break
-            if ok:
-                bs = _grow(bs, m)
-                be = _grow(be, m)
-                bs[m] = t0
-                be[m] = t1
-                m += 1
+                        t = num / den
+                        if den > 0.0:
+                            if t < t1:
+                                t1 = t
+                        else:
+                            if t > t0:
+                                t0 = t
+                        if t0 >= t1:
+                            ok = False
+                            break
+                if ok:
+                    bs = _grow(bs, m)
+                    be = _grow(be, m)
+                    bs[m] = t0
+                    be[m] = t1
+                    m += 1
+            # step to the next cell
+            if tmx <= tmy and tmx <= tmz:
+                if tmx > tf:
+                    break
+                ix += sx
+                if ix < 0 or ix >= nx:
+                    break
+                tmx += tdx
+            elif tmy <= tmz:
+                if tmy > tf:
+                    break
+                iy += sy
+                if iy < 0 or iy >= ny:
+                    break
+                tmy += tdy
+            else:
+                if tmz > tf:
+                    break
+                iz += sz
+                if iz < 0 or iz >= nz:
+                    break
+                tmz += tdz
         out_l, out_s, out_e, no = _merge_append(bs, be, m, eps, line_ids[i], out_l, out_s, out_e, no)
     return out_l[:no], out_s[:no], out_e[:no]
+
+
+@numba.njit(cache=True, inline="always")
+def _dda_axis(o, u, tm, glo, h, n):
+    """Start cell, step, parameter of the first cell boundary and boundary spacing along
+    one axis (Amanatides & Woo)."""
+    p = o + tm * u
+    i = int(math.floor((p - glo) / h))
+    i = min(max(i, 0), n - 1)
+    if u > 0:
+        return i, 1, (glo + (i + 1) * h - o) / u, h / u
+    if u < 0:
+        return i, -1, (glo + i * h - o) / u, -h / u
+    return i, 0, np.inf, np.inf
 
 
 @numba.njit(cache=True, nogil=True)
@@ -509,33 +596,74 @@ class ChordResult:
 def _chords_from_intervals(il, is_, ie, tlo, thi, eps):
     """Solid chords (merged intervals) and pore chords (gaps) of lines in [tlo, thi].
 
-    ``il`` sorted by line then start. Returns dicts of arrays (lengths, cut, line).
+    ``il`` sorted by line then start. Returns dicts of arrays (lengths, cut, line); pore
+    chords come sorted by line, then length (ties: inner gaps in order, then the leading
+    and trailing gaps, which touch the wall and are cut).
     """
-    n = len(tlo)
+    il = np.ascontiguousarray(il, dtype=np.int64)
     solid_cut = (is_ <= tlo[il] + eps) | (ie >= thi[il] - eps)
-    # gaps between consecutive intervals of the same line
-    same = il[1:] == il[:-1]
-    g_line = il[1:][same]
-    g_len = (is_[1:] - ie[:-1])[same]
-    # leading / trailing gaps (touch the wall)
-    first = np.ones(len(il), bool)
-    first[1:] = ~same
-    last = np.ones(len(il), bool)
-    last[:-1] = ~same
-    lead = is_[first] - tlo[il[first]]
-    trail = thi[il[last]] - ie[last]
-    hit = np.zeros(n, bool)
-    hit[il] = True
-    empty = (~hit) & (tlo < thi)
-    e_len = (thi - tlo)[empty]
-    pore_len = np.concatenate([g_len, lead, trail, e_len])
-    pore_line = np.concatenate([g_line, il[first], il[last], np.flatnonzero(empty)])
-    pore_cut = np.concatenate([np.zeros(len(g_len), bool), np.ones(len(lead) + len(trail) + len(e_len), bool)])
-    keep = pore_len > eps
-    o = np.lexsort((pore_len[keep], pore_line[keep]))
-    return ({"solid": ie - is_, "pore": pore_len[keep][o]},
-            {"solid": solid_cut, "pore": pore_cut[keep][o]},
-            {"solid": il, "pore": pore_line[keep][o]})
+    p_len, p_cut, p_line = _pore_chords(il, np.ascontiguousarray(is_, dtype=np.float64),
+                                        np.ascontiguousarray(ie, dtype=np.float64),
+                                        np.ascontiguousarray(tlo, dtype=np.float64),
+                                        np.ascontiguousarray(thi, dtype=np.float64), eps)
+    return ({"solid": ie - is_, "pore": p_len}, {"solid": solid_cut, "pore": p_cut},
+            {"solid": il, "pore": p_line})
+
+
+@numba.njit(cache=True)
+def _pore_chords(il, is_, ie, tlo, thi, eps):
+    """Pore chords of each line: inner gaps between its solid intervals (not cut), the
+    leading and trailing gaps to the wall and whole empty lines (cut); lengths > eps,
+    sorted per line by length (stable: gaps, then leading, then trailing)."""
+    n = tlo.shape[0]
+    m = il.shape[0]
+    cap = m + 2 * n
+    out_len = np.empty(cap)
+    out_cut = np.empty(cap, np.bool_)
+    out_line = np.empty(cap, np.int64)
+    buf_len = np.empty(64)
+    buf_cut = np.empty(64, np.bool_)
+    w = 0
+    k = 0
+    for line in range(n):
+        k1 = k
+        while k1 < m and il[k1] == line:
+            k1 += 1
+        if k1 == k:
+            if tlo[line] < thi[line] and thi[line] - tlo[line] > eps:
+                out_len[w] = thi[line] - tlo[line]
+                out_cut[w] = True
+                out_line[w] = line
+                w += 1
+            continue
+        c = 0
+        if k1 - k + 1 > buf_len.shape[0]:
+            buf_len = np.empty(2 * (k1 - k + 1))
+            buf_cut = np.empty(2 * (k1 - k + 1), np.bool_)
+        for q in range(k, k1 - 1):
+            g = is_[q + 1] - ie[q]
+            if g > eps:
+                buf_len[c] = g
+                buf_cut[c] = False
+                c += 1
+        g = is_[k] - tlo[line]
+        if g > eps:
+            buf_len[c] = g
+            buf_cut[c] = True
+            c += 1
+        g = thi[line] - ie[k1 - 1]
+        if g > eps:
+            buf_len[c] = g
+            buf_cut[c] = True
+            c += 1
+        o = np.argsort(buf_len[:c], kind="mergesort")
+        for q in range(c):
+            out_len[w] = buf_len[o[q]]
+            out_cut[w] = buf_cut[o[q]]
+            out_line[w] = line
+            w += 1
+        k = k1
+    return out_len[:w], out_cut[:w], out_line[:w]
 
 
 def merge_intervals(line, start, end, eps=0.0):
@@ -738,13 +866,57 @@ def _prisms_run(o, u, tlo, thi, vertices, normals, thickness, eps, n_threads):
     r2 = ((corners - cen[:, None, :]) ** 2).sum(axis=2).max(axis=1) * (1 + 1e-9) + 1e-18
     spheres = np.ascontiguousarray(np.concatenate([cen, r2[:, None]], axis=1))
     g = _build_grid(corners.min(axis=1), corners.max(axis=1))
-    ids = np.arange(len(o), dtype=np.int64)
-    o = np.ascontiguousarray(o)
-    u = np.ascontiguousarray(u)
+    isph = np.empty((len(g.items), 4))
+    _fill_spheres(g.items, spheres, isph)
+    # lines in spatial order (closest point to the centre, then direction) so that
+    # consecutive lines walk nearby cells and prisms (cache reuse)
+    ids = _line_order(o, u, cen)
+    o = np.ascontiguousarray(o[ids])
+    u = np.ascontiguousarray(u[ids])
+    tlo_s = np.ascontiguousarray(tlo[ids])
+    thi_s = np.ascontiguousarray(thi[ids])
     res = _run_chunks(_prism_intervals, len(o),
-                      lambda s: (o[s], u[s], tlo[s], thi[s], ids[s], planes, spheres, g.lo, g.h,
-                                 g.dims, g.start, g.items, eps), n_threads)
-    return tuple(np.concatenate([r[k] for r in res]) for k in range(3))
+                      lambda s: (o[s], u[s], tlo_s[s], thi_s[s], ids[s], planes, g.lo, g.h,
+                                 g.dims, g.start, g.items, isph, eps), n_threads)
+    il, is_, ie = (np.concatenate([r[k] for r in res]) for k in range(3))
+    return _regroup(il, is_, ie, len(ids))
+
+
+def _line_order(o, u, cen):
+    """Order of lines by the cell (a tenth of the structure's extent) of their point
+    closest to the structure's centre, then by a coarse bin of their sign-less direction."""
+    n = len(o)
+    if n == 0 or len(cen) == 0:
+        return np.arange(n, dtype=np.int64)
+    c0 = 0.5 * (cen.min(axis=0) + cen.max(axis=0))
+    size = max(float(np.ptp(cen, axis=0).max()) / 10.0, 1e-9)
+    w = o - c0
+    mid = w - np.einsum("ij,ij->i", w, u)[:, None] * u
+    km = np.floor(mid / size).astype(np.int64)
+    big = np.abs(u).argmax(axis=1)
+    uu = u * np.where(u[np.arange(n), big] < 0, -1.0, 1.0)[:, None]
+    kd = np.floor((uu + 1.0) / 0.5).astype(np.int64)
+    return np.lexsort((kd[:, 2], kd[:, 1], kd[:, 0], km[:, 2], km[:, 1], km[:, 0])).astype(np.int64)
+
+
+@numba.njit(cache=True)
+def _regroup(il, is_, ie, n):
+    """Reorder interval runs (each line's intervals contiguous, sorted by start) by line."""
+    cnt = np.zeros(n + 1, np.int64)
+    for k in range(il.shape[0]):
+        cnt[il[k] + 1] += 1
+    for k in range(n):
+        cnt[k + 1] += cnt[k]
+    ol = np.empty_like(il)
+    os_ = np.empty_like(is_)
+    oe = np.empty_like(ie)
+    for k in range(il.shape[0]):
+        q = cnt[il[k]]
+        cnt[il[k]] += 1
+        ol[q] = il[k]
+        os_[q] = is_[k]
+        oe[q] = ie[k]
+    return ol, os_, oe
 
 
 def _mesh_run(o, u, tlo, thi, tseg, body, eps, n_threads):
