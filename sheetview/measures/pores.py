@@ -180,116 +180,198 @@ def _ridge(idx, r, rel, shape, periodic):
 
 
 _ONES = np.uint64(0xFFFFFFFFFFFFFFFF)
+_ONE = np.uint64(1)
 
 
 @numba.njit(cache=True, parallel=True)
 def _unpainted_bits(mask):
-    """Bit set of the phase voxels, one bit per voxel along the last (contiguous) axis:
-    bit ``k & 63`` of ``U[i, j, k >> 6]`` is set when ``mask[i, j, k]``."""
+    """Bit sets of the voxels still to paint, initially the phase (``mask``).
+
+    ``U[i, j, w]``: bit ``b`` set when voxel ``(i, j, 64 w + b)`` is unpainted (one bit
+    per voxel along the last, contiguous axis). ``S[i, c, w]``: bit ``b`` set when row
+    ``j = 64 w + b`` of plane ``i`` has an unpainted voxel among ``8 c <= k < 8 c + 8``
+    (a summary over ``j`` of the bytes of ``U``, to skip painted rows by the 64)."""
     n0, n1, n2 = mask.shape
     nw = (n2 + 63) >> 6
     U = np.zeros((n0, n1, nw), dtype=np.uint64)
+    S = np.zeros((n0, 8 * nw, (n1 + 63) >> 6), dtype=np.uint64)
     for i in numba.prange(n0):
         for j in range(n1):
             for k in range(n2):
                 if mask[i, j, k]:
-                    U[i, j, k >> 6] |= np.uint64(1) << np.uint64(k & 63)
-    return U
+                    U[i, j, k >> 6] |= _ONE << np.uint64(k & 63)
+            jb = _ONE << np.uint64(j & 63)
+            for w in range(nw):
+                word = U[i, j, w]
+                if word == 0:
+                    continue
+                for c in range(8):
+                    if (word >> np.uint64(8 * c)) & np.uint64(255):
+                        S[i, 8 * w + c, j >> 6] |= jb
+    return U, S
 
 
 @numba.njit(cache=True, inline="always")
-def _take_span(U, out, i, j, k0, k1, v):
+def _word_mask(k0, k1, w):
+    """Bits of word ``w`` covering indices ``k0 <= k <= k1`` (the range meets the word)."""
+    lo = max(k0 - (w << 6), 0)
+    hi = min(k1 - (w << 6), 63)
+    return (_ONES >> np.uint64(63 - hi)) & (_ONES << np.uint64(lo))
+
+
+@numba.njit(cache=True, inline="always")
+def _take_span(U, S, out, i, j, k0, k1, v):
     """Write ``v`` on the still unpainted voxels ``k0 <= k <= k1`` of row ``(i, j)`` and
-    mark them painted (``0 <= k0 <= k1 < n2``)."""
-    w0 = k0 >> 6
-    w1 = k1 >> 6
-    for w in range(w0, w1 + 1):
+    mark them painted (nothing if ``k0 > k1``)."""
+    for w in range(k0 >> 6, (k1 >> 6) + 1):
         word = U[i, j, w]
         if word == 0:
             continue
-        lo = k0 - (w << 6) if w == w0 else 0
-        hi = k1 - (w << 6) if w == w1 else 63
-        msk = (_ONES >> np.uint64(63 - hi)) & (_ONES << np.uint64(lo))
+        msk = _word_mask(k0, k1, w)
         bits = word & msk
         if bits == 0:
             continue
-        U[i, j, w] = word & ~msk
+        rest = word & ~msk
+        U[i, j, w] = rest
         base = w << 6
         while bits != 0:
             out[i, j, base + _tz(bits)] = v
-            bits &= bits - np.uint64(1)
+            bits &= bits - _ONE
+        jb = ~(_ONE << np.uint64(j & 63))
+        for c in range(8):
+            if (rest >> np.uint64(8 * c)) & np.uint64(255) == 0:
+                S[i, 8 * w + c, j >> 6] &= jb
 
 
 @numba.njit(cache=True, inline="always")
-def _paint_plane(U, out, i, dx2, rr, c1, c2, v, rel, periodic):
-    """Paint the disc ``|(j, k) - (c1, c2)|^2 < rr - dx2`` of plane ``i`` (first cover)."""
+def _fold(c, h, n, periodic):
+    """The index range ``[c - h, c + h]`` (``h >= 0``) on an axis of ``n`` voxels: clipped
+    (non-periodic) or folded onto ``[0, n)`` (periodic) as at most two ranges
+    ``(a0, b0, a1, b1)``; an empty range has ``a > b``."""
+    if not periodic:
+        return max(c - h, 0), min(c + h, n - 1), 0, -1
+    if 2 * h + 1 >= n:
+        return 0, n - 1, 0, -1
+    a = (c - h) % n
+    b = a + 2 * h
+    if b < n:
+        return a, b, 0, -1
+    return a, n - 1, 0, b - n
+
+
+@numba.njit(cache=True, inline="always")
+def _half(base, step, rr, isq, integer):
+    """Largest ``h >= 0`` with ``base + (h step)^2 < rr``, -1 if none (``base < rr``).
+    ``integer`` (unit voxels, integer ``base`` and ``rr``): ``isqrt(rr - base - 1)`` read
+    from the table ``isq``, the same number."""
+    if integer:
+        return isq[int(rr - base) - 1]
+    h = int(math.sqrt(rr - base) / step)
+    while h >= 0 and base + (h * step) ** 2 >= rr:
+        h -= 1
+    return h
+
+
+@numba.njit(cache=True, inline="always")
+def _paint_row(U, S, out, i, j, dj, dx2, rr, c2, v, rel, periodic, isq, integer):
+    rk = _half(dx2 + (dj * rel[1]) ** 2, rel[2], rr, isq, integer)
+    if rk >= 0:
+        a0, b0, a1, b1 = _fold(c2, rk, out.shape[2], periodic)
+        _take_span(U, S, out, i, j, a0, b0, v)
+        _take_span(U, S, out, i, j, a1, b1, v)
+
+
+@numba.njit(cache=True, inline="always")
+def _rows_touched(S, i, j0, j1, jw, ka, kb, kc, kd):
+    """Rows ``j0 <= j <= j1`` of word ``jw`` with an unpainted voxel in a byte meeting
+    ``[ka, kb]`` or ``[kc, kd]`` (bit mask over ``j``)."""
+    acc = np.uint64(0)
+    if ka <= kb:
+        for c in range(ka >> 3, (kb >> 3) + 1):
+            acc |= S[i, c, jw]
+    if kc <= kd:
+        for c in range(kc >> 3, (kd >> 3) + 1):
+            acc |= S[i, c, jw]
+    return acc & _word_mask(j0, j1, jw)
+
+
+@numba.njit(cache=True, inline="always")
+def _paint_plane(U, S, out, i, dx2, rr, c1, c2, v, rel, periodic, isq, integer):
+    """First-cover painting of the disc ``dx2 + |(j, k) - (c1, c2)|^2 < rr`` of plane
+    ``i``: only the rows with an unpainted voxel in the disc's bounding box (from the
+    summary ``S``) are visited."""
     n1 = out.shape[1]
     n2 = out.shape[2]
-    rj = int(math.sqrt(rr - dx2) / rel[1])
-    while rj >= 0 and dx2 + (rj * rel[1]) ** 2 >= rr:
-        rj -= 1
-    for dj in range(-rj, rj + 1):
-        j = c1 + dj
-        if periodic:
-            j %= n1
-        elif j < 0 or j >= n1:
+    rj = _half(dx2, rel[1], rr, isq, integer)
+    if rj < 0:
+        return
+    if periodic and 2 * rj + 1 >= n1:  # the disc wraps onto itself: every offset
+        for dj in range(-rj, rj + 1):
+            _paint_row(U, S, out, i, (c1 + dj) % n1, dj, dx2, rr, c2, v, rel, periodic,
+                       isq, integer)
+        return
+    rk0 = _half(dx2, rel[2], rr, isq, integer)  # widest row (dj = 0)
+    ka, kb, kc, kd = _fold(c2, rk0, n2, periodic)
+    ja, jb, jc, jd = _fold(c1, rj, n1, periodic)
+    for part in range(2):
+        j0 = ja if part == 0 else jc
+        j1 = jb if part == 0 else jd
+        if j0 > j1:
             continue
-        dxy2 = dx2 + (dj * rel[1]) ** 2
-        rk = int(math.sqrt(rr - dxy2) / rel[2])
-        while rk >= 0 and dxy2 + (rk * rel[2]) ** 2 >= rr:
-            rk -= 1
-        if rk < 0:
-            continue
-        if not periodic:
-            _take_span(U, out, i, j, max(c2 - rk, 0), min(c2 + rk, n2 - 1), v)
-        elif 2 * rk + 1 >= n2:
-            _take_span(U, out, i, j, 0, n2 - 1, v)
-        else:
-            a = (c2 - rk) % n2
-            b = a + 2 * rk
-            if b < n2:
-                _take_span(U, out, i, j, a, b, v)
-            else:
-                _take_span(U, out, i, j, a, n2 - 1, v)
-                _take_span(U, out, i, j, 0, b - n2, v)
+        for jw in range(j0 >> 6, (j1 >> 6) + 1):
+            bits = _rows_touched(S, i, j0, j1, jw, ka, kb, kc, kd)
+            while bits != 0:
+                j = (jw << 6) + _tz(bits)
+                bits &= bits - _ONE
+                dj = j - c1
+                if periodic:
+                    dj = (dj + rj) % n1 - rj
+                _paint_row(U, S, out, i, j, dj, dx2, rr, c2, v, rel, periodic, isq,
+                           integer)
 
 
 @numba.njit(cache=True, parallel=True)
-def _paint_first(ci, cj, ck, r2, val, rel, out, U, periodic, nslabs):
+def _half_axis0(r2, rel0, isq, integer):
+    """Per ball, the largest ``|di|`` of a plane it meets (-1: an empty ball)."""
+    out = np.empty(r2.size, dtype=np.int64)
+    for b in numba.prange(r2.size):
+        out[b] = _half(0.0, rel0, r2[b], isq, integer)
+    return out
+
+
+@numba.njit(cache=True, parallel=True)
+def _paint_first(ci, cj, ck, ri, r2, val, rel, out, U, S, periodic, nslabs, isq, integer):
     """First-cover ball painting: the balls, given in order of decreasing ``val``, write
     ``val[b]`` on the voxels ``q`` with ``|q - centre_b|^2 < r2[b]`` (internal units) not
-    yet painted; ``U`` (:func:`_unpainted_bits`) marks the voxels that may still be
-    painted and is consumed. Since every voxel keeps the first (largest) value offered,
+    yet painted; ``U, S`` (:func:`_unpainted_bits`) mark the voxels that may still be
+    painted and are consumed. Since every voxel keeps the first (largest) value offered,
     the result is ``max`` over the balls holding it, as in plain max-painting, but each
-    voxel is written once and rows already painted are skipped a 64-voxel word at a time.
-    The x axis is split into ``nslabs`` slabs, each painted by one thread (no two threads
-    write one voxel)."""
+    voxel is written once and painted rows are skipped 64 at a time. ``ri`` is
+    :func:`_half_axis0` of ``r2``. The x axis is split into ``nslabs`` slabs, each painted
+    by one thread (no two threads write one voxel)."""
     n0 = out.shape[0]
     nb = ci.size
     for s in numba.prange(nslabs):
         x0 = (s * n0) // nslabs
         x1 = ((s + 1) * n0) // nslabs
         for b in range(nb):
-            rr = r2[b]
-            ri = int(math.sqrt(rr) / rel[0])
-            while ri >= 0 and (ri * rel[0]) ** 2 >= rr:
-                ri -= 1
-            if ri < 0:
-                continue
+            h = ri[b]
             c = ci[b]
             if periodic:
-                qa = -((x1 - 1 - (c - ri)) // n0)  # ceil((c - ri - x1 + 1) / n0)
-                qb = (c + ri - x0) // n0
+                qa = -((x1 - 1 - (c - h)) // n0)  # ceil((c - h - x1 + 1) / n0)
+                qb = (c + h - x0) // n0
             else:
+                if h < 0 or c + h < x0 or c - h >= x1:
+                    continue
                 qa = 0
                 qb = 0
             for q in range(qa, qb + 1):
-                lo = max(c - ri, x0 + q * n0)
-                hi = min(c + ri, x1 - 1 + q * n0)
+                lo = max(c - h, x0 + q * n0)
+                hi = min(c + h, x1 - 1 + q * n0)
                 for ii in range(lo, hi + 1):
                     di = ii - c
-                    _paint_plane(U, out, ii - q * n0, (di * rel[0]) ** 2, rr, cj[b], ck[b],
-                                 val[b], rel, periodic)
+                    _paint_plane(U, S, out, ii - q * n0, (di * rel[0]) ** 2, r2[b], cj[b],
+                                 ck[b], val[b], rel, periodic, isq, integer)
 
 
 @numba.njit(cache=True)
@@ -450,8 +532,164 @@ def _ridge_discrete(idx, K, M, shape, periodic, reach):
     return keep
 
 
+@numba.njit(cache=True)
+def _offset_types():
+    """``tix[a + 1, b + 1, c + 1]``: row of :data:`_TYPES` for the neighbour offset
+    ``(a, b, c)``."""
+    tix = np.zeros((3, 3, 3), dtype=np.int64)
+    for a in range(-1, 2):
+        for b in range(-1, 2):
+            for c in range(-1, 2):
+                if a != 0 or b != 0 or c != 0:
+                    tix[a + 1, b + 1, c + 1] = _type_index(a, b, c)
+    return tix
+
+
+@numba.njit(cache=True, parallel=True)
+def _int_max(K, nchunks):
+    """``K.max()`` as an int when every value of ``K`` is a whole number below 2**24
+    (exact in float32), else -1."""
+    n0, n1, n2 = K.shape
+    tops = np.zeros(nchunks, dtype=np.int64)
+    for ch in numba.prange(nchunks):
+        t = 0
+        for i in range((ch * n0) // nchunks, ((ch + 1) * n0) // nchunks):
+            for j in range(n1):
+                for k in range(n2):
+                    x = K[i, j, k]
+                    if x != math.floor(x) or x >= 16777216.0:
+                        t = -(1 << 40)
+                    elif x > t:
+                        t = int(x)
+        tops[ch] = t
+    return max(tops.min(), -1) if tops.min() < 0 else tops.max()
+
+
+@numba.njit(cache=True, parallel=True)
+def _ridge_grid(K, MT, tix, periodic, nchunks):
+    """Distance-ridge flags on the grid for isotropic voxels (integer squared distances
+    ``K``, 0 off the phase): ``flag[q] = 1`` when the lattice ball ``{p : |p - q|^2 < K[q]}``
+    lies in no 26-neighbour's lattice ball (exact test by the table ``MT[K, type]``
+    (:func:`_containment_table`, transposed); balls beyond the table use the continuous
+    test). Also returns, per chunk of x-planes, the count of flagged voxels per ``K``
+    (``hist[chunk, K]``, K up to ``K.max()``)."""
+    n0, n1, n2 = K.shape
+    kmax = MT.shape[0] - 2
+    flag = np.zeros((n0, n1, n2), dtype=np.uint8)
+    top = _int_max(K, nchunks)
+    hist = np.zeros((nchunks, max(top, 0) + 1), dtype=np.int64)
+    if top < 0:
+        return flag, hist
+    for ch in numba.prange(nchunks):
+        for i in range((ch * n0) // nchunks, ((ch + 1) * n0) // nchunks):
+            for j in range(n1):
+                for k in range(n2):
+                    kx = int(K[i, j, k])
+                    if kx == 0:
+                        continue
+                    inside = False
+                    for a in range(-1, 2):
+                        ii = i + a
+                        if periodic:
+                            ii %= n0
+                        elif ii < 0 or ii >= n0:
+                            continue
+                        for b in range(-1, 2):
+                            jj = j + b
+                            if periodic:
+                                jj %= n1
+                            elif jj < 0 or jj >= n1:
+                                continue
+                            for c in range(-1, 2):
+                                kk = k + c
+                                if periodic:
+                                    kk %= n2
+                                elif kk < 0 or kk >= n2:
+                                    continue
+                                ky = int(K[ii, jj, kk])
+                                if ky <= kx:
+                                    continue
+                                t = tix[a + 1, b + 1, c + 1]
+                                if kx <= kmax:
+                                    inside = MT[kx, t] < ky
+                                else:
+                                    inside = math.sqrt(ky) >= math.sqrt(kx) + math.sqrt(
+                                        a * a + b * b + c * c) - 1e-9
+                                if inside:
+                                    break
+                            if inside:
+                                break
+                        if inside:
+                            break
+                    if not inside:
+                        flag[i, j, k] = 1
+                        hist[ch, kx] += 1
+    return flag, hist
+
+
+@numba.njit(cache=True, parallel=True)
+def _gather_ridge(K, flag, hist, vk, nchunks):
+    """The flagged balls in order of decreasing ``K`` (counting sort; within one ``K`` in
+    grid order): centres, squared radii and values ``vk[K]``; balls with ``vk <= 0`` are
+    left out."""
+    nch, nk = hist.shape
+    start = np.zeros((nch, nk), dtype=np.int64)
+    pos = 0
+    for kx in range(nk - 1, 0, -1):
+        if vk[kx] <= 0:
+            continue
+        for ch in range(nch):
+            start[ch, kx] = pos
+            pos += hist[ch, kx]
+    ci = np.empty(pos, dtype=np.int64)
+    cj = np.empty(pos, dtype=np.int64)
+    ck = np.empty(pos, dtype=np.int64)
+    rr = np.empty(pos, dtype=np.float64)
+    val = np.empty(pos, dtype=np.float32)
+    n0, n1, n2 = K.shape
+    for ch in numba.prange(nchunks):
+        for i in range((ch * n0) // nchunks, ((ch + 1) * n0) // nchunks):
+            for j in range(n1):
+                for k in range(n2):
+                    if flag[i, j, k] == 0:
+                        continue
+                    kx = int(K[i, j, k])
+                    if vk[kx] <= 0:
+                        continue
+                    p = start[ch, kx]
+                    start[ch, kx] = p + 1
+                    ci[p] = i
+                    cj[p] = j
+                    ck[p] = k
+                    rr[p] = kx
+                    val[p] = vk[kx]
+    return ci, cj, ck, rr, val
+
+
 def _isotropic_integer(rel, r2):
     return bool(np.all(rel == 1.0)) and bool(np.all(np.floor(r2) == r2))
+
+
+def _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, mask, out, exact):
+    """Zero ``out`` and paint the balls (int64 centres, float64 squared radii in internal
+    units, float32 values), given in order of decreasing value, first cover wins
+    (:func:`_paint_first`). ``exact``: unit voxels and whole squared radii."""
+    if exact:
+        # integer spans from a table: isq[s] = isqrt(s), isq[-1] = -1
+        top = int(rr.max()) if rr.size else 1
+        isq = np.append(np.floor(np.sqrt(np.arange(top + 1, dtype=np.float64))), -1.0)
+        isq = isq.astype(np.int64)
+    else:
+        isq = np.full(1, -1, dtype=np.int64)
+    rel64 = np.asarray(rel, dtype=np.float64)
+    ri = _half_axis0(rr, float(rel64[0]), isq, exact)
+    U, S = _unpainted_bits(np.ascontiguousarray(mask, dtype=np.bool_))
+    out.fill(0)
+    n0 = out.shape[0]
+    nslabs = max(1, min(n0, 16 * numba.get_num_threads()))
+    with numba.parallel_chunksize(1):
+        _paint_first(ci, cj, ck, ri, rr, vals, rel64, out, U, S, bool(periodic), nslabs,
+                     isq, exact)
 
 
 def _paint_balls(shape, flat_idx, r2, values, rel, periodic, r_map, out, mask):
@@ -486,11 +724,8 @@ def _paint_balls(shape, flat_idx, r2, values, rel, periodic, r_map, out, mask):
         # common on anisotropic grids) must stay outside the open ball
         rr *= 1.0 - 1e-6
     i, j, k = np.unravel_index(sel, shape)
-    U = _unpainted_bits(np.ascontiguousarray(mask, dtype=np.bool_))
-    out.fill(0)
-    nslabs = max(1, min(shape[0], 8 * numba.get_num_threads()))
-    _paint_first(i.astype(np.int64), j.astype(np.int64), k.astype(np.int64), rr, vals,
-                 np.asarray(rel, dtype=np.float64), out, U, bool(periodic), nslabs)
+    _paint_sorted(i.astype(np.int64), j.astype(np.int64), k.astype(np.int64), rr, vals,
+                  rel, periodic, mask, out, exact)
     return out, int(sel.size)
 
 
@@ -529,16 +764,33 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None) -> np.nd
     m, sp = _check_mask(mask, spacing)
     unit, rel, hc = _units(sp)
     d2 = squared_distance(m, rel, periodic=periodic)
-    flat = d2.reshape(-1)
-    idx = np.flatnonzero(flat)
-    r2 = flat[idx]
-    vals = ((2.0 * np.sqrt(r2.astype(np.float64)) - hc) * unit).astype(np.float32)
-    if out is None:
-        out = d2  # reuse the distance buffer (already touched memory)
-    elif out.shape != m.shape or out.dtype != np.float32 or not out.flags.c_contiguous:
+    if out is not None and (out.shape != m.shape or out.dtype != np.float32
+                            or not out.flags.c_contiguous):
         raise OptionError(f"out must be a C-contiguous float32 array of shape {m.shape}",
                           field="out")
-    res, _ = _paint_balls(m.shape, idx, r2, vals, rel, periodic, flat, out, m)
+    nch = max(1, min(m.shape[0], 16 * numba.get_num_threads()))
+    top = _int_max(d2, nch) if np.all(rel == 1.0) else -1
+    if top >= 0:
+        # unit voxels, whole squared distances: ridge and counting sort on the grid
+        kmax = int(min(max(top, 1), DISCRETE_TABLE_MAX_K))
+        MT = np.ascontiguousarray(_containment_table(kmax, _TYPES).T)
+        flag, hist = _ridge_grid(d2, MT, _offset_types(), bool(periodic), nch)
+        kk = np.arange(hist.shape[1], dtype=np.float64)
+        vk = ((2.0 * np.sqrt(kk) - hc) * unit).astype(np.float32)
+        ci, cj, ck, rr, vals = _gather_ridge(d2, flag, hist, vk, nch)
+        del flag
+        if out is None:
+            out = d2  # reuse the distance buffer (already touched memory)
+        _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, m, out, True)
+        res = out
+    else:
+        flat = d2.reshape(-1)
+        idx = np.flatnonzero(flat)
+        r2 = flat[idx]
+        vals = ((2.0 * np.sqrt(r2.astype(np.float64)) - hc) * unit).astype(np.float32)
+        if out is None:
+            out = d2
+        res, _ = _paint_balls(m.shape, idx, r2, vals, rel, periodic, flat, out, m)
     res[~m] = np.nan
     return res
 
