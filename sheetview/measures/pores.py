@@ -340,14 +340,16 @@ def _half_axis0(r2, rel0, isq, integer):
 
 
 @numba.njit(cache=True, parallel=True)
-def _paint_first(ci, cj, ck, ri, r2, val, rel, out, U, S, periodic, nslabs, isq, integer):
+def _paint_first(ci, cj, ck, ri, r2, val, pmask, rel, out, U, S, periodic, nslabs, isq,
+                 integer):
     """First-cover ball painting: the balls, given in order of decreasing ``val``, write
     ``val[b]`` on the voxels ``q`` with ``|q - centre_b|^2 < r2[b]`` (internal units) not
     yet painted; ``U, S`` (:func:`_unpainted_bits`) mark the voxels that may still be
     painted and are consumed. Since every voxel keeps the first (largest) value offered,
     the result is ``max`` over the balls holding it, as in plain max-painting, but each
     voxel is written once and painted rows are skipped 64 at a time. ``ri`` is
-    :func:`_half_axis0` of ``r2``. The x axis is split into ``nslabs`` slabs, each painted
+    :func:`_half_axis0` of ``r2``; plane ``di`` of ball ``b`` is skipped when bit
+    ``di + ri[b]`` of ``pmask[b]`` is clear (``ri[b] <= 31``). The x axis is split into ``nslabs`` slabs, each painted
     by one thread (no two threads write one voxel)."""
     n0 = out.shape[0]
     nb = ci.size
@@ -357,6 +359,7 @@ def _paint_first(ci, cj, ck, ri, r2, val, rel, out, U, S, periodic, nslabs, isq,
         for b in range(nb):
             h = ri[b]
             c = ci[b]
+            pm = pmask[b]
             if periodic:
                 qa = -((x1 - 1 - (c - h)) // n0)  # ceil((c - h - x1 + 1) / n0)
                 qb = (c + h - x0) // n0
@@ -370,6 +373,8 @@ def _paint_first(ci, cj, ck, ri, r2, val, rel, out, U, S, periodic, nslabs, isq,
                 hi = min(c + h, x1 - 1 + q * n0)
                 for ii in range(lo, hi + 1):
                     di = ii - c
+                    if h <= 31 and (pm >> np.uint64(di + h)) & _ONE == 0:
+                        continue
                     _paint_plane(U, S, out, ii - q * n0, (di * rel[0]) ** 2, r2[b], cj[b],
                                  ck[b], val[b], rel, periodic, isq, integer)
 
@@ -627,11 +632,86 @@ def _ridge_grid(K, MT, tix, periodic, nchunks):
     return flag, hist
 
 
+@numba.njit(cache=True, inline="always")
+def _bit_range(lo, hi):
+    """Bits ``lo..hi`` of a uint64 (``0 <= lo``, ``hi <= 63``; none if ``lo > hi``)."""
+    if lo > hi:
+        return np.uint64(0)
+    return (_ONES >> np.uint64(63 - hi)) & (_ONES << np.uint64(lo))
+
+
+@numba.njit(cache=True)
+def _plane_mask(K, i, j, k, kx, periodic, isq):
+    """Planes ``i + di`` of the lattice ball ``|p - (i, j, k)|^2 < kx`` that no face or
+    in-plane neighbour's ball already covers: bit ``di + ri`` set (``ri = isqrt(kx - 1)
+    <= 31``; all bits when ``ri > 31``).
+
+    The disc of plane ``di`` (squared radius ``t = kx - di^2``) lies in the disc of the
+    neighbour ``y = x + (a, b, c)`` with ``K[y] > kx`` in that plane (squared radius
+    ``s = K[y] - (di - a)^2``, centre offset ``d^2 = b^2 + c^2``) when
+    ``sqrt(s) >= sqrt(t) + d``, i.e. ``u = s - t - d^2 >= 0`` and ``u^2 >= 4 d^2 t``
+    (whole numbers: exact). That plane of ball x then offers only voxels that a ball of
+    larger ``K`` holds (y, or by the ridge a larger ball holding y), so skipping it leaves
+    every voxel's maximum unchanged. Tested neighbours: ``(+-1, 0, 0)`` (``d = 0``: the
+    covered planes are ``a di >= -(K[y] - kx - 1) / 2``) and the eight with ``a = 0``
+    (``u`` constant: covered where ``4 d^2 di^2 >= 4 d^2 kx - u^2``)."""
+    n0, n1, n2 = K.shape
+    ri = isq[kx - 1]
+    if ri > 31:
+        return _ONES
+    pm = _bit_range(0, 2 * ri)
+    for a in (-1, 1):
+        ii = i + a
+        if periodic:
+            ii %= n0
+        elif ii < 0 or ii >= n0:
+            continue
+        g = int(K[ii, j, k]) - kx - 1
+        if g < 0:
+            continue
+        # covered: a * di >= -g / 2, i.e. a * di >= -(g // 2)
+        m0 = g // 2
+        if a == 1:
+            pm &= ~_bit_range(max(-m0, -ri) + ri, 2 * ri)
+        else:
+            pm &= ~_bit_range(0, min(m0, ri) + ri)
+    for b in range(-1, 2):
+        jj = j + b
+        if periodic:
+            jj %= n1
+        elif jj < 0 or jj >= n1:
+            continue
+        for c in range(-1, 2):
+            if b == 0 and c == 0:
+                continue
+            kk = k + c
+            if periodic:
+                kk %= n2
+            elif kk < 0 or kk >= n2:
+                continue
+            d2 = b * b + c * c
+            u = int(K[i, jj, kk]) - kx - d2
+            if u < 0:
+                continue
+            T = 4 * d2 * kx - u * u  # covered where 4 d2 di^2 >= T
+            if T <= 0:
+                return np.uint64(0)
+            m0 = int(math.sqrt(T / (4.0 * d2)))
+            while m0 > 0 and 4 * d2 * m0 * m0 >= T:
+                m0 -= 1
+            while 4 * d2 * m0 * m0 < T:
+                m0 += 1
+            if m0 <= ri:
+                pm &= ~(_bit_range(0, ri - m0) | _bit_range(ri + m0, 2 * ri))
+    return pm
+
+
 @numba.njit(cache=True, parallel=True)
-def _gather_ridge(K, flag, hist, vk, nchunks):
+def _gather_ridge(K, flag, hist, vk, nchunks, periodic, isq):
     """The flagged balls in order of decreasing ``K`` (counting sort; within one ``K`` in
-    grid order): centres, squared radii and values ``vk[K]``; balls with ``vk <= 0`` are
-    left out."""
+    grid order): centres, squared radii, values ``vk[K]`` and plane masks
+    (:func:`_plane_mask`); balls with ``vk <= 0`` or no plane left are left out (their
+    slots get a zero mask)."""
     nch, nk = hist.shape
     start = np.zeros((nch, nk), dtype=np.int64)
     pos = 0
@@ -646,6 +726,7 @@ def _gather_ridge(K, flag, hist, vk, nchunks):
     ck = np.empty(pos, dtype=np.int64)
     rr = np.empty(pos, dtype=np.float64)
     val = np.empty(pos, dtype=np.float32)
+    pmask = np.empty(pos, dtype=np.uint64)
     n0, n1, n2 = K.shape
     for ch in numba.prange(nchunks):
         for i in range((ch * n0) // nchunks, ((ch + 1) * n0) // nchunks):
@@ -663,22 +744,29 @@ def _gather_ridge(K, flag, hist, vk, nchunks):
                     ck[p] = k
                     rr[p] = kx
                     val[p] = vk[kx]
-    return ci, cj, ck, rr, val
+                    pmask[p] = _plane_mask(K, i, j, k, kx, periodic, isq)
+    return ci, cj, ck, rr, val, pmask
 
 
 def _isotropic_integer(rel, r2):
     return bool(np.all(rel == 1.0)) and bool(np.all(np.floor(r2) == r2))
 
 
-def _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, mask, out, exact):
+def _isqrt_table(n):
+    """``isq[s] = isqrt(s)`` for ``0 <= s < n``, and ``isq[-1] = -1`` (integer spans)."""
+    isq = np.floor(np.sqrt(np.arange(n, dtype=np.float64))).astype(np.int64)
+    return np.append(isq, -1)
+
+
+def _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, mask, out, exact, pmask=None):
     """Zero ``out`` and paint the balls (int64 centres, float64 squared radii in internal
     units, float32 values), given in order of decreasing value, first cover wins
-    (:func:`_paint_first`). ``exact``: unit voxels and whole squared radii."""
+    (:func:`_paint_first`). ``exact``: unit voxels and whole squared radii. ``pmask``:
+    planes to paint per ball (:func:`_plane_mask`), default all."""
+    if pmask is None:
+        pmask = np.full(ci.size, _ONES, dtype=np.uint64)
     if exact:
-        # integer spans from a table: isq[s] = isqrt(s), isq[-1] = -1
-        top = int(rr.max()) if rr.size else 1
-        isq = np.append(np.floor(np.sqrt(np.arange(top + 1, dtype=np.float64))), -1.0)
-        isq = isq.astype(np.int64)
+        isq = _isqrt_table(int(rr.max()) + 1 if rr.size else 2)
     else:
         isq = np.full(1, -1, dtype=np.int64)
     rel64 = np.asarray(rel, dtype=np.float64)
@@ -688,8 +776,8 @@ def _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, mask, out, exact):
     n0 = out.shape[0]
     nslabs = max(1, min(n0, 16 * numba.get_num_threads()))
     with numba.parallel_chunksize(1):
-        _paint_first(ci, cj, ck, ri, rr, vals, rel64, out, U, S, bool(periodic), nslabs,
-                     isq, exact)
+        _paint_first(ci, cj, ck, ri, rr, vals, pmask, rel64, out, U, S, bool(periodic),
+                     nslabs, isq, exact)
 
 
 def _paint_balls(shape, flat_idx, r2, values, rel, periodic, r_map, out, mask):
@@ -777,11 +865,13 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None) -> np.nd
         flag, hist = _ridge_grid(d2, MT, _offset_types(), bool(periodic), nch)
         kk = np.arange(hist.shape[1], dtype=np.float64)
         vk = ((2.0 * np.sqrt(kk) - hc) * unit).astype(np.float32)
-        ci, cj, ck, rr, vals = _gather_ridge(d2, flag, hist, vk, nch)
+        isq = _isqrt_table(hist.shape[1])
+        ci, cj, ck, rr, vals, pmask = _gather_ridge(d2, flag, hist, vk, nch, bool(periodic),
+                                                    isq)
         del flag
         if out is None:
             out = d2  # reuse the distance buffer (already touched memory)
-        _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, m, out, True)
+        _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, m, out, True, pmask)
         res = out
     else:
         flat = d2.reshape(-1)
