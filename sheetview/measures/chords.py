@@ -117,6 +117,10 @@ def prism_planes(vertices, normals, thickness) -> np.ndarray:
 
 
 # ============================================================ uniform grid
+#: Grid cell edge for prisms, in median prism bounding-box sizes (tuned on
+#: benchmarks/bench_chords.py: fewer prisms met per line against more cells walked)
+_PRISM_CELL = 0.5
+
 @dataclass
 class _Grid:
     lo: np.ndarray
@@ -138,7 +142,7 @@ def _fill_cells(ilo, ihi, dims, start, items):
                     fill[c] += 1
 
 
-def _build_grid(bmin, bmax, max_cells=1 << 24) -> _Grid:
+def _build_grid(bmin, bmax, max_cells=1 << 24, cell=0.4) -> _Grid:
     """Bin primitives' bounding boxes into a uniform grid (CSR lists of primitives)."""
     N = len(bmin)
     lo = bmin.min(axis=0) - 1e-9
@@ -147,7 +151,7 @@ def _build_grid(bmin, bmax, max_cells=1 << 24) -> _Grid:
     size = float(np.median((bmax - bmin).max(axis=1))) if N else 1.0
     # cells of about 0.4 primitive sizes: fewer candidates per line (measured on dense
     # sheet structures) at a few cells per primitive
-    h = max(0.4 * size, float(np.prod(ext) / max(64 * N, 1)) ** (1 / 3), 1e-9)
+    h = max(cell * size, float(np.prod(ext) / max(64 * N, 1)) ** (1 / 3), 1e-9)
     while True:
         dims = np.maximum(np.ceil(ext / h).astype(np.int64), 1)
         if np.prod(dims) <= min(max_cells, 64 * N + 64):
@@ -512,7 +516,7 @@ def _mesh_intervals(o, u, tlo, thi, tseg, line_ids, tri, glo, h, dims, start, it
 def _run_chunks(fn, n, args_of, n_threads):
     """Run ``fn`` over line chunks in threads (kernels release the GIL)."""
     n_threads = max(1, int(n_threads or os.cpu_count() or 1))
-    n_chunks = max(1, min(4 * n_threads, n // 2000 + 1))
+    n_chunks = max(1, min(16 * n_threads, n // 2000 + 1))  # dynamic: threads take the next chunk
     edges = np.linspace(0, n, n_chunks + 1).astype(int)
     sl = [slice(a, b) for a, b in zip(edges[:-1], edges[1:]) if b > a]
     if n_threads == 1 or len(sl) == 1:
@@ -865,7 +869,7 @@ def _prisms_run(o, u, tlo, thi, vertices, normals, thickness, eps, n_threads):
         planes = prism_planes(vertices, normals, thickness)
     r2 = ((corners - cen[:, None, :]) ** 2).sum(axis=2).max(axis=1) * (1 + 1e-9) + 1e-18
     spheres = np.ascontiguousarray(np.concatenate([cen, r2[:, None]], axis=1))
-    g = _build_grid(corners.min(axis=1), corners.max(axis=1))
+    g = _build_grid(corners.min(axis=1), corners.max(axis=1), cell=_PRISM_CELL)
     isph = np.empty((len(g.items), 4))
     _fill_spheres(g.items, spheres, isph)
     # lines in spatial order (closest point to the centre, then direction) so that
