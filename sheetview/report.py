@@ -14,11 +14,23 @@ Folder layout (files appear only for the measures that ran)::
     orientation_distribution.csv equal-area bins (cos theta x phi): fraction, density
     pole_figure.csv              Lambert equal-area grid: density in multiples of uniform
     pole_figure.png, order.png   pole figure; local-order and polar-angle histograms
+    phase_fractions.csv          volume fraction and volume of each phase class
+    interfaces.csv               interface areas (solid-interlayer, solid-gel, solid-outside)
+    minkowski.csv                Minkowski functionals of the solid and of the gel pores
+    pore_sizes_local_thickness.csv, pore_sizes_intrusion.csv, pore_sizes.png
+    chords_solid.csv, chords_pore.csv, chords.png
+    s2_solid.csv, s2_solid.png   two-point correlation of the solid
+    sections.png                 three orthogonal central sections of the phase grid
+
+The folder is assembled under a temporary name and renamed into place when complete.
 """
 from __future__ import annotations
 
 import csv
 import math
+import os
+import shutil
+import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -74,12 +86,14 @@ def write_csv(path, columns: dict, force: bool = False) -> Path:
         with open(tmp, "w", newline="") as fh:
             w = csv.writer(fh)
             w.writerow(names)
-            ints = [c.dtype.kind in "iub" for c in cols]
+            kinds = ["i" if c.dtype.kind in "iub" else "s" if c.dtype.kind in "USO" else "f"
+                     for c in cols]
+            fmt = {"i": lambda x: str(int(x)), "s": str, "f": _fmt}
             for start in range(0, n, 65536):
                 block = [c[start:start + 65536].tolist() for c in cols]
                 rows = []
                 for r in zip(*block):
-                    rows.append([str(int(x)) if isint else _fmt(x) for x, isint in zip(r, ints)])
+                    rows.append([fmt[k](x) for x, k in zip(r, kinds)])
                 w.writerows(rows)
             if n == 0:
                 fh.write("")
@@ -124,6 +138,7 @@ def plot_stacking(res, path, force=False):
     fig.suptitle(f"Stacking: mean {res.mean:.2f} (number), {res.mean_volume:.2f} (volume)")
     fig.tight_layout()
     _savefig(fig, path, force)
+    return Path(path)
 
 
 def plot_pole_figure(res, path, force=False):
@@ -140,6 +155,7 @@ def plot_pole_figure(res, path, force=False):
     ax.set_title(f"Sheet normals, Lambert equal-area about the {ref}\nS = {res.S:.3f}")
     fig.tight_layout()
     _savefig(fig, path, force)
+    return Path(path)
 
 
 def plot_order(res, path, force=False):
@@ -158,16 +174,52 @@ def plot_order(res, path, force=False):
     fig.suptitle(f"Orientation order: S = {res.S:.3f}, biaxiality {res.biaxiality:.3f}")
     fig.tight_layout()
     _savefig(fig, path, force)
+    return Path(path)
 
 
 def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
-                 plots: bool = True) -> list[Path]:
+                 plots: bool = True, grid=None) -> list[Path]:
     """Write a report folder for measure ``results`` (name -> result object).
 
-    ``doc`` is the JSON summary (written as ``summary.json``). Returns the paths written.
+    ``doc`` is the JSON summary (written as ``summary.json``); ``grid`` the phase grid the
+    grid measures used (for the section figure). The folder is assembled under a temporary
+    name beside ``outdir`` and renamed into place when complete, so an interrupted run
+    leaves no half-written report. Returns the paths written.
     """
-    out = prepare_folder(outdir, force)
-    written = [write_json(out / "summary.json", doc, force)]
+    final = check_folder(outdir, force)
+    parent = final.parent if str(final.parent) else Path(".")
+    if not parent.exists():
+        try:
+            parent.mkdir(parents=True)
+        except OSError as e:
+            raise SheetviewError(f"cannot create the folder ({e.strerror})", path=final) from None
+    try:
+        out = Path(tempfile.mkdtemp(prefix=f".{final.name}.", suffix=".part", dir=parent))
+    except OSError as e:
+        raise SheetviewError(f"cannot write beside the report folder ({e.strerror})",
+                             path=final) from None
+    try:
+        names = _write_all(out, doc, results, plots, grid)
+        _move_into_place(out, final)
+    except BaseException:
+        shutil.rmtree(out, ignore_errors=True)
+        raise
+    return [final / n for n in names]
+
+
+def _move_into_place(tmp: Path, final: Path) -> None:
+    """Rename the finished temporary folder to ``final``; with an existing folder (force),
+    replace the files of the same name and keep the others."""
+    if not final.exists():
+        os.replace(tmp, final)
+        return
+    for p in tmp.iterdir():
+        os.replace(p, final / p.name)
+    tmp.rmdir()
+
+
+def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
+    written = [write_json(out / "summary.json", doc)]
     prism_cols = {}
     stk = results.get("stacking")
     order = results.get("order")
@@ -178,19 +230,17 @@ def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
         prism_cols.setdefault("prism", np.arange(n))
         prism_cols.update(order.table())
     if prism_cols:
-        written.append(write_csv(out / "prisms.csv", prism_cols, force))
+        written.append(write_csv(out / "prisms.csv", prism_cols))
     if stk is not None:
-        written.append(write_csv(out / "stacks.csv", stk.stack_table(), force))
+        written.append(write_csv(out / "stacks.csv", stk.stack_table()))
         g = stk.graph
         t = g.tilted
         written.append(write_csv(out / "tilted_contacts.csv", {
             "prism_a": t[:, 0], "prism_b": t[:, 1], "angle_deg": g.tilted_angle,
             "layer_a": stk.layer[t[:, 0]] if len(t) else np.zeros(0, np.int64),
-            "layer_b": stk.layer[t[:, 1]] if len(t) else np.zeros(0, np.int64)}, force))
+            "layer_b": stk.layer[t[:, 1]] if len(t) else np.zeros(0, np.int64)}))
         if plots and stk.n_prisms:
-            p = out / "stacking_histogram.png"
-            plot_stacking(stk, p, force)
-            written.append(p)
+            written.append(plot_stacking(stk, out / "stacking_histogram.png"))
     if order is not None:
         ce, pe = order.cos_edges, order.phi_edges
         nc, nphi = order.hist.shape
@@ -198,17 +248,140 @@ def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
         written.append(write_csv(out / "orientation_distribution.csv", {
             "cos_theta_lo": ce[ci.ravel()], "cos_theta_hi": ce[ci.ravel() + 1],
             "phi_lo": pe[pi.ravel()], "phi_hi": pe[pi.ravel() + 1],
-            "fraction": order.hist.ravel(), "density_mud": order.hist.ravel() * nc * nphi},
-            force))
+            "fraction": order.hist.ravel(), "density_mud": order.hist.ravel() * nc * nphi}))
         e = order.pole_edges
         xi, yi = np.meshgrid(np.arange(len(e) - 1), np.arange(len(e) - 1), indexing="ij")
         written.append(write_csv(out / "pole_figure.csv", {
             "x": 0.5 * (e[xi.ravel()] + e[xi.ravel() + 1]),
             "y": 0.5 * (e[yi.ravel()] + e[yi.ravel() + 1]),
-            "density_mud": order.pole.ravel()}, force))
+            "density_mud": order.pole.ravel()}))
         if plots and order.n_prisms:
-            for name, fn in (("pole_figure.png", plot_pole_figure), ("order.png", plot_order)):
-                plot = out / name
-                fn(order, plot, force)
-                written.append(plot)
-    return written
+            written.append(plot_pole_figure(order, out / "pole_figure.png"))
+            written.append(plot_order(order, out / "order.png"))
+    ph = results.get("phases")
+    if ph is not None:
+        written.append(write_csv(out / "phase_fractions.csv", ph.table()))
+    sur = results.get("surface")
+    if sur is not None:
+        itf = sur.parts["interfaces"]
+        written.append(write_csv(out / "interfaces.csv", {
+            "interface": list(itf.areas), "area_nm2": list(itf.areas.values())}))
+        mk = {k: v.to_dict() for k, v in sur.parts.items() if k.startswith("minkowski")}
+        keys = sorted({kk for d in mk.values() for kk, vv in d.items()
+                       if isinstance(vv, (int, float)) and not isinstance(vv, bool)})
+        written.append(write_csv(out / "minkowski.csv", dict(
+            {"phase": [k.replace("minkowski_", "") for k in mk]},
+            **{k: [float(d.get(k, np.nan)) for d in mk.values()] for k in keys})))
+    pores = results.get("pores")
+    if pores is not None:
+        for key in ("local_thickness", "intrusion"):
+            r = pores.parts.get(key)
+            if r is not None:
+                written.append(write_csv(out / f"pore_sizes_{key}.csv", r.table()))
+        if plots and pores.parts.get("local_thickness") is not None:
+            written.append(plot_pore_sizes(pores, out / "pore_sizes.png"))
+    ch = results.get("chords")
+    if ch is not None:
+        src = ch.parts["exact"] or None
+        for ph_name in ("solid", "pore"):
+            res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
+            if ph_name in res.lengths:
+                written.append(write_csv(out / f"chords_{ph_name}.csv", {
+                    "length_nm": res.lengths[ph_name], "cut": res.cut[ph_name].astype(np.int8),
+                    "line": res.line[ph_name], "axis": res.axis[ph_name]}))
+        if plots:
+            written.append(plot_chords(ch, out / "chords.png"))
+    cor = results.get("correlation")
+    if cor is not None:
+        written.append(write_csv(out / "s2_solid.csv", cor.parts["s2_solid"].table()))
+        if plots:
+            written.append(plot_s2(cor, out / "s2_solid.png"))
+    if plots and grid is not None:
+        written.append(plot_sections(grid, out / "sections.png"))
+    return [Path(p).name for p in written]
+
+
+def plot_pore_sizes(pores, path, force=False):
+    plt = _pyplot()
+    fig, ax = plt.subplots(1, 2, figsize=(9, 3.6))
+    for key, label in (("local_thickness", "local thickness (continuous)"),
+                       ("intrusion", "simulated intrusion")):
+        r = pores.parts.get(key)
+        if r is None:
+            continue
+        c = r.bin_centers
+        ax[0].step(c, r.volume_fraction, where="mid", label=label)
+        ax[1].plot(c, r.cumulative_finer, label=label)
+    for a in ax:
+        a.set_xscale("log")
+        a.set_xlabel("pore diameter (nm)")
+        a.legend(fontsize=8)
+    ax[0].set_ylabel("volume fraction per bin")
+    ax[1].set_ylabel("cumulative volume fraction (finer)")
+    fig.suptitle("Pore sizes of the gel pore space (interlayer excluded)", fontsize=10)
+    fig.tight_layout()
+    _savefig(fig, path, force)
+    return Path(path)
+
+
+def plot_chords(ch, path, force=False):
+    plt = _pyplot()
+    fig, ax = plt.subplots(1, 2, figsize=(9, 3.6))
+    src = ch.parts["exact"]
+    for a, ph_name in zip(ax, ("solid", "pore")):
+        res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
+        L = res.chords(ph_name) if ph_name in res.lengths else np.zeros(0)
+        if L.size:
+            a.hist(L, bins=60, density=True, color="#0072b2" if ph_name == "solid" else "#e69f00")
+            a.axvline(L.mean(), color="k", lw=1, ls="--", label=f"mean {L.mean():.3g} nm")
+            a.legend(fontsize=8)
+        a.set_xlabel(f"{ph_name} chord length (nm)")
+        a.set_ylabel("probability density (nm$^{-1}$)")
+    how = "isotropic random lines (exact)" if src is not None else "voxel rows along x, y, z"
+    fig.suptitle(f"Chords not cut by the domain wall; {how}", fontsize=10)
+    fig.tight_layout()
+    _savefig(fig, path, force)
+    return Path(path)
+
+
+def plot_s2(cor, path, force=False):
+    plt = _pyplot()
+    r = cor.parts["s2_solid"]
+    fig, ax = plt.subplots(figsize=(5, 3.6))
+    ax.plot(r.r, r.s2, "o-", ms=2)
+    ax.axhline(r.phi ** 2, color="0.5", ls=":", label="$\\phi^2$")
+    ax.set_xlabel("r (nm)")
+    ax.set_ylabel("$S_2(r)$ of the solid")
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    _savefig(fig, path, force)
+    return Path(path)
+
+
+def plot_sections(grid, path, force=False):
+    """Three orthogonal central sections of the phase grid, with a scale bar."""
+    from .view import PHASE_COLOURS, PHASE_LABELS, section_rgb
+    plt = _pyplot()
+    lab = grid.labels
+    sp = grid.spacing
+    n = lab.shape
+    o = grid.origin
+    fig, axes = plt.subplots(1, 3, figsize=(11, 4))
+    for a, ax_i in zip(axes, (2, 1, 0)):
+        sl = [slice(None)] * 3
+        sl[ax_i] = n[ax_i] // 2
+        img = lab[tuple(sl)]
+        u, v = [k for k in range(3) if k != ax_i]
+        rgb = section_rgb(img.T)
+        a.imshow(rgb, origin="lower", interpolation="nearest",
+                 extent=(o[u], o[u] + n[u] * sp[u], o[v], o[v] + n[v] * sp[v]))
+        at = o[ax_i] + (n[ax_i] // 2 + 0.5) * sp[ax_i]
+        a.set_title(f"{'xyz'[u]}{'xyz'[v]} section at {'xyz'[ax_i]} = {at:.3g} nm", fontsize=9)
+        a.set_xlabel("xyz"[u] + " (nm)")
+        a.set_ylabel("xyz"[v] + " (nm)")
+    from matplotlib.patches import Patch
+    handles = [Patch(color=PHASE_COLOURS[c], label=PHASE_LABELS[c]) for c in PHASE_COLOURS]
+    fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=8, frameon=False)
+    fig.tight_layout(rect=(0, 0.07, 1, 1))
+    _savefig(fig, path, force)
+    return Path(path)

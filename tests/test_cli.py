@@ -104,6 +104,6 @@ def test_thickness_option_fills_a_plain_csv(tmp_path):
     r = CliRunner().invoke(main, ["info", str(p)])
     assert r.exit_code == 2 and "--thickness" in r.output
     r = CliRunner().invoke(main, ["info", str(p), "--thickness", "0.5", "--json"])
-    assert json.loads(r.output)["thickness_nm"]["mean"] == 0.5
+    assert json.loads(r.stdout)["thickness_nm"]["mean"] == 0.5
     r = CliRunner().invoke(main, ["info", str(p), "--thickness", "-1"])
     assert r.exit_code == 2 and "--thickness must be a positive" in r.output

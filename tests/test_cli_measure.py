@@ -46,7 +46,7 @@ def run(*args):
 def test_json_document(two_stacks):
     r = run(two_stacks, "--json", "--only", "stacking,order")
     assert r.exit_code == 0, r.output
-    doc = json.loads(r.output)
+    doc = json.loads(r.stdout)
     assert doc["n_prisms"] == 18 * 8
     assert doc["stacking"]["histogram"] == {"3": 54, "5": 90}
     assert doc["stacking"]["mean"] == pytest.approx((3 * 54 + 5 * 90) / 144)
@@ -58,15 +58,15 @@ def test_json_document(two_stacks):
 
 def test_only_one_measure_and_summary(two_stacks):
     r = run(two_stacks, "--json", "--only", "order")
-    doc = json.loads(r.output)
+    doc = json.loads(r.stdout)
     assert "order" in doc and "stacking" not in doc
-    r = run(two_stacks)
+    r = run(two_stacks, "--only", "stacking,order")
     assert r.exit_code == 0 and "stacking" in r.output and "S = 1.0000" in r.output
 
 
 def test_report_folder(two_stacks, tmp_path):
     out = tmp_path / "rep"
-    r = run(two_stacks, "-o", out)
+    r = run(two_stacks, "-o", out, "--only", "stacking,order")
     assert r.exit_code == 0, r.output
     names = {p.name for p in out.iterdir()}
     assert {"summary.json", "prisms.csv", "stacks.csv", "tilted_contacts.csv",
@@ -77,13 +77,13 @@ def test_report_folder(two_stacks, tmp_path):
     assert rows[0].startswith("prism,layer,stack,stacking_number") and len(rows) == 145
     stacks = (out / "stacks.csv").read_text().splitlines()
     assert len(stacks) == 3
-    r = run(two_stacks, "-o", out)
+    r = run(two_stacks, "-o", out, "--only", "stacking,order")
     assert r.exit_code == 2 and "--force" in r.output
-    assert run(two_stacks, "-o", out, "--force").exit_code == 0
+    assert run(two_stacks, "-o", out, "--force", "--only", "stacking,order").exit_code == 0
 
 
 @pytest.mark.parametrize("args,msg", [
-    (["--only", "stacking,foo"], "valid names: stacking, order"),
+    (["--only", "stacking,foo"], "valid names: stacking, order, phases"),
     (["--angle-tol", "120"], "--angle-tol"),
     (["--gap-tol", "0.9"], "--gap-tol"),
     (["--overlap", "0"], "--overlap"),
@@ -98,16 +98,19 @@ def test_option_errors(two_stacks, args, msg):
 def test_zero_prisms(tmp_path):
     p = tmp_path / "empty.npz"
     sv.write(sv.Structure(np.zeros((0, 3, 3)), np.zeros(0), sv.Sphere((0, 0, 0), 5)), p)
-    r = run(p, "--json")
+    r = run(p, "--json", "--only", "stacking,order")
     assert r.exit_code == 0, r.output
-    doc = json.loads(r.output)
+    doc = json.loads(r.stdout)
     assert doc["n_prisms"] == 0 and doc["stacking"]["mean"] is None and doc["order"]["S"] is None
-    assert run(p, "-o", tmp_path / "rep").exit_code == 0
+    assert run(p, "-o", tmp_path / "rep", "--only", "stacking,order").exit_code == 0
+    r = run(p, "--json")  # the grid measures have nothing to work on: a clear refusal
+    assert r.exit_code == 2 and "no prisms" in r.output and "Traceback" not in r.output
+    assert not (tmp_path / "rep2").exists()
 
 
 def test_volume_input_refused(tmp_path):
     pytest.importorskip("sheetview.io.volumes")
     p = tmp_path / "v.npy"
     np.save(p, np.zeros((4, 4, 4), np.uint8))
-    r = run(p, "--voxel-size", "1", "--phases", "0=gel")
+    r = run(p, "--voxel-size", "1", "--phases", "0=gel", "--only", "stacking")
     assert r.exit_code == 2 and "need prisms" in r.output

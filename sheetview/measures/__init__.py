@@ -2,7 +2,10 @@
 
 The registry below names the measures the command line can run (``sheetview measure
 --only NAME,...``). Each entry says what the measure needs (``"structure"`` for prisms,
-``"grid"`` for a PhaseGrid) and which keyword settings it accepts; further measures are
+``"grid"`` for a phase grid, which prisms and closed bodies get by rasterization) and
+which settings it reads; its target is a function of a :class:`sheetview.pipeline.Context`
+(the glue that shares the stacking graph and the phase grid between measures); further
+measures are
 added with :func:`register` (the target is imported only when the measure runs).
 """
 from __future__ import annotations
@@ -68,18 +71,30 @@ def parse_only(value: str | None) -> list[str]:
 
 def kind_of(obj) -> str:
     from ..grid import PhaseGrid
-    from ..structure import Structure
+    from ..structure import Structure, SurfaceBody
     if isinstance(obj, Structure):
         return "structure"
-    if isinstance(obj, PhaseGrid):
+    if isinstance(obj, (PhaseGrid, SurfaceBody)):
         return "grid"
     return type(obj).__name__
 
 
-def check_inputs(selected, obj, source=None) -> None:
-    """Raise :class:`OptionError` when a selected measure cannot use ``obj``."""
+def applicable(obj) -> list[str]:
+    """The registered measures that can run on ``obj`` (the default selection)."""
     kind = kind_of(obj)
-    bad = [n for n in selected if REGISTRY[n].needs != kind]
+    if kind == "structure":
+        return names()
+    return [n for n in names() if REGISTRY[n].needs == "grid"]
+
+
+def check_inputs(selected, obj, source=None) -> None:
+    """Raise :class:`OptionError` when a selected measure cannot use ``obj``.
+
+    Measures that need prisms run on a Structure only; grid measures run on a PhaseGrid
+    directly, or on prisms or a closed body through their rasterized phase grid.
+    """
+    ok = set(applicable(obj))
+    bad = [n for n in selected if n not in ok]
     if bad:
         need = sorted({REGISTRY[n].needs for n in bad})
         what = " and ".join(NEEDS[k] for k in need)
@@ -87,21 +102,30 @@ def check_inputs(selected, obj, source=None) -> None:
                           f"{type(obj).__name__}", path=source)
 
 
-def run(selected, obj, settings: dict | None = None) -> dict:
-    """Run the selected measures on ``obj``; each gets the settings it declares."""
-    settings = settings or {}
+def run(selected, obj, settings: dict | None = None, progress=None):
+    """Run the selected measures on ``obj`` and return the :class:`~sheetview.pipeline.Context`
+    holding their results (``ctx.results``), the shared phase grid and stage timings."""
+    from ..pipeline import Context
     check_inputs(selected, obj, getattr(obj, "source", None))
-    out = {}
+    ctx = Context(obj, settings, progress)
     for name in selected:
-        m = REGISTRY[name]
-        kw = {k: settings[k] for k in m.params if k in settings and settings[k] is not None}
-        out[name] = m.function(obj, **kw)
-    return out
+        ctx.result(name)
+    return ctx
 
 
-register("stacking", ".stacking:stacking", "structure",
+_P = "..pipeline"
+register("stacking", f"{_P}:run_stacking", "structure",
          ("angle_tol", "gap_tol", "overlap", "tilt_limit", "edge_tol"),
          "layers, stacks, stacking numbers, per-stack table, tilted contacts")
-register("order", ".orientation:orientation", "structure",
-         ("local_radius", "frame"),
+register("order", f"{_P}:run_order", "structure", ("local_radius", "frame"),
          "Q tensor, order parameter S, director, local and wall order, pole figure")
+register("phases", f"{_P}:run_phases", "grid", ("voxel", "max_memory", "pore_split"),
+         "volume fractions of solid, interlayer, gel pores (and size classes), outside")
+register("surface", f"{_P}:run_surface", "grid", ("density",),
+         "interface areas, S/V per pore class, specific surface, Minkowski functionals")
+register("pores", f"{_P}:run_pores", "grid", ("intrusion",),
+         "pore sizes: local thickness and simulated intrusion, d10/d50/d90")
+register("chords", f"{_P}:run_chords", "grid", ("lines", "seed"),
+         "chord lengths of solid and pore: exact random lines and voxel rows, Cauchy 4V/S")
+register("correlation", f"{_P}:run_correlation", "grid", ("s2_block", "s2_rmax"),
+         "two-point correlation S2(r) of the solid and its slope at the origin")

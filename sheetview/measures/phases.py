@@ -16,6 +16,7 @@ McDonald, J. Phys. Chem. C 117 (2013) 403), applied to the geometry of the model
 """
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -273,3 +274,43 @@ def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None) -> Pha
     inter = fr.get("interlayer", 0.0)
     return PhaseFractions(fr, vol, inside * vv, domain_volume, void,
                           inter / void if void > 0 else None)
+
+
+def split_pores_by_size(grid: PhaseGrid, thresholds, thickness: np.ndarray,
+                        names=("gel", "interhydrate", "capillary", "coarse")) -> PhaseGrid:
+    """Split the gel pore voxels into size classes by their local thickness.
+
+    Parameters
+    ----------
+    grid : PhaseGrid
+    thresholds : increasing diameters (nm); ``k`` thresholds make ``k + 1`` classes
+    thickness : per-voxel local thickness (nm) of the gel pores (NaN elsewhere), e.g.
+        :func:`sheetview.measures.pores.local_thickness`
+    names : names of the classes, smallest first; the first keeps the GEL code, the others
+        get codes 4, 5, ...
+
+    Returns
+    -------
+    PhaseGrid
+        A new grid (the input is unchanged) with the extra codes named in ``names``.
+    """
+    t = [float(x) for x in thresholds]
+    if not t:
+        return grid
+    if any(not (math.isfinite(x) and x > 0) for x in t) or any(b <= a for a, b in zip(t, t[1:])):
+        raise OptionError(f"pore size thresholds must be increasing positive numbers of nm, "
+                          f"got {list(thresholds)}", field="pore_split")
+    if len(t) >= len(names):
+        raise OptionError(f"at most {len(names) - 1} pore size thresholds, got {len(t)}",
+                          field="pore_split")
+    labels = grid.labels.copy()
+    gel = labels == GEL
+    cls = np.searchsorted(np.asarray(t), np.where(gel, thickness, 0.0), side="right")
+    for k in range(1, len(t) + 1):
+        labels[gel & (cls == k)] = GEL + k
+    new_names = dict(grid.names)
+    new_names[GEL] = names[0]
+    for k in range(1, len(t) + 1):
+        new_names[GEL + k] = names[k]
+    meta = dict(grid.metadata, pore_split_nm=t)
+    return dataclasses.replace(grid, labels=labels, names=new_names, metadata=meta)
