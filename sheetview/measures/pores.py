@@ -670,7 +670,7 @@ def _plane_mask(K, i, j, k, kx, periodic, isq):
         if g < 0:
             continue
         # covered: a * di >= -g / 2, i.e. a * di >= -(g // 2)
-        m0 = g // 2 + 1
+        m0 = g // 2
         if a == 1:
             pm &= ~_bit_range(max(-m0, -ri) + ri, 2 * ri)
         else:
