@@ -92,13 +92,16 @@ def _axis_cells(c, n, periodic, length, out, shift):
 
 
 @numba.njit(cache=True, parallel=True)
-def _local_moments(P, T, W, cells, cell_start, ncell, radius, periodic, L):
+def _local_moments(P, T, W, cells, cell_start, ncell, size, radius, periodic, L):
     """Sum of w n n^T (6 components) and of w over the points within ``radius`` of each
-    point (itself included). Points are sorted by cell; cells are at least ``radius``
-    wide; ``cells`` lists the non-empty cells. Parallel over cells."""
+    point (itself included). Points are sorted by cell; cells (edges ``size``) are at
+    least ``radius`` wide; ``cells`` lists the non-empty cells. Parallel over cells.
+    A neighbour cell whose box lies farther than ``radius`` from the point is skipped
+    (it holds no neighbour), which leaves the order of the sums unchanged."""
     n = P.shape[0]
     out = np.zeros((n, 7))
     r2 = radius * radius
+    r2_skip = r2 * (1.0 + 1e-9) + 1e-300
     nx, ny, nz = ncell[0], ncell[1], ncell[2]
     for q in numba.prange(cells.shape[0]):
         c = cells[q]
@@ -123,12 +126,29 @@ def _local_moments(P, T, W, cells, cell_start, ncell, radius, periodic, L):
             for k in range(7):
                 acc[k] = 0.0
             for a in range(mx):
+                px = P[i, 0] - sx[a]
+                qx = 0.0
+                if not rnd:  # distance from the point to the cell's slab along x
+                    lo = gx[a] * size[0] - px
+                    qx = max(lo, 0.0, -(lo + size[0]))
+                    qx *= qx
                 for b in range(my):
+                    py = P[i, 1] - sy[b]
+                    qy = qx
+                    if not rnd:
+                        lo = gy[b] * size[1] - py
+                        t = max(lo, 0.0, -(lo + size[1]))
+                        qy += t * t
+                        if qy > r2_skip:
+                            continue
                     for e in range(mz):
-                        g = (gx[a] * ny + gy[b]) * nz + gz[e]
-                        px = P[i, 0] - sx[a]
-                        py = P[i, 1] - sy[b]
                         pz = P[i, 2] - sz[e]
+                        if not rnd:
+                            lo = gz[e] * size[2] - pz
+                            t = max(lo, 0.0, -(lo + size[2]))
+                            if qy + t * t > r2_skip:
+                                continue
+                        g = (gx[a] * ny + gy[b]) * nz + gz[e]
                         for j in range(cell_start[g], cell_start[g + 1]):
                             d0 = P[j, 0] - px
                             d1 = P[j, 1] - py
@@ -204,7 +224,8 @@ def local_order(centroids, normals, weights, radius, domain=None) -> np.ndarray:
     T = np.ascontiguousarray(_moments6(nrm, w)[order])
     cells = np.unique(cell_s)
     mom = _local_moments(np.ascontiguousarray(P[order]), T, np.ascontiguousarray(w[order]),
-                         cells, start, ncell, float(radius), periodic, L)
+                         cells, start, ncell, np.asarray(size, dtype=np.float64), float(radius),
+                         periodic, L)
     S = np.empty(n)
     S[order] = _largest_eig(mom[:, :6], mom[:, 6])
     return S
