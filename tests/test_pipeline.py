@@ -135,3 +135,13 @@ def test_bad_options_exit_2_and_write_nothing(stack_file, tmp_path, args, msg):
     assert msg in r.output and "Traceback" not in r.output
     assert not out.exists()
     assert not any(q.name.startswith(".never") for q in tmp_path.iterdir())
+
+
+@pytest.mark.parametrize("value,phase,msg", [(0, "gel", "all void"), (1, "solid", "all solid")])
+def test_all_void_or_all_solid_is_refused(tmp_path, value, phase, msg):
+    p = tmp_path / "flat.npy"
+    np.save(p, np.full((10, 10, 10), value, np.uint8))
+    out = tmp_path / "rep"
+    r = run(p, "--voxel-size", "1", "--phases", f"{value}={phase}", "-o", out, "-q")
+    assert r.exit_code == 2 and msg in r.output and "Traceback" not in r.output
+    assert not out.exists()
