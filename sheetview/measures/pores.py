@@ -36,8 +36,15 @@ Discretisation (both measures, this program's conventions):
 
 Ball painting: every voxel takes the largest diameter of the balls holding it. A ball
 contained in a neighbour's ball (``d(y) >= d(x) + |x - y|`` for one of its 26
-neighbours) changes nothing and is skipped (the "distance ridge" speed-up, common
-practice); the rest are painted row by row by a parallel numba kernel.
+neighbours; on unit voxels the exact lattice-ball test) changes nothing and is skipped
+(the "distance ridge" speed-up, common practice). The rest are painted in order of
+decreasing diameter, first cover wins: a bit set of the voxels still unpainted (one bit
+per voxel along the contiguous axis, with a per-plane summary of rows) lets a ball skip
+what larger balls already painted, 64 voxels at a time, and every voxel is written once;
+on unit voxels a plane of a ball is also skipped when it lies in the same plane's disc of
+a face or in-plane neighbour with a larger radius (exact integer test). The x axis is cut
+into slabs painted in parallel, one thread per slab. The result is, bit for bit, the
+plain maximum over all balls.
 """
 from __future__ import annotations
 
