@@ -363,9 +363,57 @@ def _neighbour_cell(cx, cy, cz, off, ncell, periodic, L, shift):
     return g
 
 
+@numba.njit(cache=True, inline="always")
+def _axis_may_overlap(kind, i, j, V, C, Rad, Area, c, m0, m1, m2, d0, d1, d2, gd, lat2,
+                      overlap, edge_tol):
+    """Exact reject test on one separating axis: ``e``, the direction from centroid i
+    to centroid j within the common plane.
+
+    The projected intersection lies in the overlap (length ``w``) of the two triangles'
+    extents along ``e`` and is at most ``2 min(R_i, R_j)`` across, so its area is at most
+    ``2 w min(R)``; the projected triangle areas are ``A cos(theta/2)`` with
+    ``cos(theta/2) = sqrt((1 + |n_i . n_j|) / 2)``. A stacked or tilted pair is rejected
+    when that bound is below the required overlap; an in-plane pair when the extents are
+    more than ``edge_tol`` apart (it could then share no edge either). Returns False
+    only when :func:`_pair_overlap` would reject the pair; margins cover rounding.
+    """
+    e0 = d0 - gd * m0
+    e1 = d1 - gd * m1
+    e2 = d2 - gd * m2
+    em = e0 * m0 + e1 * m1 + e2 * m2  # re-orthogonalise against rounding
+    e0 -= em * m0
+    e1 -= em * m1
+    e2 -= em * m2
+    lat = math.sqrt(e0 * e0 + e1 * e1 + e2 * e2)
+    if lat < 1e-9:  # centroids (nearly) on one normal: no usable axis
+        return True
+    e0 /= lat
+    e1 /= lat
+    e2 /= lat
+    de = d0 * e0 + d1 * e1 + d2 * e2
+    amin = np.inf
+    amax = -np.inf
+    bmin = np.inf
+    bmax = -np.inf
+    for k in range(3):
+        ta = ((V[i, k, 0] - C[i, 0]) * e0 + (V[i, k, 1] - C[i, 1]) * e1
+              + (V[i, k, 2] - C[i, 2]) * e2)
+        tb = ((V[j, k, 0] - C[j, 0]) * e0 + (V[j, k, 1] - C[j, 1]) * e1
+              + (V[j, k, 2] - C[j, 2]) * e2) + de
+        amin = min(amin, ta)
+        amax = max(amax, ta)
+        bmin = min(bmin, tb)
+        bmax = max(bmax, tb)
+    w = min(amax, bmax) - max(amin, bmin)
+    if kind == 1:
+        return w >= -(edge_tol * (1.0 + 1e-9) + 1e-12)
+    need = overlap * min(Area[i], Area[j]) * math.sqrt(0.5 * (1.0 + min(c, 1.0)))
+    return 2.0 * w * min(Rad[i], Rad[j]) >= need * (1.0 - 1e-9) - 1e-300
+
+
 @numba.njit(cache=True, parallel=True)
 def _cell_pairs(P, start, cells, ncell, radius, periodic, L, chunk_bounds, offsets, mode,
-                classify, order, V, C, Nrm, Rad, cos_tol, cos_tilt, gap_tol, spacing, overlap, edge_tol,
+                classify, order, V, C, Nrm, Rad, Area, cos_tol, cos_tilt, gap_tol, spacing, overlap, edge_tol,
                 n_cand, n_kept, out_i, out_j, out_code, out_angle):
     """Cell-list pair search over points ``P`` sorted by cell (cells at least ``radius``
     wide, at least 3 per periodic axis), half-shell enumeration, minimum image.
@@ -377,8 +425,9 @@ def _cell_pairs(P, start, cells, ncell, radius, periodic, L, chunk_bounds, offse
     Pairs are classified with the lower original index first, exactly as
     :func:`_classify_pairs` does. ``V, C, Nrm`` are in sorted order. With ``classify``
     False every pair within ``radius`` is kept (plain neighbour search). ``Rad`` is
-    each prism's largest centroid-to-corner distance of its mid-plane triangle (exact
-    lateral pretest before the overlap test).
+    each prism's largest centroid-to-corner distance of its mid-plane triangle and
+    ``Area`` its area (exact pretests before the overlap test, see
+    :func:`_axis_may_overlap`).
     """
     r2 = radius * radius
     nchunk = chunk_bounds.shape[0] - 1
@@ -444,6 +493,10 @@ def _cell_pairs(P, start, cells, ncell, radius, periodic, L, chunk_bounds, offse
                         lat2 = d0 * d0 + d1 * d1 + d2 * d2 - gd * gd
                         reach = Rad[i] + Rad[j] + edge_tol
                         if lat2 > reach * reach * (1.0 + 1e-6) + 1e-12:
+                            continue
+                        if not _axis_may_overlap(
+                                kind, i, j, V, C, Rad, Area, cs, m0, m1, m2, d0, d1, d2, gd,
+                                lat2, overlap, edge_tol):
                             continue
                         if mode == 1:
                             out_i[w] = order[i]
@@ -513,6 +566,7 @@ def _fused_graph(structure, settings, radius):
     V = np.ascontiguousarray(np.asarray(structure.vertices, dtype=np.float64)[order])
     Nrm = np.ascontiguousarray(np.asarray(structure.normals, dtype=np.float64)[order])
     Rad = np.sqrt(((V - C[:, None, :]) ** 2).sum(axis=2).max(axis=1))
+    Area = 0.5 * np.linalg.norm(np.cross(V[:, 1] - V[:, 0], V[:, 2] - V[:, 0]), axis=1)
     bounds = _chunks(len(cells))
     k = len(bounds) - 1
     n_cand = np.zeros(k, np.int64)
@@ -521,7 +575,7 @@ def _fused_graph(structure, settings, radius):
             settings.gap_tol, settings.spacing, settings.overlap, settings.edge_tol)
     zi = np.zeros(0, np.int64)
     _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, zi, 0, True, order,
-                V, C, Nrm, Rad, *args, n_cand, n_kept, zi, zi, np.zeros(0, np.int8), np.zeros(0))
+                V, C, Nrm, Rad, Area, *args, n_cand, n_kept, zi, zi, np.zeros(0, np.int8), np.zeros(0))
     offsets = np.zeros(k + 1, np.int64)
     np.cumsum(n_kept, out=offsets[1:])
     m = int(offsets[-1])
@@ -530,7 +584,7 @@ def _fused_graph(structure, settings, radius):
     code = np.empty(m, np.int8)
     angle = np.empty(m, np.float64)
     _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, offsets, 1, True,
-                order, V, C, Nrm, Rad, *args, n_cand, n_kept, pi, pj, code, angle)
+                order, V, C, Nrm, Rad, Area, *args, n_cand, n_kept, pi, pj, code, angle)
     return pi, pj, code, angle, int(n_cand.sum())
 
 
@@ -770,7 +824,7 @@ def candidate_pairs(centroids, radius, domain):
     n_kept = np.zeros(k, np.int64)
     z = np.zeros((0, 3))
     zi = np.zeros(0, np.int64)
-    rest = (z, z, np.zeros(0), 1.0, 0.0, 0.0, 1.0, 1.0, 1.0)
+    rest = (z, z, np.zeros(0), np.zeros(0), 1.0, 0.0, 0.0, 1.0, 1.0, 1.0)
     _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, zi, 0, False, order,
                 np.zeros((0, 3, 3)), *rest, n_cand, n_kept, zi, zi, np.zeros(0, np.int8),
                 np.zeros(0))
