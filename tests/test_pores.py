@@ -64,38 +64,71 @@ def test_local_thickness_brute_force_anisotropic_and_periodic():
 
 
 def brute_intrusion(mask, reservoir):
-    """Level-by-level reference (Münch & Holzer, J. Am. Ceram. Soc. 91 (2008) 4059, from
-    memory for the citation), drainage form: for each distinct ball diameter D in
-    decreasing order, centres with 2 d - 1 >= D, 26-connected clusters (scipy.ndimage.label),
-    a cluster is invaded if one of its balls of diameter D holds a reservoir voxel or it
-    holds an already invaded centre; invaded voxels = union of the balls of diameter D."""
+    """Level-by-level reference of simulated intrusion (Münch & Holzer, J. Am. Ceram. Soc.
+    91 (2008) 4059, from memory for the citation) on unit voxels, drainage form, pairwise
+    distances. Every length is kept as an integer squared distance, so the open balls are
+    exact: at the level of squared radius ``K`` (diameter ``D = 2 sqrt(K) - 1``) the centres
+    are the phase voxels with ``d^2 >= K``, clustered by 26-connectivity
+    (scipy.ndimage.label); a cluster is invaded if one of its balls ``|q - x|^2 < K``
+    holds a reservoir voxel or it holds an already invaded centre; the voxels of the
+    balls ``|q - x|^2 < K`` of the invaded centres not yet reached take ``D``.
+
+    (An earlier version compared with ``((D + 1) / 2) ** 2``, which rounds to e.g.
+    2.0000000000000004 for ``K = 2``: voxels at exactly the ball's radius, frequent on a
+    lattice, were wrongly counted inside the open ball.)"""
     from scipy import ndimage as ndi
     m = np.asarray(mask, bool)
     P = np.argwhere(m)
     pad = np.pad(m, 1, constant_values=False)
     B = np.argwhere(~pad) - 1
     d2 = ((P[:, None, :] - B[None]) ** 2).sum(-1).min(1)
-    v = 2 * np.sqrt(d2) - 1
     R = np.argwhere(reservoir & m)
     dR2 = ((P[:, None, :] - R[None]) ** 2).sum(-1).min(1)
     D2 = ((P[:, None, :] - P[None]) ** 2).sum(-1)
     invaded_centre = np.zeros(len(P), bool)
     out = np.zeros(len(P))
-    for D in np.unique(v)[::-1]:
-        cen = v >= D - 1e-9
+    for K in np.unique(d2)[::-1]:
+        D = 2 * np.sqrt(K) - 1
+        cen = d2 >= K
         grid = np.zeros(m.shape, bool)
         grid[tuple(P[cen].T)] = True
         lab, _ = ndi.label(grid, np.ones((3, 3, 3)))
         lp = lab[tuple(P.T)]
-        rad2 = ((D + 1) / 2) ** 2
-        hit = cen & ((dR2 < rad2) | invaded_centre)
+        hit = cen & ((dR2 < K) | invaded_centre)
         good = np.isin(lp, np.unique(lp[hit])) & cen
         invaded_centre |= good
-        ball = (D2[:, good] < np.minimum(rad2, d2[good])[None, :]).any(axis=1)
+        ball = (D2[:, good] < K).any(axis=1)
         out = np.where(ball & (out == 0), D, out)
     res = np.full(m.shape, np.nan)
     res[m] = out
     return res
+
+
+def dilation_intrusion(mask, reservoir):
+    """Second, independent reference (unit voxels): the same definition with
+    scipy.ndimage only -- exact Euclidean distance transforms (scipy), 26-connected
+    labelling of the centre set and a binary dilation of the invaded centres by the
+    lattice ball ``|p|^2 < K`` at each level ``K`` (Münch & Holzer 2008: intrusion as an
+    opening restricted to the reservoir-connected centres)."""
+    from scipy import ndimage as ndi
+    m = np.asarray(mask, bool)
+    r = reservoir & m
+    d2 = np.rint(ndi.distance_transform_edt(np.pad(m, 1))[1:-1, 1:-1, 1:-1] ** 2).astype(int)
+    dR2 = np.rint(ndi.distance_transform_edt(~r) ** 2).astype(int)
+    out = np.zeros(m.shape)
+    inv = np.zeros(m.shape, bool)
+    for K in np.unique(d2[m])[::-1]:
+        cen = m & (d2 >= K)
+        lab, _ = ndi.label(cen, np.ones((3, 3, 3)))
+        entry = cen & ((dR2 < K) | inv)
+        good = np.isin(lab, np.unique(lab[entry])) & cen
+        inv |= good
+        e = int(np.ceil(np.sqrt(K)))
+        g = np.mgrid[-e:e + 1, -e:e + 1, -e:e + 1]
+        ball = ndi.binary_dilation(good, (g ** 2).sum(0) < K) & m
+        out = np.where(ball & (out == 0), 2 * np.sqrt(K) - 1, out)
+    out[~m] = np.nan
+    return out
 
 
 def test_intrusion_matches_level_reference():
@@ -107,6 +140,66 @@ def test_intrusion_matches_level_reference():
     got = intrusion_diameter(m, 1.0, res)
     ref = brute_intrusion(m, res)
     np.testing.assert_allclose(got[m], ref[m], rtol=1e-6, atol=1e-6)
+
+
+def _reservoirs(m, seed):
+    """Face, whole border (default) and a scattered random reservoir."""
+    face = np.zeros_like(m)
+    face[:, 0] = True
+    rng = np.random.default_rng(seed)
+    spots = rng.random(m.shape) < 0.01
+    return [("face", face), ("border", None), ("spots", spots)]
+
+
+def test_intrusion_regression_ties_on_ball_boundary():
+    """The volume on which the old reference disagreed with the implementation (36 voxels
+    at exactly a ball's squared radius 2 or 5 from an invaded centre): both references
+    (derived from Münch & Holzer 2008, exact integer arithmetic) and the implementation
+    agree."""
+    m = _random_phase(5, (12, 13, 11), smooth=1.5)
+    res = np.zeros_like(m)
+    res[:, 0] = True
+    got = intrusion_diameter(m, 1.0, res)
+    ref = brute_intrusion(m, res)
+    np.testing.assert_allclose(got[m], ref[m], rtol=1e-6)
+    np.testing.assert_allclose(got[m], dilation_intrusion(m, res)[m], rtol=1e-6)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 3, 4, 5])
+def test_intrusion_matches_references_random(seed):
+    """Random smoothed-noise volumes of several shapes and porosities, three reservoirs
+    (a face, the whole border, scattered voxels): the implementation equals the two
+    references above (derived from the definition of Münch & Holzer 2008) to float32
+    rounding, voxel by voxel."""
+    rng = np.random.default_rng(100 + seed)
+    shape = tuple(int(s) for s in rng.integers(9, 15, 3))
+    m = _random_phase(seed, shape, smooth=float(rng.uniform(1.0, 2.0)))
+    for name, res in _reservoirs(m, seed):
+        full = (np.zeros_like(m) if res is None else res)
+        if res is None:
+            for ax in range(3):
+                sl = [slice(None)] * 3
+                sl[ax] = 0
+                full[tuple(sl)] = True
+                sl[ax] = -1
+                full[tuple(sl)] = True
+        if not (full & m).any():
+            continue
+        got = intrusion_diameter(m, 1.0, res)
+        ref = brute_intrusion(m, full)
+        np.testing.assert_allclose(got[m], ref[m], rtol=1e-6, err_msg=name)
+        np.testing.assert_array_equal(np.isnan(got), ~m)
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_intrusion_matches_dilation_reference_larger(seed):
+    """Larger random volumes (too big for the pairwise reference): the implementation
+    equals the labelling-and-dilation reference (derived, Münch & Holzer 2008)."""
+    m = _random_phase(seed, (30, 26, 28), smooth=2.5)
+    res = np.zeros_like(m)
+    res[-1] = True
+    got = intrusion_diameter(m, 1.0, res)
+    np.testing.assert_allclose(got[m], dilation_intrusion(m, res)[m], rtol=1e-6)
 
 
 def test_intrusion_steps_round_down():

@@ -1010,14 +1010,32 @@ def intrusion_diameter(mask, spacing, reservoir=None, *, diameters=None,
                        periodic: bool = False, out=None) -> np.ndarray:
     """Simulated intrusion diameter (nm) of each phase voxel (Münch & Holzer 2008).
 
-    For decreasing ``D``, a ball of diameter ``D`` enters the phase from the reservoir and
-    moves through it: its centre may be at ``x`` when ``2 d(x) - h >= D`` (the ball fits,
-    module conventions), centres move between 26-neighbours, and the ball first enters
-    where a ball of diameter ``D`` centred at ``x`` holds a reservoir voxel
-    (``|x - q| < (D + h)/2``). Once a region is invaded it stays invaded (drainage). Each
-    voxel takes the largest ``D`` whose invaded balls hold it. Where every pore is open to
-    the reservoir this equals the local thickness; a cavity behind a narrow throat takes
-    the throat diameter.
+    Definition (module conventions: ``d(x)`` the distance from phase voxel ``x`` to the
+    nearest non-phase voxel centre, ``h`` the geometric-mean voxel edge, ``R`` the
+    reservoir voxels, all of them phase voxels, ``d_R(x)`` the distance to the nearest
+    reservoir voxel centre):
+
+    * ``v(x) = 2 d(x) - h``: the largest ball diameter centred at ``x``;
+    * ball of diameter ``D`` about ``x``: ``B_D(x) = {q : |q - x| < (D + h) / 2}`` (open;
+      at ``D = v(x)`` it is ``B(x, d(x))``, inside the phase);
+    * centres at level ``D``: ``C_D = {x : v(x) >= D}``;
+    * entries at level ``D``: ``x`` in ``C_D`` whose ball ``B_D(x)`` holds a reservoir
+      voxel, i.e. ``2 d_R(x) - h < D`` (a reservoir voxel in ``C_D`` is one);
+    * invaded centres ``I_D``: the 26-connected components of ``C_D`` holding an entry at
+      level ``D`` or a centre of ``I_D'`` for some ``D' > D`` (drainage: an invaded
+      region stays invaded, even once the smaller balls no longer reach the reservoir);
+    * invaded voxels at level ``D``: the union of ``B_D(x)`` over ``x`` in ``I_D``;
+    * intrusion diameter of voxel ``q``: the largest ``D`` at which ``q`` is invaded, 0 if
+      none.
+
+    Equivalently, with a *door* a centre with ``2 d_R(x) - h < v(x)`` (an entry at its
+    own full size), ``x`` is invaded at ``D`` iff its component of ``C_D`` holds a door,
+    so the invasion level of a centre is the bottleneck ``L(x) = max`` over 26-paths from
+    ``x`` to a door of the smallest ``v`` on the path, and the diameter of ``q`` is
+    ``max{L(x) : |q - x| < (L(x) + h) / 2}``. Where every pore is open to the reservoir
+    this equals the local thickness; a cavity behind a narrow throat takes the throat
+    diameter. On unit voxels everything is decided in exact integer squared distances (a
+    voxel at exactly a ball's radius is outside the open ball).
 
     Parameters
     ----------
