@@ -25,7 +25,8 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, rasterize
-from .stacking import StackingSettings, clip_polygon_buf, plane_basis, stacking_graph
+from .stacking import (StackingSettings, clip_polygon_buf, pair_frame, plane_basis,
+                       stacking_graph)
 
 
 @numba.njit(cache=True)
@@ -55,22 +56,7 @@ def _paint_gaps(pairs, V, C, Nrm, T, periodic, L, org, sp, shape, labels):
         for p in range(ch * npair // nchunk, (ch + 1) * npair // nchunk):
             i = pairs[p, 0]
             j = pairs[p, 1]
-            dn = _dot(Nrm[i, 0], Nrm[i, 1], Nrm[i, 2], Nrm[j, 0], Nrm[j, 1], Nrm[j, 2])
-            sj = 1.0 if dn >= 0.0 else -1.0
-            m0 = Nrm[i, 0] + sj * Nrm[j, 0]
-            m1 = Nrm[i, 1] + sj * Nrm[j, 1]
-            m2 = Nrm[i, 2] + sj * Nrm[j, 2]
-            mn = math.sqrt(m0 * m0 + m1 * m1 + m2 * m2)
-            m0 /= mn
-            m1 /= mn
-            m2 /= mn
-            d0 = C[j, 0] - C[i, 0]
-            d1 = C[j, 1] - C[i, 1]
-            d2 = C[j, 2] - C[i, 2]
-            if periodic:
-                d0 -= L[0] * np.round(d0 / L[0])
-                d1 -= L[1] * np.round(d1 / L[1])
-                d2 -= L[2] * np.round(d2 / L[2])
+            m0, m1, m2, d0, d1, d2 = pair_frame(i, j, C, Nrm, L, periodic)
             h = _dot(m0, m1, m2, d0, d1, d2)
             if h < 0.0:
                 m0, m1, m2, h = -m0, -m1, -m2, -h

@@ -266,17 +266,11 @@ def _classify_one(p, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol,
 
 
 @numba.njit(cache=True, inline="always")
-def _pair_kind(i, j, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing):
-    """Cheap tests of a pair (angle between normals, gap along the mean normal).
-
-    Returns ``(kind, |cos|, m, d)``: kind 0 rejected, 1 in-plane, 2 stacked, 3 tilted
-    candidate (the overlap test still to come), the mean unit normal ``m`` and the
-    minimum-image centroid offset ``d = C_j - C_i``."""
+def pair_frame(i, j, C, Nrm, L, periodic):
+    """Frame of a pair of prisms: the mean unit normal ``m`` (``n_i + sign(n_i . n_j) n_j``,
+    normalised) and the centroid offset ``d = C_j - C_i`` (minimum image when periodic)."""
     dn = Nrm[i, 0] * Nrm[j, 0] + Nrm[i, 1] * Nrm[j, 1] + Nrm[i, 2] * Nrm[j, 2]
     s = 1.0 if dn >= 0.0 else -1.0
-    c = abs(dn)
-    if c < cos_tilt:
-        return 0, c, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0
     m0 = Nrm[i, 0] + s * Nrm[j, 0]
     m1 = Nrm[i, 1] + s * Nrm[j, 1]
     m2 = Nrm[i, 2] + s * Nrm[j, 2]
@@ -291,6 +285,20 @@ def _pair_kind(i, j, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing):
         d0 -= L[0] * np.round(d0 / L[0])
         d1 -= L[1] * np.round(d1 / L[1])
         d2 -= L[2] * np.round(d2 / L[2])
+    return m0, m1, m2, d0, d1, d2
+
+
+@numba.njit(cache=True, inline="always")
+def _pair_kind(i, j, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing):
+    """Cheap tests of a pair (angle between normals, gap along the mean normal).
+
+    Returns ``(kind, |cos|, m, d)``: kind 0 rejected, 1 in-plane, 2 stacked, 3 tilted
+    candidate (the overlap test still to come), the mean unit normal ``m`` and the
+    minimum-image centroid offset ``d = C_j - C_i``."""
+    c = abs(Nrm[i, 0] * Nrm[j, 0] + Nrm[i, 1] * Nrm[j, 1] + Nrm[i, 2] * Nrm[j, 2])
+    if c < cos_tilt:
+        return 0, c, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0
+    m0, m1, m2, d0, d1, d2 = pair_frame(i, j, C, Nrm, L, periodic)
     gap = abs(m0 * d0 + m1 * d1 + m2 * d2)
     parallel = c >= cos_tol
     if parallel and gap <= gap_tol:
@@ -627,32 +635,6 @@ def _csr(n, a, b):
         idx[fill[b[k]]] = a[k]
         fill[b[k]] += 1
     return deg, idx
-
-
-@numba.njit(cache=True)
-def _components(n, indptr, indices):
-    """Connected-component labels (0..K-1, in order of lowest member) by breadth-first search."""
-    lab = -np.ones(n, np.int64)
-    queue = np.empty(n, np.int64)
-    k = 0
-    for r in range(n):
-        if lab[r] >= 0:
-            continue
-        lab[r] = k
-        head = 0
-        tail = 1
-        queue[0] = r
-        while head < tail:
-            i = queue[head]
-            head += 1
-            for q in range(indptr[i], indptr[i + 1]):
-                j = indices[q]
-                if lab[j] < 0:
-                    lab[j] = k
-                    queue[tail] = j
-                    tail += 1
-        k += 1
-    return lab, k
 
 
 @numba.njit(cache=True)
@@ -1168,7 +1150,7 @@ def stacking(structure, *, angle_tol: float = DEFAULTS["angle_tol"],
     ia = graph.inplane[:, 0].astype(np.int64)
     ib = graph.inplane[:, 1].astype(np.int64)
     p, q = _csr(n, ia, ib)
-    layer, n_layers = _components(n, p, q)
+    layer, n_layers, _, _ = _orient_unwrap(n, p, q, Nrm, C, L, periodic)
     allA = np.concatenate([ia, graph.stacked[:, 0]]).astype(np.int64)
     allB = np.concatenate([ib, graph.stacked[:, 1]]).astype(np.int64)
     p, q = _csr(n, allA, allB)
