@@ -893,92 +893,110 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None) -> np.nd
 
 
 # ================================================================== intrusion
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def _find(parent, x):
-    while parent[x] != x:
-        x = parent[x]
-    return x
+    """Root of ``x``, halving the path on the way (each node visited is pointed at its
+    grandparent)."""
+    while True:
+        p = parent[x]
+        if p == x:
+            return x
+        gp = parent[p]
+        parent[x] = gp
+        x = gp
+
+
+@numba.njit(cache=True, inline="always")
+def _claim(nxt, lk, c, kv):
+    """Give level ``kv`` to every node of the circular member list through ``c``."""
+    t = c
+    while True:
+        lk[t] = kv
+        t = nxt[t]
+        if t == c:
+            break
 
 
 @numba.njit(cache=True)
-def _invade(order_flat, comp, v, g, shape, periodic):
-    """Largest diameter at which each ball centre is reached from the reservoir
-    (monotone drainage), by a union-find over centres added in decreasing ``v``.
+def _invade(order, d2, door, shape, periodic, parent, nxt, rank, inv, lk):
+    """Invasion level of every centre, as the squared radius ``d2`` of its bottleneck
+    centre (0: never invaded), by a union-find over the grid.
 
-    ``order_flat`` are flat voxel indices of the phase sorted by decreasing ``v``;
-    ``comp`` maps flat index -> compact index (-1 off the phase); ``v`` (compact) is the
-    largest diameter a ball centred there may have and ``g`` the smallest diameter whose
-    ball centred there holds a reservoir voxel (``2 d_R - h``). At level ``D`` the centres
-    with ``v >= D`` form clusters (26-connectivity); a cluster is invaded when one of its
-    balls of diameter ``D`` holds a reservoir voxel (``min g < D``) or when it merges with an
-    invaded cluster. The level is stored on the cluster's root at that moment, so a node's
-    level is that of its first ancestor (itself included) holding one. Returns the level
-    per compact index (-1: never).
-    """
-    n = v.size
+    ``order``: flat indices of the phase voxels by decreasing ``d2`` (float32 squared
+    distances, internal units; 0 off the phase). ``door`` (flat bool): centres whose own
+    largest ball holds a reservoir voxel (``d_R^2 < d^2``). Adding the centres in that
+    order maintains the 26-connected clusters of the centres with ``d2 >= K`` (union by
+    rank, path halving). A cluster is invaded when it gets a door or merges with an
+    invaded cluster; at that moment each of its members not yet invaded takes the current
+    level ``K``, by a walk along a circular member list kept for the clusters not yet
+    invaded, so every node is written once. Flat scratch arrays of the grid size:
+    ``parent`` (-1 everywhere on entry), ``nxt`` (any), ``rank`` and ``inv`` (zeros);
+    ``lk`` (float32, zeros) receives the levels."""
     n0, n1, n2 = shape[0], shape[1], shape[2]
-    parent = np.arange(n).astype(np.int64)
-    rank = np.zeros(n, dtype=np.int8)
-    ming = g.copy()
-    level = np.full(n, -1.0, dtype=np.float32)
-    added = np.zeros(n, dtype=np.bool_)
-    for t in range(order_flat.size):
-        f = order_flat[t]
-        x = comp[f]
-        D = v[x]
-        added[x] = True
-        i = f // (n1 * n2)
+    s0 = n1 * n2
+    offs = np.empty(26, dtype=np.int64)
+    oa = np.empty(26, dtype=np.int64)
+    ob = np.empty(26, dtype=np.int64)
+    oc = np.empty(26, dtype=np.int64)
+    u = 0
+    for a in range(-1, 2):
+        for b in range(-1, 2):
+            for c in range(-1, 2):
+                if a == 0 and b == 0 and c == 0:
+                    continue
+                offs[u] = a * s0 + b * n2 + c
+                oa[u] = a
+                ob[u] = b
+                oc[u] = c
+                u += 1
+    for t in range(order.size):
+        f = order[t]
+        kv = d2[f]
+        parent[f] = f
+        nxt[f] = f
+        r = f
+        ir = door[f]
+        if ir:
+            lk[f] = kv
+        i = f // s0
         j = (f // n2) % n1
         k = f % n2
-        for a in range(-1, 2):
-            for b in range(-1, 2):
-                for c in range(-1, 2):
-                    if a == 0 and b == 0 and c == 0:
-                        continue
-                    ii = i + a
-                    jj = j + b
-                    kk = k + c
-                    if periodic:
-                        ii %= n0
-                        jj %= n1
-                        kk %= n2
-                    elif ii < 0 or jj < 0 or kk < 0 or ii >= n0 or jj >= n1 or kk >= n2:
-                        continue
-                    y = comp[(ii * n1 + jj) * n2 + kk]
-                    if y < 0 or not added[y]:
-                        continue
-                    rx = _find(parent, x)
-                    ry = _find(parent, y)
-                    if rx == ry:
-                        continue
-                    cx = level[rx] >= 0
-                    cy = level[ry] >= 0
-                    if cx and not cy:
-                        level[ry] = D
-                    elif cy and not cx:
-                        level[rx] = D
-                    if rank[rx] < rank[ry]:
-                        rx, ry = ry, rx
-                    parent[ry] = rx
-                    if rank[rx] == rank[ry]:
-                        rank[rx] += 1
-                    if ming[ry] < ming[rx]:
-                        ming[rx] = ming[ry]
-        r = _find(parent, x)
-        if level[r] < 0 and ming[r] < D:
-            level[r] = D
-    # each node: the level of its first ancestor (itself included) that has one
-    out = np.full(n, -1.0, dtype=np.float32)
-    for x in range(n):
-        y = x
-        while True:
-            if level[y] >= 0:
-                out[x] = level[y]
-                break
-            if parent[y] == y:
-                break
-            y = parent[y]
-    return out
+        interior = 0 < i < n0 - 1 and 0 < j < n1 - 1 and 0 < k < n2 - 1
+        for u in range(26):
+            if interior:
+                y = f + offs[u]
+            else:
+                ii = i + oa[u]
+                jj = j + ob[u]
+                kk = k + oc[u]
+                if periodic:
+                    ii %= n0
+                    jj %= n1
+                    kk %= n2
+                elif ii < 0 or jj < 0 or kk < 0 or ii >= n0 or jj >= n1 or kk >= n2:
+                    continue
+                y = ii * s0 + jj * n2 + kk
+            if parent[y] < 0:
+                continue
+            ry = _find(parent, y)
+            if ry == r:
+                continue
+            iy = inv[ry] != 0
+            if ir and not iy:
+                _claim(nxt, lk, ry, kv)
+            elif iy and not ir:
+                _claim(nxt, lk, r, kv)
+            elif not ir:
+                tmp = nxt[r]  # splice the two circular lists
+                nxt[r] = nxt[ry]
+                nxt[ry] = tmp
+            if rank[r] < rank[ry]:
+                r, ry = ry, r
+            parent[ry] = r
+            if rank[r] == rank[ry]:
+                rank[r] += 1
+            ir = ir or iy
+        inv[r] = ir
 
 
 def default_reservoir(mask, *, outside=None, periodic=False) -> np.ndarray:
@@ -1090,39 +1108,71 @@ def intrusion_diameter(mask, spacing, reservoir=None, *, diameters=None,
                               field="diameters")
     d2 = squared_distance(m, rel, periodic=periodic)
     flat = d2.reshape(-1)
-    idx = np.flatnonzero(m.reshape(-1))
-    r2 = flat[idx].astype(np.float64)
-    del d2, flat
-    v = (2.0 * np.sqrt(r2) - hc)  # internal units
-    # distance to the reservoir (voxel centres), internal units
+    # distance to the reservoir (voxel centres), internal units; a door is a centre whose
+    # own largest ball holds a reservoir voxel: d_R^2 < d^2
     if periodic:
         dr2 = squared_distance(~res, rel, periodic=True)
     else:
         dr2 = edt.edtsq(np.ascontiguousarray(~res, dtype=np.uint8),
                         anisotropy=tuple(float(a) for a in rel), black_border=False,
                         parallel=EDT_THREADS)
-    g = 2.0 * np.sqrt(dr2.reshape(-1)[idx].astype(np.float64)) - hc
+    door = dr2.reshape(-1) < flat
     del dr2
-    comp = np.full(m.size, -1, dtype=np.int64)
-    comp[idx] = np.arange(idx.size)
-    order = idx[np.argsort(-v, kind="stable")]
-    lev = _invade(order, comp, v.astype(np.float64), g, np.asarray(m.shape, dtype=np.int64),
-                  bool(periodic)).astype(np.float64)
-    del comp
-    if steps is not None:
-        s_int = steps / unit
-        pos = np.searchsorted(s_int, lev * (1 + 1e-12), side="right") - 1
-        lev = np.where(pos >= 0, s_int[np.maximum(pos, 0)], -1.0)
-    ok = lev > 0
-    rho2 = np.minimum(((lev + hc) / 2.0) ** 2, r2)
-    rho2 = np.where(lev >= v - 1e-12, r2, rho2)  # at full size: the exact radius
-    sel = np.flatnonzero(ok)
-    scratch = np.empty(m.size, dtype=np.float32)
-    if out is None:
-        out = scratch.reshape(m.shape)
-    res_map, _ = _paint_balls(m.shape, idx[sel], rho2[sel].astype(np.float32),
-                              (lev[sel] * unit).astype(np.float32), rel, periodic, scratch,
-                              out, m)
+    idx = np.flatnonzero(m.reshape(-1))
+    order = idx[_argsort_desc(flat[idx].view(np.uint32))]  # stable: grid order in ties
+    del idx
+    n = m.size
+    itype = np.int32 if n < 2 ** 31 - 1 else np.int64
+    lk = np.zeros(n, dtype=np.float32)
+    parent = np.full(n, -1, dtype=itype)
+    nxt = np.empty(n, dtype=itype)
+    rank = np.zeros(n, dtype=np.int8)
+    inv = np.zeros(n, dtype=np.bool_)
+    _invade(order, flat, door, np.asarray(m.shape, dtype=np.int64), bool(periodic), parent,
+            nxt, rank, inv, lk)
+    del parent, nxt, rank, inv, order, door
+    if out is not None and (out.shape != m.shape or out.dtype != np.float32
+                            or not out.flags.c_contiguous):
+        raise OptionError(f"out must be a C-contiguous float32 array of shape {m.shape}",
+                          field="out")
+    kmap = lk.reshape(m.shape)
+    nch = max(1, min(m.shape[0], 16 * numba.get_num_threads()))
+    top = _int_max(kmap, nch) if (steps is None and np.all(rel == 1.0)) else -1
+    if top >= 0:
+        # unit voxels, whole squared radii: ridge, plane masks and counting sort on the
+        # grid, as for the local thickness (the value 2 sqrt(K) - h grows with K)
+        del d2, flat
+        kmax = int(min(max(top, 1), DISCRETE_TABLE_MAX_K))
+        MT = np.ascontiguousarray(_containment_table(kmax, _TYPES).T)
+        flag, hist = _ridge_grid(kmap, MT, _offset_types(), bool(periodic), nch)
+        kk = np.arange(hist.shape[1], dtype=np.float64)
+        vk = ((2.0 * np.sqrt(kk) - hc) * unit).astype(np.float32)
+        isq = _isqrt_table(hist.shape[1])
+        ci, cj, ck, rr, vals, pmask = _gather_ridge(kmap, flag, hist, vk, nch,
+                                                    bool(periodic), isq)
+        del flag
+        if out is None:
+            out = kmap  # the level map is no longer needed
+        _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, m, out, True, pmask)
+        res_map = out
+    else:
+        sel = np.flatnonzero(lk)
+        rho2 = lk[sel].astype(np.float64)
+        lev = 2.0 * np.sqrt(rho2) - hc
+        del lk, kmap
+        if steps is not None:
+            s_int = steps / unit
+            pos = np.searchsorted(s_int, lev * (1 + 1e-12), side="right") - 1
+            ok = pos >= 0
+            st = s_int[np.maximum(pos, 0)]
+            # a ball of the step's diameter; the exact bottleneck radius at full size
+            rho2 = np.where(st >= lev - 1e-12, rho2, np.minimum(((st + hc) / 2.0) ** 2, rho2))
+            sel, rho2, lev = sel[ok], rho2[ok], st[ok]
+        if out is None:
+            out = d2
+        res_map, _ = _paint_balls(m.shape, sel, rho2.astype(np.float32),
+                                  (lev * unit).astype(np.float32), rel, periodic, flat,
+                                  out, m)
     res_map[~m] = np.nan
     return res_map
 
