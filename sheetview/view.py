@@ -39,7 +39,7 @@ from .grid import GEL, INTERLAYER, OUTSIDE, SOLID
 #: in greyscale print.
 PHASE_COLOURS = {
     SOLID: "#7a4e2d",
-    INTERLAYER: "#e8b04a",
+    INTERLAYER: "#a58fd0",  # lavender: apart from the orange of the stack palette
     GEL: "#9fd3f0",
     OUTSIDE: "#d9d9d9",
 }

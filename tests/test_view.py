@@ -538,3 +538,47 @@ def test_view_voxel_size_caps_the_grid(stack4):
     assert v > default_voxel_size(big)
     assert 500 * 400 * 300 / v ** 3 <= V.VIEW_MAX_VOXELS
     assert 500 * 400 * 300 / (0.99 * v) ** 3 > V.VIEW_MAX_VOXELS * 0.97
+
+
+WINDOW_SCRIPT = r"""
+import sys
+import pyvista as pv
+import sheetview as sv
+from sheetview import view
+s = sv.read(sys.argv[1])
+scene = view.Scene(s)
+view.check_display()
+p = pv.Plotter(window_size=(400, 300), title="sheetview")
+scene.attach(p)
+scene.bind_keys(p)
+p.show(interactive_update=True, auto_close=False)
+before = scene.colour_by
+iren = p.iren.interactor
+iren.SetKeySym("n")
+iren.SetKeyCode("n")
+iren.InvokeEvent("KeyPressEvent")
+iren.InvokeEvent("CharEvent")
+p.update()
+img = p.screenshot()
+print(before, scene.colour_by, img.shape[0], img.shape[1], int(img.std() > 1))
+p.close()
+"""
+
+
+def test_real_window_under_a_virtual_display(tmp_path, sample_csv):
+    """The interactive window opens on a real (virtual, Xvfb) display, draws, and a key
+    press reaches the scene. Skipped where Xvfb is not installed."""
+    import shutil
+    import subprocess
+    import sys
+    if shutil.which("xvfb-run") is None:
+        pytest.skip("xvfb-run is not installed")
+    script = tmp_path / "win.py"
+    script.write_text(WINDOW_SCRIPT)
+    r = subprocess.run(["xvfb-run", "-a", "-s", "-screen 0 800x600x24", sys.executable,
+                        str(script), str(sample_csv)], capture_output=True, text=True,
+                       timeout=120)
+    assert r.returncode == 0, r.stderr
+    before, after, h, w, varied = r.stdout.split()[-5:]
+    assert before != after  # the "next colouring" key changed the colouring
+    assert (int(h), int(w)) == (300, 400) and varied == "1"
