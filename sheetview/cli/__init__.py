@@ -42,22 +42,26 @@ def main():
     """
 
 
+#: Command modules registered when present; each defines its commands and a list
+#: ``COMMANDS`` (or a command named like the module).
+_MODULES = ("synth", "measure", "batch", "experiment")
+
+
 def _register():
     from .convert import convert
     from .info import info
     from .view import render, slices, view
-    main.add_command(info)
-    main.add_command(convert)
-    for cmd in (view, render, slices):
+    for cmd in (info, convert, view, render, slices):
         main.add_command(cmd)
-    for modname, cmdname in (("synth", "synth"), ("measure", "measure")):
+    for modname in _MODULES:
         try:
-            mod = __import__(f"{__name__}.{modname}", fromlist=[cmdname])
+            mod = __import__(f"{__name__}.{modname}", fromlist=["COMMANDS"])
         except ModuleNotFoundError as e:
             if e.name != f"{__name__}.{modname}":
                 raise
             continue
-        main.add_command(getattr(mod, cmdname))
+        for cmd in getattr(mod, "COMMANDS", None) or [getattr(mod, modname)]:
+            main.add_command(cmd)
 
 
 _register()
