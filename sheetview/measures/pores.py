@@ -976,9 +976,10 @@ def _invade(order, d2, door, shape, periodic, parent, nxt, rank, inv, lk):
                 elif ii < 0 or jj < 0 or kk < 0 or ii >= n0 or jj >= n1 or kk >= n2:
                     continue
                 y = ii * s0 + jj * n2 + kk
-            if parent[y] < 0:
+            py = parent[y]
+            if py < 0 or py == r:
                 continue
-            ry = _find(parent, y)
+            ry = _find(parent, py)
             if ry == r:
                 continue
             iy = inv[ry] != 0
