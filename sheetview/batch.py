@@ -1,0 +1,713 @@
+"""Batch morphometry: the ``measure`` job over many structures, resumable.
+
+Every input is measured with the same settings by :func:`measure_one` (read ->
+:func:`sheetview.measures.run` -> :func:`sheetview.cli.measure.summary_document` ->
+:func:`sheetview.report.write_report`), in local worker processes or on a Dask
+distributed cluster. Each result lives under ``OUT/runs/<stem>-<key>/`` where ``key``
+is a hash of the input's bytes (SHA-256) and of the settings (canonical JSON), so a
+rerun skips what is finished, and a changed file or changed settings is measured anew.
+
+Layout of ``OUT``::
+
+    runs/<stem>-<key>/      full report folder of one structure (summary.json, CSV, PNG)
+                            and report.html (self-contained page)
+    failed/<stem>-<key>.json  the error of an input that could not be measured
+    summary.csv, summary.parquet  one row per input, flat dotted columns
+    index.html              links to every structure's page
+    batch.log               one line per event (appended)
+
+Every file is written under a temporary name and renamed into place
+(:func:`sheetview.io.output.atomic_path`; report folders by ``write_report``), so a
+killed run loses no finished result and leaves no file under its final name half
+written. Temporary ``.*.part`` entries a kill leaves behind are removed by the next run.
+"""
+from __future__ import annotations
+
+import base64
+import glob
+import hashlib
+import html
+import json
+import math
+import os
+import shutil
+import sys
+import time
+import traceback
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .errors import OptionError, SheetviewError
+from .io.output import atomic_path
+
+#: Scalar headline keys shown first in the HTML pages.
+HEADLINE = ("n_prisms", "voxel_size_nm", "volume_fractions.solid", "volume_fractions.interlayer",
+            "volume_fractions.gel", "specific_surface_nm-1", "specific_surface_m2_per_g",
+            "chords.solid_mean_nm", "chords.pore_mean_nm", "pore_size.d10_nm",
+            "pore_size.d50_nm", "pore_size.d90_nm", "pore_size.intrusion_d50_nm",
+            "stacking.mean", "stacking.mean_volume", "stacking.n_stacks", "order.S",
+            "order.biaxiality", "order.wall")
+
+
+# ------------------------------------------------------------------ keys and inputs
+def canonical_json(obj) -> str:
+    """Canonical JSON text of ``obj``: sorted keys, no spaces, tuples as lists."""
+    from .cli.common import json_default
+    return json.dumps(obj, sort_keys=True, separators=(",", ":"), default=json_default,
+                      allow_nan=True)
+
+
+def file_sha256(path) -> str:
+    """SHA-256 of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 22), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def result_key(input_sha256: str, config: dict) -> str:
+    """Key of one result: ``sha256(canonical_json({"input": sha, "config": config}))``,
+    first 16 hex digits (64 bits)."""
+    text = canonical_json({"input": input_sha256, "config": config})
+    return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+def expand_inputs(patterns) -> list[Path]:
+    """Paths and glob patterns -> existing-or-named paths, in the given order, without
+    repeats. A pattern with wildcards that matches nothing is an :class:`OptionError`;
+    a plain path is kept even if missing (it is recorded as a failed input)."""
+    out, seen = [], set()
+    for p in patterns:
+        p = str(p)
+        if glob.has_magic(p):
+            hits = sorted(glob.glob(p, recursive=True))
+            hits = [h for h in hits if not os.path.isdir(h)]
+            if not hits:
+                raise OptionError(f"pattern {p!r} matches no file")
+        else:
+            hits = [p]
+        for h in hits:
+            key = os.path.abspath(h)
+            if key not in seen:
+                seen.add(key)
+                out.append(Path(h))
+    if not out:
+        raise OptionError("no input given")
+    return out
+
+
+@dataclass
+class Job:
+    """One input of a batch."""
+
+    path: Path
+    sha256: str | None
+    key: str
+    name: str
+    error: str | None = None
+
+
+def plan(paths, config: dict) -> list[Job]:
+    """Hash every input and name its result folder ``<stem>-<key>``."""
+    jobs = []
+    for p in paths:
+        try:
+            sha = file_sha256(p)
+        except OSError as e:
+            key = hashlib.sha256(str(Path(p).resolve()).encode()).hexdigest()[:16]
+            jobs.append(Job(Path(p), None, key, f"{_safe(Path(p).stem)}-{key}",
+                            f"{p}: cannot read ({e.strerror or e})"))
+            continue
+        key = result_key(sha, config)
+        jobs.append(Job(Path(p), sha, key, f"{_safe(Path(p).stem)}-{key}"))
+    return jobs
+
+
+def _safe(stem: str) -> str:
+    s = "".join(c if c.isalnum() or c in "-_." else "_" for c in stem).lstrip(".")
+    return s[:60] or "input"
+
+
+# ------------------------------------------------------------------ one structure
+def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plots=True,
+                numba_threads: int | None = None) -> dict:
+    """Measure one input and write its report folder ``out_folder`` (atomically).
+
+    Runs in a worker (a local process, a Dask worker or the calling process). Never
+    raises for a bad input: returns ``{"status": "ok" | "failed", "error": message,
+    "seconds": measure time, "write_seconds": report time}``. A
+    :class:`~sheetview.errors.SheetviewError` gives its message; any other exception is
+    recorded as an internal error with its type.
+    """
+    t0 = time.perf_counter()
+    if numba_threads:
+        _set_threads(numba_threads)
+    try:
+        from . import measures
+        from .cli.common import load
+        from .cli.measure import summary_document
+        from .report import write_report
+        obj = load(path, **read_kw)
+        selected = measures.parse_only(only) if only else measures.applicable(obj)
+        measures.check_inputs(selected, obj, path)
+        ctx = measures.run(selected, obj, settings)
+        doc = summary_document(path, obj, ctx, settings)
+        doc["input_metadata"] = dict(getattr(obj, "metadata", {}) or {})
+        t1 = time.perf_counter()
+        write_report(out_folder, doc, ctx.results, force=False, plots=plots,
+                     grid=ctx.__dict__.get("grid"))
+        t2 = time.perf_counter()
+        return {"status": "ok", "error": None, "seconds": t1 - t0, "write_seconds": t2 - t1}
+    except SheetviewError as e:
+        msg = str(e)
+    except MemoryError:
+        msg = f"{path}: out of memory; use a coarser --voxel or a lower --max-memory"
+    except Exception as e:  # a bug: record it and let the batch go on
+        msg = (f"{path}: internal error {type(e).__name__}: {e}\n"
+               + "".join(traceback.format_exception(e)[-3:]))
+    return {"status": "failed", "error": msg, "seconds": time.perf_counter() - t0,
+            "write_seconds": 0.0}
+
+
+def _set_threads(n: int) -> None:
+    try:
+        import numba
+        numba.set_num_threads(max(1, min(int(n), numba.config.NUMBA_NUM_THREADS)))
+    except Exception:
+        pass
+
+
+def _worker_init(n_threads: int) -> None:
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(var, str(n_threads))
+    _set_threads(n_threads)
+
+
+# ------------------------------------------------------------------ the batch
+@dataclass
+class BatchResult:
+    """What a batch did: per-input records (in input order) and counts."""
+
+    out: Path
+    records: list = field(default_factory=list)
+    n_done: int = 0
+    n_skipped: int = 0
+    n_failed: int = 0
+
+    @property
+    def failed(self) -> list:
+        return [r for r in self.records if r["status"] == "failed"]
+
+
+class _Log:
+    def __init__(self, path: Path, echo=None, quiet=False):
+        self.path = path
+        self.echo = echo
+        self.quiet = quiet
+
+    def __call__(self, msg: str, console: bool = True):
+        stamp = time.strftime("%Y-%m-%d %H:%M:%S")
+        with open(self.path, "a") as fh:  # a log: appended line by line
+            fh.write(f"{stamp} {msg}\n")
+        if console and not self.quiet:
+            (self.echo or (lambda m: print(m, file=sys.stderr, flush=True)))(f"sheetview: {msg}")
+
+
+def prepare_out(out) -> Path:
+    """Create ``out`` and its sub-folders; clear temporary leftovers of a killed run.
+    A folder that cannot be written is a :class:`SheetviewError` (exit status 2)."""
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise SheetviewError("exists and is not a folder; give a folder for -o", path=out)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise SheetviewError(f"cannot create the output folder ({e.strerror})", path=out) from None
+    if not os.access(out, os.W_OK | os.X_OK):
+        raise SheetviewError("output folder is not writable", path=out)
+    try:
+        for sub in ("runs", "failed"):
+            (out / sub).mkdir(exist_ok=True)
+        probe = out / f".write-probe-{os.getpid()}"
+        probe.write_bytes(b"")
+        probe.unlink()
+    except OSError as e:
+        raise SheetviewError(f"output folder is not writable ({e.strerror})", path=out) from None
+    for d in (out, out / "runs", out / "failed"):
+        for p in d.glob(".*.part*"):
+            if p.is_dir():
+                shutil.rmtree(p, ignore_errors=True)
+            else:
+                p.unlink(missing_ok=True)
+    return out
+
+
+def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, only=None,
+              plots: bool = True, workers: int = 1, cluster=None, html_pages: bool = True,
+              quiet: bool = False, echo=None, dask_options: dict | None = None) -> BatchResult:
+    """Measure every input of ``patterns`` into ``out``; skip finished results.
+
+    Parameters
+    ----------
+    patterns : list of str
+        Paths or glob patterns.
+    out : path
+        Batch folder (created; see the module docstring for its layout).
+    settings : dict
+        Measure settings (:data:`sheetview.pipeline.DEFAULTS` keys), the same for all.
+    read_kw : dict
+        Reading options of :func:`sheetview.cli.common.load`.
+    only : str, optional
+        Comma-separated measure names (default: all that apply to each input).
+    workers : int
+        Local worker processes (1: in this process). Numba threads per worker are
+        ``cpu_count // workers``.
+    cluster : str, optional
+        ``"local"``: start a Dask ``LocalCluster`` of ``workers`` processes; otherwise the
+        address of a running Dask scheduler (the inputs and ``out`` must be visible to
+        its workers at the same paths).
+
+    Returns
+    -------
+    BatchResult
+        Records in input order; ``status`` is ``ok``, ``skipped`` (finished before) or
+        ``failed`` (with ``error``). Tables and pages are written at the end.
+    """
+    read_kw = {k: v for k, v in (read_kw or {}).items() if v is not None and v != "auto"}
+    if only:
+        from . import measures
+        only = ",".join(measures.parse_only(only))
+    if workers < 1:
+        raise OptionError(f"--workers: must be at least 1, got {workers}")
+    paths = expand_inputs(patterns)
+    out = prepare_out(out)
+    log = _Log(out / "batch.log", echo, quiet)
+    config = {"settings": settings, "read": read_kw, "only": only}
+    jobs = plan(paths, config)
+    res = BatchResult(out)
+    recs = {}
+    todo = []
+    for j in jobs:
+        rec = {"path": str(j.path), "name": j.name, "key": j.key, "sha256": j.sha256,
+               "status": None, "error": None, "seconds": None}
+        recs[j.name] = recs.get(j.name) or rec
+        res.records.append(rec if recs[j.name] is rec else recs[j.name])
+        if recs[j.name] is not rec:
+            continue  # the same content twice: measured once
+        if j.error is not None:
+            rec.update(status="failed", error=j.error)
+            _write_failure(out, j, rec)
+        elif (out / "runs" / j.name / "summary.json").is_file():
+            rec["status"] = "skipped"
+            res.n_skipped += 1
+        else:
+            todo.append(j)
+    log(f"batch of {len(jobs)} input(s) into {out}: {res.n_skipped} finished before, "
+        f"{len(todo)} to measure" + (f" on {cluster}" if cluster else
+                                      f" with {min(workers, max(1, len(todo)))} worker(s)"))
+    log(f"settings {canonical_json(config)}", console=False)
+
+    t_start = time.perf_counter()
+    n_todo = len(todo)
+
+    def finished(job, r):
+        rec = recs[job.name]
+        rec.update(status=r["status"], error=r["error"], seconds=r["seconds"])
+        k = sum(1 for j in todo if recs[j.name]["status"] is not None)
+        el = time.perf_counter() - t_start
+        eta = el / k * (n_todo - k) if k else float("nan")
+        if r["status"] == "ok":
+            res.n_done += 1
+            (out / "failed" / f"{job.name}.json").unlink(missing_ok=True)
+            log(f"[{k}/{n_todo}] {job.path}: done in {r['seconds']:.1f} s "
+                f"(+{r['write_seconds']:.1f} s report); elapsed {el:.0f} s, ETA {eta:.0f} s")
+        else:
+            _write_failure(out, job, rec)
+            first = r["error"].splitlines()[0] if r["error"] else ""
+            log(f"[{k}/{n_todo}] FAILED {first}; elapsed {el:.0f} s, ETA {eta:.0f} s")
+
+    args = lambda j, threads: (str(j.path), str(out / "runs" / j.name), settings, read_kw,
+                               only, plots, threads)
+    if todo:
+        ncpu = os.cpu_count() or 1
+        if cluster:
+            _run_dask(todo, args, finished, cluster, workers, dask_options or {})
+        elif workers == 1 or len(todo) == 1:
+            for j in todo:
+                finished(j, measure_one(*args(j, None)))
+        else:
+            _run_pool(todo, args, finished, min(workers, len(todo)), ncpu)
+    res.n_failed = sum(1 for r in recs.values() if r["status"] == "failed")
+    write_tables(out, res.records)
+    if html_pages:
+        write_pages(out, res.records)
+    log(f"finished: {res.n_done} measured, {res.n_skipped} skipped, {res.n_failed} failed, "
+        f"{time.perf_counter() - t_start:.1f} s; summary in {out / 'summary.csv'}")
+    return res
+
+
+def _run_pool(todo, args, finished, workers, ncpu):
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+    threads = max(1, ncpu // workers)
+    try:
+        mpctx = mp.get_context("forkserver")
+    except ValueError:
+        mpctx = mp.get_context("spawn")
+    with ProcessPoolExecutor(workers, mp_context=mpctx, initializer=_worker_init,
+                             initargs=(threads,)) as ex:
+        futs = {ex.submit(measure_one, *args(j, threads)): j for j in todo}
+        try:
+            for f in as_completed(futs):
+                finished(futs[f], _outcome(f, futs[f]))
+        except BaseException:
+            for f in futs:
+                f.cancel()
+            raise
+
+
+def _outcome(fut, job):
+    try:
+        return fut.result()
+    except BaseException as e:  # a worker died (killed, out of memory)
+        return {"status": "failed", "error": f"{job.path}: worker failed: {type(e).__name__}: {e}",
+                "seconds": 0.0, "write_seconds": 0.0}
+
+
+def _run_dask(todo, args, finished, cluster, workers, dask_options):
+    try:
+        from distributed import Client, LocalCluster, as_completed
+    except ImportError:
+        raise OptionError("--cluster needs the Dask distributed package "
+                          "(pip install 'dask[distributed]')") from None
+    own = None
+    try:
+        if cluster == "local":
+            opts = {"n_workers": workers, "threads_per_worker": 1, "processes": True,
+                    "dashboard_address": None, "host": "127.0.0.1"}
+            opts.update(dask_options)
+            own = LocalCluster(**opts)
+            client = Client(own)
+        else:
+            try:
+                client = Client(cluster, timeout="10s")
+            except (OSError, TimeoutError) as e:
+                raise OptionError(f"--cluster: cannot reach the Dask scheduler at {cluster!r} "
+                                  f"({e})") from None
+        with client:
+            nthreads = client.nthreads()
+            threads = max(1, min(nthreads.values()) if nthreads else 1)
+            futs = {client.submit(measure_one, *args(j, threads), pure=False,
+                                  key=f"sheetview-{j.name}"): j for j in todo}
+            for f in as_completed(futs):
+                finished(futs[f], _outcome(f, futs[f]))
+    finally:
+        if own is not None:
+            own.close()
+
+
+def _write_failure(out: Path, job: Job, rec: dict) -> None:
+    from .report import write_json
+    write_json(out / "failed" / f"{job.name}.json",
+               {"path": str(job.path), "sha256": job.sha256, "key": job.key,
+                "error": rec["error"]}, force=True)
+
+
+# ------------------------------------------------------------------ tables
+def flatten(doc, prefix: str = "") -> dict:
+    """Scalars of a nested dict with dotted names (``volume_fractions.solid``).
+
+    Lists of up to 3 scalars become ``name.0``, ``name.1``...; longer lists (histogram
+    bins, notes) are left out; ``None`` is kept (an undefined value)."""
+    out = {}
+    for k, v in doc.items():
+        name = f"{prefix}{k}"
+        if isinstance(v, dict):
+            out.update(flatten(v, name + "."))
+        elif isinstance(v, (list, tuple)):
+            if 0 < len(v) <= 3 and all(_scalar(x) for x in v):
+                for i, x in enumerate(v):
+                    out[f"{name}.{i}"] = x
+            elif len(v) == 0 and k in ("pore_split",):
+                out[name] = ""
+        elif _scalar(v):
+            out[name] = v
+    return out
+
+
+def _scalar(v) -> bool:
+    return v is None or isinstance(v, (bool, int, float, str))
+
+
+def row_of(rec: dict, doc: dict | None) -> dict:
+    """One summary row: input path, status, error, then the flattened summary document
+    (``input_metadata.*`` holds the file's header metadata, ``settings.*`` the settings).
+    Timings are left out so reruns give equal rows."""
+    row = {"input": rec["path"], "status": "failed" if rec["status"] == "failed" else "ok",
+           "error": rec["error"] or "", "result": f"runs/{rec['name']}" if doc else ""}
+    if doc:
+        flat = flatten({k: v for k, v in doc.items() if k not in ("timings_s", "note", "file")})
+        row.update(flat)
+    return row
+
+
+def load_rows(out, records) -> list[dict]:
+    rows = []
+    for rec in records:
+        doc = None
+        p = Path(out) / "runs" / rec["name"] / "summary.json"
+        if rec["status"] != "failed" and p.is_file():
+            doc = json.loads(p.read_text())
+        rows.append(row_of(rec, doc))
+    return rows
+
+
+def columns_of(rows) -> dict:
+    """Rows (dicts) -> ordered columns with missing values as None."""
+    names = []
+    seen = set()
+    for r in rows:
+        for k in r:
+            if k not in seen:
+                seen.add(k)
+                names.append(k)
+    return {k: [r.get(k) for r in rows] for k in names}
+
+
+def _arrow_table(cols):
+    import pyarrow as pa
+    arrays = {}
+    for k, vals in cols.items():
+        present = [v for v in vals if v is not None]
+        if present and all(isinstance(v, bool) for v in present):
+            arrays[k] = pa.array(vals, pa.bool_())
+        elif present and all(isinstance(v, int) and not isinstance(v, bool) for v in present):
+            arrays[k] = pa.array(vals, pa.int64())
+        elif all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in present):
+            arrays[k] = pa.array([None if v is None else float(v) for v in vals], pa.float64())
+        else:
+            arrays[k] = pa.array([None if v is None else (v if isinstance(v, str) else
+                                                           json.dumps(v)) for v in vals],
+                                 pa.string())
+    return pa.table(arrays)
+
+
+def write_tables(out, records) -> tuple[Path, Path]:
+    """Write ``summary.csv`` and ``summary.parquet`` (one row per input), atomically."""
+    import csv
+
+    import pyarrow.parquet as pq
+    out = Path(out)
+    cols = columns_of(load_rows(out, records))
+    names = list(cols)
+    n = len(records)
+    with atomic_path(out / "summary.csv", force=True) as tmp:
+        with open(tmp, "w", newline="") as fh:
+            w = csv.writer(fh)
+            w.writerow(names)
+            for i in range(n):
+                w.writerow([_csv_cell(cols[k][i]) for k in names])
+    with atomic_path(out / "summary.parquet", force=True) as tmp:
+        pq.write_table(_arrow_table(cols), tmp)
+    return out / "summary.csv", out / "summary.parquet"
+
+
+def _csv_cell(v):
+    if v is None:
+        return ""
+    if isinstance(v, float):
+        return "nan" if math.isnan(v) else repr(v)
+    return v
+
+
+def read_summary(path) -> dict:
+    """Read a batch ``summary.csv`` or ``summary.parquet`` as columns (lists); CSV cells
+    that parse as numbers become floats, empty cells None."""
+    path = Path(path)
+    if not path.is_file():
+        raise SheetviewError("no such file", path=path)
+    if path.suffix.lower() in (".parquet", ".pq"):
+        import pyarrow.parquet as pq
+        try:
+            return pq.read_table(path).to_pydict()
+        except Exception as e:
+            raise SheetviewError(f"not a readable Parquet table ({e})", path=path) from None
+    import csv
+    try:
+        with open(path, newline="") as fh:
+            rows = list(csv.reader(fh))
+    except (OSError, UnicodeDecodeError, csv.Error) as e:
+        raise SheetviewError(f"not a readable CSV table ({e})", path=path) from None
+    if not rows:
+        raise SheetviewError("empty table, expected a header row", path=path)
+    head, body = rows[0], rows[1:]
+    cols = {}
+    for i, k in enumerate(head):
+        vals = [r[i] if i < len(r) else "" for r in body]
+        cols[k] = [_num(v) for v in vals]
+    return cols
+
+
+def _num(s):
+    if s == "":
+        return None
+    try:
+        return float(s)
+    except ValueError:
+        return s
+
+
+# ------------------------------------------------------------------ HTML pages
+_CSS = ("body{font-family:sans-serif;margin:2em;max-width:70em}table{border-collapse:collapse}"
+        "td,th{border:1px solid #bbb;padding:2px 8px;text-align:left}"
+        "img{max-width:100%;border:1px solid #ddd;margin:4px 0}.err{color:#a00}")
+
+
+def _fmtv(v):
+    if isinstance(v, float):
+        return f"{v:.6g}"
+    return "" if v is None else str(v)
+
+
+def structure_page(folder) -> str:
+    """Self-contained HTML of one result folder: headline numbers, settings, header
+    metadata and every PNG of the folder inlined as base64."""
+    folder = Path(folder)
+    doc = json.loads((folder / "summary.json").read_text())
+    flat = flatten({k: v for k, v in doc.items() if k not in ("timings_s",)})
+    e = html.escape
+    parts = [f"<!DOCTYPE html><html><head><meta charset='utf-8'><title>{e(folder.name)}</title>"
+             f"<style>{_CSS}</style></head><body>",
+             f"<h1>{e(str(doc.get('file')))}</h1>",
+             f"<p>input SHA-256 {e(str(doc.get('input_sha256')))}; sheetview "
+             f"{e(str(doc.get('sheetview_version')))}. {e(str(doc.get('note', '')))}</p>",
+             "<h2>Headline numbers</h2><table>"]
+    for k in HEADLINE:
+        if k in flat:
+            parts.append(f"<tr><th>{e(k)}</th><td>{e(_fmtv(flat[k]))}</td></tr>")
+    parts.append("</table><h2>Settings</h2><table>")
+    for k, v in flat.items():
+        if k.startswith("settings."):
+            parts.append(f"<tr><th>{e(k[9:])}</th><td>{e(_fmtv(v))}</td></tr>")
+    parts.append("</table>")
+    meta = {k: v for k, v in flat.items() if k.startswith("input_metadata.")}
+    if meta:
+        parts.append("<h2>File header metadata</h2><table>")
+        for k, v in meta.items():
+            parts.append(f"<tr><th>{e(k[15:])}</th><td>{e(_fmtv(v))}</td></tr>")
+        parts.append("</table>")
+    pngs = sorted(folder.glob("*.png"))
+    if pngs:
+        parts.append("<h2>Figures</h2>")
+    for p in pngs:
+        b64 = base64.b64encode(p.read_bytes()).decode("ascii")
+        parts.append(f"<h3>{e(p.stem.replace('_', ' '))}</h3>"
+                     f"<img alt='{e(p.name)}' src='data:image/png;base64,{b64}'>")
+    parts.append("<h2>All scalar values</h2><table>")
+    for k, v in flat.items():
+        if not k.startswith(("settings.", "input_metadata.")):
+            parts.append(f"<tr><th>{e(k)}</th><td>{e(_fmtv(v))}</td></tr>")
+    parts.append("</table></body></html>\n")
+    return "".join(parts)
+
+
+def write_pages(out, records) -> Path:
+    """Write ``report.html`` in every finished result folder (if missing) and
+    ``index.html`` linking them, with the failures and their errors."""
+    out = Path(out)
+    e = html.escape
+    rows = []
+    done = set()
+    for rec in records:
+        folder = out / "runs" / rec["name"]
+        if rec["status"] != "failed" and (folder / "summary.json").is_file():
+            page = folder / "report.html"
+            if rec["name"] not in done and not page.is_file():
+                text = structure_page(folder)
+                with atomic_path(page, force=True) as tmp:
+                    Path(tmp).write_text(text)
+            done.add(rec["name"])
+            doc = json.loads((folder / "summary.json").read_text())
+            flat = flatten(doc)
+            cells = "".join(f"<td>{e(_fmtv(flat.get(k)))}</td>" for k in HEADLINE[:8])
+            rows.append(f"<tr><td><a href='runs/{e(rec['name'])}/report.html'>"
+                        f"{e(rec['path'])}</a></td><td>ok</td>{cells}</tr>")
+        else:
+            rows.append(f"<tr><td>{e(rec['path'])}</td><td class='err'>failed: "
+                        f"{e((rec['error'] or '').splitlines()[0] if rec['error'] else '')}"
+                        f"</td>{'<td></td>' * 8}</tr>")
+    head = "".join(f"<th>{e(k)}</th>" for k in HEADLINE[:8])
+    text = (f"<!DOCTYPE html><html><head><meta charset='utf-8'><title>sheetview batch</title>"
+            f"<style>{_CSS}</style></head><body><h1>sheetview batch: {len(records)} input(s)"
+            f"</h1><p>Tables: <a href='summary.csv'>summary.csv</a>, "
+            f"<a href='summary.parquet'>summary.parquet</a>; log: "
+            f"<a href='batch.log'>batch.log</a>.</p><table><tr><th>input</th><th>status</th>"
+            f"{head}</tr>{''.join(rows)}</table></body></html>\n")
+    with atomic_path(out / "index.html", force=True) as tmp:
+        Path(tmp).write_text(text)
+    return out / "index.html"
+
+
+# ------------------------------------------------------------------ trend plot
+def group_stats(x, y, group=None):
+    """Replicas (equal ``x`` and ``group``) -> ``{group: (xs, mean, std, n)}``.
+
+    ``std`` is the sample standard deviation (ddof=1; 0 for a single replica). Rows with
+    a missing ``y`` are dropped."""
+    import numpy as np
+    g = group if group is not None else [None] * len(x)
+    acc = {}
+    for xi, yi, gi in zip(x, y, g):
+        if yi is None or xi is None or (isinstance(yi, float) and math.isnan(yi)):
+            continue
+        acc.setdefault(gi, {}).setdefault(xi, []).append(float(yi))
+    out = {}
+    for gi, d in acc.items():
+        xs = sorted(d, key=lambda v: (isinstance(v, str), v))
+        vals = [np.asarray(d[v]) for v in xs]
+        out[gi] = (xs, np.array([v.mean() for v in vals]),
+                   np.array([v.std(ddof=1) if len(v) > 1 else 0.0 for v in vals]),
+                   np.array([len(v) for v in vals]))
+    return out
+
+
+def trend_plot(summary_path, x: str, y: str, out_png, group: str | None = None,
+               force: bool = False) -> dict:
+    """Plot column ``y`` against column ``x`` of a batch summary; replicas (same ``x``
+    and ``group``) as mean with standard-deviation error bars. Returns the statistics."""
+    cols = read_summary(summary_path)
+    for opt, c in (("--x", x), ("--y", y), ("--group", group)):
+        if c is not None and c not in cols:
+            near = [k for k in cols if c.split(".")[-1] in k][:8]
+            raise OptionError(f"{opt}: no column {c!r} in the summary"
+                              + (f"; similar: {', '.join(near)}" if near else ""),
+                              path=summary_path)
+    yv = cols[y]
+    if any(isinstance(v, str) for v in yv if v is not None):
+        raise OptionError(f"--y: column {y!r} is not numeric", path=summary_path)
+    stats = group_stats(cols[x], yv, cols[group] if group else None)
+    if not stats:
+        raise OptionError(f"--y: column {y!r} has no values", path=summary_path)
+    import matplotlib
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+    fig, ax = plt.subplots(figsize=(6, 4.2))
+    cats = sorted({v for xs, *_ in stats.values() for v in xs if isinstance(v, str)})
+    for gi, (xs, m, s, n) in stats.items():
+        pos = [cats.index(v) if isinstance(v, str) else v for v in xs]
+        ax.errorbar(pos, m, yerr=s, marker="o", capsize=3,
+                    label=None if group is None else f"{group} = {gi}")
+    if cats:
+        ax.set_xticks(range(len(cats)), cats)
+    ax.set_xlabel(x)
+    ax.set_ylabel(y)
+    nrep = max(int(n.max()) for *_, n in stats.values())
+    ax.set_title(f"{y} vs {x}" + (" (mean ± s.d. of replicas)" if nrep > 1 else ""))
+    if group is not None:
+        ax.legend(fontsize=8)
+    fig.tight_layout()
+    with atomic_path(out_png, force=force) as tmp:
+        fig.savefig(tmp, dpi=120, format="png")
+    plt.close(fig)
+    return stats

@@ -1,0 +1,110 @@
+"""``sheetview batch`` (measure many structures, resumable) and ``sheetview trend``."""
+from __future__ import annotations
+
+import math
+import sys
+
+import click
+
+from ..errors import OptionError
+from .common import read_options
+from .measure import _parse_size, _parse_split
+
+
+def batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_split) -> dict:
+    """The measure settings of a batch, checked like ``sheetview measure`` does."""
+    if voxel is not None and not (math.isfinite(voxel) and voxel >= 0.01):
+        raise OptionError(f"--voxel: must be at least 0.01 nm, got {voxel}")
+    if not (math.isfinite(density) and density > 0):
+        raise OptionError(f"--density: must be a positive number of g/cm^3, got {density}")
+    if lines < 1 or lines > 10_000_000:
+        raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
+    return {"voxel": voxel, "max_memory": _parse_size(max_memory), "density": density,
+            "pore_split": list(_parse_split(pore_split)), "intrusion": not no_intrusion,
+            "lines": lines, "seed": seed}
+
+
+@click.command("batch")
+@click.argument("inputs", nargs=-1, required=True, metavar="PATHS_OR_GLOBS...")
+@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False),
+              help="Batch folder: per-structure reports, summary tables, index.html, log. "
+                   "Reusing it resumes: finished structures are skipped.")
+@click.option("--only", default=None, metavar="NAMES",
+              help="Comma-separated measures (default: all that apply to each input).")
+@click.option("--voxel", type=float, default=None, metavar="NM",
+              help="Voxel edge of the phase grid (default as in `measure`).")
+@click.option("--max-memory", default=None, metavar="SIZE",
+              help="Largest memory a phase grid may use per structure, e.g. 4G.")
+@click.option("--lines", type=int, default=20000, show_default=True,
+              help="Isotropic random lines for the exact chords.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Seed of the random lines.")
+@click.option("--no-intrusion", is_flag=True, help="Skip the simulated intrusion distribution.")
+@click.option("--density", type=float, default=2.73, show_default=True, metavar="G/CM3",
+              help="Solid density for the specific surface per mass.")
+@click.option("--pore-split", default=None, metavar="NM,NM",
+              help="Split the gel pores by local thickness at these diameters.")
+@click.option("--workers", type=int, default=1, show_default=True,
+              help="Local worker processes (numba threads per worker: cores / workers); "
+                   "with --cluster local, the number of Dask workers.")
+@click.option("--cluster", default=None, metavar="ADDRESS",
+              help="Send the work to a running Dask scheduler (e.g. tcp://host:8786), or "
+                   "'local' to start a Dask LocalCluster. Inputs and the output folder must "
+                   "be visible to the workers at the same paths.")
+@click.option("--no-plots", is_flag=True, help="Tables only in the report folders, no PNG.")
+@click.option("--no-html", is_flag=True, help="No HTML pages (report.html, index.html).")
+@click.option("-q", "--quiet", is_flag=True, help="No progress on stderr (the log is kept).")
+@read_options
+def batch(inputs, out, only, voxel, max_memory, lines, seed, no_intrusion, density, pore_split,
+          workers, cluster, no_plots, no_html, quiet, **read_kw):
+    """Measure every structure of PATHS_OR_GLOBS... with the same settings into OUT.
+
+    Each result is kept under OUT/runs/, keyed by the SHA-256 of the input's content
+    and the settings; rerunning the same command skips finished structures (a run
+    that was killed resumes where it stopped). OUT/summary.csv and summary.parquet
+    get one row per input with flat dotted columns (descriptors, settings, the
+    file's header metadata); OUT/index.html links a page per structure.
+
+    An input that cannot be measured is recorded (OUT/failed/, the summary's error
+    column) and the batch goes on. Exit status: 0 all measured, 1 if any input
+    failed, 2 for a usage error (bad option, unwritable OUT).
+    """
+    from ..batch import run_batch
+    settings = batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_split)
+    if workers < 1:
+        raise OptionError(f"--workers: must be at least 1, got {workers}")
+    res = run_batch(list(inputs), out, settings, read_kw, only=only, plots=not no_plots,
+                    workers=workers, cluster=cluster, html_pages=not no_html, quiet=quiet,
+                    echo=lambda m: click.echo(m, err=True))
+    click.echo(f"{len(res.records)} input(s): {res.n_done} measured, {res.n_skipped} "
+               f"finished before, {res.n_failed} failed; summary {res.out / 'summary.csv'}")
+    for r in res.failed:
+        click.echo(f"  failed: {(r['error'] or '').splitlines()[0]}")
+    if res.n_failed:
+        sys.exit(1)
+
+
+@click.command("trend")
+@click.argument("summary", type=click.Path(dir_okay=False))
+@click.option("--x", "x", required=True, metavar="COLUMN", help="Column on the x axis.")
+@click.option("--y", "y", required=True, metavar="COLUMN", help="Numeric column on the y axis.")
+@click.option("--group", default=None, metavar="COLUMN", help="One line per value of this column.")
+@click.option("-o", "--output", "out", required=True, type=click.Path(dir_okay=False),
+              help="PNG file to write.")
+@click.option("--force", is_flag=True, help="Overwrite an existing PNG.")
+def trend(summary, x, y, group, out, force):
+    """Plot column Y of a batch SUMMARY (summary.csv or .parquet) against column X.
+
+    Rows with the same X (and GROUP) are replicas: drawn as their mean with error
+    bars of one sample standard deviation. Columns are the dotted names of the
+    summary header, e.g. input_metadata.synth.n_stacks or volume_fractions.solid.
+    """
+    from ..batch import trend_plot
+    stats = trend_plot(summary, x, y, out, group=group, force=force)
+    for g, (xs, m, s, n) in stats.items():
+        label = "" if group is None else f"{group} = {g}: "
+        click.echo(label + "; ".join(f"{xv}: {mv:.4g} ± {sv:.2g} (n={nv})"
+                                     for xv, mv, sv, nv in zip(xs, m, s, n)))
+    click.echo(f"plot written to {out}")
+
+
+COMMANDS = [batch, trend]
