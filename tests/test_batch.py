@@ -1,0 +1,225 @@
+"""``sheetview batch`` and ``sheetview trend``: one row per structure, failures recorded,
+resume after SIGKILL, unwritable output, the Dask path.
+
+Expected values come from the construction of the test structures
+(:func:`sheetview.synth.pack_stacks` with ``layers="fixed:2"``: every prism is in a
+stack of exactly 2 layers) and from ``sheetview measure`` on each file alone (the batch
+must reproduce the single-structure job exactly: derived).
+"""
+import base64
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+import sheetview as sv
+from sheetview.batch import flatten, group_stats, read_summary, result_key
+from sheetview.cli import main
+from sheetview.synth import pack_stacks
+
+FAST = ["--voxel", "0.3", "--lines", "300", "--no-intrusion", "--no-plots", "--no-html", "-q"]
+
+
+@pytest.fixture(scope="module")
+def inputs(tmp_path_factory):
+    d = tmp_path_factory.mktemp("inputs")
+    paths = []
+    for s in range(3):
+        r = pack_stacks(sv.Box((0, 0, 0), (12, 12, 12)), 5, layers="fixed:2",
+                        lateral_size="fixed:3", seed=s)
+        p = d / f"s{s}.csv"
+        sv.write(r.structure, p)
+        paths.append(p)
+    bad = d / "bad.csv"
+    bad.write_text("this is not a prism table\n1,2\n")
+    return d, paths, bad
+
+
+def batch(*args):
+    return CliRunner().invoke(main, ["batch", *map(str, args)])
+
+
+@pytest.fixture(scope="module")
+def reference(inputs, tmp_path_factory):
+    """An uninterrupted in-process batch over the three good structures."""
+    d, paths, _ = inputs
+    out = tmp_path_factory.mktemp("ref") / "out"
+    r = batch(d / "s*.csv", "-o", out, *FAST)
+    assert r.exit_code == 0, r.output
+    return out
+
+
+def comparable(cols):
+    return {k: v for k, v in cols.items() if not k.startswith("timings_s")}
+
+
+def test_one_row_per_structure(inputs, reference):
+    """Three structures -> three rows; stacking mean 2 by construction (fixed:2 layers);
+    the header metadata (synth seed) becomes a column; the volume fractions of the phase
+    classes partition the domain (sum 1, common practice); the numbers equal those of
+    ``sheetview measure --json`` on the file alone (derived)."""
+    d, paths, _ = inputs
+    cols = read_summary(reference / "summary.csv")
+    assert len(cols["input"]) == 3
+    assert cols["status"] == ["ok"] * 3
+    assert cols["input_metadata.synth.seed"] == [0.0, 1.0, 2.0]
+    assert cols["stacking.mean"] == pytest.approx([2.0] * 3)
+    assert cols["n_prisms"] == [float(len(sv.read(p))) for p in paths]
+    tot = np.add.reduce([np.array(cols[f"volume_fractions.{k}"])
+                         for k in ("solid", "interlayer", "gel")])
+    assert tot == pytest.approx(1.0, abs=1e-9)
+    one = CliRunner().invoke(main, ["measure", str(paths[1]), "--json", "--voxel", "0.3",
+                                    "--lines", "300", "--no-intrusion", "-q"])
+    doc = json.loads(one.stdout)
+    for k in ("volume_fractions.solid", "specific_surface_nm-1", "chords.solid_mean_nm",
+              "pore_size.d50_nm", "order.S"):
+        assert cols[k][1] == pytest.approx(flatten(doc)[k], rel=1e-12), k
+    import pyarrow.parquet as pq
+    t = pq.read_table(reference / "summary.parquet").to_pydict()
+    assert t["input"] == cols["input"] and t["volume_fractions.solid"] == cols["volume_fractions.solid"]
+    # rerun: everything skipped, same table
+    r = batch(d / "s*.csv", "-o", reference, *FAST)
+    assert r.exit_code == 0 and "0 measured, 3 finished before" in r.output
+    assert comparable(read_summary(reference / "summary.csv")) == comparable(cols)
+
+
+def test_failed_input_recorded_and_others_finish(inputs, tmp_path):
+    """A corrupt file among good ones: its reader error is recorded, the good one is
+    measured by the worker pool, exit status 1."""
+    d, paths, bad = inputs
+    out = tmp_path / "out"
+    r = batch(paths[0], bad, "-o", out, "--workers", "2", *FAST)
+    assert r.exit_code == 1, r.output
+    cols = read_summary(out / "summary.csv")
+    assert cols["status"] == ["ok", "failed"]
+    assert "bad.csv" in cols["error"][1] and "ax" in cols["error"][1]
+    assert cols["n_prisms"][0] == len(sv.read(paths[0])) and cols["n_prisms"][1] is None
+    failed = list((out / "failed").glob("*.json"))
+    assert len(failed) == 1 and "bad.csv" in json.loads(failed[0].read_text())["error"]
+
+
+def test_kill_and_resume(inputs, reference, tmp_path):
+    """SIGKILL after the first result: no result folder is incomplete, a rerun finishes
+    the others and the summary equals that of an uninterrupted run."""
+    d, paths, _ = inputs
+    out = tmp_path / "out"
+    cmd = [sys.executable, "-m", "sheetview", "batch", str(d / "s*.csv"), "-o", str(out), *FAST]
+    p = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    t0 = time.time()
+    while time.time() - t0 < 60 and p.poll() is None:
+        if [f for f in out.glob("runs/*/summary.json") if not f.parent.name.startswith(".")]:
+            break
+        time.sleep(0.01)
+    p.send_signal(signal.SIGKILL)
+    p.wait()
+    done = [f for f in (out / "runs").iterdir() if not f.name.startswith(".")]
+    assert 1 <= len(done) < 3  # killed mid-way
+    assert all((f / "summary.json").is_file() for f in done)
+    assert not (out / "summary.csv").exists()
+    r = batch(d / "s*.csv", "-o", out, *FAST)
+    assert r.exit_code == 0, r.output
+    assert f"{3 - len(done)} measured, {len(done)} finished before" in r.output
+    assert not [f for f in out.rglob(".*") if ".part" in f.name]
+    assert comparable(read_summary(out / "summary.csv")) == \
+        comparable(read_summary(reference / "summary.csv"))
+
+
+def test_unwritable_output(inputs, tmp_path):
+    """A read-only output folder is a usage error (exit 2) with a clear message."""
+    d, paths, _ = inputs
+    out = tmp_path / "ro"
+    out.mkdir()
+    out.chmod(0o555)
+    try:
+        if os.access(out, os.W_OK):
+            pytest.skip("running as a user who may write a read-only folder (root)")
+        r = batch(paths[0], "-o", out, *FAST)
+        assert r.exit_code == 2
+        assert "not writable" in r.output and str(out) in r.output
+    finally:
+        out.chmod(0o755)
+
+
+def test_usage_errors(inputs, tmp_path):
+    """A glob matching nothing, a bad option: exit 2, one line, no traceback."""
+    d, _, _ = inputs
+    r = batch(d / "nothing*.csv", "-o", tmp_path / "o", *FAST)
+    assert r.exit_code == 2 and "matches no file" in r.output
+    r = batch(d / "s*.csv", "-o", tmp_path / "o", "--lines", "0")
+    assert r.exit_code == 2 and "--lines" in r.output
+    afile = tmp_path / "afile"
+    afile.write_text("x")
+    r = batch(d / "s*.csv", "-o", afile / "sub", *FAST)
+    assert r.exit_code == 2 and "cannot create the output folder" in r.output
+    r = batch(d / "s*.csv", "-o", afile, *FAST)
+    assert r.exit_code == 2 and "not a folder" in r.output
+
+
+def test_dask_cluster_same_numbers(inputs, reference, tmp_path):
+    """The Dask path (a LocalCluster on loopback, one in-process worker, reached by its
+    address) gives the same table as the local path."""
+    distributed = pytest.importorskip("distributed")
+    d, _, _ = inputs
+    out = tmp_path / "out"
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  protocol="tcp", host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+        r = batch(d / "s*.csv", "-o", out, "--cluster", cluster.scheduler_address, *FAST)
+    assert r.exit_code == 0, r.output
+    assert comparable(read_summary(out / "summary.csv")) == \
+        comparable(read_summary(reference / "summary.csv"))
+
+
+def test_html_pages(inputs, tmp_path):
+    """The structure page is self-contained: its figures are inlined base64 PNG (PNG
+    signature, W3C PNG specification) and the index links it."""
+    d, paths, _ = inputs
+    out = tmp_path / "out"
+    r = batch(paths[0], "-o", out, "--voxel", "0.3", "--lines", "300", "--no-intrusion",
+              "--only", "stacking,order,phases", "-q")
+    assert r.exit_code == 0, r.output
+    page = next((out / "runs").glob("*/report.html")).read_text()
+    imgs = page.split("data:image/png;base64,")[1:]
+    assert imgs
+    for chunk in imgs:
+        assert base64.b64decode(chunk.split("'")[0])[:8] == b"\x89PNG\r\n\x1a\n"
+    assert "volume_fractions.solid" in page and "angle_tol" in page
+    index = (out / "index.html").read_text()
+    assert "report.html" in index and str(paths[0]) in index
+
+
+def test_group_stats_and_trend(tmp_path):
+    """Replica statistics against numpy mean and sample standard deviation (ddof=1,
+    common practice); the trend command writes a PNG and refuses an unknown column."""
+    x = [1, 1, 1, 2, 2, 3]
+    y = [1.0, 2.0, 4.0, 5.0, 7.0, 9.0]
+    g = ["a", "a", "a", "a", "b", "b"]
+    st = group_stats(x, y, g)
+    xs, m, s, n = st["a"]
+    assert xs == [1, 2] and list(n) == [3, 1]
+    assert m == pytest.approx([np.mean([1, 2, 4]), 5.0])
+    assert s == pytest.approx([np.std([1, 2, 4], ddof=1), 0.0])
+    summ = tmp_path / "s.csv"
+    summ.write_text("p,v,g\n" + "".join(f"{a},{b},{c}\n" for a, b, c in zip(x, y, g)))
+    r = CliRunner().invoke(main, ["trend", str(summ), "--x", "p", "--y", "v", "--group", "g",
+                                  "-o", str(tmp_path / "t.png")])
+    assert r.exit_code == 0, r.output
+    assert (tmp_path / "t.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    r = CliRunner().invoke(main, ["trend", str(summ), "--x", "p", "--y", "nope",
+                                  "-o", str(tmp_path / "u.png")])
+    assert r.exit_code == 2 and "nope" in r.output
+
+
+def test_key_depends_on_content_and_settings():
+    """The result key changes with the input hash and with any setting; key order in the
+    settings does not matter (canonical JSON)."""
+    a = result_key("0" * 64, {"settings": {"voxel": 0.3, "lines": 300}})
+    assert a == result_key("0" * 64, {"settings": {"lines": 300, "voxel": 0.3}})
+    assert a != result_key("1" + "0" * 63, {"settings": {"voxel": 0.3, "lines": 300}})
+    assert a != result_key("0" * 64, {"settings": {"voxel": 0.3, "lines": 301}})
