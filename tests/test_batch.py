@@ -158,7 +158,7 @@ def test_usage_errors(inputs, tmp_path):
     r = batch(d / "s*.csv", "-o", afile / "sub", *FAST)
     assert r.exit_code == 2 and "cannot create the output folder" in r.output
     r = batch(d / "s*.csv", "-o", afile, *FAST)
-    assert r.exit_code == 2 and "not a folder" in r.output
+    assert r.exit_code == 2 and "is a file" in r.output
 
 
 def test_dask_cluster_same_numbers(inputs, reference, tmp_path):
