@@ -178,6 +178,14 @@ def _set_threads(n: int) -> None:
         pass
 
 
+def _get_threads():
+    try:
+        import numba
+        return numba.get_num_threads()
+    except Exception:
+        return None
+
+
 def _worker_init(n_threads: int) -> None:
     for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ.setdefault(var, str(n_threads))
@@ -245,7 +253,8 @@ def prepare_out(out) -> Path:
 
 def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, only=None,
               plots: bool = True, workers: int = 1, cluster=None, html_pages: bool = True,
-              quiet: bool = False, echo=None, dask_options: dict | None = None) -> BatchResult:
+              quiet: bool = False, echo=None, dask_options: dict | None = None,
+              threads: int | None = None) -> BatchResult:
     """Measure every input of ``patterns`` into ``out``; skip finished results.
 
     Parameters
@@ -262,7 +271,7 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
         Comma-separated measure names (default: all that apply to each input).
     workers : int
         Local worker processes (1: in this process). Numba threads per worker are
-        ``cpu_count // workers``.
+        ``threads``, by default ``cpu_count // workers``.
     cluster : str, optional
         ``"local"``: start a Dask ``LocalCluster`` of ``workers`` processes; otherwise the
         address of a running Dask scheduler (the inputs and ``out`` must be visible to
@@ -290,7 +299,7 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
     todo = []
     for j in jobs:
         rec = {"path": str(j.path), "name": j.name, "key": j.key, "sha256": j.sha256,
-               "status": None, "error": None, "seconds": None}
+               "status": None, "error": None, "seconds": None, "write_seconds": None}
         recs[j.name] = recs.get(j.name) or rec
         res.records.append(rec if recs[j.name] is rec else recs[j.name])
         if recs[j.name] is not rec:
@@ -313,7 +322,8 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
 
     def finished(job, r):
         rec = recs[job.name]
-        rec.update(status=r["status"], error=r["error"], seconds=r["seconds"])
+        rec.update(status=r["status"], error=r["error"], seconds=r["seconds"],
+                   write_seconds=r["write_seconds"])
         k = sum(1 for j in todo if recs[j.name]["status"] is not None)
         el = time.perf_counter() - t_start
         eta = el / k * (n_todo - k) if k else float("nan")
@@ -334,10 +344,15 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
         if cluster:
             _run_dask(todo, args, finished, cluster, workers, dask_options or {})
         elif workers == 1 or len(todo) == 1:
-            for j in todo:
-                finished(j, measure_one(*args(j, None)))
+            before = _get_threads()
+            try:
+                for j in todo:
+                    finished(j, measure_one(*args(j, threads)))
+            finally:
+                if threads and before:
+                    _set_threads(before)
         else:
-            _run_pool(todo, args, finished, min(workers, len(todo)), ncpu)
+            _run_pool(todo, args, finished, min(workers, len(todo)), ncpu, threads)
     res.n_failed = sum(1 for r in recs.values() if r["status"] == "failed")
     write_tables(out, res.records)
     if html_pages:
@@ -347,10 +362,10 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
     return res
 
 
-def _run_pool(todo, args, finished, workers, ncpu):
+def _run_pool(todo, args, finished, workers, ncpu, threads=None):
     import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor, as_completed
-    threads = max(1, ncpu // workers)
+    threads = threads or max(1, ncpu // workers)
     try:
         mpctx = mp.get_context("forkserver")
     except ValueError:

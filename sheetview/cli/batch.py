@@ -46,6 +46,8 @@ def batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_s
 @click.option("--workers", type=int, default=1, show_default=True,
               help="Local worker processes (numba threads per worker: cores / workers); "
                    "with --cluster local, the number of Dask workers.")
+@click.option("--threads", type=int, default=None, metavar="N",
+              help="Numba threads per local worker (default: cores / workers).")
 @click.option("--cluster", default=None, metavar="ADDRESS",
               help="Send the work to a running Dask scheduler (e.g. tcp://host:8786), or "
                    "'local' to start a Dask LocalCluster. Inputs and the output folder must "
@@ -55,7 +57,7 @@ def batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_s
 @click.option("-q", "--quiet", is_flag=True, help="No progress on stderr (the log is kept).")
 @read_options
 def batch(inputs, out, only, voxel, max_memory, lines, seed, no_intrusion, density, pore_split,
-          workers, cluster, no_plots, no_html, quiet, **read_kw):
+          workers, threads, cluster, no_plots, no_html, quiet, **read_kw):
     """Measure every structure of PATHS_OR_GLOBS... with the same settings into OUT.
 
     Each result is kept under OUT/runs/, keyed by the SHA-256 of the input's content
@@ -72,9 +74,11 @@ def batch(inputs, out, only, voxel, max_memory, lines, seed, no_intrusion, densi
     settings = batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_split)
     if workers < 1:
         raise OptionError(f"--workers: must be at least 1, got {workers}")
+    if threads is not None and threads < 1:
+        raise OptionError(f"--threads: must be at least 1, got {threads}")
     res = run_batch(list(inputs), out, settings, read_kw, only=only, plots=not no_plots,
                     workers=workers, cluster=cluster, html_pages=not no_html, quiet=quiet,
-                    echo=lambda m: click.echo(m, err=True))
+                    echo=lambda m: click.echo(m, err=True), threads=threads)
     click.echo(f"{len(res.records)} input(s): {res.n_done} measured, {res.n_skipped} "
                f"finished before, {res.n_failed} failed; summary {res.out / 'summary.csv'}")
     for r in res.failed:
