@@ -400,9 +400,13 @@ def _run_dask(todo, args, finished, cluster, workers, dask_options):
     try:
         if cluster == "local":
             opts = {"n_workers": workers, "threads_per_worker": 1, "processes": True,
-                    "dashboard_address": None, "host": "127.0.0.1"}
+                    "dashboard_address": None, "host": "127.0.0.1", "protocol": "tcp"}
             opts.update(dask_options)
-            own = LocalCluster(**opts)
+            try:
+                own = LocalCluster(**opts)
+            except (OSError, RuntimeError) as e:
+                raise SheetviewError(f"--cluster local: cannot start a Dask LocalCluster "
+                                     f"({e})") from None
             client = Client(own)
         else:
             try:

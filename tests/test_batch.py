@@ -174,6 +174,17 @@ def test_dask_cluster_same_numbers(inputs, reference, tmp_path):
     assert r.exit_code == 0, r.output
     assert comparable(read_summary(out / "summary.csv")) == \
         comparable(read_summary(reference / "summary.csv"))
+    # cluster="local": a LocalCluster started by the batch itself (threads, to stay light)
+    from sheetview.batch import run_batch
+    from sheetview.cli.batch import batch_settings
+    out2 = tmp_path / "out2"
+    res = run_batch([str(d / "s1.csv")], out2, batch_settings(0.3, None, 300, 0, True, 2.73, None),
+                    plots=False, html_pages=False, quiet=True, cluster="local",
+                    dask_options={"processes": False, "n_workers": 1})
+    assert res.n_done == 1 and res.n_failed == 0
+    ref = comparable(read_summary(reference / "summary.csv"))
+    got = comparable(read_summary(out2 / "summary.csv"))
+    assert {k: v[0] for k, v in got.items()} == {k: v[1] for k, v in ref.items()}
 
 
 def test_html_pages(inputs, tmp_path):
