@@ -1,0 +1,510 @@
+"""``sheetview scatter`` and ``sheetview relax``: predicted SAS curves and NMR T2 spectra,
+optionally held against an experimental curve.
+
+Also the reader of experimental curve files (:func:`read_experimental`): two or three
+numeric columns (CSV, semicolon, tab or whitespace separated) under an optional header
+whose labels name the columns and their units.
+"""
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import click
+import numpy as np
+
+from ..errors import InputError, OptionError
+from .common import dumps, load, read_options
+
+# unit spellings found in header labels -> factor to nm^-1 (scattering) or to s (T2)
+_Q_UNITS = [  # checked in order; Å before nm so "1/A" inside "nm" labels cannot clash
+    (re.compile(r"(1\s*/\s*(a|å|angstrom)\b|(a|å|angstrom)\s*\^?\s*(-1|⁻¹)|q_a\b|inv_?a\b)", re.I),
+     10.0, "Å^-1"),
+    (re.compile(r"(1\s*/\s*nm\b|nm\s*\^?\s*(-1|⁻¹)|q_nm\b|inv_?nm\b)", re.I), 1.0, "nm^-1"),
+]
+_T_UNITS = [
+    (re.compile(r"(\bms\b|_ms\b|\(ms\)|\[ms\]|millisecond)", re.I), 1e-3, "ms"),
+    (re.compile(r"(\bus\b|_us\b|µs|μs|\(us\)|\[us\]|microsecond)", re.I), 1e-6, "µs"),
+    (re.compile(r"(\(s\)|\[s\]|_s\b|\bsec\b|\bseconds?\b|\bs\b)", re.I), 1.0, "s"),
+]
+_UNIT_OPTION_Q = {"nm": (1.0, "nm^-1"), "nm-1": (1.0, "nm^-1"), "1/nm": (1.0, "nm^-1"),
+                  "a": (10.0, "Å^-1"), "a-1": (10.0, "Å^-1"), "1/a": (10.0, "Å^-1"),
+                  "angstrom": (10.0, "Å^-1")}
+_UNIT_OPTION_T = {"s": (1.0, "s"), "ms": (1e-3, "ms"), "us": (1e-6, "µs")}
+
+
+@dataclass
+class ExperimentalCurve:
+    """An experimental curve in sheetview units: ``x`` is q (nm⁻¹) or T2 (s)."""
+
+    x: np.ndarray
+    y: np.ndarray
+    sigma: np.ndarray | None
+    unit_found: str
+    unit_source: str
+    warnings: list = field(default_factory=list)
+
+
+def _is_number(tok: str) -> bool:
+    try:
+        float(tok)
+        return True
+    except ValueError:
+        return False
+
+
+def _split(line: str, delim):
+    return [t.strip() for t in (line.split(delim) if delim else line.split())]
+
+
+def read_experimental(path, kind: str = "scattering", unit: str | None = None,
+                      columns: str | None = None) -> ExperimentalCurve:
+    """Read an experimental scattering curve (q, I[, σ]) or T2 distribution (T2, amplitude).
+
+    Parameters
+    ----------
+    path : file name
+    kind : 'scattering' or 't2'
+    unit : the x unit when the header does not say: 'nm' / 'A' for q (nm⁻¹, Å⁻¹);
+        's' / 'ms' / 'us' for T2. A unit given here overrides the header.
+    columns : 'X,Y' or 'X,Y,SIGMA', 1-based column numbers or header names; default:
+        columns named like q/T2, I/amplitude, error/sigma, else the first two (three).
+
+    Rules: blank lines and lines starting with '#' are skipped, except that the last
+    non-numeric line before the data is read as the header (a leading '#' removed).
+    Rows with a non-positive or non-finite intensity are dropped with a warning; rows
+    out of x order are sorted with a warning. Anything else (a non-numeric row in the
+    data, fewer than 3 rows, no unit found) is refused with an InputError naming the file.
+    """
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8-sig", errors="replace")
+    except OSError as e:
+        raise InputError(f"cannot read: {e.strerror}", path=p) from None
+    lines = text.splitlines()
+    header, header_line, rows, delim = None, None, [], None
+    first_data = None
+    for ln, raw in enumerate(lines, 1):
+        s = raw.strip()
+        if not s:
+            continue
+        if first_data is None:
+            d = "," if "," in s else ";" if ";" in s else "\t" if "\t" in s else None
+            toks = _split(s.lstrip("#"), d)
+            if not s.startswith("#") and all(_is_number(t) for t in toks if t != "") and toks:
+                first_data, delim = ln, d
+            else:
+                header, header_line = s.lstrip("#").strip(), ln
+                continue
+        if s.startswith("#"):
+            continue
+        toks = [t for t in _split(s, delim) if t != ""]
+        try:
+            rows.append([float(t) for t in toks])
+        except ValueError:
+            raise InputError(f"non-numeric value in a data row: {s[:60]!r}", path=p,
+                             line=ln) from None
+        if len(rows[-1]) != len(rows[0]):
+            raise InputError(f"expected {len(rows[0])} columns like the first data row, found "
+                             f"{len(rows[-1])}", path=p, line=ln)
+    if len(rows) < 3:
+        raise InputError("fewer than 3 data rows (expected columns of numbers: "
+                         + ("q, I[, error])" if kind == "scattering" else "T2, amplitude)"),
+                         path=p)
+    data = np.asarray(rows, dtype=float)
+    ncol = data.shape[1]
+    if ncol < 2:
+        raise InputError("expected at least two columns", path=p)
+    names = _split(header, delim) if header is not None else []
+    names = [n for n in names if n != ""]
+    if len(names) != ncol:
+        names = []  # labels cannot be matched to columns; units still read from the text
+    ix, iy, ie = _pick_columns(names, ncol, columns, kind, p)
+    # unit
+    if unit is not None:
+        table = _UNIT_OPTION_Q if kind == "scattering" else _UNIT_OPTION_T
+        key = str(unit).strip().lower().replace("å", "a").replace("^", "")
+        if key not in table:
+            raise OptionError(f"unknown unit {unit!r}; expected one of {sorted(table)}",
+                              path=p, field="unit")
+        factor, uname = table[key]
+        usrc = "option"
+    else:
+        label = names[ix] if names else (header or "")
+        factor, uname = _detect_unit(label, kind)
+        if factor is None and names:
+            factor, uname = _detect_unit(header, kind)
+        if factor is None:
+            what = ("q unit (nm^-1 or A^-1; a header label such as 'q (1/A)' or 'q_nm-1', "
+                    "or the unit option)") if kind == "scattering" else \
+                   ("T2 unit (s, ms or us; a header label such as 'T2 (ms)', or the unit option)")
+            raise InputError(f"cannot tell the {what}", path=p, line=header_line)
+        usrc = f"header {header!r}"
+    x = data[:, ix] * factor
+    y = data[:, iy]
+    sg = data[:, ie] if ie is not None else None
+    warns = []
+    bad = ~np.isfinite(x) | ~np.isfinite(y) | (x <= 0)
+    if bad.any():
+        raise InputError(f"{int(bad.sum())} rows with a non-finite value or a non-positive "
+                         f"{'q' if kind == 'scattering' else 'T2'}", path=p)
+    if kind == "scattering":
+        drop = y <= 0
+        if sg is not None:
+            drop |= ~(sg > 0)
+        if drop.any():
+            warns.append(f"{p}: dropped {int(drop.sum())} rows with zero or negative intensity "
+                         f"(or uncertainty)")
+            x, y = x[~drop], y[~drop]
+            sg = sg[~drop] if sg is not None else None
+    else:
+        if np.any(y < 0):
+            warns.append(f"{p}: {int((y < 0).sum())} negative amplitudes set to 0")
+            y = np.maximum(y, 0)
+    if np.any(np.diff(x) < 0):
+        o = np.argsort(x, kind="stable")
+        x, y = x[o], y[o]
+        sg = sg[o] if sg is not None else None
+        warns.append(f"{p}: {'q' if kind == 'scattering' else 'T2'} values were not in increasing "
+                     f"order; sorted")
+    if x.size < 3:
+        raise InputError("fewer than 3 usable rows after dropping non-positive intensities",
+                         path=p)
+    return ExperimentalCurve(x, y, sg, uname, usrc, warns)
+
+
+def _detect_unit(label, kind):
+    if not label:
+        return None, None
+    lab = label.replace("Å", "A")
+    for rx, f, name in (_Q_UNITS if kind == "scattering" else _T_UNITS):
+        if rx.search(lab):
+            return f, name
+    return None, None
+
+
+def _pick_columns(names, ncol, columns, kind, p):
+    low = [n.lower() for n in names]
+    if columns is not None:
+        parts = [c.strip() for c in str(columns).split(",")]
+        if len(parts) not in (2, 3):
+            raise OptionError(f"columns: expected X,Y or X,Y,ERROR, got {columns!r}", path=p)
+        idx = []
+        for c in parts:
+            if c.isdigit():
+                i = int(c) - 1
+            elif c.lower() in low:
+                i = low.index(c.lower())
+            else:
+                raise OptionError(f"columns: no column {c!r} (header: {names})", path=p)
+            if not 0 <= i < ncol:
+                raise OptionError(f"columns: column {c} out of range 1-{ncol}", path=p)
+            idx.append(i)
+        return idx[0], idx[1], (idx[2] if len(idx) == 3 else None)
+
+    def find(pred):
+        for i, n in enumerate(low):
+            if pred(n):
+                return i
+        return None
+    if names:
+        if kind == "scattering":
+            ix = find(lambda n: n.startswith("q"))
+            ie = find(lambda n: any(k in n for k in ("err", "sigma", "unc", "std")) or
+                      n.startswith("di") or n.startswith("d_i"))
+            iy = find(lambda n: (n.startswith("i") or "intens" in n) and not n.startswith("id"))
+        else:
+            ix = find(lambda n: n.startswith("t2") or n.startswith("t_2") or n.startswith("time")
+                      or n.startswith("t "))
+            iy = find(lambda n: any(k in n for k in ("amp", "signal", "fraction", "intens",
+                                                     "density", "f(", "p(")))
+            ie = None
+        if ix is not None and iy is not None and ix != iy:
+            return ix, iy, ie
+    return 0, 1, (2 if (kind == "scattering" and ncol >= 3) else None)
+
+
+# ============================================================== commands
+def _check_outputs(paths, force):
+    from ..io.output import check_writable
+    seen = set()
+    for q in paths:
+        if q is None:
+            continue
+        if str(q) in seen:
+            raise OptionError(f"output {q} is given twice")
+        seen.add(str(q))
+        check_writable(q, force)
+
+
+def _write_csv(path, table: dict, force, header_note=None):
+    from ..io.output import atomic_path
+    cols = list(table)
+    n = len(table[cols[0]])
+    with atomic_path(path, force) as tmp:
+        with open(tmp, "w", encoding="utf-8") as fh:
+            if header_note:
+                for line in header_note:
+                    fh.write(f"# {line}\n")
+            fh.write(",".join(cols) + "\n")
+            for i in range(n):
+                fh.write(",".join(_fmt(table[c][i]) for c in cols) + "\n")
+
+
+def _fmt(v):
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
+        return "nan"
+    return f"{v:.8g}" if isinstance(v, float) else str(v)
+
+
+def _save_fig(fig, path, force):
+    from ..io.output import atomic_path
+    import matplotlib.pyplot as plt
+    with atomic_path(path, force) as tmp:
+        fig.savefig(tmp, dpi=120, format=Path(path).suffix.lstrip(".") or "png")
+    plt.close(fig)
+
+
+def _grid_of(obj, voxel, max_memory=None):
+    from .. import measures
+    from ..grid import PhaseGrid
+    if isinstance(obj, PhaseGrid):
+        return None, obj
+    ctx = measures.run(["phases"], obj, {"voxel": voxel, "max_memory": max_memory})
+    return ctx, ctx.grid
+
+
+def _solid_sld(formula, density, probe):
+    from ..sld import PRESETS, sld
+    if formula is None and density is None:
+        return sld(*PRESETS["csh"], probe=probe), f"C-S-H {PRESETS['csh'][0]} at {PRESETS['csh'][1]} g/cm3"
+    if formula is None or density is None:
+        raise OptionError("give --solid-formula and --solid-density together")
+    return sld(formula, density, probe=probe), f"{formula} at {density:g} g/cm3"
+
+
+@click.command()
+@click.argument("file", type=click.Path(exists=True, dir_okay=False))
+@read_options
+@click.option("--voxel", type=float, default=None, help="Voxel edge (nm) of the phase grid.")
+@click.option("--probe", type=click.Choice(["neutron", "xray"]), default="neutron",
+              show_default=True)
+@click.option("--fluid", default="h2o", show_default=True,
+              help="Pore fluid: h2o, d2o, or a D2O volume fraction (0.3 or 30%).")
+@click.option("--solid-formula", default=None,
+              help="Solid composition, e.g. '(CaO)1.7(SiO2)(H2O)1.8' (default C-S-H).")
+@click.option("--solid-density", type=float, default=None, help="Solid density (g/cm3).")
+@click.option("--no-interlayer-contrast", is_flag=True,
+              help="Give the interlayer the solid's SLD (sheets and interlayer as one particle).")
+@click.option("--pad", type=int, default=2, show_default=True,
+              help="Zero-padding factor (non-periodic grids).")
+@click.option("--window", type=click.Choice(["none", "hann"]), default="none", show_default=True)
+@click.option("--csv", "csv_out", type=click.Path(dir_okay=False), required=True,
+              help="Curve to write: columns q_nm-1,intensity_cm-1.")
+@click.option("-o", "--output", "plot_out", type=click.Path(dir_okay=False), default=None,
+              help="Plot (PNG).")
+@click.option("--json", "json_out", type=click.Path(dir_okay=False), default=None,
+              help="Features (slopes, Porod, Guinier, invariant, peaks, fit) as JSON.")
+@click.option("--compare", type=click.Path(exists=True, dir_okay=False), default=None,
+              help="Experimental curve (q, I[, error]) to fit scale and background to.")
+@click.option("--q-unit", type=click.Choice(["nm", "A"]), default=None,
+              help="Unit of q in --compare when its header does not say.")
+@click.option("--columns", default=None, help="Columns of --compare: Q,I[,ERR] (numbers or names).")
+@click.option("--force", is_flag=True, help="Overwrite existing outputs.")
+def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlayer_contrast, pad,
+            window, csv_out, plot_out, json_out, compare, q_unit, columns, force, **read_kw):
+    """Predicted small-angle scattering curve I(q) (cm^-1) of FILE."""
+    from ..measures.scattering import (bragg_peaks, compare_curve, guinier, invariant,
+                                       phase_slds, porod, power_law, scattering_curve)
+    from ..sld import preset_sld
+    _check_outputs([csv_out, plot_out, json_out], force)
+    exp = read_experimental(compare, "scattering", q_unit, columns) if compare else None
+    for w in (exp.warnings if exp else []):
+        click.echo(f"sheetview: warning: {w}", err=True)
+    obj = load(file, **read_kw)
+    _, grid = _grid_of(obj, voxel)
+    s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe)
+    f_sld = preset_sld(fluid, probe)
+    slds = phase_slds(s_sld, f_sld, interlayer_contrast=not no_interlayer_contrast)
+    res = scattering_curve(grid, slds, pad=pad, window=None if window == "none" else window)
+    doc = {"file": str(file), "probe": probe, "solid": s_desc, "fluid": fluid,
+           "interlayer_contrast": not no_interlayer_contrast, "curve": res.to_dict()}
+    feats = {}
+    lo, hi = res.q_valid
+    for name, fn in (("slope_low_q", lambda: power_law(res, (lo, lo * 10 ** 0.5))),
+                     ("slope_high_q", lambda: power_law(res, (hi / 10 ** 0.5, hi))),
+                     ("porod", lambda: porod(res)), ("guinier", lambda: guinier(res)),
+                     ("invariant", lambda: invariant(res, phi=_solid_fraction(grid))),
+                     ("bragg_peaks", lambda: bragg_peaks(res))):
+        try:
+            feats[name] = fn().to_dict()
+        except OptionError as e:
+            feats[name] = {"error": e.detail}
+    doc["features"] = feats
+    cmp_ = compare_curve(res, exp.x, exp.y, exp.sigma, source=compare) if exp else None
+    if cmp_ is not None:
+        doc["comparison"] = {**cmp_.to_dict(), "file": str(compare), "q_unit": exp.unit_found}
+    notes = [f"probe {probe}; solid {s_desc}: SLD {s_sld:.3g}e-6 A^-2; fluid {fluid}: "
+             f"{f_sld:.3g}e-6 A^-2; interlayer {'fluid' if not no_interlayer_contrast else 'solid'} "
+             f"SLD; outside = fluid",
+             f"valid q {lo:.4g} to {hi:.4g} nm^-1; I(q) = |FT(delta rho)|^2 / V in cm^-1",
+             "a model's predicted curve, not a measurement"]
+    _write_csv(csv_out, {"q_nm-1": res.q.tolist(), "intensity_cm-1": res.intensity.tolist()},
+               force, notes)
+    if json_out:
+        from ..io.output import atomic_path
+        with atomic_path(json_out, force) as tmp:
+            Path(tmp).write_text(dumps(doc), encoding="utf-8")
+    if plot_out:
+        _plot_scatter(res, cmp_, notes, plot_out, force)
+    click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1 -> {csv_out}")
+    if cmp_ is not None:
+        click.echo(f"fit to {compare}: scale {cmp_.scale:.4g}, background {cmp_.background:.4g} "
+                   f"cm^-1, reduced chi2 {cmp_.chi2_reduced:.4g} ({cmp_.weighting})")
+
+
+def _solid_fraction(grid):
+    from ..grid import SOLID
+    return float(np.count_nonzero(grid.labels == SOLID) / grid.labels.size)
+
+
+def _wrap(notes, width=150):
+    import textwrap
+    return "\n".join(textwrap.fill(n, width) for n in notes)
+
+
+def _plot_scatter(res, cmp_, notes, path, force):
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    fig, ax = plt.subplots(figsize=(7, 5.2))
+    m = res.valid()
+    ax.loglog(res.q[m], res.intensity[m], "-", color="C0", label="model (valid q range)")
+    if (~m).any():
+        pos = ~m & (res.intensity > 0)
+        ax.loglog(res.q[pos], res.intensity[pos], ".", color="C0", alpha=0.3,
+                  label="model outside valid range")
+    if cmp_ is not None:
+        ax.loglog(cmp_.q, cmp_.experiment, "o", ms=3, color="C3", label="experiment")
+        ax.loglog(cmp_.q, cmp_.model_fitted, "-", color="k", lw=1,
+                  label=f"scale {cmp_.scale:.3g} x model + {cmp_.background:.3g}")
+    ax.set_xlabel("q (nm$^{-1}$)")
+    ax.set_ylabel("I(q) (cm$^{-1}$)")
+    ax.legend(fontsize=8)
+    fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
+    fig.subplots_adjust(bottom=0.25)
+    _save_fig(fig, path, force)
+
+
+@click.command()
+@click.argument("file", type=click.Path(exists=True, dir_okay=False))
+@read_options
+@click.option("--voxel", type=float, default=None, help="Voxel edge (nm) of the phase grid.")
+@click.option("--rho2", type=float, default=None,
+              help="Surface relaxivity in nm/us (default 3.7e-3; McDonald et al. 2005, from "
+                   "memory, low confidence).")
+@click.option("--t2-bulk", type=float, default=None,
+              help="Bulk water T2 in s (default 2.5, from memory); 0 switches the bulk term off.")
+@click.option("--pore-shape", "shape", type=click.Choice(["slit", "cylinder", "sphere"]), default="slit",
+              show_default=True, help="Gel pores of local thickness d: S/V = 2/d, 4/d, 6/d.")
+@click.option("--interlayer-width", type=float, default=None,
+              help="Interlayer gap (nm). Default: repeat - median sheet thickness for prism "
+                   "files, the measured local thickness of the interlayer for volumes.")
+@click.option("--csv", "csv_out", type=click.Path(dir_okay=False), required=True,
+              help="Distribution to write (T2 in s and ms, fractions per class).")
+@click.option("-o", "--output", "plot_out", type=click.Path(dir_okay=False), default=None,
+              help="Plot (PNG).")
+@click.option("--json", "json_out", type=click.Path(dir_okay=False), default=None,
+              help="Class fractions, mean T2, settings and comparison as JSON.")
+@click.option("--compare", type=click.Path(exists=True, dir_okay=False), default=None,
+              help="Experimental T2 distribution (T2, amplitude).")
+@click.option("--t2-unit", type=click.Choice(["s", "ms", "us"]), default=None,
+              help="Unit of T2 in --compare when its header does not say.")
+@click.option("--columns", default=None, help="Columns of --compare: T2,AMPLITUDE.")
+@click.option("--force", is_flag=True, help="Overwrite existing outputs.")
+def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out, json_out,
+          compare, t2_unit, columns, force, **read_kw):
+    """Predicted NMR T2 distribution of the pore water of FILE (fast exchange)."""
+    from ..measures.relaxation import (DEFAULT_RHO2_NM_PER_US, DEFAULT_T2_BULK_S, compare_t2,
+                                       relaxation_spectrum)
+    from ..structure import Structure
+    _check_outputs([csv_out, plot_out, json_out], force)
+    exp = read_experimental(compare, "t2", t2_unit, columns) if compare else None
+    for w in (exp.warnings if exp else []):
+        click.echo(f"sheetview: warning: {w}", err=True)
+    rho2 = DEFAULT_RHO2_NM_PER_US if rho2 is None else rho2
+    if t2_bulk is None:
+        t2_bulk = DEFAULT_T2_BULK_S
+    elif t2_bulk == 0:
+        t2_bulk = None
+    elif t2_bulk < 0:
+        raise OptionError(f"--t2-bulk must be positive (or 0 for no bulk term), got {t2_bulk}")
+    obj = load(file, **read_kw)
+    ctx, grid = _grid_of(obj, voxel)
+    if interlayer_width is None and isinstance(obj, Structure):
+        gap = float(obj.spacing) - float(np.median(obj.thickness))
+        if gap > 0:
+            interlayer_width = gap
+    if ctx is not None:
+        gel = ctx.pore_thickness
+    else:
+        gel = None
+    res = relaxation_spectrum(grid, gel, interlayer_width=interlayer_width, rho2=rho2,
+                              t2_bulk=t2_bulk, shape=shape)
+    cmp_ = compare_t2(res, exp.x, exp.y, source=compare) if exp else None
+    doc = {"file": str(file), "relaxation": res.to_dict()}
+    if cmp_ is not None:
+        doc["comparison"] = {**cmp_.to_dict(), "file": str(compare), "t2_unit": exp.unit_found}
+    notes = [f"fast exchange 1/T2 = 1/T2b + rho2 S/V; rho2 {rho2:g} nm/us; T2b "
+             f"{'off' if t2_bulk is None else f'{t2_bulk:g} s'}; gel pores as {shape}s; "
+             f"interlayer: {res.settings['interlayer_width']}",
+             "a model's predicted distribution, not a measurement"]
+    _write_csv(csv_out, res.table(), force, notes)
+    if json_out:
+        from ..io.output import atomic_path
+        with atomic_path(json_out, force) as tmp:
+            Path(tmp).write_text(dumps(doc), encoding="utf-8")
+    if plot_out:
+        _plot_relax(res, cmp_, notes, plot_out, force)
+    fr = ", ".join(f"{k} {v:.3f} (T2 {res.class_t2_logmean[k] * 1e3:.3g} ms)"
+                   for k, v in res.class_fraction.items())
+    click.echo(f"T2 distribution: {fr} -> {csv_out}")
+    if cmp_ is not None:
+        click.echo(f"against {compare}: log-mean T2 model {cmp_.logmean_model_s * 1e3:.4g} ms, "
+                   f"experiment {cmp_.logmean_experiment_s * 1e3:.4g} ms, shift "
+                   f"{cmp_.shift_decades:+.3f} decades, overlap {cmp_.overlap:.3f}")
+
+
+def _plot_relax(res, cmp_, notes, path, force):
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    fig, ax = plt.subplots(figsize=(7, 5))
+    t_ms = res.t2 * 1e3
+    dl = np.diff(np.log(res.edges))
+    bottom = np.zeros_like(t_ms)
+    for i, (k, v) in enumerate(res.fraction.items()):
+        ax.fill_between(t_ms, bottom, bottom + v / dl, step="mid", alpha=0.6, label=k,
+                        color=f"C{i}")
+        bottom = bottom + v / dl
+    if cmp_ is not None:
+        ax.plot(cmp_.t2 * 1e3, cmp_.experiment, "o-", ms=3, color="k", label="experiment "
+                "(normalised)")
+    ax.set_xscale("log")
+    ax.set_xlabel("T2 (ms)")
+    ax.set_ylabel("signal density per ln T2")
+    ax.legend(fontsize=8)
+    nz = np.flatnonzero(bottom > 0)
+    if nz.size:
+        lo, hi = t_ms[nz[0]], t_ms[nz[-1]]
+        if cmp_ is not None:
+            lo, hi = min(lo, cmp_.t2.min() * 1e3), max(hi, cmp_.t2.max() * 1e3)
+        ax.set_xlim(lo / 10, hi * 10)
+    fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
+    fig.subplots_adjust(bottom=0.2)
+    _save_fig(fig, path, force)
+
+
+COMMANDS = [scatter, relax]

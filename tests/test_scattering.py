@@ -1,0 +1,188 @@
+"""Scattering curves, SLDs, experimental curve files and the `scatter` command."""
+import json
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from sheetview.cli import main
+from sheetview.cli.experiment import read_experimental
+from sheetview.errors import InputError, OptionError, SheetviewError
+from sheetview.grid import PhaseGrid
+from sheetview.measures.scattering import (compare_curve, phase_slds, power_law,
+                                           scattering_curve)
+from sheetview.sld import molar_mass, parse_formula, preset_sld, water_sld
+
+SAMPLE = "sample_structures/single_stack.csv"
+
+
+def test_intensity_matches_direct_fourier_sum():
+    """I(q) = |v Σ Δρ e^{-iq·r}|² / V (definition of the macroscopic cross-section) computed
+    by direct summation over voxels with numpy, at the Fourier modes of one bin; the FFT
+    path must agree to 1e-4 (float32 transform)."""
+    rng = np.random.default_rng(3)
+    lab = (rng.random((6, 5, 7)) < 0.4).astype(np.uint8)
+    g = PhaseGrid(lab, (0.3, 0.4, 0.5), periodic=True)
+    edges = np.array([4.0, 6.0])
+    res = scattering_curve(g, {0: 0.0, 1: 2.0}, bins=edges)
+    sp = np.asarray(g.spacing)
+    n = np.asarray(lab.shape)
+    pos = (np.argwhere(np.ones_like(lab, bool))) * sp
+    rho = (lab.ravel().astype(float)) * 2e10
+    vals = []
+    for i in range(n[0]):
+        for j in range(n[1]):
+            for k in range(n[2]):
+                qv = 2 * np.pi * np.array([np.fft.fftfreq(n[a], sp[a])[idx]
+                                           for a, idx in enumerate((i, j, k))])
+                qq = np.linalg.norm(qv)
+                if edges[0] <= qq < edges[1]:
+                    F = np.sum(rho * np.exp(-1j * pos @ qv)) * np.prod(sp) * 1e-21
+                    vals.append(abs(F) ** 2 / (np.prod(n * sp) * 1e-21))
+    assert res.intensity[0] == pytest.approx(np.mean(vals), rel=1e-4)
+    assert res.counts[0] == len(vals)
+
+
+def test_contrast_scaling_and_match_point():
+    """I scales as Δρ² (definition), and a fluid matching the solid gives no scattering."""
+    rng = np.random.default_rng(0)
+    lab = (rng.random((16, 16, 16)) < 0.3).astype(np.uint8) * 3
+    lab[lab == 0] = 1
+    g = PhaseGrid(lab, 0.5, periodic=True)
+    a = scattering_curve(g, phase_slds(2.0, 0.0))
+    b = scattering_curve(g, phase_slds(4.0, 0.0))
+    assert np.allclose(b.intensity, 4 * a.intensity, rtol=1e-4)
+    m = scattering_curve(g, phase_slds(2.0, 2.0))
+    assert np.all(m.intensity < 1e-10 * a.intensity.max())
+
+
+def test_power_law_recovers_slope():
+    """Least squares in log-log recovers a pure power law exactly (common practice)."""
+    q = np.geomspace(0.1, 10, 50)
+    from sheetview.measures.scattering import ScatteringResult
+    r = ScatteringResult(q, 3 * q ** -3.2, np.ones(50, int), (0.1, 10), {}, 0.0, 1.0, 1.0)
+    pl = power_law(r, (0.2, 5))
+    assert pl.slope == pytest.approx(-3.2)
+    assert pl.prefactor == pytest.approx(3)
+    assert pl.slope_stderr < 1e-8
+
+
+def test_compare_curve_recovers_scale_and_background():
+    """A synthetic 'experiment' 2.5 × model + 0.01 is fitted back exactly (linear least
+    squares)."""
+    rng = np.random.default_rng(1)
+    lab = (rng.random((24, 24, 24)) < 0.3).astype(np.uint8)
+    res = scattering_curve(PhaseGrid(lab, 0.5, periodic=True), {0: 0.0, 1: 2.0})
+    m = res.valid()
+    q = np.geomspace(res.q[m][1], res.q[m][-2], 30)
+    model = np.exp(np.interp(np.log(q), np.log(res.q[m]), np.log(res.intensity[m])))
+    c = compare_curve(res, q, 2.5 * model + 0.01)
+    assert c.scale == pytest.approx(2.5, rel=1e-6)
+    assert c.background == pytest.approx(0.01, rel=1e-5)
+    assert c.chi2_reduced < 1e-10
+    with pytest.raises(SheetviewError):
+        compare_curve(res, q * 1000, model)
+
+
+def test_formula_parser():
+    """Atom counts of the C-S-H formula of Allen, Thomas & Jennings (2007); molar mass of
+    water 18.015 g/mol (IUPAC atomic weights, from memory)."""
+    assert parse_formula("(CaO)1.7(SiO2)(H2O)1.8") == pytest.approx(
+        {"Ca": 1.7, "O": 5.5, "Si": 1.0, "H": 3.6})
+    assert parse_formula("Ca(OH)2") == {"Ca": 1.0, "O": 2.0, "H": 2.0}
+    assert molar_mass("H2O") == pytest.approx(18.015, abs=1e-3)
+    for bad in ("Xx2", "(H2O", "H2O)", "2H", "", "H2O!"):
+        with pytest.raises(OptionError):
+            parse_formula(bad)
+
+
+def test_mixture_is_linear():
+    """H2O/D2O mixtures are linear in the D2O volume fraction (ideal mixing, common
+    practice): match point of C-S-H (2.55) between H2O (-0.56) and D2O (6.36), all 1e-6 Å^-2,
+    at (2.55 + 0.56) / (6.36 + 0.56) = 0.449 D2O (derived from the published values)."""
+    assert water_sld(0.5) == pytest.approx(0.5 * (preset_sld("h2o") + preset_sld("d2o")))
+    assert preset_sld("30%") == pytest.approx(water_sld(0.3))
+    x = (preset_sld("csh") - preset_sld("h2o")) / (preset_sld("d2o") - preset_sld("h2o"))
+    assert x == pytest.approx((2.55 + 0.56) / (6.36 + 0.56), rel=0.01)
+    with pytest.raises(OptionError):
+        preset_sld("1.5")
+    with pytest.raises(OptionError):
+        preset_sld("mud")
+
+
+# ------------------------------------------------------------ experimental files
+def test_reader_units_from_headers(tmp_path):
+    p = tmp_path / "a.csv"
+    p.write_text("q (1/A),I (1/cm),dI\n0.01,10,1\n0.02,5,0.5\n0.03,2,0.2\n")
+    c = read_experimental(p)
+    assert np.allclose(c.x, [0.1, 0.2, 0.3]) and c.unit_found == "Å^-1"
+    assert np.allclose(c.sigma, [1, 0.5, 0.2])
+    p2 = tmp_path / "b.dat"
+    p2.write_text("# q_nm-1 I\n0.1 10\n0.2 5\n0.3 2\n")
+    assert np.allclose(read_experimental(p2).x, [0.1, 0.2, 0.3])
+    p3 = tmp_path / "c.txt"
+    p3.write_text("q\tintensity\n0.1\t1\n0.2\t2\n0.3\t3\n")
+    with pytest.raises(InputError, match="c.txt"):
+        read_experimental(p3)
+    assert np.allclose(read_experimental(p3, unit="A").x, [1, 2, 3])
+    p4 = tmp_path / "d.csv"
+    p4.write_text("I,q [Å^-1]\n10,0.01\n5,0.02\n2,0.03\n")
+    c = read_experimental(p4)
+    assert np.allclose(c.x, [0.1, 0.2, 0.3]) and np.allclose(c.y, [10, 5, 2])
+
+
+def test_reader_drops_and_sorts(tmp_path):
+    p = tmp_path / "e.csv"
+    p.write_text("q (nm^-1),I\n0.3,2\n0.1,10\n0.2,-1\n0.4,0\n0.5,1\n0.6,0.5\n")
+    c = read_experimental(p)
+    assert np.allclose(c.x, [0.1, 0.3, 0.5, 0.6])
+    assert len(c.warnings) == 2
+    assert any("dropped 2" in w for w in c.warnings)
+
+
+def test_reader_refuses(tmp_path):
+    p = tmp_path / "f.csv"
+    p.write_text("q (nm^-1),I\n0.1,1\nabc,2\n0.3,3\n")
+    with pytest.raises(InputError, match="f.csv.*line 3"):
+        read_experimental(p)
+    p.write_text("q (nm^-1),I\n0.1,1\n")
+    with pytest.raises(InputError, match="fewer than 3"):
+        read_experimental(p)
+    with pytest.raises(InputError, match="cannot read"):
+        read_experimental(tmp_path / "missing.csv")
+
+
+# ------------------------------------------------------------ command line
+def test_scatter_cli(tmp_path):
+    exp = tmp_path / "exp.csv"
+    q = np.geomspace(0.06, 1.5, 25)  # Å^-1 -> 0.6 to 15 nm^-1
+    exp.write_text("q (1/A),I\n" + "".join(f"{a},{1e-3 * a ** -3 + 0.01}\n" for a in q))
+    r = CliRunner().invoke(main, ["scatter", SAMPLE, "--voxel", "0.25", "--csv",
+                                  str(tmp_path / "c.csv"), "-o", str(tmp_path / "c.png"),
+                                  "--json", str(tmp_path / "c.json"), "--compare", str(exp),
+                                  "--probe", "xray"])
+    assert r.exit_code == 0, r.output
+    lines = [ln for ln in (tmp_path / "c.csv").read_text().splitlines() if not ln.startswith("#")]
+    assert lines[0] == "q_nm-1,intensity_cm-1"
+    d = json.loads((tmp_path / "c.json").read_text())
+    assert d["comparison"]["q_unit"] == "Å^-1"
+    assert d["curve"]["sld_1e-6_A-2"]["solid"] == pytest.approx(22.49, rel=1e-3)
+    assert (tmp_path / "c.png").stat().st_size > 1000
+    # existing outputs are refused without --force, cleanly
+    r = CliRunner().invoke(main, ["scatter", SAMPLE, "--voxel", "0.25", "--csv",
+                                  str(tmp_path / "c.csv")])
+    assert r.exit_code == 2 and "already exists" in r.output
+
+
+def test_scatter_cli_bad_compare(tmp_path):
+    exp = tmp_path / "exp.csv"
+    exp.write_text("q,I\n0.1,1\n0.2,2\n0.3,3\n")
+    r = CliRunner().invoke(main, ["scatter", SAMPLE, "--voxel", "0.25", "--csv",
+                                  str(tmp_path / "c.csv"), "--compare", str(exp)])
+    assert r.exit_code == 2
+    assert "exp.csv" in r.output and "q unit" in r.output
+    assert not (tmp_path / "c.csv").exists()
+    r = CliRunner().invoke(main, ["scatter", SAMPLE, "--voxel", "0.25", "--csv",
+                                  str(tmp_path / "c.csv"), "--fluid", "1.7"])
+    assert r.exit_code == 2 and "fluid" in r.output
+    assert not (tmp_path / "c.csv").exists()
