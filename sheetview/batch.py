@@ -722,7 +722,8 @@ def trend_plot(summary_path, x: str, y: str, out_png, group: str | None = None,
     ax.set_xlabel(x)
     ax.set_ylabel(y)
     nrep = max(int(n.max()) for *_, n in stats.values())
-    ax.set_title(f"{y} vs {x}" + (" (mean ± s.d. of replicas)" if nrep > 1 else ""))
+    ax.set_title(f"{y}\nagainst {x}" + ("\n(mean ± sample s.d. of replicas)" if nrep > 1 else ""),
+                 fontsize=9)
     if group is not None:
         ax.legend(fontsize=8)
     fig.tight_layout()
