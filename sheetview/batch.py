@@ -295,15 +295,21 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
     config = {"settings": settings, "read": read_kw, "only": only}
     jobs = plan(paths, config)
     res = BatchResult(out)
-    recs = {}
+    recs = {}          # key -> record of the first input with that key
+    order = []         # (path, key) of every input
     todo = []
     for j in jobs:
+        order.append((str(j.path), j.key))
+        if j.key in recs:
+            continue  # the same content twice: measured once
+        if j.sha256 is not None:  # a result of the same content under another file name
+            for d in sorted((out / "runs").glob(f"*-{j.key}")):
+                if not d.name.startswith(".") and (d / "summary.json").is_file():
+                    j.name = d.name
+                    break
         rec = {"path": str(j.path), "name": j.name, "key": j.key, "sha256": j.sha256,
                "status": None, "error": None, "seconds": None, "write_seconds": None}
-        recs[j.name] = recs.get(j.name) or rec
-        res.records.append(rec if recs[j.name] is rec else recs[j.name])
-        if recs[j.name] is not rec:
-            continue  # the same content twice: measured once
+        recs[j.key] = rec
         if j.error is not None:
             rec.update(status="failed", error=j.error)
             _write_failure(out, j, rec)
@@ -321,10 +327,10 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
     n_todo = len(todo)
 
     def finished(job, r):
-        rec = recs[job.name]
+        rec = recs[job.key]
         rec.update(status=r["status"], error=r["error"], seconds=r["seconds"],
                    write_seconds=r["write_seconds"])
-        k = sum(1 for j in todo if recs[j.name]["status"] is not None)
+        k = sum(1 for j in todo if recs[j.key]["status"] is not None)
         el = time.perf_counter() - t_start
         eta = el / k * (n_todo - k) if k else float("nan")
         if r["status"] == "ok":
@@ -353,7 +359,8 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
                     _set_threads(before)
         else:
             _run_pool(todo, args, finished, min(workers, len(todo)), ncpu, threads)
-    res.n_failed = sum(1 for r in recs.values() if r["status"] == "failed")
+    res.records = [{**recs[key], "path": path} for path, key in order]
+    res.n_failed = sum(1 for r in res.records if r["status"] == "failed")
     write_tables(out, res.records)
     if html_pages:
         write_pages(out, res.records)

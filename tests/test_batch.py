@@ -234,3 +234,25 @@ def test_key_depends_on_content_and_settings():
     assert a == result_key("0" * 64, {"settings": {"lines": 300, "voxel": 0.3}})
     assert a != result_key("1" + "0" * 63, {"settings": {"voxel": 0.3, "lines": 300}})
     assert a != result_key("0" * 64, {"settings": {"voxel": 0.3, "lines": 301}})
+
+
+def test_same_content_and_missing_file(inputs, reference, tmp_path):
+    """Results are found by content: a renamed copy of a measured file is not measured
+    again, the same content twice is measured once (two rows), a missing path is a
+    recorded failure (exit 1)."""
+    import shutil
+    d, paths, _ = inputs
+    out = tmp_path / "out"
+    shutil.copytree(reference, out)
+    copy = tmp_path / "renamed.csv"
+    shutil.copy(paths[0], copy)
+    r = batch(copy, "-o", out, *FAST)
+    assert r.exit_code == 0 and "0 measured, 1 finished before" in r.output, r.output
+    r = batch(paths[0], copy, tmp_path / "missing.csv", "-o", out, *FAST)
+    assert r.exit_code == 1 and "0 measured, 1 finished before, 1 failed" in r.output, r.output
+    cols = read_summary(out / "summary.csv")
+    assert cols["input"] == [str(paths[0]), str(copy), str(tmp_path / "missing.csv")]
+    assert cols["result"][0] == cols["result"][1] != ""
+    assert cols["volume_fractions.solid"][1] == read_summary(
+        reference / "summary.csv")["volume_fractions.solid"][0]
+    assert cols["status"][2] == "failed" and "missing.csv" in cols["error"][2]
