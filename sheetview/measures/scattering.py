@@ -111,22 +111,59 @@ def _sld_field(labels, sld_by_phase, names):
     return lut
 
 
-def _radial_bins(shape_pad, spacing, edges):
-    """Integer bin index (-1 outside) of every rfftn mode and the |q| of each mode."""
-    nx, ny, nz = shape_pad
-    qx = 2 * np.pi * np.fft.fftfreq(nx, d=spacing[0]).astype(np.float32)
-    qy = 2 * np.pi * np.fft.fftfreq(ny, d=spacing[1]).astype(np.float32)
-    qz = 2 * np.pi * np.fft.rfftfreq(nz, d=spacing[2]).astype(np.float32)
-    q2 = qx[:, None, None] ** 2 + qy[None, :, None] ** 2
-    q = np.sqrt(q2 + qz[None, None, :] ** 2, dtype=np.float32)
-    idx = np.searchsorted(edges.astype(np.float32), q, side="right").astype(np.int32) - 1
-    idx[(idx >= len(edges) - 1)] = -1
-    # weight 2 for the modes whose conjugate is not stored by the real FFT
-    w = np.full(qz.size, 2.0, dtype=np.float32)
+def _radial_sums(F, spacing, nz_full, edges, chunk_bytes=64 * 2 ** 20):
+    """Per-bin sums over the modes of a real FFT ``F`` (shape (nx, ny, nz//2+1)): weighted
+    mode counts, Σ|F|² and Σ log|q|. Modes whose conjugate is not stored (0 < kz < nz/2)
+    count twice. Processed in slabs of the first axis (bounded temporary memory); bin
+    indices from ``np.searchsorted`` on the edges (or a closed form for log-spaced
+    edges), sums by ``np.bincount``; modes outside the edges go to an overflow bin."""
+    nx, ny, nzr = F.shape
+    nb = edges.size - 1
+    qx = (2 * np.pi * np.fft.fftfreq(nx, d=spacing[0])).astype(np.float32)
+    qy = (2 * np.pi * np.fft.fftfreq(ny, d=spacing[1])).astype(np.float32)
+    qz = (2 * np.pi * np.fft.rfftfreq(nz_full, d=spacing[2])).astype(np.float32)
+    w = np.full(nzr, 2.0, dtype=np.float32)
     w[0] = 1.0
-    if nz % 2 == 0:
+    if nz_full % 2 == 0:
         w[-1] = 1.0
-    return idx, q, w
+    lr = np.log(edges[1:] / edges[:-1])
+    geometric = np.allclose(lr, lr[0], rtol=1e-9, atol=0) and edges[0] > 0
+    e32 = edges.astype(np.float32)
+    yz2 = qy[:, None] ** 2 + qz[None, :] ** 2
+    cnt = np.zeros(nb + 1)
+    tot = np.zeros(nb + 1)
+    lq = np.zeros(nb + 1)
+    step = max(1, int(chunk_bytes // max(1, ny * nzr * 4)))
+    for i0 in range(0, nx, step):
+        i1 = min(nx, i0 + step)
+        q = np.sqrt(qx[i0:i1, None, None] ** 2 + yz2[None], dtype=np.float32)
+        if geometric:
+            with np.errstate(divide="ignore"):
+                t = (np.log(q) - np.float32(math.log(edges[0]))) * np.float32(1.0 / lr[0])
+            t[~(t >= 0)] = nb  # q = 0 or below the first edge
+            idx = np.minimum(t, nb).astype(np.int32)
+            # guard rounding at the edges against the exact float32 edges
+            lo_e = e32[np.minimum(idx, nb - 1)]
+            idx[(idx < nb) & (q < lo_e)] -= 1
+            hi_e = e32[np.minimum(idx + 1, nb)]
+            idx[(idx < nb) & (q >= hi_e)] += 1
+            idx[(idx < 0) | (idx > nb)] = nb
+        else:
+            idx = np.searchsorted(e32, q, side="right").astype(np.int32) - 1
+            idx[(idx < 0) | (idx >= nb)] = nb
+        idx = idx.ravel()
+        ww = np.broadcast_to(w, q.shape).ravel()
+        f = F[i0:i1]
+        pw = (f.real ** 2 + f.imag ** 2)
+        pw *= w
+        cnt += np.bincount(idx, weights=ww, minlength=nb + 1)
+        tot += np.bincount(idx, weights=pw.ravel(), minlength=nb + 1)
+        with np.errstate(divide="ignore"):
+            lqv = np.log(q)
+        lqv *= w
+        lqv[~np.isfinite(lqv)] = 0.0
+        lq += np.bincount(idx, weights=lqv.ravel(), minlength=nb + 1)
+    return cnt[:nb], tot[:nb], lq[:nb]
 
 
 def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | None = None,
@@ -210,9 +247,6 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
     vol_cm3 = vol_nm3 * NM_TO_CM ** 3
     F = scipy.fft.rfftn(f, workers=workers, overwrite_x=True)
     del f
-    p = np.abs(F)
-    del F
-    p *= p
     q_lo = 2 * np.pi / float(np.max(shape * sp))
     q_hi = np.pi / float(np.max(sp))
     if bins is not None and np.ndim(bins) == 1:
@@ -226,16 +260,8 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
                               field="q_range")
         nb = int(round(40 * math.log10(hi / lo))) if bins is None else int(bins)
         edges = np.geomspace(lo, hi, max(nb, 1) + 1)
-    idx, qmode, wz = _radial_bins(shape_pad, sp, edges)
-    nb = edges.size - 1
-    sel = idx >= 0
-    ib = idx[sel]
-    wsel = np.broadcast_to(wz, idx.shape)[sel]
-    cnt = np.bincount(ib, weights=wsel, minlength=nb)
-    tot = np.bincount(ib, weights=(p[sel] * wsel).astype(np.float64), minlength=nb)
-    lq = np.bincount(ib, weights=(np.log(np.maximum(qmode[sel], 1e-30)) * wsel).astype(np.float64),
-                     minlength=nb)
-    del p, idx, qmode, sel
+    cnt, tot, lq = _radial_sums(F, sp, shape_pad[2], edges)
+    del F
     with np.errstate(invalid="ignore", divide="ignore"):
         inten = tot / cnt * (vox_cm3 ** 2 / vol_cm3 / wnorm)
         qc = np.exp(lq / cnt)
