@@ -31,7 +31,7 @@ DEFAULTS = {
     # J. Phys. Chem. C 117 (2013) 403
     "density": 2.73,
     # pore sizes: thresholds (nm) splitting the gel pores by local thickness
-    "pore_split": (), "intrusion": True,
+    "pore_split": (), "intrusion": False,
     # chords
     "lines": 20000, "seed": 0,
     # two-point correlation: largest block (voxels per side) it is computed on
@@ -252,18 +252,18 @@ def run_chords(ctx: Context):
             notes.append("closed body in a periodic box: exact chords not available")
         else:
             exact = ctx.stage("exact chords", exact_chords, body, int(s["lines"]), s["seed"])
-    solid = ctx.stage("voxel chords", voxel_chords, g, (SOLID,), name="solid")
-    pore = ctx.stage("voxel chords", voxel_chords, g, (INTERLAYER,) + ctx.pore_codes, name="pore")
-    src = exact if exact is not None else None
+    solid = pore = None
+    if exact is None:  # voxel rows only where no exact geometry is given (volumes)
+        solid = ctx.stage("voxel chords", voxel_chords, g, (SOLID,), name="solid")
+        pore = ctx.stage("voxel chords", voxel_chords, g, (INTERLAYER,) + ctx.pore_codes,
+                         name="pore")
     figures = {}
     for ph, vox in (("solid", solid), ("pore", pore)):
-        if src is not None:
-            figures[f"{ph}_mean_nm"] = _finite(src.mean(ph))
-            figures[f"{ph}_mean_all_nm"] = _finite(src.mean(ph, include_cut=True))
-        else:
-            figures[f"{ph}_mean_nm"] = _finite(vox.mean(ph))
-            figures[f"{ph}_mean_all_nm"] = _finite(vox.mean(ph, include_cut=True))
-    figures["source"] = "exact isotropic random lines" if src is not None else "voxel rows (x, y, z)"
+        src = exact if exact is not None else vox
+        figures[f"{ph}_mean_nm"] = _finite(src.mean(ph))
+        figures[f"{ph}_mean_all_nm"] = _finite(src.mean(ph, include_cut=True))
+    figures["source"] = ("exact isotropic random lines" if exact is not None
+                         else "voxel rows (x, y, z)")
     # Cauchy: mean of all chords of a phase = 4 V / S, S its whole boundary (Santaló 1976)
     sur = ctx.results.get("surface")
     if sur is not None:

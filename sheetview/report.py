@@ -282,7 +282,7 @@ def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
             written.append(plot_pore_sizes(pores, out / "pore_sizes.png"))
     ch = results.get("chords")
     if ch is not None:
-        src = ch.parts["exact"] or None
+        src = ch.parts["exact"]
         for ph_name in ("solid", "pore"):
             res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
             if ph_name in res.lengths:

@@ -54,7 +54,7 @@ def test_summary_keys_and_values(stack_file):
 def test_report_folder_has_every_figure(stack_file, tmp_path):
     p, _ = stack_file
     out = tmp_path / "report"
-    r = run(p, "-o", out, "--voxel", "0.15", "--lines", "2000", "-q")
+    r = run(p, "-o", out, "--voxel", "0.15", "--lines", "2000", "-q", "--intrusion")
     assert r.exit_code == 0, r.output
     names = {q.name for q in out.iterdir()}
     for f in ("summary.json", "sections.png", "pore_sizes.png", "chords.png", "s2_solid.png",

@@ -169,7 +169,9 @@ def _print_summary(doc):
 @click.option("--pore-split", default=None, metavar="NM,NM",
               help="Split the gel pores by local thickness at these diameters into gel, "
                    "interhydrate, capillary classes (e.g. 5,20).")
-@click.option("--no-intrusion", is_flag=True, help="Skip the simulated intrusion distribution.")
+@click.option("--intrusion/--no-intrusion", default=False, show_default=True,
+              help="Also compute the simulated intrusion (ink-bottle) pore size distribution; "
+                   "it costs several times the local thickness on large grids.")
 @click.option("--lines", type=int, default=20000, show_default=True,
               help="Isotropic random lines for the exact chords.")
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of the random lines.")
@@ -177,7 +179,7 @@ def _print_summary(doc):
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages on stderr.")
 @read_options
 def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, gap_tol, overlap,
-            tilt_limit, local_radius, frame, density, pore_split, no_intrusion, lines, seed,
+            tilt_limit, local_radius, frame, density, pore_split, intrusion, lines, seed,
             no_plots, quiet, **read_kw):
     """Measure FILE: stacks, orientation order, phase fractions, surfaces, pore sizes,
     chords and the two-point correlation.
@@ -193,7 +195,7 @@ def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, ga
     settings = {"angle_tol": angle_tol, "gap_tol": gap_tol, "overlap": overlap,
                 "tilt_limit": tilt_limit, "local_radius": local_radius, "frame": frame,
                 "voxel": voxel, "max_memory": _parse_size(max_memory), "density": density,
-                "pore_split": _parse_split(pore_split), "intrusion": not no_intrusion,
+                "pore_split": _parse_split(pore_split), "intrusion": intrusion,
                 "lines": lines, "seed": seed}
     # check options before reading (the file's spacing is checked again below)
     try:
