@@ -27,6 +27,7 @@ import math
 import warnings
 from dataclasses import dataclass, field
 
+import numba
 import numpy as np
 
 from ..errors import OptionError
@@ -43,7 +44,7 @@ class ScatteringResult:
 
     Attributes
     ----------
-    q : (n,) bin centres (geometric mean of the bin's q values, nm⁻¹)
+    q : (n,) bin centres: mean |q| of the Fourier modes in the bin (nm⁻¹)
     intensity : (n,) I(q) in cm⁻¹ (mean of |F|²/V over the modes of the bin)
     counts : (n,) number of Fourier modes in each bin
     q_valid : (q_min, q_max) nm⁻¹: 2π / box edge to π / voxel
@@ -97,73 +98,118 @@ def phase_slds(solid: float, fluid: float, *, outside: float | None = None,
 
 
 def _sld_field(labels, sld_by_phase, names):
+    """Lookup table code -> SLD; pore size classes split from the gel (codes > 3) take the
+    gel's SLD unless given. Every code present in ``labels`` must have a value."""
     lut = np.full(256, np.nan, dtype=np.float64)
     for code, v in sld_by_phase.items():
         lut[int(code)] = float(v)
-    present = np.flatnonzero(np.bincount(labels.ravel(), minlength=256))
-    for c in present:
-        if np.isnan(lut[c]):
-            if c in (OUTSIDE, SOLID, INTERLAYER):
-                raise OptionError(f"no SLD given for phase {names.get(c, c)!r}", field="sld")
-            lut[c] = lut[GEL] if not np.isnan(lut[GEL]) else np.nan
-            if np.isnan(lut[c]):
-                raise OptionError(f"no SLD given for phase {names.get(c, c)!r}", field="sld")
+    if not np.isnan(lut[GEL]):
+        extra = np.isnan(lut) & (np.arange(256) > GEL)
+        lut[extra] = lut[GEL]
+    present = np.flatnonzero(_count_codes(labels, max(1, min(labels.shape[0], 8))))
+    missing = [int(c) for c in present if np.isnan(lut[c])]
+    if missing:
+        raise OptionError(f"no SLD given for phase(s) "
+                          f"{', '.join(repr(names.get(c, c)) for c in missing)}", field="sld")
     return lut
 
 
-def _radial_sums(F, spacing, nz_full, edges, chunk_bytes=64 * 2 ** 20):
-    """Per-bin sums over the modes of a real FFT ``F`` (shape (nx, ny, nz//2+1)): weighted
-    mode counts, Σ|F|² and Σ log|q|. Modes whose conjugate is not stored (0 < kz < nz/2)
-    count twice. Processed in slabs of the first axis (bounded temporary memory); bin
-    indices from ``np.searchsorted`` on the edges (or a closed form for log-spaced
-    edges), sums by ``np.bincount``; modes outside the edges go to an overflow bin."""
-    nx, ny, nzr = F.shape
-    nb = edges.size - 1
-    qx = (2 * np.pi * np.fft.fftfreq(nx, d=spacing[0])).astype(np.float32)
-    qy = (2 * np.pi * np.fft.fftfreq(ny, d=spacing[1])).astype(np.float32)
-    qz = (2 * np.pi * np.fft.rfftfreq(nz_full, d=spacing[2])).astype(np.float32)
-    w = np.full(nzr, 2.0, dtype=np.float32)
+@numba.njit(cache=True, parallel=True)
+def _count_codes(labels, nchunks):
+    """Voxel count of each label value 0-255."""
+    nx, ny, nz = labels.shape
+    acc = np.zeros((nchunks, 256), np.int64)
+    step = (nx + nchunks - 1) // nchunks
+    for c in numba.prange(nchunks):
+        for i in range(c * step, min(nx, (c + 1) * step)):
+            for j in range(ny):
+                for k in range(nz):
+                    acc[c, labels[i, j, k]] += 1
+    return acc.sum(axis=0)
+
+
+@numba.njit(cache=True, parallel=True)
+def _fill_field(labels, lut, out):
+    """``out[:nx, :ny, :nz] = lut[labels]`` (the rest of ``out`` untouched)."""
+    nx, ny, nz = labels.shape
+    for i in numba.prange(nx):
+        for j in range(ny):
+            for k in range(nz):
+                out[i, j, k] = lut[labels[i, j, k]]
+
+
+def _mode_axes(shape_full, spacing):
+    """q components (nm⁻¹, float64) of the rfftn modes and the weight of each kz plane
+    (2 for the planes whose conjugate is not stored, 1 for kz = 0 and the Nyquist plane)."""
+    nx, ny, nz = shape_full
+    qx = 2 * np.pi * np.fft.fftfreq(nx, d=spacing[0])
+    qy = 2 * np.pi * np.fft.fftfreq(ny, d=spacing[1])
+    qz = 2 * np.pi * np.fft.rfftfreq(nz, d=spacing[2])
+    w = np.full(qz.size, 2.0)
     w[0] = 1.0
-    if nz_full % 2 == 0:
+    if nz % 2 == 0:
         w[-1] = 1.0
-    lr = np.log(edges[1:] / edges[:-1])
-    geometric = np.allclose(lr, lr[0], rtol=1e-9, atol=0) and edges[0] > 0
-    e32 = edges.astype(np.float32)
-    yz2 = qy[:, None] ** 2 + qz[None, :] ** 2
-    cnt = np.zeros(nb + 1)
-    tot = np.zeros(nb + 1)
-    lq = np.zeros(nb + 1)
-    step = max(1, int(chunk_bytes // max(1, ny * nzr * 4)))
-    for i0 in range(0, nx, step):
-        i1 = min(nx, i0 + step)
-        q = np.sqrt(qx[i0:i1, None, None] ** 2 + yz2[None], dtype=np.float32)
-        if geometric:
-            with np.errstate(divide="ignore"):
-                t = (np.log(q) - np.float32(math.log(edges[0]))) * np.float32(1.0 / lr[0])
-            t[~(t >= 0)] = nb  # q = 0 or below the first edge
-            idx = np.minimum(t, nb).astype(np.int32)
-            # guard rounding at the edges against the exact float32 edges
-            lo_e = e32[np.minimum(idx, nb - 1)]
-            idx[(idx < nb) & (q < lo_e)] -= 1
-            hi_e = e32[np.minimum(idx + 1, nb)]
-            idx[(idx < nb) & (q >= hi_e)] += 1
-            idx[(idx < 0) | (idx > nb)] = nb
-        else:
-            idx = np.searchsorted(e32, q, side="right").astype(np.int32) - 1
-            idx[(idx < 0) | (idx >= nb)] = nb
-        idx = idx.ravel()
-        ww = np.broadcast_to(w, q.shape).ravel()
-        f = F[i0:i1]
-        pw = (f.real ** 2 + f.imag ** 2)
-        pw *= w
-        cnt += np.bincount(idx, weights=ww, minlength=nb + 1)
-        tot += np.bincount(idx, weights=pw.ravel(), minlength=nb + 1)
-        with np.errstate(divide="ignore"):
-            lqv = np.log(q)
-        lqv *= w
-        lqv[~np.isfinite(lqv)] = 0.0
-        lq += np.bincount(idx, weights=lqv.ravel(), minlength=nb + 1)
-    return cnt[:nb], tot[:nb], lq[:nb]
+    return qx, qy, qz, w
+
+
+@numba.njit(cache=True, parallel=True)
+def _radial_kernel(F, qx, qy, qz, w, e2, nchunks):
+    """Per-bin weighted mode counts, Σ w|F|² and Σ w|q| over the modes of a real FFT.
+
+    A mode belongs to bin b when ``e[b] <= |q| < e[b+1]`` (compared as squares). Along
+    each (i, j) row |q| grows with kz, so the bin index only moves forward: no search or
+    logarithm per mode. Rows are split into ``nchunks`` blocks of i with private sums."""
+    nx, ny, nzr = F.shape
+    nb = e2.size - 1
+    acc = np.zeros((nchunks, 3, nb))
+    step = (nx + nchunks - 1) // nchunks
+    for c in numba.prange(nchunks):
+        for i in range(c * step, min(nx, (c + 1) * step)):
+            for j in range(ny):
+                b2 = qx[i] * qx[i] + qy[j] * qy[j]
+                b = np.searchsorted(e2, b2 + qz[0] * qz[0], side="right") - 1
+                for k in range(nzr):
+                    q2 = b2 + qz[k] * qz[k]
+                    while b < nb and q2 >= e2[b + 1]:
+                        b += 1
+                    if b >= nb:
+                        break
+                    if b >= 0:
+                        v = F[i, j, k]
+                        ww = w[k]
+                        acc[c, 0, b] += ww
+                        acc[c, 1, b] += ww * (v.real * v.real + v.imag * v.imag)
+                        acc[c, 2, b] += ww * math.sqrt(q2)
+    out = np.zeros((3, nb))
+    for c in range(nchunks):
+        out += acc[c]
+    return out[0], out[1], out[2]
+
+
+def _radial_sums(F, spacing, nz_full, edges):
+    """Numba path: see :func:`_radial_kernel`."""
+    qx, qy, qz, w = _mode_axes((F.shape[0], F.shape[1], nz_full), spacing)
+    e2 = np.asarray(edges, dtype=np.float64) ** 2
+    nchunks = max(1, min(F.shape[0], 4 * numba.get_num_threads()))
+    return _radial_kernel(F, qx, qy, qz, w, e2, nchunks)
+
+
+def _radial_sums_numpy(F, spacing, nz_full, edges):
+    """Pure-numpy reference of :func:`_radial_sums` (whole arrays, searchsorted and
+    bincount), for tests."""
+    qx, qy, qz, w = _mode_axes((F.shape[0], F.shape[1], nz_full), spacing)
+    e2 = np.asarray(edges, dtype=np.float64) ** 2
+    nb = e2.size - 1
+    q2 = qx[:, None, None] ** 2 + qy[None, :, None] ** 2 + qz[None, None, :] ** 2
+    idx = np.searchsorted(e2, q2, side="right") - 1
+    idx[(idx < 0) | (idx >= nb)] = nb
+    ww = np.broadcast_to(w, q2.shape).ravel()
+    p = (np.abs(F.astype(np.complex128)) ** 2).ravel() * ww
+    idx = idx.ravel()
+    cnt = np.bincount(idx, weights=ww, minlength=nb + 1)[:nb]
+    tot = np.bincount(idx, weights=p, minlength=nb + 1)[:nb]
+    qs = np.bincount(idx, weights=np.sqrt(q2).ravel() * ww, minlength=nb + 1)[:nb]
+    return cnt, tot, qs
 
 
 def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | None = None,
@@ -199,8 +245,10 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
     -----
     :math:`I(q) = |v\\,\\mathrm{FFT}(\\Delta\\rho)|^2 / V` with :math:`\\Delta\\rho` in cm⁻²,
     the voxel volume ``v`` and ``V`` in cm³, averaged over the modes in each q shell
-    (np.bincount over precomputed bin indices). The field is float32 and the transform a
-    single-precision real FFT (scipy.fft.rfftn).
+    (a numba kernel walking each row of modes; pure-numpy reference
+    ``_radial_sums_numpy``). The field is float32 and the transform a single-precision
+    real FFT (scipy.fft.rfftn). Bin ``b`` holds the modes with ``e_b <= |q| < e_{b+1}``;
+    its q is the mean |q| of its modes.
     """
     import scipy.fft
 
@@ -212,9 +260,10 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
     for k, v in sld_by_phase.items():
         codes[_phase_code(k, names)] = float(v)
     lut = _sld_field(labels, codes, names)
-    ref = codes.get(OUTSIDE, lut[OUTSIDE])
+    ref = codes.get(OUTSIDE, codes.get(GEL, float("nan")))
     if np.isnan(ref):
-        raise OptionError("no SLD given for the outside phase", field="sld")
+        raise OptionError("no SLD given for the outside phase or the gel-pore fluid (the "
+                          "contrast reference)", field="sld")
     lut_c = ((lut - ref) * SLD_UNIT_CM2).astype(np.float32)  # contrast in cm^-2
     periodic = bool(grid.periodic)
     pad = 1 if periodic else int(pad)
@@ -222,11 +271,8 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
         raise OptionError(f"pad must be a whole number >= 1, got {pad!r}", field="pad")
     shape = np.asarray(labels.shape)
     shape_pad = tuple(int(n * pad) for n in shape)
-    if pad == 1:
-        f = np.take(lut_c, labels)
-    else:
-        f = np.zeros(shape_pad, dtype=np.float32)
-        f[:shape[0], :shape[1], :shape[2]] = np.take(lut_c, labels)
+    f = np.empty(shape_pad, dtype=np.float32) if pad == 1 else np.zeros(shape_pad, np.float32)
+    _fill_field(labels, lut_c, f)
     notes = []
     wnorm = 1.0
     if window is not None:
@@ -260,11 +306,11 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
                               field="q_range")
         nb = int(round(40 * math.log10(hi / lo))) if bins is None else int(bins)
         edges = np.geomspace(lo, hi, max(nb, 1) + 1)
-    cnt, tot, lq = _radial_sums(F, sp, shape_pad[2], edges)
+    cnt, tot, qsum = _radial_sums(F, sp, shape_pad[2], edges)
     del F
     with np.errstate(invalid="ignore", divide="ignore"):
         inten = tot / cnt * (vox_cm3 ** 2 / vol_cm3 / wnorm)
-        qc = np.exp(lq / cnt)
+        qc = qsum / cnt
     keep = cnt > 0
     sld_named = {names.get(c, str(c)): float(v) for c, v in codes.items()}
     solid = codes.get(SOLID, float("nan"))
