@@ -160,12 +160,13 @@ def test_scatter_cli(tmp_path):
     r = CliRunner().invoke(main, ["scatter", SAMPLE, "--voxel", "0.25", "--csv",
                                   str(tmp_path / "c.csv"), "-o", str(tmp_path / "c.png"),
                                   "--json", str(tmp_path / "c.json"), "--compare", str(exp),
-                                  "--probe", "xray"])
+                                  "--probe", "xray", "--slope", "1:5"])
     assert r.exit_code == 0, r.output
     lines = [ln for ln in (tmp_path / "c.csv").read_text().splitlines() if not ln.startswith("#")]
     assert lines[0] == "q_nm-1,intensity_cm-1"
     d = json.loads((tmp_path / "c.json").read_text())
     assert d["comparison"]["q_unit"] == "Å^-1"
+    assert d["features"]["slope_1-5"]["slope"] < 0
     assert d["curve"]["sld_1e-6_A-2"]["solid"] == pytest.approx(22.49, rel=1e-3)
     assert (tmp_path / "c.png").stat().st_size > 1000
     # existing outputs are refused without --force, cleanly

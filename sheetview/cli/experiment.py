@@ -307,6 +307,9 @@ def _solid_sld(formula, density, probe):
               help="Plot (PNG).")
 @click.option("--json", "json_out", type=click.Path(dir_okay=False), default=None,
               help="Features (slopes, Porod, Guinier, invariant, peaks, fit) as JSON.")
+@click.option("--slope", "slopes", multiple=True, metavar="QMIN:QMAX",
+              help="Power-law slope over this q range (nm^-1); repeatable. Default: the "
+                   "lowest and highest half decade of the valid range.")
 @click.option("--compare", type=click.Path(exists=True, dir_okay=False), default=None,
               help="Experimental curve (q, I[, error]) to fit scale and background to.")
 @click.option("--q-unit", type=click.Choice(["nm", "A"]), default=None,
@@ -314,12 +317,14 @@ def _solid_sld(formula, density, probe):
 @click.option("--columns", default=None, help="Columns of --compare: Q,I[,ERR] (numbers or names).")
 @click.option("--force", is_flag=True, help="Overwrite existing outputs.")
 def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlayer_contrast, pad,
-            window, csv_out, plot_out, json_out, compare, q_unit, columns, force, **read_kw):
+            window, csv_out, plot_out, json_out, slopes, compare, q_unit, columns, force,
+            **read_kw):
     """Predicted small-angle scattering curve I(q) (cm^-1) of FILE."""
     from ..measures.scattering import (bragg_peaks, compare_curve, guinier, invariant,
                                        phase_slds, porod, power_law, scattering_curve)
     from ..sld import preset_sld
     _check_outputs([csv_out, plot_out, json_out], force)
+    ranges = [_parse_range(t) for t in slopes]
     exp = read_experimental(compare, "scattering", q_unit, columns) if compare else None
     for w in (exp.warnings if exp else []):
         click.echo(f"sheetview: warning: {w}", err=True)
@@ -342,6 +347,11 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
             feats[name] = fn().to_dict()
         except OptionError as e:
             feats[name] = {"error": e.detail}
+    for a, b in ranges:
+        try:
+            feats[f"slope_{a:g}-{b:g}"] = power_law(res, (a, b)).to_dict()
+        except OptionError as e:
+            feats[f"slope_{a:g}-{b:g}"] = {"error": e.detail}
     doc["features"] = feats
     cmp_ = compare_curve(res, exp.x, exp.y, exp.sigma, source=compare) if exp else None
     if cmp_ is not None:
@@ -363,6 +373,16 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     if cmp_ is not None:
         click.echo(f"fit to {compare}: scale {cmp_.scale:.4g}, background {cmp_.background:.4g} "
                    f"cm^-1, reduced chi2 {cmp_.chi2_reduced:.4g} ({cmp_.weighting})")
+
+
+def _parse_range(text):
+    try:
+        a, b = (float(x) for x in str(text).split(":"))
+    except ValueError:
+        raise OptionError(f"--slope: expected QMIN:QMAX in nm^-1, got {text!r}") from None
+    if not (0 < a < b and math.isfinite(b)):
+        raise OptionError(f"--slope: need 0 < QMIN < QMAX, got {text!r}")
+    return a, b
 
 
 def _solid_fraction(grid):

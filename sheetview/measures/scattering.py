@@ -24,7 +24,6 @@ specific surface it implies (Porod, Kolloid-Z. 124 (1951) 83), the Guinier radiu
 from __future__ import annotations
 
 import math
-import warnings
 from dataclasses import dataclass, field
 
 import numba
