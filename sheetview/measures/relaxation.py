@@ -29,7 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import OptionError
-from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID
+from ..grid import INTERLAYER, OUTSIDE, SOLID
 
 #: Surface relaxivity (nm/µs), McDonald et al. 2005 (from memory, low confidence).
 DEFAULT_RHO2_NM_PER_US = 3.7e-3
