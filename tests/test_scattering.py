@@ -204,3 +204,11 @@ def test_radial_kernel_matches_numpy_reference():
             b = _radial_sums_numpy(F, sp, shape[2], edges)
             for x, y in zip(a, b):
                 assert np.allclose(x, y, rtol=1e-6, atol=1e-9)  # float32 |F|^2
+
+
+def test_memory_limit_refused_clearly():
+    from sheetview.errors import MemoryLimitError
+    g = PhaseGrid(np.ones((32, 32, 32), np.uint8), 0.5)
+    with pytest.raises(MemoryLimitError, match="--pad 1"):
+        scattering_curve(g, {0: 0.0, 1: 1.0}, pad=2, max_memory=10 * 32 ** 3)
+    scattering_curve(g, {0: 0.0, 1: 1.0}, pad=1, max_memory=13 * 32 ** 3)

@@ -315,10 +315,13 @@ def _solid_sld(formula, density, probe):
 @click.option("--q-unit", type=click.Choice(["nm", "A"]), default=None,
               help="Unit of q in --compare when its header does not say.")
 @click.option("--columns", default=None, help="Columns of --compare: Q,I[,ERR] (numbers or names).")
+@click.option("--max-memory", default=None, metavar="SIZE",
+              help="Memory allowed for the grid and transform, e.g. 8G (default half the "
+                   "available memory).")
 @click.option("--force", is_flag=True, help="Overwrite existing outputs.")
 def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlayer_contrast, pad,
-            window, csv_out, plot_out, json_out, slopes, compare, q_unit, columns, force,
-            **read_kw):
+            window, csv_out, plot_out, json_out, slopes, compare, q_unit, columns, max_memory,
+            force, **read_kw):
     """Predicted small-angle scattering curve I(q) (cm^-1) of FILE."""
     from ..measures.scattering import (bragg_peaks, compare_curve, guinier, invariant,
                                        phase_slds, porod, power_law, scattering_curve)
@@ -328,12 +331,15 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     exp = read_experimental(compare, "scattering", q_unit, columns) if compare else None
     for w in (exp.warnings if exp else []):
         click.echo(f"sheetview: warning: {w}", err=True)
+    from .measure import _parse_size
+    mem = _parse_size(max_memory)
     obj = load(file, **read_kw)
-    _, grid = _grid_of(obj, voxel)
+    _, grid = _grid_of(obj, voxel, mem)
     s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe)
     f_sld = preset_sld(fluid, probe)
     slds = phase_slds(s_sld, f_sld, interlayer_contrast=not no_interlayer_contrast)
-    res = scattering_curve(grid, slds, pad=pad, window=None if window == "none" else window)
+    res = scattering_curve(grid, slds, pad=pad, window=None if window == "none" else window,
+                           max_memory=mem)
     doc = {"file": str(file), "probe": probe, "solid": s_desc, "fluid": fluid,
            "interlayer_contrast": not no_interlayer_contrast, "curve": res.to_dict()}
     feats = {}
@@ -443,9 +449,12 @@ def _plot_scatter(res, cmp_, notes, path, force):
 @click.option("--t2-unit", type=click.Choice(["s", "ms", "us"]), default=None,
               help="Unit of T2 in --compare when its header does not say.")
 @click.option("--columns", default=None, help="Columns of --compare: T2,AMPLITUDE.")
+@click.option("--max-memory", default=None, metavar="SIZE",
+              help="Memory allowed for the grid and transform, e.g. 8G (default half the "
+                   "available memory).")
 @click.option("--force", is_flag=True, help="Overwrite existing outputs.")
 def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out, json_out,
-          compare, t2_unit, columns, force, **read_kw):
+          compare, t2_unit, columns, max_memory, force, **read_kw):
     """Predicted NMR T2 distribution of the pore water of FILE (fast exchange)."""
     from ..measures.relaxation import (DEFAULT_RHO2_NM_PER_US, DEFAULT_T2_BULK_S, compare_t2,
                                        relaxation_spectrum)
@@ -461,8 +470,9 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
         t2_bulk = None
     elif t2_bulk < 0:
         raise OptionError(f"--t2-bulk must be positive (or 0 for no bulk term), got {t2_bulk}")
+    from .measure import _parse_size
     obj = load(file, **read_kw)
-    ctx, grid = _grid_of(obj, voxel)
+    ctx, grid = _grid_of(obj, voxel, _parse_size(max_memory))
     if interlayer_width is None and isinstance(obj, Structure):
         gap = float(obj.spacing) - float(np.median(obj.thickness))
         if gap > 0:

@@ -211,8 +211,19 @@ def _radial_sums_numpy(F, spacing, nz_full, edges):
     return cnt, tot, qs
 
 
+#: Bytes per padded voxel of the transform: the float32 field (4) and the complex64 half
+#: spectrum (8 per stored mode, about half the voxels: 4), plus FFT work space (about 4).
+FFT_BYTES_PER_VOXEL = 12
+
+
+def fft_bytes(shape, pad: int = 1) -> int:
+    """Estimated peak bytes of :func:`scattering_curve` on a grid of ``shape``."""
+    return int(np.prod(np.asarray(shape, dtype=np.int64) * int(pad))) * FFT_BYTES_PER_VOXEL
+
+
 def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | None = None,
-                     bins=None, q_range=None, workers: int = 2) -> ScatteringResult:
+                     bins=None, q_range=None, workers: int = 2,
+                     max_memory: int | None = None) -> ScatteringResult:
     """Predicted small-angle scattering I(q) (cm⁻¹) of a phase grid.
 
     Parameters
@@ -235,6 +246,10 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
         Range of the log-spaced bins (default the valid range).
     workers : int
         Threads of the FFT.
+    max_memory : int, optional
+        Bytes allowed for the transform (default half the available memory); above it a
+        :class:`~sheetview.errors.MemoryLimitError` names the padding or voxel size that
+        would fit (estimate: :data:`FFT_BYTES_PER_VOXEL` per padded voxel).
 
     Returns
     -------
@@ -270,6 +285,19 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
         raise OptionError(f"pad must be a whole number >= 1, got {pad!r}", field="pad")
     shape = np.asarray(labels.shape)
     shape_pad = tuple(int(n * pad) for n in shape)
+    from ..grid import available_memory
+    limit = available_memory() // 2 if max_memory is None else int(max_memory)
+    need = fft_bytes(shape, pad)
+    if need > limit:
+        from ..errors import MemoryLimitError
+        hint = (f"; --pad 1 would need {fft_bytes(shape, 1) / 2**30:.2f} GiB"
+                if pad > 1 else "")
+        coarser = float(np.max(sp)) * (need / max(limit, 1)) ** (1 / 3) * 1.01
+        raise MemoryLimitError(
+            f"the scattering transform of a {shape_pad[0]} x {shape_pad[1]} x {shape_pad[2]} "
+            f"padded grid needs about {need / 2**30:.2f} GiB, over the limit of "
+            f"{limit / 2**30:.2f} GiB{hint}; a voxel size of {coarser:.3g} nm would fit",
+            field="voxel_size")
     f = np.empty(shape_pad, dtype=np.float32) if pad == 1 else np.zeros(shape_pad, np.float32)
     _fill_field(labels, lut_c, f)
     notes = []
