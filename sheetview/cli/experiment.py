@@ -396,7 +396,7 @@ def _solid_fraction(grid):
     return float(np.count_nonzero(grid.labels == SOLID) / grid.labels.size)
 
 
-def _wrap(notes, width=150):
+def _wrap(notes, width=115):
     import textwrap
     return "\n".join(textwrap.fill(n, width) for n in notes)
 
@@ -416,6 +416,8 @@ def _plot_scatter(res, cmp_, notes, path, force):
         ax.loglog(cmp_.q, cmp_.experiment, "o", ms=3, color="C3", label="experiment")
         ax.loglog(cmp_.q, cmp_.model_fitted, "-", color="k", lw=1,
                   label=f"scale {cmp_.scale:.3g} x model + {cmp_.background:.3g}")
+    from matplotlib.ticker import NullFormatter
+    ax.xaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel("q (nm$^{-1}$)")
     ax.set_ylabel("I(q) (cm$^{-1}$)")
     ax.legend(fontsize=8)
