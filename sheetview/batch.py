@@ -37,7 +37,7 @@ import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .errors import OptionError, SheetviewError
+from .errors import OptionError, OutputExistsError, SheetviewError
 from .io.output import atomic_path
 
 #: Scalar headline keys shown first in the HTML pages.
@@ -155,8 +155,14 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         doc = summary_document(path, obj, ctx, settings)
         doc["input_metadata"] = dict(getattr(obj, "metadata", {}) or {})
         t1 = time.perf_counter()
-        write_report(out_folder, doc, ctx.results, force=False, plots=plots,
-                     grid=ctx.__dict__.get("grid"))
+        try:
+            write_report(out_folder, doc, ctx.results, force=False, plots=plots,
+                         grid=ctx.__dict__.get("grid"))
+        except (OutputExistsError, OSError):
+            # another process (a worker of a killed run) finished the same key meanwhile:
+            # same content and settings, so its result stands
+            if not (Path(out_folder) / "summary.json").is_file():
+                raise
         t2 = time.perf_counter()
         return {"status": "ok", "error": None, "seconds": t1 - t0, "write_seconds": t2 - t1}
     except SheetviewError as e:
@@ -186,10 +192,27 @@ def _get_threads():
         return None
 
 
-def _worker_init(n_threads: int) -> None:
+def _worker_init(n_threads: int, batch_pid: int | None = None) -> None:
     for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ.setdefault(var, str(n_threads))
     _set_threads(n_threads)
+    if batch_pid:
+        import threading
+        threading.Thread(target=_watch_parent, args=(batch_pid,), daemon=True).start()
+
+
+def _watch_parent(pid: int, interval: float = 0.2) -> None:
+    """End this worker when the batch process is gone (killed): an orphan would go on
+    measuring for nobody. Its unfinished report is a hidden ``.part`` folder that the
+    next run removes."""
+    while True:
+        time.sleep(interval)
+        try:
+            os.kill(pid, 0)
+        except ProcessLookupError:
+            os._exit(3)
+        except PermissionError:
+            pass
 
 
 # ------------------------------------------------------------------ the batch
@@ -378,7 +401,7 @@ def _run_pool(todo, args, finished, workers, ncpu, threads=None):
     except ValueError:
         mpctx = mp.get_context("spawn")
     with ProcessPoolExecutor(workers, mp_context=mpctx, initializer=_worker_init,
-                             initargs=(threads,)) as ex:
+                             initargs=(threads, os.getpid())) as ex:
         futs = {ex.submit(measure_one, *args(j, threads)): j for j in todo}
         try:
             for f in as_completed(futs):

@@ -55,6 +55,34 @@ def reference(inputs, tmp_path_factory):
     return out
 
 
+def descendants(pid):
+    """Process ids below ``pid`` (Linux /proc)."""
+    kids = {}
+    for d in os.listdir("/proc"):
+        if d.isdigit():
+            try:
+                with open(f"/proc/{d}/stat") as fh:
+                    ppid = int(fh.read().rsplit(")", 1)[1].split()[1])
+            except (OSError, IndexError, ValueError):
+                continue
+            kids.setdefault(ppid, []).append(int(d))
+    out, todo = [], [pid]
+    while todo:
+        q = todo.pop()
+        for c in kids.get(q, []):
+            out.append(c)
+            todo.append(c)
+    return out
+
+
+def zombie(pid):
+    try:
+        with open(f"/proc/{pid}/stat") as fh:
+            return fh.read().rsplit(")", 1)[1].split()[0] == "Z"
+    except OSError:
+        return True
+
+
 def comparable(cols):
     return {k: v for k, v in cols.items() if not k.startswith("timings_s")}
 
@@ -104,24 +132,36 @@ def test_failed_input_recorded_and_others_finish(inputs, tmp_path):
     assert len(failed) == 1 and "bad.csv" in json.loads(failed[0].read_text())["error"]
 
 
-def test_kill_and_resume(inputs, reference, tmp_path):
-    """SIGKILL after the first result: no result folder is incomplete, a rerun finishes
-    the others and the summary equals that of an uninterrupted run."""
+@pytest.mark.parametrize("workers", [1, 2])
+def test_kill_and_resume(inputs, reference, tmp_path, workers):
+    """SIGKILL after the first result (in-process and with a worker pool): no result
+    folder is incomplete, a rerun finishes the others and the summary equals that of an
+    uninterrupted run."""
     d, paths, _ = inputs
     out = tmp_path / "out"
-    cmd = [sys.executable, "-m", "sheetview", "batch", str(d / "s*.csv"), "-o", str(out), *FAST]
+    cmd = [sys.executable, "-m", "sheetview", "batch", str(d / "s*.csv"), "-o", str(out),
+           "--workers", str(workers), *FAST]
     p = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
     t0 = time.time()
     while time.time() - t0 < 60 and p.poll() is None:
         if [f for f in out.glob("runs/*/summary.json") if not f.parent.name.startswith(".")]:
             break
         time.sleep(0.01)
+    family = descendants(p.pid)
     p.send_signal(signal.SIGKILL)
     p.wait()
     done = [f for f in (out / "runs").iterdir() if not f.name.startswith(".")]
     assert 1 <= len(done) < 3  # killed mid-way
-    assert all((f / "summary.json").is_file() for f in done)
     assert not (out / "summary.csv").exists()
+    # the pool's workers notice that the batch is gone and stop (no orphan goes on)
+    t0 = time.time()
+    while time.time() - t0 < 20 and any(os.path.exists(f"/proc/{q}") and not zombie(q)
+                                        for q in family):
+        time.sleep(0.05)
+    assert not [q for q in family if os.path.exists(f"/proc/{q}") and not zombie(q)]
+    # (a worker may have finished the structure it had in hand: a complete result)
+    done = [f for f in (out / "runs").iterdir() if not f.name.startswith(".")]
+    assert all((f / "summary.json").is_file() for f in done)
     r = batch(d / "s*.csv", "-o", out, *FAST)
     assert r.exit_code == 0, r.output
     assert f"{3 - len(done)} measured, {len(done)} finished before" in r.output
