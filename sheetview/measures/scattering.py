@@ -236,9 +236,11 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
         Zero-padding factor per axis for non-periodic grids (finer q sampling, no
         wrap-around). Periodic grids are never padded.
     window : None or 'hann'
-        Optional Hann taper of the contrast field (reduces truncation ripples of a
-        structure cut by the box; changes the absolute scale by the window's mean square,
-        which is divided out).
+        Optional Hann taper (separable, per axis) of the contrast field after removing its
+        mean: the faces where the box cuts the structure no longer scatter as interfaces
+        (truncation ripples and a spurious Porod term vanish). The intensity is divided by
+        the window's mean square so that the scale stays per unit volume; low-q bins then
+        describe the windowed sample and the forward spike is gone.
     bins : int or array, optional
         Number of log-spaced bins over the valid range (default 40 per decade), or the
         bin edges (nm⁻¹).
@@ -305,16 +307,16 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
     if window is not None:
         if str(window).lower() != "hann":
             raise OptionError(f"window must be None or 'hann', got {window!r}", field="window")
-        w3 = None
+        sub = f[:shape[0], :shape[1], :shape[2]]
+        sub -= np.float32(sub.mean(dtype=np.float64))
         for a, n in enumerate(shape):
             wa = np.hanning(n + 2)[1:-1].astype(np.float32)
             sh = [1, 1, 1]
             sh[a] = n
-            wa = wa.reshape(sh)
-            w3 = wa if w3 is None else w3 * wa
-        f[:shape[0], :shape[1], :shape[2]] *= w3
-        wnorm = float(np.mean(w3.astype(np.float64) ** 2))
-        notes.append("Hann window applied; intensity divided by the window's mean square")
+            sub *= wa.reshape(sh)
+            wnorm *= float(np.mean(wa.astype(np.float64) ** 2))
+        notes.append("mean contrast removed and Hann window applied; intensity divided by "
+                     "the window's mean square")
     vox_cm3 = float(np.prod(sp)) * NM_TO_CM ** 3
     vol_nm3 = float(np.prod(shape * sp))
     vol_cm3 = vol_nm3 * NM_TO_CM ** 3
