@@ -154,6 +154,8 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         ctx = measures.run(selected, obj, settings)
         doc = summary_document(path, obj, ctx, settings)
         doc["input_metadata"] = dict(getattr(obj, "metadata", {}) or {})
+        if read_kw:
+            doc["read_options"] = dict(read_kw)
         t1 = time.perf_counter()
         try:
             write_report(out_folder, doc, ctx.results, force=False, plots=plots,
@@ -491,7 +493,8 @@ def _scalar(v) -> bool:
 
 def row_of(rec: dict, doc: dict | None) -> dict:
     """One summary row: input path, status, error, then the flattened summary document
-    (``input_metadata.*`` holds the file's header metadata, ``settings.*`` the settings).
+    (``input_metadata.*`` holds the file's header metadata, ``settings.*`` the settings,
+    ``read_options.*`` reading options given on the command line).
     Timings are left out so reruns give equal rows."""
     row = {"input": rec["path"], "status": "failed" if rec["status"] == "failed" else "ok",
            "error": rec["error"] or "", "result": f"runs/{rec['name']}" if doc else ""}
