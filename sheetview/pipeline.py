@@ -225,18 +225,20 @@ def run_pores(ctx: Context):
         return Bundle({"local_thickness": None, "intrusion": None},
                       notes=["no gel pore space: pore sizes undefined"])
     lt = ctx.pore_thickness
-    mask = ~np.isnan(lt)
-    lt_res = size_distribution(lt, voxel_size=g.spacing, method="local_thickness", phases=names)
+    lt_res = ctx.stage("pore size distribution", size_distribution, lt, voxel_size=g.spacing,
+                       method="local_thickness", phases=names)
     parts = {"local_thickness": lt_res, "intrusion": None}
     notes = []
     if ctx.settings["intrusion"]:
         if g.periodic:
             notes.append("periodic box: no reservoir at the boundary, so no intrusion distribution")
         else:
+            mask = ~np.isnan(lt)
             res = default_reservoir(mask, outside=g.labels == OUTSIDE)
             d = ctx.stage("intrusion", intrusion_diameter, mask, g.spacing, res)
-            parts["intrusion"] = size_distribution(d, voxel_size=g.spacing, method="intrusion",
-                                                   phases=names)
+            parts["intrusion"] = ctx.stage("pore size distribution", size_distribution, d,
+                                           voxel_size=g.spacing, method="intrusion",
+                                           phases=names)
     return Bundle(parts, notes=notes)
 
 
@@ -273,8 +275,11 @@ def run_chords(ctx: Context):
         vp = sum(v for k, v in vols.items() if k != "solid")
         a_sp = sur.figures["solid_void_area_nm2"]
         a_so = a.get("solid-outside", 0.0)
-        from .measures.surface import interface_area
-        a_po = interface_area(g, (INTERLAYER,) + ctx.pore_codes, (OUTSIDE,)) if not g.periodic else 0.0
+        from .measures.surface import interface_areas_with
+        a_po = 0.0
+        if not g.periodic:
+            with_outside = ctx.stage("Cauchy figures", interface_areas_with, g, OUTSIDE)
+            a_po = float(sum(with_outside[c] for c in (INTERLAYER,) + ctx.pore_codes))
         figures["cauchy_solid_4v_over_s_nm"] = _finite(4 * vs / (a_sp + a_so)) if a_sp + a_so else None
         figures["cauchy_pore_4v_over_s_nm"] = _finite(4 * vp / (a_sp + a_po)) if a_sp + a_po else None
     parts = {"exact": exact, "voxel_solid": solid, "voxel_pore": pore}

@@ -133,3 +133,17 @@ def test_numba_kernels_equal_the_numpy_forms(periodic, seed):
                     * g.voxel_volume / np.linalg.norm(dv)
                     for d, dv, wv in zip(sf.DIRECTIONS_13, vec, w))
     assert sf.interface_area(g, [1], [2, 3]) == pytest.approx(ref, rel=1e-12)
+
+
+@pytest.mark.parametrize("periodic", [False, True])
+def test_one_pass_interface_table_equals_pairwise_areas(periodic):
+    """interface_areas_with(a) gives, for every label, exactly interface_area(grid, [a], [L])."""
+    from sheetview.grid import PhaseGrid
+    from sheetview.measures import surface as sf
+    rng = np.random.default_rng(3)
+    g = PhaseGrid(rng.integers(0, 5, (9, 10, 11)).astype(np.uint8), (0.4, 0.5, 0.45),
+                  periodic=periodic)
+    table = sf.interface_areas_with(g, 1)
+    for L in (0, 2, 3, 4):
+        assert table[L] == pytest.approx(sf.interface_area(g, [1], [L]), rel=1e-12)
+    assert table[1] == 0.0

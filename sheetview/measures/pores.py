@@ -1301,7 +1301,12 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
     else:
         q = np.full(3, np.nan)
         mean = float("nan")
-    below = np.searchsorted(np.sort(vals), edges, side="left") / total
+    # below[k] = #(vals < edges[k]) from the histogram counts (bins are [e_k, e_k+1), the
+    # last one closed), without sorting the values
+    below = np.concatenate([[0], np.cumsum(counts)]).astype(np.float64)
+    below += np.count_nonzero(vals < edges[0])
+    below[-1] -= np.count_nonzero(vals == edges[-1])
+    below /= total
     return PoreSizeResult(
         method=method, phases=tuple(phases), diameter=d, bin_edges=edges,
         volume_fraction=frac, density=frac / width,
