@@ -4,7 +4,8 @@ own overhead per structure (hashing, summary tables, HTML pages) against its mea
 Targets (issue: batch morphometry): 2 workers >= 1.7x the throughput of 1 worker; overhead
 per structure < 5% of its measure time. The structures are invented benchmark inputs
 (:func:`sheetview.synth.pack_stacks`, 40 stacks of 3 layers of 5 nm in a 24 nm box, about
-3,500 prisms each), measured at 0.2 nm voxels (120^3 grid) with all measures.
+3,500 prisms each), measured at 0.2 nm voxels (120^3 grid) with all default measures (intrusion off, as in
+`measure`; the figures in docs/batch.md were taken with intrusion on).
 
     .venv/bin/python benchmarks/bench_batch.py
     .venv/bin/python benchmarks/bench_batch.py --n 8 --voxel 0.2 --no-plots
@@ -48,7 +49,7 @@ def main():
     from sheetview.batch import plan, run_batch, write_pages, write_tables
     paths = make_inputs(a.n)
     settings = {"voxel": a.voxel, "max_memory": None, "density": 2.73, "pore_split": [],
-                "intrusion": True, "lines": 20000, "seed": 0}
+                "intrusion": False, "lines": 20000, "seed": 0}
     # warm the numba cache in this process (the spawned workers load it from disk)
     run_batch([paths[0]], DATA / "warm", settings, plots=False, quiet=True)
     shutil.rmtree(DATA / "warm")

@@ -218,7 +218,7 @@ def test_dask_cluster_same_numbers(inputs, reference, tmp_path):
     from sheetview.batch import run_batch
     from sheetview.cli.batch import batch_settings
     out2 = tmp_path / "out2"
-    res = run_batch([str(d / "s1.csv")], out2, batch_settings(0.3, None, 300, 0, True, 2.73, None),
+    res = run_batch([str(d / "s1.csv")], out2, batch_settings(0.3, None, 300, 0, False, 2.73, None),
                     plots=False, html_pages=False, quiet=True, cluster="local",
                     dask_options={"processes": False, "n_workers": 1})
     assert res.n_done == 1 and res.n_failed == 0

@@ -11,7 +11,7 @@ from .common import read_options
 from .measure import _parse_size, _parse_split
 
 
-def batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_split) -> dict:
+def batch_settings(voxel, max_memory, lines, seed, intrusion, density, pore_split) -> dict:
     """The measure settings of a batch, checked like ``sheetview measure`` does."""
     if voxel is not None and not (math.isfinite(voxel) and voxel >= 0.01):
         raise OptionError(f"--voxel: must be at least 0.01 nm, got {voxel}")
@@ -20,7 +20,7 @@ def batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_s
     if lines < 1 or lines > 10_000_000:
         raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
     return {"voxel": voxel, "max_memory": _parse_size(max_memory), "density": density,
-            "pore_split": list(_parse_split(pore_split)), "intrusion": not no_intrusion,
+            "pore_split": list(_parse_split(pore_split)), "intrusion": bool(intrusion),
             "lines": lines, "seed": seed}
 
 
@@ -38,7 +38,9 @@ def batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_s
 @click.option("--lines", type=int, default=20000, show_default=True,
               help="Isotropic random lines for the exact chords.")
 @click.option("--seed", type=int, default=0, show_default=True, help="Seed of the random lines.")
-@click.option("--no-intrusion", is_flag=True, help="Skip the simulated intrusion distribution.")
+@click.option("--intrusion/--no-intrusion", default=False, show_default=True,
+              help="Also compute the simulated intrusion pore size distribution (as in "
+                   "`measure`).")
 @click.option("--density", type=float, default=2.73, show_default=True, metavar="G/CM3",
               help="Solid density for the specific surface per mass.")
 @click.option("--pore-split", default=None, metavar="NM,NM",
@@ -56,7 +58,7 @@ def batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_s
 @click.option("--no-html", is_flag=True, help="No HTML pages (report.html, index.html).")
 @click.option("-q", "--quiet", is_flag=True, help="No progress on stderr (the log is kept).")
 @read_options
-def batch(inputs, out, only, voxel, max_memory, lines, seed, no_intrusion, density, pore_split,
+def batch(inputs, out, only, voxel, max_memory, lines, seed, intrusion, density, pore_split,
           workers, threads, cluster, no_plots, no_html, quiet, **read_kw):
     """Measure every structure of PATHS_OR_GLOBS... with the same settings into OUT.
 
@@ -71,7 +73,7 @@ def batch(inputs, out, only, voxel, max_memory, lines, seed, no_intrusion, densi
     failed, 2 for a usage error (bad option, unwritable OUT).
     """
     from ..batch import run_batch
-    settings = batch_settings(voxel, max_memory, lines, seed, no_intrusion, density, pore_split)
+    settings = batch_settings(voxel, max_memory, lines, seed, intrusion, density, pore_split)
     if workers < 1:
         raise OptionError(f"--workers: must be at least 1, got {workers}")
     if threads is not None and threads < 1:
