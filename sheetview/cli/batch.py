@@ -8,7 +8,7 @@ import click
 
 from ..errors import OptionError
 from .common import read_options
-from .measure import _parse_size, _parse_split
+from .common import parse_size, parse_split
 
 
 def batch_settings(voxel, max_memory, lines, seed, intrusion, density, pore_split) -> dict:
@@ -19,8 +19,8 @@ def batch_settings(voxel, max_memory, lines, seed, intrusion, density, pore_spli
         raise OptionError(f"--density: must be a positive number of g/cm^3, got {density}")
     if lines < 1 or lines > 10_000_000:
         raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
-    return {"voxel": voxel, "max_memory": _parse_size(max_memory), "density": density,
-            "pore_split": list(_parse_split(pore_split)), "intrusion": bool(intrusion),
+    return {"voxel": voxel, "max_memory": parse_size(max_memory), "density": density,
+            "pore_split": list(parse_split(pore_split)), "intrusion": bool(intrusion),
             "lines": lines, "seed": seed}
 
 

@@ -120,3 +120,30 @@ def dumps(doc) -> str:
     import numpy as np
     return json.dumps(clean(json.loads(json.dumps(doc, default=json_default, allow_nan=True))),
                       indent=2, allow_nan=False)
+
+
+def parse_size(text):
+    """'8G', '500M', '2.5GB', '123456789' -> bytes."""
+    if text is None:
+        return None
+    t = str(text).strip().upper().rstrip("B")
+    mult = {"K": 2 ** 10, "M": 2 ** 20, "G": 2 ** 30, "T": 2 ** 40}
+    try:
+        if t and t[-1] in mult:
+            v = float(t[:-1]) * mult[t[-1]]
+        else:
+            v = float(t)
+    except ValueError:
+        raise OptionError(f"--max-memory: expected a size such as 8G or 500M, got {text!r}") from None
+    if not (v > 0 and math.isfinite(v)):
+        raise OptionError(f"--max-memory: must be positive, got {text!r}")
+    return int(v)
+
+
+def parse_split(text):
+    if text is None:
+        return ()
+    try:
+        return tuple(float(x) for x in str(text).split(",") if x.strip())
+    except ValueError:
+        raise OptionError(f"--pore-split: expected diameters in nm such as 5,20, got {text!r}") from None

@@ -16,7 +16,7 @@ import click
 import numpy as np
 
 from ..errors import InputError, OptionError
-from .common import dumps, load, read_options
+from .common import dumps, load, parse_size, read_options
 
 # unit spellings found in header labels -> factor to nm^-1 (scattering) or to s (T2)
 _Q_UNITS = [  # checked in order; Å before nm so "1/A" inside "nm" labels cannot clash
@@ -331,8 +331,7 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     exp = read_experimental(compare, "scattering", q_unit, columns) if compare else None
     for w in (exp.warnings if exp else []):
         click.echo(f"sheetview: warning: {w}", err=True)
-    from .measure import _parse_size
-    mem = _parse_size(max_memory)
+    mem = parse_size(max_memory)
     obj = load(file, **read_kw)
     _, grid = _grid_of(obj, voxel, mem)
     s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe)
@@ -472,9 +471,8 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
         t2_bulk = None
     elif t2_bulk < 0:
         raise OptionError(f"--t2-bulk must be positive (or 0 for no bulk term), got {t2_bulk}")
-    from .measure import _parse_size
     obj = load(file, **read_kw)
-    ctx, grid = _grid_of(obj, voxel, _parse_size(max_memory))
+    ctx, grid = _grid_of(obj, voxel, parse_size(max_memory))
     if interlayer_width is None and isinstance(obj, Structure):
         gap = float(obj.spacing) - float(np.median(obj.thickness))
         if gap > 0:

@@ -8,7 +8,7 @@ import click
 
 from .. import __version__
 from ..errors import OptionError
-from .common import dumps, load, read_options
+from .common import dumps, load, parse_size, parse_split, read_options
 
 _OPTION_OF = {"angle_tol": "--angle-tol", "gap_tol": "--gap-tol", "overlap": "--overlap",
               "tilt_limit": "--tilt-limit", "local_radius": "--local-radius", "frame": "--frame",
@@ -52,33 +52,6 @@ def summary_document(path, obj, ctx, settings: dict) -> dict:
     doc["note"] = ("numbers describe the simulated structure only; see docs/measures.md for "
                    "what each one is and is not")
     return doc
-
-
-def _parse_size(text):
-    """'8G', '500M', '2.5GB', '123456789' -> bytes."""
-    if text is None:
-        return None
-    t = str(text).strip().upper().rstrip("B")
-    mult = {"K": 2 ** 10, "M": 2 ** 20, "G": 2 ** 30, "T": 2 ** 40}
-    try:
-        if t and t[-1] in mult:
-            v = float(t[:-1]) * mult[t[-1]]
-        else:
-            v = float(t)
-    except ValueError:
-        raise OptionError(f"--max-memory: expected a size such as 8G or 500M, got {text!r}") from None
-    if not (v > 0 and math.isfinite(v)):
-        raise OptionError(f"--max-memory: must be positive, got {text!r}")
-    return int(v)
-
-
-def _parse_split(text):
-    if text is None:
-        return ()
-    try:
-        return tuple(float(x) for x in str(text).split(",") if x.strip())
-    except ValueError:
-        raise OptionError(f"--pore-split: expected diameters in nm such as 5,20, got {text!r}") from None
 
 
 def _print_summary(doc):
@@ -194,8 +167,8 @@ def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, ga
 
     settings = {"angle_tol": angle_tol, "gap_tol": gap_tol, "overlap": overlap,
                 "tilt_limit": tilt_limit, "local_radius": local_radius, "frame": frame,
-                "voxel": voxel, "max_memory": _parse_size(max_memory), "density": density,
-                "pore_split": _parse_split(pore_split), "intrusion": intrusion,
+                "voxel": voxel, "max_memory": parse_size(max_memory), "density": density,
+                "pore_split": parse_split(pore_split), "intrusion": intrusion,
                 "lines": lines, "seed": seed}
     # check options before reading (the file's spacing is checked again below)
     try:
