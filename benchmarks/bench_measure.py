@@ -29,17 +29,8 @@ def build(n_target: int, seed: int = 0):
     from scipy.spatial.transform import Rotation
 
     from sheetview import Sphere, Structure
-    a1 = np.array([1.0, 0, 0])
-    a2 = np.array([0.5, math.sqrt(3) / 2, 0])
-    i, j = np.meshgrid(np.arange(3), np.arange(3), indexing="ij")
-    i = i.ravel()[:, None]
-    j = j.ravel()[:, None]
-
-    def P(di, dj):
-        return (i + di) * a1 + (j + dj) * a2
-    layer = np.concatenate([np.stack([P(0, 0), P(1, 0), P(0, 1)], 1),
-                            np.stack([P(1, 0), P(1, 1), P(0, 1)], 1)])
-    layer -= layer.reshape(-1, 3).mean(0)
+    from sheetview.synth import rhombus_patch
+    layer = rhombus_patch(3)
     tmpl = np.concatenate([layer + [0, 0, 1.4 * (k - 1.5)] for k in range(4)])  # (72, 3, 3)
     n_st = max(1, int(round(n_target / len(tmpl))))
     # 400,000 prisms fill a sphere of radius 50 nm at a pitch of 4.6 nm: keep that density

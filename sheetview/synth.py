@@ -892,3 +892,20 @@ def write_truth(result: SynthResult, path, *, force: bool = False):
             fh.write(",".join(names) + "\n")
             np.savetxt(fh, data, fmt="%d", delimiter=",")
     return Path(path)
+
+
+def rhombus_patch(n: int, edge: float = 1.0) -> np.ndarray:
+    """An ``n x n`` rhombus of ``2 n^2`` equilateral triangles (edge ``edge`` nm) in the
+    z = 0 plane, centred on the origin, as (2 n^2, 3, 3) corners; neighbours share edges.
+    A small fixed layer for tests and benchmarks (invented geometry)."""
+    a1 = np.array([edge, 0, 0.0])
+    a2 = np.array([edge / 2, edge * np.sqrt(3) / 2, 0.0])
+    i, j = np.meshgrid(np.arange(n), np.arange(n), indexing="ij")
+    i = i.ravel()[:, None]
+    j = j.ravel()[:, None]
+
+    def corner(di, dj):
+        return (i + di) * a1 + (j + dj) * a2
+    v = np.concatenate([np.stack([corner(0, 0), corner(1, 0), corner(0, 1)], 1),
+                        np.stack([corner(1, 0), corner(1, 1), corner(0, 1)], 1)])
+    return v - v.reshape(-1, 3).mean(0)

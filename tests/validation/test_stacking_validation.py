@@ -9,22 +9,14 @@ from scipy.spatial.transform import Rotation
 from sheetview import Box, Sphere, Structure
 from sheetview.measures.orientation import orientation
 from sheetview.measures.stacking import stacking, triangle_intersection_area
+from sheetview.synth import rhombus_patch
 
 REPEAT = 1.4
 
 
 def patch(n, edge=1.0):
-    a1 = np.array([edge, 0, 0.0])
-    a2 = np.array([edge / 2, edge * np.sqrt(3) / 2, 0.0])
-    i, j = np.meshgrid(np.arange(n), np.arange(n), indexing="ij")
-    i = i.ravel()[:, None]
-    j = j.ravel()[:, None]
-
-    def P(di, dj):
-        return (i + di) * a1 + (j + dj) * a2
-    v = np.concatenate([np.stack([P(0, 0), P(1, 0), P(0, 1)], 1),
-                        np.stack([P(1, 0), P(1, 1), P(0, 1)], 1)])
-    return v - v.reshape(-1, 3).mean(0)
+    """n x n rhombus of 2 n^2 equilateral triangles in the z = 0 plane, centred."""
+    return rhombus_patch(n, edge)
 
 
 def make_stack(n_layers, n=3, center=(0, 0, 0)):
