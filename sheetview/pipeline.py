@@ -113,6 +113,8 @@ class Context:
 
     @cached_property
     def grid(self) -> PhaseGrid:
+        """The phase grid the measures use; refused (OptionError) when it holds no solid
+        or no pore voxel, since there is then nothing to measure."""
         g = self._split_grid()
         counts = np.bincount(g.labels.ravel(), minlength=256)
         inside = int(counts.sum() - counts[OUTSIDE])
