@@ -26,7 +26,10 @@ def cell_prisms(n, cell, thickness, seed=0, periodic=False):
     rng = np.random.default_rng(seed)
     k = int(np.ceil(n ** (1 / 3)))
     idx = np.stack(np.unravel_index(rng.permutation(k ** 3)[:n], (k, k, k)), axis=1)
-    c = (idx + 0.5) * cell
+    # cell centres jittered by up to thickness / (2 sqrt 3) per axis: prisms stay apart, and
+    # their offsets against the voxel lattice are random (a fixed offset for all prisms
+    # would bias a point-sampled volume)
+    c = (idx + 0.5) * cell + rng.uniform(-1, 1, (n, 3)) * thickness / (2 * np.sqrt(3))
     d = rng.normal(size=(n, 3, 3))
     d /= np.linalg.norm(d, axis=2, keepdims=True)
     v = c[:, None, :] + (0.5 * cell - thickness) * d
