@@ -145,3 +145,13 @@ def test_all_void_or_all_solid_is_refused(tmp_path, value, phase, msg):
     r = run(p, "--voxel-size", "1", "--phases", f"{value}={phase}", "-o", out, "-q")
     assert r.exit_code == 2 and msg in r.output and "Traceback" not in r.output
     assert not out.exists()
+
+
+def test_python_api_measure(stack_file):
+    """sheetview.measure gives the same volume fractions as the command line."""
+    p, s = stack_file
+    ctx = sv.measure(s, only=["phases"], voxel=0.2)
+    doc = json.loads(run(p, "--json", "--voxel", "0.2", "--only", "phases", "-q").stdout)
+    assert ctx.results["phases"].fractions == pytest.approx(doc["volume_fractions"])
+    with pytest.raises(sv.OptionError, match="unknown setting"):
+        sv.measure(s, voxels=0.2)
