@@ -410,13 +410,18 @@ def write_prisms_vtk(structure: Structure, path, *, force: bool = False) -> Path
     header = {"spacing": structure.spacing, "domain": structure.domain.to_dict(),
               "domain_inferred": bool(structure.domain.inferred), "metadata": structure.metadata}
     poly.field_data["sheetview"] = np.array([json.dumps(header, default=_json_default)])
+    _save_vtk(poly, path, suffix, force)
+    return path
+
+
+def _save_vtk(poly, path, suffix, force) -> None:
+    """Write a PolyData as .vtp (appended raw XML) or legacy binary .vtk, atomically."""
     with atomic_path(path, force) as tmp:
         if suffix == ".vtp":
             write_vtk_xml(poly, tmp)
         else:
             with _quiet_vtk():
                 poly.save(str(tmp), binary=True)
-    return path
 
 
 def write_vtk_xml(dataset, fname) -> None:
@@ -473,12 +478,7 @@ def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
         import pyvista as pv
 
         poly = pv.PolyData.from_regular_faces(np.asarray(body.vertices), np.asarray(body.faces))
-        with atomic_path(path, force) as tmp:
-            if suffix == ".vtp":
-                write_vtk_xml(poly, tmp)
-            else:
-                with _quiet_vtk():
-                    poly.save(str(tmp), binary=True)
+        _save_vtk(poly, path, suffix, force)
         return path
     if suffix == ".ply":
         with atomic_path(path, force) as tmp:

@@ -274,23 +274,22 @@ def _merge_append(s, e, m, eps, line, out_l, out_s, out_e, no):
             if e[k] > ce:
                 ce = e[k]
         else:
-            out_l = _grow(out_l, no)
-            out_s = _grow(out_s, no)
-            out_e = _grow(out_e, no)
-            out_l[no] = line
-            out_s[no] = cs
-            out_e[no] = ce
-            no += 1
+            out_l, out_s, out_e, no = _push(out_l, out_s, out_e, no, line, cs, ce)
             cs = s[k]
             ce = e[k]
+    return _push(out_l, out_s, out_e, no, line, cs, ce)
+
+
+@numba.njit(cache=True)
+def _push(out_l, out_s, out_e, no, line, cs, ce):
+    """Append one interval (line, start, end) to the growable outputs."""
     out_l = _grow(out_l, no)
     out_s = _grow(out_s, no)
     out_e = _grow(out_e, no)
     out_l[no] = line
     out_s[no] = cs
     out_e[no] = ce
-    no += 1
-    return out_l, out_s, out_e, no
+    return out_l, out_s, out_e, no + 1
 
 
 @numba.njit(cache=True)
