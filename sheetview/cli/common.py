@@ -147,3 +147,27 @@ def parse_split(text):
         return tuple(float(x) for x in str(text).split(",") if x.strip())
     except ValueError:
         raise OptionError(f"--pore-split: expected diameters in nm such as 5,20, got {text!r}") from None
+
+
+def at_options(f):
+    """Decorator adding ``--at-progress`` / ``--at-time`` (the structure as it stood then)."""
+    f = click.option("--at-time", type=float, default=None, metavar="T",
+                     help="Use the structure as it stood at time T: the prisms born at or "
+                          "before T (needs a 'born' column).")(f)
+    f = click.option("--at-progress", type=float, default=None, metavar="P",
+                     help="Use the structure as it stood when its progress (solid volume born "
+                          "over the final) first reached P, a fraction in (0, 1].")(f)
+    return f
+
+
+def apply_at(obj, at_progress=None, at_time=None):
+    """``(obj, None)`` when neither option is set; else the structure at that moment and
+    the :class:`~sheetview.measures.kinetics.Moment`."""
+    if at_progress is None and at_time is None:
+        return obj, None
+    from ..measures.kinetics import structure_at
+    from ..structure import Structure
+    if not isinstance(obj, Structure):
+        raise OptionError("--at-progress / --at-time need prisms with a 'born' column, but the "
+                          f"input is a {type(obj).__name__}", path=getattr(obj, "source", None))
+    return structure_at(obj, progress=at_progress, time=at_time)

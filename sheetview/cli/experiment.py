@@ -16,7 +16,7 @@ import click
 import numpy as np
 
 from ..errors import InputError, OptionError
-from .common import dumps, load, parse_size, read_options
+from .common import apply_at, at_options, dumps, load, parse_size, read_options
 
 # unit spellings found in header labels -> factor to nm^-1 (scattering) or to s (T2)
 _Q_UNITS = [  # checked in order; Å before nm so "1/A" inside "nm" labels cannot clash
@@ -319,9 +319,10 @@ def _solid_sld(formula, density, probe):
               help="Memory allowed for the grid and transform, e.g. 8G (default half the "
                    "available memory).")
 @click.option("--force", is_flag=True, help="Overwrite existing outputs.")
+@at_options
 def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlayer_contrast, pad,
             window, csv_out, plot_out, json_out, slopes, compare, q_unit, columns, max_memory,
-            force, **read_kw):
+            force, at_progress, at_time, **read_kw):
     """Predicted small-angle scattering curve I(q) (cm^-1) of FILE."""
     from ..measures.scattering import (bragg_peaks, compare_curve, guinier, invariant,
                                        phase_slds, porod, power_law, scattering_curve)
@@ -332,7 +333,7 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     for w in (exp.warnings if exp else []):
         click.echo(f"sheetview: warning: {w}", err=True)
     mem = parse_size(max_memory)
-    obj = load(file, **read_kw)
+    obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
     _, grid = _grid_of(obj, voxel, mem)
     s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe)
     f_sld = preset_sld(fluid, probe)
@@ -341,6 +342,8 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
                            max_memory=mem)
     doc = {"file": str(file), "probe": probe, "solid": s_desc, "fluid": fluid,
            "interlayer_contrast": not no_interlayer_contrast, "curve": res.to_dict()}
+    if moment is not None:
+        doc["at"] = moment.to_dict()
     feats = {}
     lo, hi = res.q_valid
     for name, fn in (("slope_low_q", lambda: power_law(res, (lo, lo * 10 ** 0.5))),
@@ -454,8 +457,9 @@ def _plot_scatter(res, cmp_, notes, path, force):
               help="Memory allowed for the grid and transform, e.g. 8G (default half the "
                    "available memory).")
 @click.option("--force", is_flag=True, help="Overwrite existing outputs.")
+@at_options
 def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out, json_out,
-          compare, t2_unit, columns, max_memory, force, **read_kw):
+          compare, t2_unit, columns, max_memory, force, at_progress, at_time, **read_kw):
     """Predicted NMR T2 distribution of the pore water of FILE (fast exchange)."""
     from ..measures.relaxation import (DEFAULT_RHO2_NM_PER_US, DEFAULT_T2_BULK_S, compare_t2,
                                        relaxation_spectrum)
@@ -471,7 +475,7 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
         t2_bulk = None
     elif t2_bulk < 0:
         raise OptionError(f"--t2-bulk must be positive (or 0 for no bulk term), got {t2_bulk}")
-    obj = load(file, **read_kw)
+    obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
     ctx, grid = _grid_of(obj, voxel, parse_size(max_memory))
     if interlayer_width is None and isinstance(obj, Structure):
         gap = float(obj.spacing) - float(np.median(obj.thickness))
@@ -485,6 +489,8 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
                               t2_bulk=t2_bulk, shape=shape)
     cmp_ = compare_t2(res, exp.x, exp.y, source=compare) if exp else None
     doc = {"file": str(file), "relaxation": res.to_dict()}
+    if moment is not None:
+        doc["at"] = moment.to_dict()
     if cmp_ is not None:
         doc["comparison"] = {**cmp_.to_dict(), "file": str(compare), "t2_unit": exp.unit_found}
     notes = [f"fast exchange 1/T2 = 1/T2b + rho2 S/V; rho2 {rho2:g} nm/us; T2b "

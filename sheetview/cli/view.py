@@ -5,7 +5,7 @@ from __future__ import annotations
 import click
 
 from ..errors import OptionError
-from .common import load, read_options
+from .common import apply_at, at_options, load, read_options
 
 _COLOURINGS = ["stacking", "stack", "order", "director", "wall", "born", "tag"]
 _CAMERAS = ["iso", "cut", "+x", "-x", "+y", "-y", "+z", "-z"]
@@ -39,7 +39,7 @@ def _plane_options(f):
     return f
 
 
-def _structure(file, read_opts, what):
+def _structure(file, read_opts, what, at_progress=None, at_time=None):
     from ..structure import Structure
 
     obj = load(file, **read_opts)
@@ -49,6 +49,10 @@ def _structure(file, read_opts, what):
                 else "convert it or read it as sheets (--as sheets)")
         raise OptionError(f"`sheetview {what}` draws prisms, but this file holds a {kind}; {hint}",
                           path=file)
+    obj, moment = apply_at(obj, at_progress, at_time)
+    if moment is not None:
+        click.echo(f"as it stood at {moment.requested}: time {moment.time:g}, progress "
+                   f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms", err=True)
     return obj
 
 
@@ -72,8 +76,9 @@ def _export(structure, export_dir, grid, voxel, force, cache):
 @click.option("--step", type=float, default=None,
               help="Distance in nm the cut moves per key press (default: the repeat).")
 @click.option("--force", is_flag=True, help="Overwrite files written by --export.")
+@at_options
 def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_by, export_dir,
-         step, force, **read_opts):
+         step, force, at_progress, at_time, **read_opts):
     """Open a window on the prisms of FILE, cut by a movable plane showing the phases.
 
     \b
@@ -94,7 +99,7 @@ def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_b
     from ..view import Scene, check_display, open_window
 
     check_display()
-    s = _structure(file, read_opts, "view")
+    s = _structure(file, read_opts, "view", at_progress, at_time)
     plane = _plane(s, slice_axis, slice_at, slice_normal, slice_origin)
     click.echo(f"preparing {len(s):,} prisms (stacking, phase grid) ...", err=True)
     cache = {}
@@ -120,8 +125,9 @@ def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_b
 @click.option("--flat", is_flag=True,
               help="Unshaded colours (each prism exactly its colormap colour).")
 @click.option("--force", is_flag=True, help="Overwrite the picture (and exported files).")
+@at_options
 def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_by,
-           export_dir, camera, size, flat, force, **read_opts):
+           export_dir, camera, size, flat, force, at_progress, at_time, **read_opts):
     """Draw the prisms of FILE to a PNG without a window (for batch use and documents).
 
     With --slice-axis/--slice-at or --slice-normal/--slice-origin the prisms are cut at
@@ -133,7 +139,7 @@ def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel
 
     check_writable(output, force)
     wh = parse_size(size)
-    s = _structure(file, read_opts, "render")
+    s = _structure(file, read_opts, "render", at_progress, at_time)
     plane = _plane(s, slice_axis, slice_at, slice_normal, slice_origin)
     cache = {}
     grid = None

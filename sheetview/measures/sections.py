@@ -1,0 +1,380 @@
+"""Virtual micrographs: phase sections of any plane and transmission-like projections.
+
+*Section*: the phase map (solid, interlayer, gel pore, outside) on the plane through
+``centre + offset * n`` with unit normal ``n``, sampled from the phase grid by nearest
+voxel (:func:`sheetview.view.sample_section`); ``centre`` is the domain's centre.
+
+*Projection*: the solid thickness ``t(x, y)`` crossed by a straight path along an axis
+through a slab of the structure, and the transmitted fraction ``exp(-t / lambda)`` (the
+Beer-Lambert form used for mass-thickness contrast in transmission electron microscopy,
+e.g. Williams & Carter, *Transmission Electron Microscopy*, 2nd ed., 2009, ch. 22: common
+practice), optionally blurred by a Gaussian whose full width at half maximum is the
+instrument resolution. For prisms the thickness is exact: each pixel's path is clipped
+against the prisms' face planes (the exact-chord kernels of
+:mod:`sheetview.measures.chords`), overlapping prisms counted once; for a phase grid it
+is the number of solid voxels along the path times the voxel edge.
+
+What these images are not: a simulation of electron optics (no phase contrast, defocus,
+noise, damage or sample preparation). They show the geometry that a micrograph of this
+structure could at best resolve; hold them against real micrographs with that in mind.
+
+Images are arrays indexed ``[row, col]`` with ``row`` running down the picture: for an
+axis-aligned normal the picture's right-hand axis and up axis follow
+:func:`sheetview.view.plane_basis` (``z``: right = x, up = y; ``x``: right = y, up = z;
+``y``: right = z, up = x).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..domain import Box, Sphere
+from ..errors import OptionError
+from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
+from ..structure import Structure, SurfaceBody
+
+AXES = {"x": 0, "y": 1, "z": 2}
+PHASE_NAMES = {"solid": SOLID, "interlayer": INTERLAYER, "gel": GEL}
+#: Largest image side (pixels) any virtual micrograph may have.
+MAX_SIDE = 8192
+#: Default transmission length (nm) of exp(-t / lambda): a contrast scale of the order of
+#: the inelastic mean free path of 200 keV electrons in light solids, some 100 nm (from
+#: memory). It sets contrast only; set it for your instrument.
+DEFAULT_MFP = 100.0
+
+
+def parse_axis_or_normal(axis=None, normal=None):
+    """Unit normal from ``axis`` ('x', 'y', 'z') or ``normal`` (three numbers, or a
+    string 'a,b,c'); z when neither is given."""
+    from ..view import _vec3, plane_basis
+    if axis is not None and normal is not None:
+        raise OptionError("give the plane by --axis or by --normal, not both", field="normal")
+    if normal is not None:
+        return plane_basis(_vec3(normal, "--normal"))[0]
+    a = str(axis or "z").lower()
+    if a not in AXES:
+        raise OptionError(f"--axis must be x, y or z, got {axis!r}", field="axis")
+    n = np.zeros(3)
+    n[AXES[a]] = 1.0
+    return n
+
+
+def domain_centre_and_span(domain) -> tuple[np.ndarray, np.ndarray]:
+    lo, hi = (np.asarray(b, float) for b in domain.bounds)
+    return 0.5 * (lo + hi), hi - lo
+
+
+def _check_pixel(pixel, what="--pixel"):
+    if pixel is None:
+        return None
+    p = float(pixel)
+    if not (math.isfinite(p) and p > 0):
+        raise OptionError(f"{what} must be a positive length in nm, got {pixel!r}", field="pixel")
+    return p
+
+
+def _check_side(n_rows, n_cols, pixel):
+    if max(n_rows, n_cols) > MAX_SIDE:
+        raise OptionError(f"the image would be {n_cols} x {n_rows} pixels at {pixel:g} nm per pixel "
+                          f"(largest side allowed {MAX_SIDE}); use a larger --pixel", field="pixel")
+
+
+# ===================================================================== sections
+@dataclass
+class SectionImage:
+    """A phase section as a picture: ``labels[row, col]`` (phase codes; 255 off the grid).
+
+    ``right``, ``up``: unit vectors of the picture's axes in the world; the centre of
+    pixel ``(r, c)`` is ``corner + (c + 0.5) * pixel * right - (r + 0.5) * pixel * up``
+    where ``corner`` is the world position of the picture's top-left corner.
+    """
+
+    labels: np.ndarray
+    pixel: float
+    normal: np.ndarray
+    right: np.ndarray
+    up: np.ndarray
+    origin: np.ndarray
+    offset: float
+    corner: np.ndarray
+    names: dict
+    voxel: float
+    notes: list = field(default_factory=list)
+
+    OFF_GRID = 255
+
+    @property
+    def valid(self) -> np.ndarray:
+        """Pixels inside the sample (on the grid, not outside the domain)."""
+        return (self.labels != self.OFF_GRID) & (self.labels != OUTSIDE)
+
+    def mask(self, phases=("solid", "interlayer")) -> np.ndarray:
+        """True where the pixel's phase is one of ``phases`` (names or codes)."""
+        codes = [PHASE_NAMES.get(p, p) if isinstance(p, str) else int(p) for p in phases]
+        return np.isin(self.labels, np.asarray(codes, np.uint8))
+
+    def fractions(self) -> dict:
+        """Area fraction of each phase over the valid pixels."""
+        lab = self.labels[self.valid]
+        if lab.size == 0:
+            return {}
+        cnt = np.bincount(lab, minlength=256)
+        return {self.names.get(c, str(c)): float(cnt[c] / lab.size) for c in np.flatnonzero(cnt)}
+
+    def to_dict(self) -> dict:
+        return {"kind": "section", "normal": self.normal.tolist(), "offset_nm": self.offset,
+                "origin_nm": self.origin.tolist(), "right": self.right.tolist(),
+                "up": self.up.tolist(), "pixel_nm": self.pixel, "voxel_nm": self.voxel,
+                "shape_rows_cols": list(self.labels.shape),
+                "valid_pixels": int(self.valid.sum()), "area_fractions": self.fractions(),
+                "notes": list(self.notes)}
+
+
+def phase_grid_of(obj, settings: dict | None = None) -> PhaseGrid:
+    """The classified phase grid of ``obj`` with the measure settings (``voxel``,
+    ``max_memory``, stacking tolerances): the same grid ``sheetview measure`` uses."""
+    if isinstance(obj, PhaseGrid):
+        return obj
+    from ..pipeline import Context
+    return Context(obj, settings).base_grid
+
+
+def section(obj, normal=(0.0, 0.0, 1.0), offset: float = 0.0, *, pixel: float | None = None,
+            settings: dict | None = None, grid: PhaseGrid | None = None) -> SectionImage:
+    """The phase section of ``obj`` (Structure, SurfaceBody or PhaseGrid) on the plane
+    with ``normal`` at signed distance ``offset`` (nm) from the domain's centre.
+
+    ``pixel`` defaults to the grid's voxel edge. The picture covers the projection of the
+    grid's box onto the plane; pixels off the grid are 255.
+    """
+    from ..view import plane_basis, sample_section
+    pixel = _check_pixel(pixel)
+    off = float(offset)
+    if not math.isfinite(off):
+        raise OptionError(f"--offset must be a finite length in nm, got {offset!r}", field="offset")
+    g = grid if grid is not None else phase_grid_of(obj, settings)
+    n, u, v = plane_basis(normal)
+    dom = getattr(obj, "domain", None) or getattr(g, "domain", None)
+    if dom is not None:
+        centre, span = domain_centre_and_span(dom)
+    else:
+        lo = np.asarray(g.origin, float)
+        span = np.asarray(g.shape) * np.asarray(g.spacing)
+        centre = lo + 0.5 * span
+    half = 0.5 * float(np.abs(span) @ np.abs(n))
+    notes = []
+    if abs(off) > half:
+        raise OptionError(f"--offset {off:g} nm puts the plane outside the sample (it spans "
+                          f"{-half:.3g} to {half:.3g} nm along the normal)", field="offset")
+    origin = centre + off * n
+    voxel = float(np.min(g.spacing))
+    px = voxel if pixel is None else pixel
+    lo = np.asarray(g.origin, float)
+    corners = np.array([[x, y, z] for x in (0, 1) for y in (0, 1) for z in (0, 1)], float)
+    corners = lo + corners * np.asarray(g.shape) * np.asarray(g.spacing) - origin
+    nu = int(math.ceil(np.ptp(corners @ u) / px - 1e-9))
+    nv = int(math.ceil(np.ptp(corners @ v) / px - 1e-9))
+    _check_side(nv, nu, px)
+    sec = sample_section(g, origin, n, pixel=px, max_pixels=MAX_SIDE)
+    if px > 1.5 * voxel:
+        notes.append(f"pixel {px:g} nm is coarser than the voxel {voxel:g} nm: each pixel "
+                     "shows the voxel at its centre (no averaging)")
+    if px < 0.75 * voxel:
+        notes.append(f"pixel {px:g} nm is finer than the voxel {voxel:g} nm: the picture "
+                     "cannot resolve more than the grid does")
+    labels = np.ascontiguousarray(sec.labels.T[::-1])  # rows = -v (down), cols = u
+    top_left = sec.origin + sec.u0 * sec.u + (sec.v0 + labels.shape[0] * sec.pixel) * sec.v
+    return SectionImage(labels, float(sec.pixel), n, u, v, origin, off, top_left, dict(g.names),
+                        voxel, notes)
+
+
+# ================================================================== projections
+@dataclass
+class ProjectionImage:
+    """A transmission-like projection: ``thickness[row, col]`` (nm of solid crossed),
+    ``intensity = exp(-thickness / mfp)`` blurred to ``resolution``, ``valid`` (the path
+    meets the sample)."""
+
+    thickness: np.ndarray
+    intensity: np.ndarray
+    valid: np.ndarray
+    pixel: float
+    axis: str
+    slab: tuple
+    mfp: float
+    resolution: float
+    right: str
+    up: str
+    extent: tuple
+    method: str
+    notes: list = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        t = self.thickness[self.valid]
+        return {"kind": "projection", "axis": self.axis, "slab_nm": list(self.slab),
+                "slab_thickness_nm": self.slab[1] - self.slab[0], "pixel_nm": self.pixel,
+                "mfp_nm": self.mfp, "resolution_fwhm_nm": self.resolution, "right": self.right,
+                "up": self.up, "extent_nm": list(self.extent), "method": self.method,
+                "shape_rows_cols": list(self.thickness.shape),
+                "valid_pixels": int(self.valid.sum()),
+                "mean_thickness_nm": float(t.mean()) if t.size else None,
+                "max_thickness_nm": float(t.max()) if t.size else None,
+                "covered_fraction": float((t > 0).mean()) if t.size else None,
+                "notes": list(self.notes)}
+
+
+def _picture_axes(a: int) -> tuple[int, int]:
+    """(right, up) world axes of a projection along axis ``a`` (as plane_basis)."""
+    return (a + 1) % 3, (a + 2) % 3
+
+
+def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float = 0.0,
+               pixel: float | None = None, mfp: float = DEFAULT_MFP, resolution: float = 0.0,
+               settings: dict | None = None, n_threads=None) -> ProjectionImage:
+    """Project ``obj`` along ``axis`` through a slab of thickness ``slab`` (nm; default the
+    whole domain) centred ``offset`` nm from the domain's centre.
+
+    Prisms: exact path lengths through the prisms (clipped to the domain and the slab).
+    Closed bodies and phase grids: solid voxels counted along the path (a grid is built
+    for a body with the measure settings).
+    """
+    a = AXES.get(str(axis).lower())
+    if a is None:
+        raise OptionError(f"--axis must be x, y or z, got {axis!r}", field="axis")
+    axis = "xyz"[a]
+    pixel = _check_pixel(pixel)
+    mfp = float(mfp)
+    if not (math.isfinite(mfp) and mfp > 0):
+        raise OptionError(f"--mfp must be a positive length in nm, got {mfp!r}", field="mfp")
+    resolution = float(resolution or 0.0)
+    if not (math.isfinite(resolution) and resolution >= 0):
+        raise OptionError(f"--resolution must be a length >= 0 nm, got {resolution!r}",
+                          field="resolution")
+    dom = getattr(obj, "domain", None)
+    if dom is None:
+        raise OptionError("the input has no domain to project through")
+    centre, span = domain_centre_and_span(dom)
+    off = float(offset)
+    if slab is None:
+        z0, z1 = centre[a] - 0.5 * span[a], centre[a] + 0.5 * span[a]
+    else:
+        slab = float(slab)
+        if not (math.isfinite(slab) and slab > 0):
+            raise OptionError(f"--slab must be a positive thickness in nm, got {slab!r}", field="slab")
+        z0, z1 = centre[a] + off - 0.5 * slab, centre[a] + off + 0.5 * slab
+    if not math.isfinite(off) or z1 <= centre[a] - 0.5 * span[a] or z0 >= centre[a] + 0.5 * span[a]:
+        raise OptionError(f"the slab {z0:.4g} to {z1:.4g} nm along {axis} misses the sample "
+                          f"({centre[a] - 0.5 * span[a]:.4g} to {centre[a] + 0.5 * span[a]:.4g} nm)",
+                          field="offset")
+    z0, z1 = max(z0, centre[a] - 0.5 * span[a]), min(z1, centre[a] + 0.5 * span[a])
+    ra, ua = _picture_axes(a)
+    lo_r, hi_r = centre[ra] - 0.5 * span[ra], centre[ra] + 0.5 * span[ra]
+    lo_u, hi_u = centre[ua] - 0.5 * span[ua], centre[ua] + 0.5 * span[ua]
+    notes = []
+    if isinstance(obj, Structure):
+        px = pixel if pixel is not None else _default_pixel(max(span[ra], span[ua]))
+        nc = int(math.ceil((hi_r - lo_r) / px - 1e-9))
+        nr = int(math.ceil((hi_u - lo_u) / px - 1e-9))
+        _check_side(nr, nc, px)
+        t, valid = _project_prisms(obj, a, ra, ua, lo_r, hi_u, px, nr, nc, z0, z1, n_threads)
+        method = "exact paths through prisms"
+    elif isinstance(obj, (PhaseGrid, SurfaceBody)):
+        g = phase_grid_of(obj, settings)
+        t, valid, px = _project_grid(g, a, z0, z1, pixel)
+        nr, nc = t.shape
+        method = "solid voxels along the path"
+        if pixel is not None and abs(px - pixel) > 1e-9 * pixel:
+            notes.append(f"a phase grid projects at its voxel edge ({px:g} nm), not at --pixel")
+    else:
+        raise OptionError(f"cannot project a {type(obj).__name__}")
+    inten = np.exp(-t / mfp)
+    if resolution > 0:
+        from scipy.ndimage import gaussian_filter
+        sigma = resolution / (2.0 * math.sqrt(2.0 * math.log(2.0))) / px
+        # blur the transmitted fraction; outside the sample counts as fully transmitting
+        inten = gaussian_filter(np.where(valid, inten, 1.0), sigma, mode="nearest")
+        if sigma < 0.5:
+            notes.append(f"resolution {resolution:g} nm is under a pixel ({px:g} nm): blur is slight")
+    extent = (float(lo_r), float(lo_r + nc * px), float(hi_u - nr * px), float(hi_u))
+    return ProjectionImage(t.astype(np.float32), inten.astype(np.float32), valid, float(px), axis,
+                           (float(z0), float(z1)), mfp, resolution, "xyz"[ra], "xyz"[ua], extent,
+                           method, notes)
+
+
+def _default_pixel(span: float) -> float:
+    """About 512 pixels across, rounded to 1, 2 or 5 x 10^k nm, at least 0.05 nm."""
+    target = max(span / 512.0, 0.05)
+    e = math.floor(math.log10(target))
+    for m in (1.0, 2.0, 5.0, 10.0):
+        if m * 10 ** e >= target * 0.999:
+            return float(m * 10 ** e)
+    return float(target)
+
+
+def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1, n_threads):
+    from .chords import _domain_interval, _periodic_images, _prisms_run
+    rows, cols = np.mgrid[0:nr, 0:nc]
+    o = np.zeros((nr * nc, 3))
+    o[:, ra] = left + (cols.ravel() + 0.5) * px
+    o[:, ua] = top - (rows.ravel() + 0.5) * px
+    o[:, a] = z0
+    u = np.zeros_like(o)
+    u[:, a] = 1.0
+    length = z1 - z0
+    dom = s.domain
+    if isinstance(dom, Box) and dom.periodic:
+        tlo = np.zeros(len(o))
+        thi = np.full(len(o), length)
+        valid = np.ones(len(o), bool)
+        v, nrm, th = _periodic_images(s, dom)
+    else:
+        tlo, thi = _domain_interval(dom, o, u, np.full(len(o), length))
+        valid = thi > tlo
+        tlo = np.where(valid, tlo, 1.0)
+        thi = np.where(valid, thi, 0.0)
+        v, nrm, th = s.vertices, s.normals, s.thickness
+    n = len(o)
+    if len(v) == 0:
+        t = np.zeros(n)
+    else:
+        il, is_, ie = _prisms_run(o, u, tlo, thi, v, nrm, th, 1e-9, n_threads)
+        t = np.bincount(il, weights=ie - is_, minlength=n)
+    return t.reshape(nr, nc), valid.reshape(nr, nc)
+
+
+def _project_grid(g: PhaseGrid, a, z0, z1, pixel):
+    sp = np.asarray(g.spacing, float)
+    if not np.allclose(sp, sp[0], rtol=1e-9):
+        raise OptionError("projection of a grid with unequal voxel edges is not supported")
+    org = np.asarray(g.origin, float)
+    c = org[a] + (np.arange(g.shape[a]) + 0.5) * sp[a]
+    ks = np.flatnonzero((c >= z0) & (c < z1))
+    sub = np.take(g.labels, ks, axis=a)
+    solid = (sub == SOLID).sum(axis=a) * sp[a]
+    inside = (sub != OUTSIDE).any(axis=a)
+    ra, ua = _picture_axes(a)
+    # remaining axes in increasing order; arrange as [up (descending), right]
+    rem = [i for i in range(3) if i != a]
+    if rem.index(ra) == 0:
+        t, valid = solid.T, inside.T  # [ua, ra]
+    else:
+        t, valid = solid, inside
+    return (np.ascontiguousarray(t[::-1]).astype(float), np.ascontiguousarray(valid[::-1]),
+            float(sp[0]))
+
+
+# ====================================================================== pictures
+def segment_projection(p: ProjectionImage, threshold=None) -> tuple[np.ndarray, float]:
+    """Binary solid mask of a projection: intensity below ``threshold`` (default Otsu's
+    threshold over the valid pixels, Otsu 1979, via scikit-image) is solid."""
+    from skimage.filters import threshold_otsu
+    vals = p.intensity[p.valid]
+    if threshold is None:
+        if vals.size == 0 or float(vals.max() - vals.min()) <= 0:
+            raise OptionError("the projection has no contrast to threshold (no solid in the slab?)")
+        thr = float(threshold_otsu(vals))
+    else:
+        thr = float(threshold)
+    return (p.intensity < thr) & p.valid, thr

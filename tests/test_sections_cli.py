@@ -1,0 +1,141 @@
+"""Command-line tests of section, project, kinetics and --at-progress / --at-time."""
+import json
+
+import numpy as np
+import pytest
+import tifffile
+from click.testing import CliRunner
+
+from sheetview.cli import main
+from sheetview.synth import pack_stacks
+from sheetview import Sphere, write
+
+
+@pytest.fixture(scope="module")
+def born_file(tmp_path_factory):
+    d = tmp_path_factory.mktemp("born")
+    res = pack_stacks(Sphere((0, 0, 0), 9.0), 25, seeding="wall", orientation="wall",
+                      lateral_size="fixed:4", layers="fixed:3", born=True, seed=1)
+    p = d / "grown.npz"
+    write(res.structure, p)
+    return p
+
+
+def _run(args):
+    r = CliRunner().invoke(main, [str(a) for a in args])
+    return r
+
+
+def test_section_writes_picture_and_data(born_file, tmp_path):
+    stem = tmp_path / "cut"
+    r = _run(["section", born_file, "--axis", "z", "--offset", "1.5", "--voxel", "0.2", "-o", stem,
+              "--json"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    assert doc["pixel_nm"] == pytest.approx(0.2)
+    assert set(doc["area_fractions"]) <= {"solid", "interlayer", "gel"}
+    assert sum(doc["area_fractions"].values()) == pytest.approx(1.0)
+    for suffix in (".png", ".tif", "_data.tif"):
+        assert (tmp_path / f"cut{suffix}").stat().st_size > 0
+    with tifffile.TiffFile(tmp_path / "cut_data.tif") as tf:
+        page = tf.pages[0]
+        lab = page.asarray()
+        xres = page.tags["XResolution"].value
+        desc = json.loads(page.description)
+    # pixels per cm -> nm per pixel
+    assert 1e7 / (xres[0] / xres[1]) == pytest.approx(0.2, rel=1e-6)
+    assert desc["kind"] == "section" and desc["pixel_nm"] == pytest.approx(0.2)
+    assert lab.shape == tuple(doc["shape_rows_cols"])
+    # existing outputs are refused and left alone
+    before = (tmp_path / "cut.png").read_bytes()
+    r = _run(["section", born_file, "--voxel", "0.2", "-o", stem])
+    assert r.exit_code == 2 and "already exists" in r.output
+    assert (tmp_path / "cut.png").read_bytes() == before
+
+
+def test_project_json_and_files(born_file, tmp_path):
+    r = _run(["project", born_file, "--axis", "x", "--slab", "4", "--pixel", "0.1", "--resolution",
+              "0.5", "-o", tmp_path / "tem", "--json"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    assert doc["slab_thickness_nm"] == pytest.approx(4.0)
+    assert doc["right"] == "y" and doc["up"] == "z"
+    with tifffile.TiffFile(tmp_path / "tem_data.tif") as tf:
+        assert len(tf.pages) == 3
+        inten = tf.pages[0].asarray()
+        thick = tf.pages[1].asarray()
+    assert inten.dtype == np.float32 and thick.max() > 0
+    assert thick.max() <= 4.0 + 1e-5
+
+
+@pytest.mark.parametrize("args,needle", [
+    (["section", "{f}", "--offset", "50"], "outside the sample"),
+    (["section", "{f}", "--normal", "0,0,0"], "non-zero"),
+    (["section", "{f}", "--pixel", "-1"], "positive"),
+    (["section", "{f}", "--axis", "z", "--normal", "0,0,1"], "not both"),
+    (["project", "{f}", "--slab", "2", "--offset", "40"], "misses the sample"),
+    (["project", "{f}", "--mfp", "0"], "--mfp"),
+    (["project", "{f}", "--pixel", "0.0001"], "largest side"),
+    (["project", "{f}", "--threshold", "dark"], "--threshold"),
+    (["section", "{f}", "--at-progress", "50"], "fraction in (0, 1]"),
+    (["section", "{f}", "--at-progress", "0.5", "--at-time", "3"], "not both"),
+    (["section", "{f}", "--at-time", "-5"], "no prism is born"),
+    (["kinetics", "{f}", "--smooth", "-1"], "--smooth"),
+    (["kinetics", "{f}", "--track", "a,b"], "--track"),
+])
+def test_bad_options_exit_2_with_a_message(born_file, args, needle):
+    r = _run([a.replace("{f}", str(born_file)) for a in args])
+    assert r.exit_code == 2, r.output
+    assert needle in r.output
+    assert "Traceback" not in r.output
+
+
+def test_no_born_column_is_refused(tmp_path):
+    res = pack_stacks(Sphere((0, 0, 0), 6.0), 5, seed=0)
+    p = tmp_path / "plain.npz"
+    write(res.structure, p)
+    for cmd in (["kinetics", p], ["section", p, "--at-progress", "0.5"],
+                ["scatter", p, "--at-time", "1", "--csv", tmp_path / "q.csv"]):
+        r = _run(cmd)
+        assert r.exit_code == 2, r.output
+        assert "no 'born' column" in r.output and "plain.npz" in r.output
+    assert not (tmp_path / "q.csv").exists()
+
+
+def test_kinetics_outputs_and_track(born_file, tmp_path):
+    r = _run(["kinetics", born_file, "--csv", tmp_path / "a.csv", "--rate-csv", tmp_path / "r.csv",
+              "-o", tmp_path / "k.png", "--track", "0.5,1", "--keys", "stacking.mean", "--json"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    assert doc["t10"] <= doc["t50"] <= doc["t90"]
+    tr = doc["track"]
+    assert tr["progress_requested"] == [0.5, 1.0]
+    assert tr["n_prisms"][1] == doc["n_prisms"]
+    assert "stacking.mean" in tr
+    a = np.loadtxt(tmp_path / "a.csv", delimiter=",", skiprows=1)
+    assert a[-1, 1] == pytest.approx(1.0) and np.all(np.diff(a[:, 1]) > 0)
+    assert (tmp_path / "k.png").stat().st_size > 0
+
+
+def test_at_progress_on_scatter_and_relax_records_the_moment(born_file, tmp_path):
+    r = _run(["scatter", born_file, "--at-progress", "0.5", "--voxel", "0.25", "--csv",
+              tmp_path / "q.csv", "--json", tmp_path / "q.json"])
+    assert r.exit_code == 0, r.output
+    at = json.loads((tmp_path / "q.json").read_text())["at"]
+    assert 0.5 <= at["progress"] < 0.7 and at["n_prisms"] < at["n_total"]
+    r = _run(["relax", born_file, "--at-time", "10", "--voxel", "0.25", "--csv", tmp_path / "t.csv",
+              "--json", tmp_path / "t.json"])
+    assert r.exit_code == 0, r.output
+    at = json.loads((tmp_path / "t.json").read_text())["at"]
+    assert at["time"] == 10.0
+
+
+def test_section_at_progress_has_less_solid(born_file):
+    """Earlier in growth there is less solid on the same plane (born prisms only)."""
+    fr = []
+    for p in ("0.3", "1"):
+        r = _run(["section", born_file, "--voxel", "0.2", "--at-progress", p, "--json"])
+        assert r.exit_code == 0, r.output
+        d = json.loads(r.stdout)
+        fr.append(d["area_fractions"].get("solid", 0.0) + d["area_fractions"].get("interlayer", 0.0))
+    assert fr[0] < fr[1]
