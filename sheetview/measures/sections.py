@@ -28,12 +28,14 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
+import numba
 import numpy as np
 
 from ..domain import Box, Sphere
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
 from ..structure import Structure, SurfaceBody
+from .chords import _push, _regroup
 
 AXES = {"x": 0, "y": 1, "z": 2}
 PHASE_NAMES = {"solid": SOLID, "interlayer": INTERLAYER, "gel": GEL}
@@ -314,7 +316,12 @@ def _default_pixel(span: float) -> float:
 
 
 def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1, n_threads):
-    from .chords import _domain_interval, _periodic_images, _prisms_run
+    """Exact solid path length per pixel: each prism is scan-converted over the pixels of
+    its footprint; each pixel's path is clipped against the prism's 5 face planes
+    (Cyrus-Beck), then the intervals of one path are merged (overlaps counted once)."""
+    from .chords import _domain_interval, _periodic_images, prism_planes
+    length = z1 - z0
+    dom = s.domain
     rows, cols = np.mgrid[0:nr, 0:nc]
     o = np.zeros((nr * nc, 3))
     o[:, ra] = left + (cols.ravel() + 0.5) * px
@@ -322,26 +329,127 @@ def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1, n_th
     o[:, a] = z0
     u = np.zeros_like(o)
     u[:, a] = 1.0
-    length = z1 - z0
-    dom = s.domain
     if isinstance(dom, Box) and dom.periodic:
         tlo = np.zeros(len(o))
         thi = np.full(len(o), length)
-        valid = np.ones(len(o), bool)
         v, nrm, th = _periodic_images(s, dom)
     else:
         tlo, thi = _domain_interval(dom, o, u, np.full(len(o), length))
-        valid = thi > tlo
-        tlo = np.where(valid, tlo, 1.0)
-        thi = np.where(valid, thi, 0.0)
         v, nrm, th = s.vertices, s.normals, s.thickness
-    n = len(o)
-    if len(v) == 0:
-        t = np.zeros(n)
-    else:
-        il, is_, ie = _prisms_run(o, u, tlo, thi, v, nrm, th, 1e-9, n_threads)
-        t = np.bincount(il, weights=ie - is_, minlength=n)
+    valid = thi > tlo
+    del o, u, rows, cols
+    t = np.zeros(nr * nc)
+    if len(v):
+        planes = prism_planes(v, nrm, th)
+        off = np.abs(nrm) * (0.5 * np.asarray(th))[:, None]
+        blo = np.asarray(v).min(axis=1) - off
+        bhi = np.asarray(v).max(axis=1) + off
+        c0 = np.maximum(np.ceil((blo[:, ra] - left) / px - 0.5), 0).astype(np.int64)
+        c1 = np.minimum(np.floor((bhi[:, ra] - left) / px - 0.5), nc - 1).astype(np.int64)
+        r0 = np.maximum(np.ceil((top - bhi[:, ua]) / px - 0.5), 0).astype(np.int64)
+        r1 = np.minimum(np.floor((top - blo[:, ua]) / px - 0.5), nr - 1).astype(np.int64)
+        keep = (c1 >= c0) & (r1 >= r0) & (bhi[:, a] > z0) & (blo[:, a] < z1)
+        idx = np.flatnonzero(keep)
+        planes, c0, c1, r0, r1 = planes[idx], c0[idx], c1[idx], r0[idx], r1[idx]
+        # row blocks bounding the number of intervals held at once
+        work = ((c1 - c0 + 1) * (r1 - r0 + 1)).astype(float)
+        per_row = np.bincount(r0, weights=work / (r1 - r0 + 1), minlength=nr)  # rough spread
+        budget = 4_000_000
+        edges = [0]
+        acc = 0.0
+        for r in range(nr):
+            acc += per_row[r]
+            if acc > budget:
+                edges.append(r + 1)
+                acc = 0.0
+        if edges[-1] != nr:
+            edges.append(nr)
+        for b0, b1 in zip(edges[:-1], edges[1:]):
+            sel = np.flatnonzero((r1 >= b0) & (r0 < b1))
+            if len(sel) == 0:
+                continue
+            il, is_, ie = _footprint_intervals(
+                np.ascontiguousarray(planes[sel]), c0[sel], c1[sel], np.maximum(r0[sel], b0),
+                np.minimum(r1[sel], b1 - 1), a, ra, ua, left, top, px, nc, z0, tlo, thi)
+            _merge_lengths(il, is_, ie, t, 1e-9)
     return t.reshape(nr, nc), valid.reshape(nr, nc)
+
+
+@numba.njit(cache=True)
+def _footprint_intervals(planes, c0, c1, r0, r1, a, ra, ua, left, top, px, nc, z0, tlo, thi):
+    """(pixel, t_in, t_out) of every path through every prism over the pixels of its
+    footprint box; paths run along axis ``a`` from ``z0``, clipped to [tlo, thi]."""
+    out_l = np.empty(1024, np.int64)
+    out_s = np.empty(1024)
+    out_e = np.empty(1024)
+    no = 0
+    for p in range(planes.shape[0]):
+        for r in range(r0[p], r1[p] + 1):
+            y = top - (r + 0.5) * px
+            for c in range(c0[p], c1[p] + 1):
+                line = r * nc + c
+                t0 = tlo[line]
+                t1 = thi[line]
+                if not t0 < t1:
+                    continue
+                x = left + (c + 0.5) * px
+                ok = True
+                for f in range(5):
+                    den = planes[p, f, a]
+                    num = planes[p, f, 3] - (planes[p, f, ra] * x + planes[p, f, ua] * y
+                                             + planes[p, f, a] * z0)
+                    if den == 0.0:
+                        if num < 0.0:
+                            ok = False
+                            break
+                    else:
+                        tt = num / den
+                        if den > 0.0:
+                            if tt < t1:
+                                t1 = tt
+                        elif tt > t0:
+                            t0 = tt
+                        if t0 >= t1:
+                            ok = False
+                            break
+                if ok:
+                    out_l, out_s, out_e, no = _push(out_l, out_s, out_e, no, line, t0, t1)
+    return out_l[:no], out_s[:no], out_e[:no]
+
+
+@numba.njit(cache=True)
+def _merge_lengths(il, is_, ie, total, eps):
+    """Add the length of the union of each path's intervals to ``total[path]``
+    (intervals grouped by path with a counting sort, then each run sorted by start)."""
+    n = il.shape[0]
+    if n == 0:
+        return
+    ol, os_, oe = _regroup(il, is_, ie, total.shape[0])
+    k = 0
+    while k < n:
+        line = ol[k]
+        j = k + 1
+        while j < n and ol[j] == line:
+            j += 1
+        if j - k == 1:
+            total[line] += oe[k] - os_[k]
+            k = j
+            continue
+        o2 = np.argsort(os_[k:j]) + k
+        cs = os_[o2[0]]
+        ce = oe[o2[0]]
+        acc = 0.0
+        for q in range(1, j - k):
+            m = o2[q]
+            if os_[m] <= ce + eps:
+                if oe[m] > ce:
+                    ce = oe[m]
+            else:
+                acc += ce - cs
+                cs = os_[m]
+                ce = oe[m]
+        total[line] += acc + (ce - cs)
+        k = j
 
 
 def _project_grid(g: PhaseGrid, a, z0, z1, pixel):
