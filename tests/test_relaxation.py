@@ -6,7 +6,7 @@ import pytest
 from click.testing import CliRunner
 
 from sheetview.cli import main
-from sheetview.cli.experiment import read_experimental
+from sheetview.io.curves import read_experimental
 from sheetview.errors import InputError, OptionError
 from sheetview.grid import GEL, INTERLAYER, SOLID, PhaseGrid
 from sheetview.measures.relaxation import compare_t2, relaxation_spectrum

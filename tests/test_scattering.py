@@ -6,7 +6,7 @@ import pytest
 from click.testing import CliRunner
 
 from sheetview.cli import main
-from sheetview.cli.experiment import read_experimental
+from sheetview.io.curves import read_experimental
 from sheetview.errors import InputError, OptionError, SheetviewError
 from sheetview.grid import PhaseGrid
 from sheetview.measures.scattering import (compare_curve, phase_slds, power_law,

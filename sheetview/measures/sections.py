@@ -31,7 +31,7 @@ from dataclasses import dataclass, field
 import numba
 import numpy as np
 
-from ..domain import Box, Sphere
+from ..domain import Box
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
 from ..structure import Structure, SurfaceBody
