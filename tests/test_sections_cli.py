@@ -139,3 +139,24 @@ def test_section_at_progress_has_less_solid(born_file):
         d = json.loads(r.stdout)
         fr.append(d["area_fractions"].get("solid", 0.0) + d["area_fractions"].get("interlayer", 0.0))
     assert fr[0] < fr[1]
+
+
+def test_describe_on_section_and_projection(born_file):
+    """--describe adds the 2D descriptors; counting the interlayer as solid raises the solid
+    area fraction by the interlayer's own area fraction (same pixels, definition)."""
+    docs = {}
+    for phases in ("solid", "solid,interlayer"):
+        r = _run(["section", born_file, "--voxel", "0.2", "--describe", "--solid-phases", phases,
+                  "--lines", "300", "--json"])
+        assert r.exit_code == 0, r.output
+        docs[phases] = json.loads(r.stdout)
+    d0, d1 = docs["solid"], docs["solid,interlayer"]
+    fr = d0["area_fractions"]
+    assert d0["descriptors"]["area_fraction"] == pytest.approx(fr.get("solid", 0), abs=1e-9)
+    assert d1["descriptors"]["area_fraction"] == pytest.approx(
+        fr.get("solid", 0) + fr.get("interlayer", 0), abs=1e-9)
+    r = _run(["project", born_file, "--slab", "4", "--pixel", "0.1", "--describe", "--lines", "300",
+              "--json"])
+    assert r.exit_code == 0, r.output
+    d = json.loads(r.stdout)
+    assert 0 < d["descriptors"]["area_fraction"] < 1 and 0 < d["threshold"] < 1

@@ -1,6 +1,8 @@
 """``sheetview section`` and ``sheetview project``: virtual micrographs of a structure."""
 from __future__ import annotations
 
+from pathlib import Path
+
 import click
 import numpy as np
 
@@ -199,4 +201,150 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
             click.echo("  wrote " + ", ".join(doc["files"].values()))
 
 
-COMMANDS = [section_cmd, project_cmd]
+@click.command("compare")
+@click.argument("path", type=click.Path(dir_okay=False))
+@click.argument("image", type=click.Path(dir_okay=False))
+@click.option("--pixel-size", type=float, default=None,
+              help="Pixel edge of IMAGE in nm (needed unless its TIFF resolution tags say).")
+@click.option("--threshold", default="otsu", show_default=True,
+              help="Segmentation of IMAGE: 'otsu' or a value in the image's own scale.")
+@click.option("--solid", "solid_is", type=click.Choice(["bright", "dark"]), default="dark",
+              show_default=True, help="Whether the solid is the bright or the dark phase of IMAGE.")
+@click.option("--virtual", "kind", type=click.Choice(["section", "projection"]), default="section",
+              show_default=True, help="Virtual micrographs to compare with: phase sections or "
+                                      "transmission projections of slabs.")
+@click.option("--axis", default="z", show_default=True,
+              type=click.Choice(["x", "y", "z"], case_sensitive=False),
+              help="Sections across, or projections along, this axis.")
+@click.option("--count", type=int, default=5, show_default=True,
+              help="Virtual micrographs, evenly spread through the middle 80 %% of the domain.")
+@click.option("--slab", type=float, default=None,
+              help="Projections: slab thickness in nm (default: the domain split in --count).")
+@click.option("--mfp", type=float, default=100.0, show_default=True,
+              help="Projections: transmission length lambda in nm.")
+@click.option("--resolution", type=float, default=0.0, show_default=True,
+              help="Projections: Gaussian blur FWHM in nm.")
+@click.option("--solid-phases", default="solid,interlayer", show_default=True,
+              help="Sections: phases counted as solid.")
+@click.option("--csv", "csv_out", type=click.Path(dir_okay=False), default=None,
+              help="Write the distances: one row per distribution.")
+@click.option("-o", "--output", "plot_out", type=click.Path(dir_okay=False), default=None,
+              help="Figure (PNG): the images side by side and the overlaid distributions.")
+@click.option("--voxel", type=float, default=None, help="Voxel edge (nm) of the phase grid.")
+@click.option("--max-memory", default=None, help="Refuse a phase grid needing more than this.")
+@click.option("--lines", type=int, default=2000, show_default=True,
+              help="Random lines per image for the chord distributions.")
+@click.option("--seed", type=int, default=0, show_default=True)
+@click.option("--json", "as_json", is_flag=True, help="Print the result as JSON on stdout.")
+@click.option("--force", is_flag=True, help="Overwrite existing outputs.")
+@click.option("-q", "--quiet", is_flag=True, help="Print nothing but errors (and --json).")
+@at_options
+@read_options
+def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count, slab, mfp,
+                resolution, solid_phases, csv_out, plot_out, voxel, max_memory, lines, seed,
+                as_json, force, quiet, at_progress, at_time, **read_kw):
+    """Put a structure's virtual micrographs beside a real micrograph IMAGE: the same 2D
+    descriptors for both, and the Kolmogorov-Smirnov and Wasserstein distances between
+    their chord and local-thickness distributions."""
+    from ..io.images import read_micrograph
+    from ..io.output import check_writable
+    from ..measures.compare import compare, virtual_images
+    from ..measures.planar import describe
+    from ..report import write_csv
+
+    outs = [p for p in (csv_out, plot_out) if p]
+    if len(set(map(str, outs))) != len(outs):
+        raise OptionError("--csv and --output name the same file")
+    for p in outs:
+        check_writable(p, force)
+    phases = _parse_phases(solid_phases)
+    thr = "otsu" if str(threshold).lower() == "otsu" else _number(threshold, "--threshold")
+    mg = read_micrograph(image, pixel_size=pixel_size, threshold=thr, solid=solid_is)
+    obj = load(path, **read_kw)
+    obj, moment = apply_at(obj, at_progress, at_time)
+    vis = virtual_images(obj, kind, axis=axis, count=count, pixel=mg.pixel, slab=slab,
+                         settings=_grid_settings(voxel, max_memory), mfp=mfp,
+                         resolution=resolution, solid_phases=phases)
+    vds = [describe(v.mask, v.pixel, valid=v.valid, seed=seed + i, n_lines=lines)
+           for i, v in enumerate(vis)]
+    ods = describe(mg.mask, mg.pixel, valid=mg.valid, seed=seed, n_lines=lines)
+    cmp_ = compare(vds, ods, kind)
+    doc = {"file": str(path), "image": str(image), "pixel_nm": mg.pixel,
+           "threshold": getattr(mg, "threshold", None), "image_notes": list(getattr(mg, "notes", [])),
+           "virtual": [v.label for v in vis], **cmp_.to_dict()}
+    if moment is not None:
+        doc["at"] = moment.to_dict()
+    if csv_out:
+        write_csv(csv_out, cmp_.table(), force=force)
+    if plot_out:
+        _plot_compare(mg, vis[0], cmp_, plot_out, force, str(path), str(image))
+    if as_json:
+        click.echo(dumps(doc))
+    elif not quiet:
+        click.echo(f"{path} ({len(vis)} virtual {kind}s at {mg.pixel:g} nm) against {image}:")
+        for name, d in cmp_.distances.items():
+            if d["ks_statistic"] is None:
+                click.echo(f"  {name}: no sample on one side")
+                continue
+            click.echo(f"  {name}: mean {d['mean_virtual_nm']:.3g} vs {d['mean_observed_nm']:.3g} nm, "
+                       f"KS D {d['ks_statistic']:.3f}, Wasserstein {d['wasserstein_nm']:.3g} nm")
+        for k, v in cmp_.scalars.items():
+            if v["virtual_mean"] is not None and v["observed"] is not None:
+                click.echo(f"  {k}: {v['virtual_mean']:.4g} vs {v['observed']:.4g}")
+        for p in outs:
+            click.echo(f"  wrote {p}")
+
+
+def _number(text, what):
+    try:
+        return float(text)
+    except ValueError:
+        raise OptionError(f"{what}: expected 'otsu' or a number, got {text!r}") from None
+
+
+def _plot_compare(mg, vi, cmp_, path, force, name_v, name_o):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from ..io.output import atomic_path
+    from ..pictures import grey_rgb
+    fig = Figure(figsize=(10, 7.0), dpi=100)
+    FigureCanvasAgg(fig)
+    gs = fig.add_gridspec(2, 4, height_ratios=[1.5, 1], hspace=0.45, wspace=0.35,
+                          left=0.07, right=0.98, top=0.95, bottom=0.1)
+    ax = fig.add_subplot(gs[0, 0:2])
+    ax.imshow(grey_rgb(mg.grey, mg.valid), interpolation="nearest",
+              extent=(0, mg.grey.shape[1] * mg.pixel, 0, mg.grey.shape[0] * mg.pixel))
+    ax.contour(np.linspace(0, mg.grey.shape[1] * mg.pixel, mg.grey.shape[1]),
+               np.linspace(mg.grey.shape[0] * mg.pixel, 0, mg.grey.shape[0]),
+               mg.mask.astype(float), levels=[0.5], colors=["#e07b00"], linewidths=0.6)
+    ax.set_title(f"observed: {Path(name_o).name}", fontsize=8)
+    ax.set_xlabel("nm", fontsize=8)
+    ax2 = fig.add_subplot(gs[0, 2:4])
+    ax2.imshow(vi.picture, interpolation="nearest",
+               extent=(0, vi.mask.shape[1] * vi.pixel, 0, vi.mask.shape[0] * vi.pixel))
+    ax2.set_title(f"virtual: {vi.label}", fontsize=8)
+    ax2.set_xlabel("nm", fontsize=8)
+    for k, name in enumerate(cmp_.distances):
+        a = fig.add_subplot(gs[1, k])
+        for which, colour in (("virtual", "#2f5d8a"), ("observed", "#d08a2f")):
+            x, F = cmp_.ecdf(name, which)
+            if x.size:
+                a.step(x, F, where="post", color=colour, lw=1.2, label=which)
+        d = cmp_.distances[name]
+        ttl = name.replace("_", " ")
+        if d["ks_statistic"] is not None:
+            ttl += f"\nD {d['ks_statistic']:.2f}, W1 {d['wasserstein_nm']:.2g} nm"
+        a.set_title(ttl, fontsize=8)
+        a.set_xlabel("nm", fontsize=8)
+        a.tick_params(labelsize=7)
+        if k == 0:
+            a.set_ylabel("cumulative fraction", fontsize=8)
+            a.legend(fontsize=7)
+    fig.text(0.01, 0.01, f"{Path(name_v).name}: {cmp_.n_virtual} virtual {cmp_.kind}s (invented or simulated "
+             "structure) against a micrograph; distances, not a verdict", fontsize=7)
+    with atomic_path(path, force) as tmp:
+        fig.savefig(str(tmp), format="png")
+
+
+COMMANDS = [section_cmd, project_cmd, compare_cmd]
