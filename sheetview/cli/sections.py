@@ -208,8 +208,9 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
               help="Pixel edge of IMAGE in nm (needed unless its TIFF resolution tags say).")
 @click.option("--threshold", default="otsu", show_default=True,
               help="Segmentation of IMAGE: 'otsu' or a value in the image's own scale.")
-@click.option("--solid", "solid_is", type=click.Choice(["bright", "dark"]), default="dark",
-              show_default=True, help="Whether the solid is the bright or the dark phase of IMAGE.")
+@click.option("--solid", "solid_is", type=click.Choice(["bright", "dark"]), default="bright",
+              show_default=True, help="Whether the solid is the bright or the dark phase of IMAGE "
+                                      "(as for `sheetview micrograph`; bright-field TEM: dark).")
 @click.option("--virtual", "kind", type=click.Choice(["section", "projection"]), default="section",
               show_default=True, help="Virtual micrographs to compare with: phase sections or "
                                       "transmission projections of slabs.")

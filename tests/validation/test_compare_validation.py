@@ -77,7 +77,7 @@ def test_compare_a_structure_with_its_own_section_gives_zero_distance(pore_file,
     pixel = 0.2
     mg = _micrograph_of_section(pore_file, tmp_path, pixel)
     r = CliRunner().invoke(main, ["compare", str(pore_file), str(mg), "--pixel-size", str(pixel),
-                                  "--count", "1", "--voxel", str(pixel), "--json",
+                                  "--count", "1", "--voxel", str(pixel), "--json", "--solid", "dark",
                                   "-o", str(tmp_path / "cmp.png"), "--csv", str(tmp_path / "cmp.csv")])
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
@@ -103,7 +103,7 @@ def test_compare_against_a_different_image_gives_large_distances(pore_file, tmp_
     p = tmp_path / "discs.png"
     imsave(p, np.where(m, 20, 230).astype(np.uint8), cmap="gray", vmin=0, vmax=255)
     r = CliRunner().invoke(main, ["compare", str(pore_file), str(p), "--pixel-size", "0.2",
-                                  "--count", "3", "--voxel", "0.2", "--json"])
+                                  "--count", "3", "--voxel", "0.2", "--json", "--solid", "dark"])
     assert r.exit_code == 0, r.output
     d = json.loads(r.stdout)["distances"]["thickness_solid"]
     assert d["ks_statistic"] > 0.5
