@@ -160,3 +160,12 @@ def test_describe_on_section_and_projection(born_file):
     assert r.exit_code == 0, r.output
     d = json.loads(r.stdout)
     assert 0 < d["descriptors"]["area_fraction"] < 1 and 0 < d["threshold"] < 1
+
+
+def test_render_at_progress_draws_the_earlier_structure(born_file, tmp_path):
+    """render --at-progress reports the moment it draws and writes the picture."""
+    out = tmp_path / "early.png"
+    r = _run(["render", born_file, "--at-progress", "0.3", "-o", out, "--size", "320x240"])
+    assert r.exit_code == 0, r.output
+    assert "as it stood at progress 0.3" in r.output
+    assert out.stat().st_size > 0
