@@ -46,3 +46,17 @@ class OutputExistsError(SheetviewError):
 
 class MemoryLimitError(SheetviewError):
     """A requested computation would need more memory than allowed."""
+
+
+def positive(value, what: str, *, field: str | None = None, unit: str = "nm") -> float:
+    """``value`` as a finite float > 0, else an :class:`OptionError` naming ``what``
+    (e.g. ``"--pixel"``) and the expected unit."""
+    import math
+    kind = f"number of {unit}" if unit else "number"
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise OptionError(f"{what} must be a positive {kind}, got {value!r}", field=field) from None
+    if not (math.isfinite(v) and v > 0):
+        raise OptionError(f"{what} must be a positive {kind}, got {value!r}", field=field)
+    return v

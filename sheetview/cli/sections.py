@@ -55,6 +55,17 @@ def _common(f):
     return f
 
 
+def _look(f):
+    """The contrast options of a virtual transmission micrograph."""
+    f = click.option("--resolution", type=float, default=0.0, show_default=True,
+                     help="Projections: Gaussian blur, full width at half maximum in nm "
+                          "(0: none).")(f)
+    f = click.option("--mfp", type=float, default=100.0, show_default=True,
+                     help="Projections: transmission length lambda (nm) of exp(-t / lambda); "
+                          "sets the contrast.")(f)
+    return f
+
+
 @click.command("section")
 @click.argument("path", type=click.Path(dir_okay=False))
 @click.option("--axis", default=None, type=click.Choice(["x", "y", "z"], case_sensitive=False),
@@ -136,10 +147,7 @@ def _echo_descriptors(d):
               help="Slab centre: signed distance (nm) from the domain's centre along the axis.")
 @click.option("--pixel", type=float, default=None,
               help="Pixel edge in nm (default: about 512 pixels across).")
-@click.option("--mfp", type=float, default=100.0, show_default=True,
-              help="Transmission length lambda (nm) of exp(-t / lambda); sets the contrast.")
-@click.option("--resolution", type=float, default=0.0, show_default=True,
-              help="Gaussian blur, full width at half maximum in nm (0: none).")
+@_look
 @click.option("--threshold", default="otsu", show_default=True,
               help="Segmentation of --describe: 'otsu' or an intensity in 0..1 below which a "
                    "pixel is solid.")
@@ -221,10 +229,7 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
               help="Virtual micrographs, evenly spread through the middle 80 %% of the domain.")
 @click.option("--slab", type=float, default=None,
               help="Projections: slab thickness in nm (default: the domain split in --count).")
-@click.option("--mfp", type=float, default=100.0, show_default=True,
-              help="Projections: transmission length lambda in nm.")
-@click.option("--resolution", type=float, default=0.0, show_default=True,
-              help="Projections: Gaussian blur FWHM in nm.")
+@_look
 @click.option("--solid-phases", default="solid,interlayer", show_default=True,
               help="Sections: phases counted as solid.")
 @click.option("--csv", "csv_out", type=click.Path(dir_okay=False), default=None,

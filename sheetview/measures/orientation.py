@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 import numba
 import numpy as np
 
-from ..errors import OptionError
+from ..errors import OptionError, positive
 
 DEFAULTS = {"local_radius": 5.0, "frame": "z", "n_cos": 10, "n_phi": 12, "pole_bins": 41}
 
@@ -400,14 +400,7 @@ def orientation(structure, *, local_radius: float = DEFAULTS["local_radius"],
     """
     from .stacking import _check_structure
     _check_structure(structure)
-    try:
-        local_radius = float(local_radius)
-    except (TypeError, ValueError):
-        raise OptionError(f"local radius must be a number, got {local_radius!r}",
-                          field="local_radius") from None
-    if not (math.isfinite(local_radius) and local_radius > 0):
-        raise OptionError(f"local radius must be a positive number of nm, got {local_radius}",
-                          field="local_radius")
+    local_radius = positive(local_radius, "local radius", field="local_radius")
     if frame not in ("z", "director"):
         raise OptionError(f"frame must be 'z' or 'director', got {frame!r}", field="frame")
     for name, v in (("n_cos", n_cos), ("n_phi", n_phi), ("pole_bins", pole_bins)):

@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import numba
 import numpy as np
 
-from ..errors import OptionError
+from ..errors import OptionError, positive
 
 PHASES = ("solid", "pore")
 DIRECTIONS = ("rows", "cols", "random")
@@ -43,15 +43,7 @@ EDT_THREADS = 2
 
 # ======================================================================= checks
 def _check_pixel(pixel) -> float:
-    try:
-        p = float(pixel)
-    except (TypeError, ValueError):
-        raise OptionError(f"pixel size must be a number of nm, not {pixel!r}",
-                          field="pixel") from None
-    if not (math.isfinite(p) and p > 0):
-        raise OptionError(f"pixel size must be a positive number of nm, not {pixel!r}",
-                          field="pixel")
-    return p
+    return positive(pixel, "pixel size", field="pixel")
 
 
 def _check_mask(mask, valid=None, name="mask"):
@@ -828,14 +820,7 @@ def s2_2d(mask, pixel, *, valid=None, r_max=None) -> S2Result:
     if r_max is None:
         rpx = max(1, (min(M, L) - 1) // 2)
     else:
-        try:
-            rr = float(r_max)
-        except (TypeError, ValueError):
-            raise OptionError(f"r_max must be a length in nm, not {r_max!r}",
-                              field="r_max") from None
-        if not (math.isfinite(rr) and rr > 0):
-            raise OptionError(f"r_max must be a positive length in nm, not {r_max!r}",
-                              field="r_max")
+        rr = positive(r_max, "r_max", field="r_max")
         rpx = int(min(math.floor(rr / px + 1e-9), max(M, L) - 1))
         rpx = max(rpx, 1)
     shape = (sfft.next_fast_len(M + rpx, real=True), sfft.next_fast_len(L + rpx, real=True))
@@ -930,10 +915,7 @@ def _gradients(g, derivative, derivative_px, mode="reflect"):
     if derivative == "sobel":
         return (ndi.sobel(g, axis=0, mode=mode) / 8.0, ndi.sobel(g, axis=1, mode=mode) / 8.0)
     if derivative == "gaussian":
-        s = float(derivative_px)
-        if not (math.isfinite(s) and s > 0):
-            raise OptionError(f"derivative_px must be a positive number of pixels, not "
-                              f"{derivative_px!r}", field="derivative_px")
+        s = positive(derivative_px, "derivative_px", field="derivative_px", unit="pixels")
         return (ndi.gaussian_filter(g, s, order=(1, 0), mode=mode, truncate=4.0),
                 ndi.gaussian_filter(g, s, order=(0, 1), mode=mode, truncate=4.0))
     raise OptionError(f'derivative must be "gaussian" or "sobel", not {derivative!r}',

@@ -32,7 +32,7 @@ import numba
 import numpy as np
 
 from ..domain import Box
-from ..errors import OptionError
+from ..errors import OptionError, positive
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
 from ..structure import Structure, SurfaceBody
 from .chords import _push, _regroup
@@ -71,10 +71,7 @@ def domain_centre_and_span(domain) -> tuple[np.ndarray, np.ndarray]:
 def _check_pixel(pixel, what="--pixel"):
     if pixel is None:
         return None
-    p = float(pixel)
-    if not (math.isfinite(p) and p > 0):
-        raise OptionError(f"{what} must be a positive length in nm, got {pixel!r}", field="pixel")
-    return p
+    return positive(pixel, what, field="pixel")
 
 
 def _check_side(n_rows, n_cols, pixel):
@@ -247,9 +244,7 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
         raise OptionError(f"--axis must be x, y or z, got {axis!r}", field="axis")
     axis = "xyz"[a]
     pixel = _check_pixel(pixel)
-    mfp = float(mfp)
-    if not (math.isfinite(mfp) and mfp > 0):
-        raise OptionError(f"--mfp must be a positive length in nm, got {mfp!r}", field="mfp")
+    mfp = positive(mfp, "--mfp", field="mfp")
     resolution = float(resolution or 0.0)
     if not (math.isfinite(resolution) and resolution >= 0):
         raise OptionError(f"--resolution must be a length >= 0 nm, got {resolution!r}",
@@ -262,9 +257,7 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
     if slab is None:
         z0, z1 = centre[a] - 0.5 * span[a], centre[a] + 0.5 * span[a]
     else:
-        slab = float(slab)
-        if not (math.isfinite(slab) and slab > 0):
-            raise OptionError(f"--slab must be a positive thickness in nm, got {slab!r}", field="slab")
+        slab = positive(slab, "--slab", field="slab")
         z0, z1 = centre[a] + off - 0.5 * slab, centre[a] + off + 0.5 * slab
     if not math.isfinite(off) or z1 <= centre[a] - 0.5 * span[a] or z0 >= centre[a] + 0.5 * span[a]:
         raise OptionError(f"the slab {z0:.4g} to {z1:.4g} nm along {axis} misses the sample "
