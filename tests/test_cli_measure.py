@@ -106,3 +106,85 @@ def test_volume_input_refused(tmp_path):
     np.save(p, np.zeros((4, 4, 4), np.uint8))
     r = run(p, "--voxel-size", "1", "--phases", "0=gel", "--only", "stacking")
     assert r.exit_code == 2 and "need prisms" in r.output
+
+
+def test_measure_settings_builder():
+    """The one settings builder of ``measure`` and ``batch``: without options it gives
+    the defaults of the pipeline (pipeline.DEFAULTS, derived) for every key it builds;
+    option texts are parsed (sizes in binary units, common practice: 1G = 2^30 bytes);
+    bad values are refused naming the option."""
+    from sheetview.cli.measure import SETTINGS, measure_settings
+    from sheetview.pipeline import DEFAULTS
+    s = measure_settings()
+    assert tuple(s) == SETTINGS
+    assert s == {k: DEFAULTS[k] for k in SETTINGS}
+    s = measure_settings(max_memory="1.5G", pore_split="5,20", lines=300)
+    assert s["max_memory"] == 3 * 2 ** 29 and s["pore_split"] == (5.0, 20.0)
+    assert measure_settings(pore_split=[5, 20])["pore_split"] == (5.0, 20.0)
+    for kw, opt in (({"pore_split": "20,5"}, "--pore-split"), ({"pore_split": "1,2,3,4"},
+                    "--pore-split"), ({"lines": 0}, "--lines"), ({"voxel": 0.001}, "--voxel"),
+                    ({"density": 0}, "--density"), ({"frame": "x"}, "--frame"),
+                    ({"gap_tol": 0.8}, "--gap-tol")):
+        with pytest.raises(sv.OptionError, match=opt):
+            measure_settings(**kw)
+    # the gap tolerance is checked against the repeat given for reading
+    assert measure_settings(gap_tol=0.8, spacing=1.9)["gap_tol"] == 0.8
+
+
+@pytest.mark.parametrize("args,msg", [
+    (["--pore-split", "20,5"], "--pore-split"),
+    (["--frame", "x"], "--frame"),
+])
+def test_more_option_errors(two_stacks, args, msg):
+    r = run(two_stacks, *args)
+    assert r.exit_code == 2 and msg in r.output and "Traceback" not in r.output
+
+
+def _reference_csv(path, columns):
+    """The cell rule of the report tables written cell by cell with Python's ``csv``
+    module (standard library reference): integers and booleans as integers, floats as
+    ``repr`` when a whole number below 1e15, else 9 significant digits; text as is."""
+    import csv
+    import math
+
+    def cell(x, kind):
+        if kind == "i":
+            return str(int(x))
+        if kind == "s":
+            return str(x)
+        v = float(x)
+        if math.isnan(v) or math.isinf(v):
+            return format(v, ".9g")
+        return repr(v) if v == int(v) and abs(v) < 1e15 else f"{v:.9g}"
+    cols = [np.asarray(c) for c in columns.values()]
+    kinds = ["i" if c.dtype.kind in "iub" else "s" if c.dtype.kind in "USO" else "f"
+             for c in cols]
+    with open(path, "w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(list(columns))
+        for r in zip(*[c.tolist() for c in cols]):
+            w.writerow([cell(x, k) for x, k in zip(r, kinds)])
+
+
+def test_report_csv_cells_match_the_csv_module(tmp_path):
+    """The column-wise CSV writer of the report gives byte for byte the file Python's
+    csv module writes with the documented cell rule (reference: the standard library),
+    over more rows than one block, with NaN, infinities, -0.0, whole numbers around 1e15,
+    booleans, small and large integers, and a text column with commas and quotes."""
+    from sheetview.report import write_csv
+    rng = np.random.default_rng(7)
+    n = 70_000
+    f = rng.normal(0, 10, n) * 10.0 ** rng.integers(-12, 17, n)
+    f[rng.integers(0, n, 500)] = np.round(f[rng.integers(0, n, 500)])
+    f[:8] = [np.nan, np.inf, -np.inf, -0.0, 1e15, 1e15 - 1, 2.0, -3.5]
+    num = {"f": f, "f32": f.astype(np.float32), "i8": rng.integers(-128, 127, n).astype(np.int8),
+           "u": rng.integers(0, 2 ** 63, n, dtype=np.uint64), "b": rng.random(n) < 0.5,
+           "i": rng.integers(-10 ** 12, 10 ** 12, n)}
+    text = {"name": np.array(["a,b", 'say "x"', "plain", ""] * 3, dtype=object),
+            "x": np.array([0.1, np.nan, 3.0, 1e20] * 3)}
+    empty = {"a": np.zeros(0), "b": np.zeros(0, int)}
+    for i, cols in enumerate((num, text, empty)):
+        got, ref = tmp_path / f"got{i}.csv", tmp_path / f"ref{i}.csv"
+        write_csv(got, cols)
+        _reference_csv(ref, cols)
+        assert got.read_bytes() == ref.read_bytes()

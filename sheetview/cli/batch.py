@@ -1,27 +1,13 @@
 """``sheetview batch`` (measure many structures, resumable) and ``sheetview trend``."""
 from __future__ import annotations
 
-import math
 import sys
 
 import click
 
 from ..errors import OptionError
 from .common import read_options
-from .common import parse_size, parse_split
-
-
-def batch_settings(voxel, max_memory, lines, seed, intrusion, density, pore_split) -> dict:
-    """The measure settings of a batch, checked like ``sheetview measure`` does."""
-    if voxel is not None and not (math.isfinite(voxel) and voxel >= 0.01):
-        raise OptionError(f"--voxel: must be at least 0.01 nm, got {voxel}")
-    if not (math.isfinite(density) and density > 0):
-        raise OptionError(f"--density: must be a positive number of g/cm^3, got {density}")
-    if lines < 1 or lines > 10_000_000:
-        raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
-    return {"voxel": voxel, "max_memory": parse_size(max_memory), "density": density,
-            "pore_split": list(parse_split(pore_split)), "intrusion": bool(intrusion),
-            "lines": lines, "seed": seed}
+from .measure import measure_options, measure_settings
 
 
 @click.command("batch")
@@ -31,25 +17,14 @@ def batch_settings(voxel, max_memory, lines, seed, intrusion, density, pore_spli
                    "Reusing it resumes: finished structures are skipped.")
 @click.option("--only", default=None, metavar="NAMES",
               help="Comma-separated measures (default: all that apply to each input).")
-@click.option("--voxel", type=float, default=None, metavar="NM",
-              help="Voxel edge of the phase grid (default as in `measure`).")
-@click.option("--max-memory", default=None, metavar="SIZE",
-              help="Largest memory a phase grid may use per structure, e.g. 4G.")
-@click.option("--lines", type=int, default=20000, show_default=True,
-              help="Isotropic random lines for the exact chords.")
-@click.option("--seed", type=int, default=0, show_default=True, help="Seed of the random lines.")
-@click.option("--intrusion/--no-intrusion", default=False, show_default=True,
-              help="Also compute the simulated intrusion pore size distribution (as in "
-                   "`measure`).")
-@click.option("--density", type=float, default=2.73, show_default=True, metavar="G/CM3",
-              help="Solid density for the specific surface per mass.")
-@click.option("--pore-split", default=None, metavar="NM,NM",
-              help="Split the gel pores by local thickness at these diameters.")
+@measure_options
 @click.option("--workers", type=int, default=1, show_default=True,
-              help="Local worker processes (numba threads per worker: cores / workers); "
-                   "with --cluster local, the number of Dask workers.")
+              help="Structures measured at once: this process and N - 1 worker processes "
+                   "(numba threads per worker: cores / N); with --cluster local, the number "
+                   "of Dask workers.")
 @click.option("--threads", type=int, default=None, metavar="N",
-              help="Numba threads per local worker (default: cores / workers).")
+              help="Numba threads per local worker (default: all cores with 1 worker, "
+                   "else cores / workers).")
 @click.option("--cluster", default=None, metavar="ADDRESS",
               help="Send the work to a running Dask scheduler (e.g. tcp://host:8786), or "
                    "'local' to start a Dask LocalCluster. Inputs and the output folder must "
@@ -58,9 +33,13 @@ def batch_settings(voxel, max_memory, lines, seed, intrusion, density, pore_spli
 @click.option("--no-html", is_flag=True, help="No HTML pages (report.html, index.html).")
 @click.option("-q", "--quiet", is_flag=True, help="No progress on stderr (the log is kept).")
 @read_options
-def batch(inputs, out, only, voxel, max_memory, lines, seed, intrusion, density, pore_split,
-          workers, threads, cluster, no_plots, no_html, quiet, **read_kw):
+def batch(inputs, out, only, voxel, max_memory, angle_tol, gap_tol, overlap, tilt_limit,
+          local_radius, frame, density, pore_split, intrusion, lines, seed, workers, threads,
+          cluster, no_plots, no_html, quiet, **read_kw):
     """Measure every structure of PATHS_OR_GLOBS... with the same settings into OUT.
+
+    The measure options are those of `sheetview measure`, with the same names, defaults
+    and meaning; each structure gets exactly the numbers `sheetview measure FILE` gives.
 
     Each result is kept under OUT/runs/, keyed by the SHA-256 of the input's content
     and the settings; rerunning the same command skips finished structures (a run
@@ -73,7 +52,9 @@ def batch(inputs, out, only, voxel, max_memory, lines, seed, intrusion, density,
     failed, 2 for a usage error (bad option, unwritable OUT).
     """
     from ..batch import run_batch
-    settings = batch_settings(voxel, max_memory, lines, seed, intrusion, density, pore_split)
+    settings = measure_settings(voxel, max_memory, angle_tol, gap_tol, overlap, tilt_limit,
+                                local_radius, frame, density, pore_split, intrusion, lines,
+                                seed, spacing=read_kw.get("spacing"))
     if workers < 1:
         raise OptionError(f"--workers: must be at least 1, got {workers}")
     if threads is not None and threads < 1:

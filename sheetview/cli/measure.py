@@ -8,6 +8,7 @@ import click
 
 from .. import __version__
 from ..errors import OptionError
+from ..pipeline import DEFAULTS, SPLIT_NAMES
 from .common import dumps, load, parse_size, parse_split, read_options
 
 _OPTION_OF = {"angle_tol": "--angle-tol", "gap_tol": "--gap-tol", "overlap": "--overlap",
@@ -20,6 +21,145 @@ def _as_cli_error(e: OptionError, source=None) -> OptionError:
     if opt is None:
         return e
     return OptionError(f"{opt}: {e.detail}", path=source)
+
+
+#: The settings of a measure run that ``measure`` and ``batch`` take on the command line,
+#: in the order of :func:`measure_settings` (every one changes a number of the results,
+#: except ``max_memory``, which only decides whether a grid may be built).
+SETTINGS = ("voxel", "max_memory", "angle_tol", "gap_tol", "overlap", "tilt_limit",
+            "local_radius", "frame", "density", "pore_split", "intrusion", "lines", "seed")
+
+#: Settings that change no number (only whether a run fits in memory): left out of the
+#: batch result key, so a rerun with another limit keeps its finished results.
+NO_NUMBER_SETTINGS = ("max_memory",)
+
+
+def measure_options(f):
+    """Decorator adding the measure settings options (the same for ``measure`` and
+    ``batch``: same names, defaults and meaning). :func:`measure_settings` checks them and
+    builds the settings dict."""
+    d = DEFAULTS
+    opts = [
+        click.option("--voxel", type=float, default=None, metavar="NM",
+                     help="Voxel edge of the phase grid (default: min(thickness, repeat - "
+                          "thickness) / 6)."),
+        click.option("--max-memory", default=None, metavar="SIZE",
+                     help="Largest memory the phase grid may use (per structure), e.g. 8G "
+                          "(default: half the available memory). A larger grid stops with the "
+                          "voxel size that fits."),
+        click.option("--angle-tol", type=float, default=d["angle_tol"], show_default=True,
+                     metavar="DEG",
+                     help="Largest angle between normals of stacked or in-plane neighbours."),
+        click.option("--gap-tol", type=float, default=d["gap_tol"], show_default=True,
+                     metavar="NM",
+                     help="Tolerance on the interlayer gap (stacked: |gap - spacing|; "
+                          "in-plane: gap)."),
+        click.option("--overlap", type=float, default=d["overlap"], show_default=True,
+                     metavar="FRAC",
+                     help="Least projected overlap of stacked triangles, as a fraction of the "
+                          "smaller."),
+        click.option("--tilt-limit", type=float, default=d["tilt_limit"], show_default=True,
+                     metavar="DEG",
+                     help="Pairs stacked but for an angle up to this are reported as tilted "
+                          "contacts."),
+        click.option("--local-radius", type=float, default=d["local_radius"], show_default=True,
+                     metavar="NM", help="Radius of the neighbourhood of the local order "
+                                        "parameter."),
+        click.option("--frame", type=click.Choice(["z", "director"]), default=d["frame"],
+                     show_default=True,
+                     help="Reference axis of the orientation histogram and pole figure."),
+        click.option("--density", type=float, default=d["density"], show_default=True,
+                     metavar="G/CM3",
+                     help="Solid density for the specific surface per mass (C-S-H, Muller et "
+                          "al. 2013)."),
+        click.option("--pore-split", default=None, metavar="NM,NM",
+                     help="Split the gel pores by local thickness at these diameters into gel, "
+                          "interhydrate, capillary classes (e.g. 5,20)."),
+        click.option("--intrusion/--no-intrusion", default=d["intrusion"], show_default=True,
+                     help="Also compute the simulated intrusion (ink-bottle) pore size "
+                          "distribution; it costs several times the local thickness on large "
+                          "grids."),
+        click.option("--lines", type=int, default=d["lines"], show_default=True,
+                     help="Isotropic random lines for the exact chords."),
+        click.option("--seed", type=int, default=d["seed"], show_default=True,
+                     help="Seed of the random lines."),
+    ]
+    for o in reversed(opts):
+        f = o(f)
+    return f
+
+
+def measure_settings(voxel=None, max_memory=None, angle_tol=DEFAULTS["angle_tol"],
+                     gap_tol=DEFAULTS["gap_tol"], overlap=DEFAULTS["overlap"],
+                     tilt_limit=DEFAULTS["tilt_limit"], local_radius=DEFAULTS["local_radius"],
+                     frame=DEFAULTS["frame"], density=DEFAULTS["density"], pore_split=None,
+                     intrusion=DEFAULTS["intrusion"], lines=DEFAULTS["lines"],
+                     seed=DEFAULTS["seed"], *, spacing=None) -> dict:
+    """Check the measure options and build the settings of a measure run.
+
+    The one builder of ``sheetview measure`` and ``sheetview batch`` (and of the batch
+    result key): keyword names are the option names (``--angle-tol`` -> ``angle_tol``);
+    ``max_memory`` may be a size text (``"8G"``) or bytes, ``pore_split`` a text
+    (``"5,20"``) or a sequence. ``spacing`` is the interlayer repeat the gap tolerance is
+    checked against before any file is read (default 1.4 nm; a file's own repeat is
+    checked again when it is measured). Raises :class:`OptionError` naming the option.
+    Returns a dict with the keys of :data:`SETTINGS` (plain Python values).
+    """
+    from ..measures.stacking import StackingSettings
+    try:
+        StackingSettings(angle_tol, gap_tol, overlap, tilt_limit, spacing=spacing or 1.4)
+    except OptionError as e:
+        raise _as_cli_error(e) from None
+    local_radius = _number("--local-radius", local_radius)
+    density = _number("--density", density)
+    voxel = None if voxel is None else _number("--voxel", voxel)
+    lines = _number("--lines", lines, whole=True)
+    seed = _number("--seed", seed, whole=True)
+    if not local_radius > 0:
+        raise OptionError(f"--local-radius: must be a positive number of nm, got {local_radius}")
+    if frame not in ("z", "director"):
+        raise OptionError(f"--frame: must be z or director, got {frame!r}")
+    if voxel is not None and not (math.isfinite(voxel) and voxel >= 0.01):
+        raise OptionError(f"--voxel: must be at least 0.01 nm, got {voxel}")
+    if not (math.isfinite(density) and density > 0):
+        raise OptionError(f"--density: must be a positive number of g/cm^3, got {density}")
+    if not 1 <= lines <= 10_000_000:
+        raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
+    if pore_split is None or isinstance(pore_split, str):
+        split = parse_split(pore_split)
+    else:
+        try:
+            split = tuple(float(x) for x in pore_split)
+        except (TypeError, ValueError):
+            raise OptionError(f"--pore-split: expected diameters in nm, got {pore_split!r}") \
+                from None
+    if (any(not (math.isfinite(x) and x > 0) for x in split)
+            or any(b <= a for a, b in zip(split, split[1:]))):
+        raise OptionError(f"--pore-split: diameters must be increasing positive numbers of nm, "
+                          f"got {','.join(f'{x:g}' for x in split)}")
+    if len(split) >= len(SPLIT_NAMES):
+        raise OptionError(f"--pore-split: at most {len(SPLIT_NAMES) - 1} diameters, got "
+                          f"{len(split)}")
+    return {"voxel": None if voxel is None else float(voxel),
+            "max_memory": parse_size(max_memory),
+            "angle_tol": float(angle_tol), "gap_tol": float(gap_tol), "overlap": float(overlap),
+            "tilt_limit": float(tilt_limit), "local_radius": float(local_radius),
+            "frame": frame, "density": float(density), "pore_split": split,
+            "intrusion": bool(intrusion), "lines": int(lines), "seed": int(seed)}
+
+
+def _number(opt: str, v, whole: bool = False):
+    """``v`` as a float (or a whole int with ``whole``), else an OptionError naming ``opt``
+    (the range is checked by the caller)."""
+    ok = not isinstance(v, (bool, str))
+    try:
+        ok = ok and (not whole or int(v) == v) and float(v) is not None
+    except (TypeError, ValueError, OverflowError):
+        ok = False
+    if not ok:
+        raise OptionError(f"{opt}: expected a {'whole number' if whole else 'number'}, "
+                          f"got {v!r}")
+    return int(v) if whole else float(v)
 
 
 def _content_hash(path) -> str:
@@ -119,35 +259,7 @@ def _print_summary(doc):
 @click.option("-o", "--output", "outdir", type=click.Path(file_okay=False), default=None,
               help="Write a report folder: summary.json, CSV tables, PNG figures.")
 @click.option("--force", is_flag=True, help="Write into an existing non-empty report folder.")
-@click.option("--voxel", type=float, default=None, metavar="NM",
-              help="Voxel edge of the phase grid (default: min(thickness, repeat - "
-                   "thickness) / 6).")
-@click.option("--max-memory", default=None, metavar="SIZE",
-              help="Largest memory the phase grid may use, e.g. 8G (default: half the "
-                   "available memory). A larger grid stops with the voxel size that fits.")
-@click.option("--angle-tol", type=float, default=5.0, show_default=True, metavar="DEG",
-              help="Largest angle between normals of stacked or in-plane neighbours.")
-@click.option("--gap-tol", type=float, default=0.35, show_default=True, metavar="NM",
-              help="Tolerance on the interlayer gap (stacked: |gap - spacing|; in-plane: gap).")
-@click.option("--overlap", type=float, default=0.1, show_default=True, metavar="FRAC",
-              help="Least projected overlap of stacked triangles, as a fraction of the smaller.")
-@click.option("--tilt-limit", type=float, default=25.0, show_default=True, metavar="DEG",
-              help="Pairs stacked but for an angle up to this are reported as tilted contacts.")
-@click.option("--local-radius", type=float, default=5.0, show_default=True, metavar="NM",
-              help="Radius of the neighbourhood of the local order parameter.")
-@click.option("--frame", type=click.Choice(["z", "director"]), default="z", show_default=True,
-              help="Reference axis of the orientation histogram and pole figure.")
-@click.option("--density", type=float, default=2.73, show_default=True, metavar="G/CM3",
-              help="Solid density for the specific surface per mass (C-S-H, Muller et al. 2013).")
-@click.option("--pore-split", default=None, metavar="NM,NM",
-              help="Split the gel pores by local thickness at these diameters into gel, "
-                   "interhydrate, capillary classes (e.g. 5,20).")
-@click.option("--intrusion/--no-intrusion", default=False, show_default=True,
-              help="Also compute the simulated intrusion (ink-bottle) pore size distribution; "
-                   "it costs several times the local thickness on large grids.")
-@click.option("--lines", type=int, default=20000, show_default=True,
-              help="Isotropic random lines for the exact chords.")
-@click.option("--seed", type=int, default=0, show_default=True, help="Seed of the random lines.")
+@measure_options
 @click.option("--no-plots", is_flag=True, help="With -o: write tables only, no PNG figures.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages on stderr.")
 @read_options
@@ -163,27 +275,11 @@ def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, ga
     measured as they are.
     """
     from .. import measures
-    from ..measures.stacking import StackingSettings
 
-    settings = {"angle_tol": angle_tol, "gap_tol": gap_tol, "overlap": overlap,
-                "tilt_limit": tilt_limit, "local_radius": local_radius, "frame": frame,
-                "voxel": voxel, "max_memory": parse_size(max_memory), "density": density,
-                "pore_split": parse_split(pore_split), "intrusion": intrusion,
-                "lines": lines, "seed": seed}
     # check options before reading (the file's spacing is checked again below)
-    try:
-        StackingSettings(angle_tol, gap_tol, overlap, tilt_limit,
-                         spacing=read_kw.get("spacing") or 1.4)
-    except OptionError as e:
-        raise _as_cli_error(e) from None
-    if not local_radius > 0:
-        raise OptionError(f"--local-radius: must be a positive number of nm, got {local_radius}")
-    if voxel is not None and not (math.isfinite(voxel) and voxel >= 0.01):
-        raise OptionError(f"--voxel: must be at least 0.01 nm, got {voxel}")
-    if not (math.isfinite(density) and density > 0):
-        raise OptionError(f"--density: must be a positive number of g/cm^3, got {density}")
-    if lines < 1 or lines > 10_000_000:
-        raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
+    settings = measure_settings(voxel, max_memory, angle_tol, gap_tol, overlap, tilt_limit,
+                                local_radius, frame, density, pore_split, intrusion, lines,
+                                seed, spacing=read_kw.get("spacing"))
     if outdir is not None:
         from ..report import check_folder
         check_folder(outdir, force)
