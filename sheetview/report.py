@@ -76,28 +76,50 @@ def _fmt(v):
 
 
 def write_csv(path, columns: dict, force: bool = False) -> Path:
-    """Write equal-length columns as a CSV file with a header row (atomically)."""
+    """Write equal-length columns as a CSV file with a header row (atomically).
+
+    Cells: whole-number columns (and booleans) as integers; floats with 9 significant
+    digits (``format(v, ".9g")``), or ``repr`` where the value is a whole number below
+    1e15 (``2.0``), ``nan``, ``inf``, ``-inf``; text as it is. Rows end in CRLF, as the
+    ``csv`` module writes them. Number columns are formatted column by column (tens of
+    thousands of rows: chords, prisms); tables with text go through ``csv.writer``.
+    """
     names = list(columns)
     cols = [np.asarray(columns[k]) for k in names]
     n = len(cols[0]) if cols else 0
     if any(len(c) != n for c in cols):
         raise ValueError("columns must have equal lengths")
+    kinds = ["i" if c.dtype.kind in "iub" else "s" if c.dtype.kind in "USO" else
+             "f" if c.dtype.kind == "f" else "x" for c in cols]
     with atomic_path(path, force=force) as tmp:
         with open(tmp, "w", newline="") as fh:
             w = csv.writer(fh)
             w.writerow(names)
-            kinds = ["i" if c.dtype.kind in "iub" else "s" if c.dtype.kind in "USO" else "f"
-                     for c in cols]
-            fmt = {"i": lambda x: str(int(x)), "s": str, "f": _fmt}
             for start in range(0, n, 65536):
-                block = [c[start:start + 65536].tolist() for c in cols]
-                rows = []
-                for r in zip(*block):
-                    rows.append([fmt[k](x) for x, k in zip(r, kinds)])
-                w.writerows(rows)
-            if n == 0:
-                fh.write("")
+                block = [_cells(c[start:start + 65536], k) for c, k in zip(cols, kinds)]
+                if "s" in kinds or "x" in kinds:
+                    w.writerows(zip(*block))
+                elif block:
+                    fh.write("\r\n".join(map(",".join, zip(*block))) + "\r\n")
     return Path(path)
+
+
+def _cells(c: np.ndarray, kind: str) -> list:
+    """One column's cells as text (see :func:`write_csv`)."""
+    if kind == "i":
+        return [str(x) for x in c.astype(np.int64 if c.dtype.kind == "b" else c.dtype).tolist()]
+    if kind == "s":
+        return [str(x) for x in c.tolist()]
+    if kind == "x":
+        return [_fmt(x) for x in c.tolist()]
+    vals = c.astype(np.float64).tolist()
+    out = [format(v, ".9g") for v in vals]
+    a = c.astype(np.float64)
+    with np.errstate(invalid="ignore"):
+        whole = np.isfinite(a) & (a == np.trunc(a)) & (np.abs(a) < 1e15)
+    for i in np.flatnonzero(whole).tolist():
+        out[i] = repr(vals[i])
+    return out
 
 
 def write_json(path, doc, force: bool = False) -> Path:

@@ -13,6 +13,7 @@ import signal
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -216,9 +217,10 @@ def test_dask_cluster_same_numbers(inputs, reference, tmp_path):
         comparable(read_summary(reference / "summary.csv"))
     # cluster="local": a LocalCluster started by the batch itself (threads, to stay light)
     from sheetview.batch import run_batch
-    from sheetview.cli.batch import batch_settings
+    from sheetview.cli.measure import measure_settings
     out2 = tmp_path / "out2"
-    res = run_batch([str(d / "s1.csv")], out2, batch_settings(0.3, None, 300, 0, False, 2.73, None),
+    res = run_batch([str(d / "s1.csv")], out2,
+                    measure_settings(voxel=0.3, lines=300, seed=0, intrusion=False),
                     plots=False, html_pages=False, quiet=True, cluster="local",
                     dask_options={"processes": False, "n_workers": 1})
     assert res.n_done == 1 and res.n_failed == 0
@@ -296,3 +298,160 @@ def test_same_content_and_missing_file(inputs, reference, tmp_path):
     assert cols["volume_fractions.solid"][1] == read_summary(
         reference / "summary.csv")["volume_fractions.solid"][0]
     assert cols["status"][2] == "failed" and "missing.csv" in cols["error"][2]
+
+
+# ------------------------------------------------------------------ one settings builder
+def gapped_stack(path):
+    """Three 18-triangle layers (rhombus patches, edge 1 nm, thickness 0.7 nm) at z = 0,
+    1.4 and 3.25 nm: the top gap is 1.85 nm, 0.45 nm off the 1.4 nm repeat."""
+    from sheetview.synth import rhombus_patch
+    layer = rhombus_patch(3, 1.0)
+    v = np.concatenate([layer + [0, 0, z] for z in (0.0, 1.4, 3.25)])
+    sv.write(sv.Structure(v, 0.7, sv.Sphere((0, 0, 1.6), 6.0)), path)
+    return path
+
+
+NON_DEFAULT = ["--gap-tol", "0.5", "--angle-tol", "7", "--overlap", "0.2", "--tilt-limit", "30",
+               "--local-radius", "4", "--frame", "director"]
+SMALL = ["--voxel", "0.3", "--lines", "300", "--no-intrusion"]
+
+
+def test_batch_equals_measure_with_non_default_tolerances(tmp_path):
+    """Stacking by construction: the top layer is 0.45 nm off the repeat, so with the
+    default gap tolerance (0.35 nm) it is a layer of its own (stacking numbers 2 and 1:
+    mean (2*36 + 18)/54 = 5/3), and with --gap-tol 0.5 the three layers are one stack
+    (stacking number 3). With the same non-default tolerances, ``batch`` gives exactly the
+    numbers of ``measure --json`` (derived: the same settings builder, the same job), and
+    its result key and ``settings.*`` columns hold them."""
+    p = gapped_stack(tmp_path / "gapped.csv")
+    runner = CliRunner()
+    default = json.loads(runner.invoke(main, ["measure", str(p), "--json", "-q", *SMALL]).stdout)
+    assert default["stacking"]["max"] == 2
+    assert default["stacking"]["mean"] == pytest.approx(5 / 3)
+    r = runner.invoke(main, ["measure", str(p), "--json", "-q", *SMALL, *NON_DEFAULT])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    assert doc["stacking"]["max"] == 3 and doc["stacking"]["mean"] == pytest.approx(3.0)
+    # the interlayer class follows the stacking graph: the phase fractions differ too
+    assert doc["volume_fractions"]["interlayer"] > default["volume_fractions"]["interlayer"]
+    out = tmp_path / "out"
+    r = batch(p, "-o", out, *SMALL, *NON_DEFAULT, "--no-plots", "--no-html", "-q")
+    assert r.exit_code == 0, r.output
+    got = json.loads(next((out / "runs").glob("*/summary.json")).read_text())
+
+    def numbers(d):
+        return {k: v for k, v in flatten(d).items()
+                if not k.startswith(("timings_s", "input_metadata", "read_options"))
+                and k not in ("file", "note")}
+    assert numbers(got) == numbers(doc)
+    assert got["stacking"]["histogram"] == doc["stacking"]["histogram"] == {"3": 54}
+    cols = read_summary(out / "summary.csv")
+    assert cols["stacking.mean"] == [pytest.approx(3.0)]
+    assert cols["settings.gap_tol"] == [0.5] and cols["settings.frame"] == ["director"]
+    # the same batch with the default tolerances is another result (another key)
+    r = batch(p, "-o", out, *SMALL, "--no-plots", "--no-html", "-q")
+    assert r.exit_code == 0 and "1 measured, 0 finished before" in r.output, r.output
+    assert read_summary(out / "summary.csv")["stacking.mean"] == [pytest.approx(5 / 3)]
+
+
+def test_batch_accepts_every_measure_setting():
+    """Every option of ``measure`` that changes a number is an option of ``batch`` with the
+    same flags and default; ``measure`` has only its output options besides (derived from
+    the two commands' declared parameters)."""
+    from sheetview.cli.batch import batch as batch_cmd
+    from sheetview.cli.measure import SETTINGS
+    from sheetview.cli.measure import measure as measure_cmd
+    m = {p.name: p for p in measure_cmd.params}
+    b = {p.name: p for p in batch_cmd.params}
+    assert set(m) - set(b) == {"file", "as_json", "outdir", "force"}  # FILE: batch takes many
+    for name in SETTINGS:
+        assert m[name].opts == b[name].opts and m[name].default == b[name].default, name
+        assert m[name].secondary_opts == b[name].secondary_opts, name
+
+
+def test_key_hashes_exactly_the_number_settings():
+    """The result key changes with every setting that changes a number and not with
+    --max-memory (which only decides whether a grid may be built); defaults given
+    explicitly give the key of defaults left out (derived: canonical JSON of the settings
+    completed with pipeline.DEFAULTS)."""
+    from sheetview.batch import key_settings
+    from sheetview.cli.measure import NO_NUMBER_SETTINGS, SETTINGS, measure_settings
+    sha = "ab" * 32
+
+    def key(**kw):
+        return result_key(sha, {"settings": key_settings(measure_settings(**kw))})
+    k0 = key()
+    assert k0 == result_key(sha, {"settings": key_settings({})})
+    other = {"voxel": 0.3, "angle_tol": 6.0, "gap_tol": 0.3, "overlap": 0.2, "tilt_limit": 30.0,
+             "local_radius": 4.0, "frame": "director", "density": 2.6, "pore_split": "5,20",
+             "intrusion": True, "lines": 1000, "seed": 1}
+    assert set(other) == set(SETTINGS) - set(NO_NUMBER_SETTINGS)
+    keys = {name: key(**{name: v}) for name, v in other.items()}
+    assert k0 not in keys.values() and len(set(keys.values())) == len(other)
+    assert key(max_memory="4G") == k0
+    with pytest.raises(sv.OptionError, match="unknown measure setting"):
+        key_settings({"angle_tolerance": 3})
+
+
+@pytest.mark.parametrize("args,msg", [
+    (["--gap-tol", "0.9"], "--gap-tol"),
+    (["--angle-tol", "120"], "--angle-tol"),
+    (["--local-radius", "-1"], "--local-radius"),
+    (["--pore-split", "20,5"], "--pore-split"),
+    (["--frame", "x"], "--frame"),
+])
+def test_batch_option_errors_like_measure(inputs, tmp_path, args, msg):
+    """Bad measure options are refused by ``batch`` before anything is read or written,
+    with the message ``measure`` gives (exit 2, no traceback)."""
+    d, paths, _ = inputs
+    out = tmp_path / "o"
+    r = batch(paths[0], "-o", out, *FAST, *args)
+    m = CliRunner().invoke(main, ["measure", str(paths[0]), *args])
+    assert r.exit_code == m.exit_code == 2, r.output
+    assert msg in r.output and "Traceback" not in r.output
+    assert r.output.strip().splitlines()[-1] == m.output.strip().splitlines()[-1]
+    assert not out.exists()
+
+
+def _fake_task(path, folder, settings, read_kw, only, plots, threads):
+    """Stands in for measure_one. In the worker process: the first structure is done,
+    the second kills the process (as the OOM killer would). In the calling process: wait
+    until the worker has done its first, so that it is sure to get a second."""
+    import os as _os
+    import time as _time
+    here = Path(folder).parent
+    if _os.getpid() != settings["parent"]:
+        marker = here / f"worker-{_os.getpid()}"
+        if marker.exists():
+            _os._exit(3)
+        marker.write_text("")
+    else:
+        t0 = _time.time()
+        while not list(here.glob("worker-*")) and _time.time() - t0 < 60:
+            _time.sleep(0.01)
+    return {"status": "ok", "error": None, "seconds": 0.0, "write_seconds": 0.0,
+            "pid": _os.getpid(), "threads": threads}
+
+
+def test_local_workers_share_out_and_survive_a_dead_worker(tmp_path):
+    """Two workers: the calling process and one worker process each take the next
+    structure when free; every structure is done exactly once. The worker process dies
+    on its second structure: that structure alone is recorded as failed and the rest are
+    done by the calling process (derived from the scheduling rules)."""
+    from sheetview.batch import Job, _run_local
+    jobs = [Job(Path(f"in{i}.csv"), None, f"k{i}", f"n{i}") for i in range(8)]
+    got = {}
+
+    def finished(job, r):
+        assert job.key not in got
+        got[job.key] = r
+    settings = {"parent": os.getpid()}
+    args = lambda j, threads: (str(j.path), str(tmp_path / j.name), settings, {}, None, False,
+                               threads)
+    _run_local(jobs, args, finished, workers=2, ncpu=2, task=_fake_task)
+    assert sorted(got) == sorted(j.key for j in jobs)
+    failed = [k for k, r in got.items() if r["status"] == "failed"]
+    assert len(failed) == 1 and "worker failed" in got[failed[0]]["error"]
+    pids = [r["pid"] for r in got.values() if r["status"] == "ok"]
+    assert pids.count(os.getpid()) == 6 and len(set(pids)) == 2
+    assert {r["threads"] for r in got.values() if r["status"] == "ok"} == {1}
