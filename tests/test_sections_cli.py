@@ -169,3 +169,17 @@ def test_render_at_progress_draws_the_earlier_structure(born_file, tmp_path):
     assert r.exit_code == 0, r.output
     assert "as it stood at progress 0.3" in r.output
     assert out.stat().st_size > 0
+
+
+def test_measure_at_progress_measures_the_earlier_structure(born_file, tmp_path):
+    """measure --at-progress: the summary counts only the prisms born by then and records
+    the moment (its n_prisms equals the kept prisms)."""
+    r = _run(["measure", born_file, "--only", "stacking", "--at-progress", "0.5", "--json"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    assert doc["at"]["n_prisms"] == doc["n_prisms"] < doc["at"]["n_total"]
+    assert doc["at"]["progress"] >= 0.5
+    r = _run(["measure", born_file, "--only", "stacking", "--at-time", "1e9", "--json"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    assert doc["at"]["n_prisms"] == doc["at"]["n_total"] == doc["n_prisms"]

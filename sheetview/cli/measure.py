@@ -9,7 +9,7 @@ import click
 from .. import __version__
 from ..errors import OptionError
 from ..pipeline import DEFAULTS, SPLIT_NAMES
-from .common import dumps, load, parse_size, parse_split, read_options
+from .common import apply_at, at_options, dumps, load, parse_size, parse_split, read_options
 
 _OPTION_OF = {"angle_tol": "--angle-tol", "gap_tol": "--gap-tol", "overlap": "--overlap",
               "tilt_limit": "--tilt-limit", "local_radius": "--local-radius", "frame": "--frame",
@@ -262,10 +262,11 @@ def _print_summary(doc):
 @measure_options
 @click.option("--no-plots", is_flag=True, help="With -o: write tables only, no PNG figures.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages on stderr.")
+@at_options
 @read_options
 def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, gap_tol, overlap,
             tilt_limit, local_radius, frame, density, pore_split, intrusion, lines, seed,
-            no_plots, quiet, **read_kw):
+            no_plots, quiet, at_progress, at_time, **read_kw):
     """Measure FILE: stacks, orientation order, phase fractions, surfaces, pore sizes,
     chords and the two-point correlation.
 
@@ -283,7 +284,11 @@ def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, ga
     if outdir is not None:
         from ..report import check_folder
         check_folder(outdir, force)
-    obj = load(file, **read_kw)
+    obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
+    if moment is not None and not quiet:
+        click.echo(f"sheetview: as it stood at {moment.requested}: time {moment.time:g}, progress "
+                   f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms",
+                   err=True)
     selected = measures.parse_only(only) if only is not None else measures.applicable(obj)
     measures.check_inputs(selected, obj, file)
     progress = None if quiet else _progress  # on stderr: stdout keeps only the summary
@@ -292,6 +297,8 @@ def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, ga
     except OptionError as e:
         raise _as_cli_error(e, file) from None
     doc = summary_document(file, obj, ctx, settings)
+    if moment is not None:
+        doc["at"] = moment.to_dict()
     if outdir is not None:
         from ..report import write_report
         if progress:
