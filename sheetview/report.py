@@ -26,6 +26,7 @@ The folder is assembled under a temporary name and renamed into place when compl
 """
 from __future__ import annotations
 
+import contextlib
 import csv
 import math
 import os
@@ -208,6 +209,17 @@ def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
     name beside ``outdir`` and renamed into place when complete, so an interrupted run
     leaves no half-written report. Returns the paths written.
     """
+    with atomic_folder(outdir, force) as (out, final):
+        names = _write_all(out, doc, results, plots, grid)
+    return [final / n for n in names]
+
+
+@contextlib.contextmanager
+def atomic_folder(outdir, force: bool = False):
+    """Yield ``(tmp, final)``: a temporary folder beside ``outdir`` to fill, and the final
+    path. On success the folder is renamed into place (with ``force`` into an existing
+    folder, the files of the same name are replaced); on any exception it is removed and
+    ``outdir`` is untouched. ``outdir`` is checked (:func:`check_folder`) first."""
     final = check_folder(outdir, force)
     parent = final.parent if str(final.parent) else Path(".")
     if not parent.exists():
@@ -216,17 +228,16 @@ def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
         except OSError as e:
             raise SheetviewError(f"cannot create the folder ({e.strerror})", path=final) from None
     try:
-        out = Path(tempfile.mkdtemp(prefix=f".{final.name}.", suffix=".part", dir=parent))
+        tmp = Path(tempfile.mkdtemp(prefix=f".{final.name}.", suffix=".part", dir=parent))
     except OSError as e:
-        raise SheetviewError(f"cannot write beside the report folder ({e.strerror})",
+        raise SheetviewError(f"cannot write beside the output folder ({e.strerror})",
                              path=final) from None
     try:
-        names = _write_all(out, doc, results, plots, grid)
-        _move_into_place(out, final)
+        yield tmp, final
+        _move_into_place(tmp, final)
     except BaseException:
-        shutil.rmtree(out, ignore_errors=True)
+        shutil.rmtree(tmp, ignore_errors=True)
         raise
-    return [final / n for n in names]
 
 
 def _move_into_place(tmp: Path, final: Path) -> None:

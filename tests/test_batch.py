@@ -356,14 +356,16 @@ def test_batch_equals_measure_with_non_default_tolerances(tmp_path):
 
 def test_batch_accepts_every_measure_setting():
     """Every option of ``measure`` that changes a number is an option of ``batch`` with the
-    same flags and default; ``measure`` has only its output options besides (derived from
-    the two commands' declared parameters)."""
+    same flags and default; ``measure`` has only its output options and the moment of a
+    grown structure (``--at-progress``/``--at-time``, one structure's history) besides
+    (derived from the two commands' declared parameters)."""
     from sheetview.cli.batch import batch as batch_cmd
     from sheetview.cli.measure import SETTINGS
     from sheetview.cli.measure import measure as measure_cmd
     m = {p.name: p for p in measure_cmd.params}
     b = {p.name: p for p in batch_cmd.params}
-    assert set(m) - set(b) == {"file", "as_json", "outdir", "force"}  # FILE: batch takes many
+    assert set(m) - set(b) == {"file", "as_json", "outdir", "force",  # FILE: batch takes many
+                               "at_progress", "at_time"}
     for name in SETTINGS:
         assert m[name].opts == b[name].opts and m[name].default == b[name].default, name
         assert m[name].secondary_opts == b[name].secondary_opts, name

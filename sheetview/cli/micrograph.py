@@ -9,16 +9,13 @@ place when complete.
 from __future__ import annotations
 
 import math
-import os
-import shutil
-import tempfile
 from pathlib import Path
 
 import click
 import numpy as np
 
 from .. import __version__
-from ..errors import OptionError, SheetviewError
+from ..errors import OptionError
 from .common import dumps
 
 #: Files of the output folder.
@@ -195,21 +192,9 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
     renamed into place when complete (with ``force`` into an existing folder, the files
     of the same name are replaced). Every file goes through ``atomic_path``."""
     from ..io.output import atomic_path
-    from ..report import check_folder, write_csv, write_json
+    from ..report import atomic_folder, write_csv, write_json
 
-    final = check_folder(outdir, force)
-    parent = final.parent if str(final.parent) else Path(".")
-    if not parent.exists():
-        try:
-            parent.mkdir(parents=True)
-        except OSError as e:
-            raise SheetviewError(f"cannot create the folder ({e.strerror})", path=final) from None
-    try:
-        tmp = Path(tempfile.mkdtemp(prefix=f".{final.name}.", suffix=".part", dir=parent))
-    except OSError as e:
-        raise SheetviewError(f"cannot write beside the output folder ({e.strerror})",
-                             path=final) from None
-    try:
+    with atomic_folder(outdir, force) as (tmp, final):
         write_json(tmp / "descriptors.json", doc)
         write_csv(tmp / "chords.csv", desc.chords.table())
         write_csv(tmp / "thickness.csv", desc.thickness.table())
@@ -218,15 +203,6 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
         fig = overview_figure(mg, desc)
         with atomic_path(tmp / "overview.png") as p:
             fig.savefig(str(p), format="png", dpi=100)
-        if not final.exists():
-            os.replace(tmp, final)
-        else:
-            for p in tmp.iterdir():
-                os.replace(p, final / p.name)
-            tmp.rmdir()
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
     return [final / n for n in OUTPUT_FILES]
 
 
