@@ -31,8 +31,7 @@ def measure(obj, only=None, **settings):
     unknown = sorted(set(settings) - set(DEFAULTS))
     if unknown:
         raise OptionError(f"unknown setting(s) {unknown}; known: {sorted(DEFAULTS)}")
-    names = measures.applicable(obj) if only is None else measures.parse_only(
-        only if isinstance(only, str) else ",".join(only))
+    names = measures.select(only, obj)
     return measures.run(names, obj, settings)
 
 __all__ = ["Box", "Sphere", "Structure", "SurfaceBody", "PhaseGrid", "read", "write", "measure",

@@ -169,7 +169,7 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         from .cli.measure import summary_document
         from .report import write_report
         obj = load(path, **read_kw)
-        selected = measures.parse_only(only) if only else measures.applicable(obj)
+        selected = measures.select(only or None, obj)
         measures.check_inputs(selected, obj, path)
         ctx = measures.run(selected, obj, settings)
         doc = summary_document(path, obj, ctx, settings)

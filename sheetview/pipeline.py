@@ -301,6 +301,39 @@ def run_correlation(ctx: Context):
                   [note] if note else [])
 
 
+def run_scattering(ctx: Context):
+    """Predicted SANS curve of the base phase grid with the default contrast: neutrons,
+    the C-S-H preset solid (Allen, Thomas & Jennings 2007) in H2O, interlayer water as
+    pore fluid, outside as pore fluid (``sheetview scatter`` sets other contrasts)."""
+    from .measures.scattering import (ScatteringMeasure, curve_features, phase_slds,
+                                      scattering_curve)
+    from .sld import PRESETS, preset_sld, sld
+    g = ctx.base_grid
+    solid = sld(*PRESETS["csh"], probe="neutron")
+    slds = phase_slds(solid, preset_sld("h2o", "neutron"))
+    res = ctx.stage("scattering curve", scattering_curve, g, slds,
+                    max_memory=ctx.settings["max_memory"])
+    phi = float(np.count_nonzero(g.labels == SOLID) / g.labels.size)
+    feats = ctx.stage("scattering features", curve_features, res, phi)
+    return ScatteringMeasure(res, feats, "neutron",
+                             f"C-S-H {PRESETS['csh'][0]} at {PRESETS['csh'][1]} g/cm3", "h2o")
+
+
+def run_relaxation(ctx: Context):
+    """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the base grid
+    with the default surface relaxivity and bulk T2; gel pores as slits of their local
+    thickness; the interlayer gap from the structure's repeat minus its median thickness
+    (``sheetview relax`` sets other parameters)."""
+    from .measures.relaxation import relaxation_spectrum
+    width = None
+    s = ctx.structure
+    if s is not None and len(s):
+        gap = float(s.spacing) - float(np.median(s.thickness))
+        width = gap if gap > 0 else None
+    return ctx.stage("T2 distribution", relaxation_spectrum, ctx.base_grid, ctx.pore_thickness,
+                     interlayer_width=width)
+
+
 def central_block(g: PhaseGrid, n: int):
     """The central block of at most ``n`` voxels per side (the grid itself if smaller)."""
     shape = np.asarray(g.shape)

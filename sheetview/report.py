@@ -329,9 +329,84 @@ def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
         written.append(write_csv(out / "s2_solid.csv", cor.parts["s2_solid"].table()))
         if plots:
             written.append(plot_s2(cor, out / "s2_solid.png"))
+    sc = results.get("scattering")
+    if sc is not None:
+        written.append(write_csv(out / "scattering.csv", sc.table()))
+        if plots:
+            written.append(plot_scattering(sc.curve, out / "scattering.png", notes=[
+                f"predicted curve, {sc.probe}s: {sc.solid} in {sc.fluid}; a model's prediction, "
+                "not a measurement"]))
+    rx = results.get("relaxation")
+    if rx is not None:
+        written.append(write_csv(out / "t2_distribution.csv", rx.table()))
+        if plots:
+            written.append(plot_relaxation(rx, out / "t2_distribution.png", notes=[
+                "predicted T2 distribution (fast exchange); a model's prediction, not a "
+                "measurement"]))
     if plots and grid is not None:
         written.append(plot_sections(grid, out / "sections.png"))
     return [Path(p).name for p in written]
+
+
+def _wrap(notes, width=115):
+    import textwrap
+    return "\n".join(textwrap.fill(n, width) for n in notes)
+
+
+def plot_scattering(res, path, cmp_=None, notes=(), force=False):
+    """Log-log plot of a predicted curve (valid q range marked), with an experimental
+    curve and its fit when ``cmp_`` is given."""
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(7, 5.2))
+    m = res.valid()
+    ax.loglog(res.q[m], res.intensity[m], "-", color="C0", label="model (valid q range)")
+    if (~m).any():
+        pos = ~m & (res.intensity > 0)
+        ax.loglog(res.q[pos], res.intensity[pos], ".", color="C0", alpha=0.3,
+                  label="model outside valid range")
+    if cmp_ is not None:
+        ax.loglog(cmp_.q, cmp_.experiment, "o", ms=3, color="C3", label="experiment")
+        ax.loglog(cmp_.q, cmp_.model_fitted, "-", color="k", lw=1,
+                  label=f"scale {cmp_.scale:.3g} x model + {cmp_.background:.3g}")
+    from matplotlib.ticker import NullFormatter
+    ax.xaxis.set_minor_formatter(NullFormatter())
+    ax.set_xlabel("q (nm$^{-1}$)")
+    ax.set_ylabel("I(q) (cm$^{-1}$)")
+    ax.legend(fontsize=8)
+    fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
+    fig.subplots_adjust(bottom=0.25)
+    _savefig(fig, path, force)
+    return Path(path)
+
+
+def plot_relaxation(res, path, cmp_=None, notes=(), force=False):
+    """Stacked T2 distribution per pore class, with an experimental one when given."""
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(7, 5))
+    t_ms = res.t2 * 1e3
+    dl = np.diff(np.log(res.edges))
+    bottom = np.zeros_like(t_ms)
+    for i, (k, v) in enumerate(res.fraction.items()):
+        ax.fill_between(t_ms, bottom, bottom + v / dl, step="mid", alpha=0.6, label=k,
+                        color=f"C{i}")
+        bottom = bottom + v / dl
+    if cmp_ is not None:
+        ax.plot(cmp_.t2 * 1e3, cmp_.experiment, "o-", ms=3, color="k", label="experiment "
+                "(normalised)")
+    ax.set_xscale("log")
+    ax.set_xlabel("T2 (ms)")
+    ax.set_ylabel("signal density per ln T2")
+    ax.legend(fontsize=8)
+    nz = np.flatnonzero(bottom > 0)
+    if nz.size:
+        lo, hi = t_ms[nz[0]], t_ms[nz[-1]]
+        if cmp_ is not None:
+            lo, hi = min(lo, cmp_.t2.min() * 1e3), max(hi, cmp_.t2.max() * 1e3)
+        ax.set_xlim(lo / 10, hi * 10)
+    fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
+    fig.subplots_adjust(bottom=0.2)
+    _savefig(fig, path, force)
+    return Path(path)
 
 
 def plot_pore_sizes(pores, path, force=False):

@@ -11,6 +11,7 @@ import numpy as np
 
 from ..errors import OptionError
 from ..io.curves import read_experimental
+from ..report import plot_relaxation, plot_scattering
 from .common import apply_at, at_options, dumps, load, parse_size, read_options
 
 
@@ -111,8 +112,7 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
             window, csv_out, plot_out, json_out, slopes, compare, q_unit, columns, max_memory,
             force, at_progress, at_time, **read_kw):
     """Predicted small-angle scattering curve I(q) (cm^-1) of FILE."""
-    from ..measures.scattering import (bragg_peaks, compare_curve, guinier, invariant,
-                                       phase_slds, porod, power_law, scattering_curve)
+    from ..measures.scattering import compare_curve, curve_features, phase_slds, scattering_curve
     from ..sld import preset_sld
     _check_outputs([csv_out, plot_out, json_out], force)
     ranges = [_parse_range(t) for t in slopes]
@@ -131,23 +131,8 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
            "interlayer_contrast": not no_interlayer_contrast, "curve": res.to_dict()}
     if moment is not None:
         doc["at"] = moment.to_dict()
-    feats = {}
     lo, hi = res.q_valid
-    for name, fn in (("slope_low_q", lambda: power_law(res, (lo, lo * 10 ** 0.5))),
-                     ("slope_high_q", lambda: power_law(res, (hi / 10 ** 0.5, hi))),
-                     ("porod", lambda: porod(res)), ("guinier", lambda: guinier(res)),
-                     ("invariant", lambda: invariant(res, phi=_solid_fraction(grid))),
-                     ("bragg_peaks", lambda: bragg_peaks(res))):
-        try:
-            feats[name] = fn().to_dict()
-        except OptionError as e:
-            feats[name] = {"error": e.detail}
-    for a, b in ranges:
-        try:
-            feats[f"slope_{a:g}-{b:g}"] = power_law(res, (a, b)).to_dict()
-        except OptionError as e:
-            feats[f"slope_{a:g}-{b:g}"] = {"error": e.detail}
-    doc["features"] = feats
+    doc["features"] = curve_features(res, _solid_fraction(grid), ranges)
     cmp_ = compare_curve(res, exp.x, exp.y, exp.sigma, source=compare) if exp else None
     if cmp_ is not None:
         doc["comparison"] = {**cmp_.to_dict(), "file": str(compare), "q_unit": exp.unit_found}
@@ -163,7 +148,7 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:
-        _plot_scatter(res, cmp_, notes, plot_out, force)
+        plot_scattering(res, plot_out, cmp_, notes, force)
     click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1 -> {csv_out}")
     if cmp_ is not None:
         click.echo(f"fit to {compare}: scale {cmp_.scale:.4g}, background {cmp_.background:.4g} "
@@ -183,36 +168,6 @@ def _parse_range(text):
 def _solid_fraction(grid):
     from ..grid import SOLID
     return float(np.count_nonzero(grid.labels == SOLID) / grid.labels.size)
-
-
-def _wrap(notes, width=115):
-    import textwrap
-    return "\n".join(textwrap.fill(n, width) for n in notes)
-
-
-def _plot_scatter(res, cmp_, notes, path, force):
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    fig, ax = plt.subplots(figsize=(7, 5.2))
-    m = res.valid()
-    ax.loglog(res.q[m], res.intensity[m], "-", color="C0", label="model (valid q range)")
-    if (~m).any():
-        pos = ~m & (res.intensity > 0)
-        ax.loglog(res.q[pos], res.intensity[pos], ".", color="C0", alpha=0.3,
-                  label="model outside valid range")
-    if cmp_ is not None:
-        ax.loglog(cmp_.q, cmp_.experiment, "o", ms=3, color="C3", label="experiment")
-        ax.loglog(cmp_.q, cmp_.model_fitted, "-", color="k", lw=1,
-                  label=f"scale {cmp_.scale:.3g} x model + {cmp_.background:.3g}")
-    from matplotlib.ticker import NullFormatter
-    ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.set_xlabel("q (nm$^{-1}$)")
-    ax.set_ylabel("I(q) (cm$^{-1}$)")
-    ax.legend(fontsize=8)
-    fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
-    fig.subplots_adjust(bottom=0.25)
-    _save_fig(fig, path, force)
 
 
 @click.command()
@@ -290,7 +245,7 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:
-        _plot_relax(res, cmp_, notes, plot_out, force)
+        plot_relaxation(res, plot_out, cmp_, notes, force)
     fr = ", ".join(f"{k} {v:.3f} (T2 {res.class_t2_logmean[k] * 1e3:.3g} ms)"
                    for k, v in res.class_fraction.items())
     click.echo(f"T2 distribution: {fr} -> {csv_out}")
@@ -298,36 +253,6 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
         click.echo(f"against {compare}: log-mean T2 model {cmp_.logmean_model_s * 1e3:.4g} ms, "
                    f"experiment {cmp_.logmean_experiment_s * 1e3:.4g} ms, shift "
                    f"{cmp_.shift_decades:+.3f} decades, overlap {cmp_.overlap:.3f}")
-
-
-def _plot_relax(res, cmp_, notes, path, force):
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    fig, ax = plt.subplots(figsize=(7, 5))
-    t_ms = res.t2 * 1e3
-    dl = np.diff(np.log(res.edges))
-    bottom = np.zeros_like(t_ms)
-    for i, (k, v) in enumerate(res.fraction.items()):
-        ax.fill_between(t_ms, bottom, bottom + v / dl, step="mid", alpha=0.6, label=k,
-                        color=f"C{i}")
-        bottom = bottom + v / dl
-    if cmp_ is not None:
-        ax.plot(cmp_.t2 * 1e3, cmp_.experiment, "o-", ms=3, color="k", label="experiment "
-                "(normalised)")
-    ax.set_xscale("log")
-    ax.set_xlabel("T2 (ms)")
-    ax.set_ylabel("signal density per ln T2")
-    ax.legend(fontsize=8)
-    nz = np.flatnonzero(bottom > 0)
-    if nz.size:
-        lo, hi = t_ms[nz[0]], t_ms[nz[-1]]
-        if cmp_ is not None:
-            lo, hi = min(lo, cmp_.t2.min() * 1e3), max(hi, cmp_.t2.max() * 1e3)
-        ax.set_xlim(lo / 10, hi * 10)
-    fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
-    fig.subplots_adjust(bottom=0.2)
-    _save_fig(fig, path, force)
 
 
 COMMANDS = [scatter, relax]

@@ -221,7 +221,7 @@ def _print_summary(doc):
         else:
             echo("  order: undefined (no prisms)")
         wall = od["wall"]
-        echo(f"  wall order <P2(n.w)>: " + ("undefined (no walls)" if wall is None else f"{wall:.4f}"))
+        echo("  wall order <P2(n.w)>: " + ("undefined (no walls)" if wall is None else f"{wall:.4f}"))
         for note in od["notes"]:
             echo(f"  note: {note}")
     if "voxel_size_nm" in doc:
@@ -248,6 +248,19 @@ def _print_summary(doc):
         echo(f"  mean chords ({ch['source']}): solid {ch['solid_mean_nm']:.3g} nm, pore "
              f"{ch['pore_mean_nm']:.3g} nm" if ch.get("pore_mean_nm") is not None else
              f"  mean solid chord ({ch['source']}): {ch['solid_mean_nm']:.3g} nm")
+    sc = doc.get("scattering")
+    if sc:
+        po = sc["features"].get("porod", {})
+        sl = sc["features"].get("slope_high_q", {})
+        lo, hi = sc["q_valid_nm-1"]
+        echo(f"  scattering ({sc['probe']}s, {sc['fluid']}): valid q {lo:.3g}-{hi:.3g} nm^-1"
+             + (f"; Porod S/V {po['s_over_v_nm-1']:.4g} nm^-1" if po.get("s_over_v_nm-1") else "")
+             + (f"; high-q slope {sl['slope']:.3g}" if isinstance(sl.get("slope"), float) else ""))
+    rx = doc.get("relaxation")
+    if rx:
+        echo("  T2 (fast exchange): " + ", ".join(
+            f"{k} {v:.3f} of the water at {rx['class_t2_logmean_ms'][k]:.3g} ms"
+            for k, v in rx["class_fraction"].items() if rx["class_t2_logmean_ms"].get(k)))
 
 
 @click.command("measure")
@@ -289,7 +302,7 @@ def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, ga
         click.echo(f"sheetview: as it stood at {moment.requested}: time {moment.time:g}, progress "
                    f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms",
                    err=True)
-    selected = measures.parse_only(only) if only is not None else measures.applicable(obj)
+    selected = measures.select(only, obj)
     measures.check_inputs(selected, obj, file)
     progress = None if quiet else _progress  # on stderr: stdout keeps only the summary
     try:

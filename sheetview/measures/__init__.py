@@ -25,6 +25,7 @@ class Measure:
     needs: str
     params: tuple
     description: str
+    default: bool = True
 
     @property
     def function(self):
@@ -38,11 +39,13 @@ NEEDS = {"structure": "prisms (a Structure: a prism table or a sheet mesh)",
          "grid": "a voxel volume (a PhaseGrid)"}
 
 
-def register(name: str, target: str, needs: str, params=(), description: str = "") -> Measure:
-    """Add (or replace) a named measure in the registry."""
+def register(name: str, target: str, needs: str, params=(), description: str = "",
+             default: bool = True) -> Measure:
+    """Add (or replace) a named measure in the registry. ``default``: run when no
+    ``--only`` is given (costly or assumption-laden measures are opt-in)."""
     if needs not in NEEDS:
         raise ValueError(f"needs must be one of {sorted(NEEDS)}, not {needs!r}")
-    m = Measure(name, target, needs, tuple(params), description)
+    m = Measure(name, target, needs, tuple(params), description, bool(default))
     REGISTRY[name] = m
     return m
 
@@ -62,10 +65,11 @@ def parse_only(value: str | None) -> list[str]:
     picked = [v.strip().lower() for v in str(value).split(",") if v.strip()]
     if not picked:
         raise OptionError(f"--only: no measure named; valid names: {', '.join(names())}")
-    unknown = [v for v in picked if v not in REGISTRY]
+    unknown = [v for v in picked if v not in REGISTRY and v != DEFAULT_WORD]
     if unknown:
         raise OptionError(f"--only: unknown measure(s) {', '.join(repr(u) for u in unknown)}; "
-                          f"valid names: {', '.join(names())}")
+                          f"valid names: {', '.join(names())} (and '{DEFAULT_WORD}' for the "
+                          f"measures run by default)")
     return list(dict.fromkeys(picked))
 
 
@@ -79,12 +83,31 @@ def kind_of(obj) -> str:
     return type(obj).__name__
 
 
-def applicable(obj) -> list[str]:
-    """The registered measures that can run on ``obj`` (the default selection)."""
+def applicable(obj, *, optional: bool = False) -> list[str]:
+    """The registered measures that can run on ``obj``: the default selection, or with
+    ``optional`` also the opt-in ones."""
     kind = kind_of(obj)
+    ok = [n for n in names() if optional or REGISTRY[n].default]
     if kind == "structure":
-        return names()
-    return [n for n in names() if REGISTRY[n].needs == "grid"]
+        return ok
+    return [n for n in ok if REGISTRY[n].needs == "grid"]
+
+
+#: The word in ``--only`` that stands for the default selection (``--only default,scattering``).
+DEFAULT_WORD = "default"
+
+
+def select(only, obj) -> list[str]:
+    """The measures to run on ``obj``: the default selection when ``only`` is None, else
+    the names of ``only`` (a comma-separated text or a list) with ``default`` standing for
+    the default selection that applies to ``obj``."""
+    if only is None:
+        return applicable(obj)
+    text = only if isinstance(only, str) else ",".join(only)
+    out = []
+    for n in parse_only(text):
+        out.extend(applicable(obj) if n == DEFAULT_WORD else [n])
+    return list(dict.fromkeys(out))
 
 
 def check_inputs(selected, obj, source=None) -> None:
@@ -93,7 +116,7 @@ def check_inputs(selected, obj, source=None) -> None:
     Measures that need prisms run on a Structure only; grid measures run on a PhaseGrid
     directly, or on prisms or a closed body through their rasterized phase grid.
     """
-    ok = set(applicable(obj))
+    ok = set(applicable(obj, optional=True))
     bad = [n for n in selected if n not in ok]
     if bad:
         need = sorted({REGISTRY[n].needs for n in bad})
@@ -129,3 +152,10 @@ register("chords", f"{_P}:run_chords", "grid", ("lines", "seed"),
          "chord lengths of solid and pore: exact random lines and voxel rows, Cauchy 4V/S")
 register("correlation", f"{_P}:run_correlation", "grid", ("s2_block", "s2_rmax"),
          "two-point correlation S2(r) of the solid and its slope at the origin")
+register("scattering", f"{_P}:run_scattering", "grid", ("max_memory",),
+         "predicted SANS curve I(q) (neutrons, C-S-H in H2O): slopes, Porod, Guinier, "
+         "invariant, Bragg peaks (opt-in; `sheetview scatter` for other contrasts)",
+         default=False)
+register("relaxation", f"{_P}:run_relaxation", "grid", (),
+         "predicted NMR T2 distribution per pore class, fast exchange (opt-in; "
+         "`sheetview relax` for other parameters)", default=False)

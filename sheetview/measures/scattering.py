@@ -686,3 +686,45 @@ def compare_curve(res: ScatteringResult, q_exp, i_exp, sigma=None, *, background
     dof = max(q.size - p, 1)
     return CurveComparison(scale, bg, float(r @ r) / dof, weighting, q, ie, fit,
                            (float(lo), float(hi)))
+
+
+def curve_features(res: ScatteringResult, phi: float | None = None, ranges=()) -> dict:
+    """The features of a curve as JSON-ready dicts: power-law slopes over the lowest and
+    highest half decade of the valid range (and over each ``ranges`` (qmin, qmax)), Porod,
+    Guinier, invariant (``phi``: solid volume fraction) and Bragg peaks. A feature that
+    cannot be fitted holds ``{"error": ...}`` instead."""
+    lo, hi = res.q_valid
+    out = {}
+    todo = [("slope_low_q", lambda: power_law(res, (lo, lo * 10 ** 0.5))),
+            ("slope_high_q", lambda: power_law(res, (hi / 10 ** 0.5, hi))),
+            ("porod", lambda: porod(res)), ("guinier", lambda: guinier(res)),
+            ("invariant", lambda: invariant(res, phi=phi)),
+            ("bragg_peaks", lambda: bragg_peaks(res))]
+    for a, b in ranges:
+        todo.append((f"slope_{a:g}-{b:g}", lambda a=a, b=b: power_law(res, (a, b))))
+    for name, fn in todo:
+        try:
+            out[name] = fn().to_dict()
+        except OptionError as e:
+            out[name] = {"error": e.detail}
+    return out
+
+
+@dataclass
+class ScatteringMeasure:
+    """The ``scattering`` measure of ``sheetview measure``: a curve with fixed contrast
+    (neutrons; the C-S-H preset solid in H2O, interlayer water as pore fluid) and its
+    features."""
+
+    curve: ScatteringResult
+    features: dict
+    probe: str
+    solid: str
+    fluid: str
+
+    def table(self) -> dict:
+        return self.curve.table()
+
+    def to_dict(self) -> dict:
+        return {"probe": self.probe, "solid": self.solid, "fluid": self.fluid,
+                "features": self.features, **self.curve.to_dict()}
