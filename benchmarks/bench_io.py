@@ -10,7 +10,6 @@ import argparse
 import json
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent

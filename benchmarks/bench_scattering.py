@@ -48,7 +48,7 @@ def row(kind):
         del F
     elif kind == "curve":
         from sheetview.measures.scattering import scattering_curve
-        res = scattering_curve(g, {0: -0.56, 1: 2.55}, workers=2)
+        scattering_curve(g, {0: -0.56, 1: 2.55}, workers=2)
     elif kind == "naive":
         f = g.labels.astype(np.float64)
         F = np.fft.rfftn(f)

@@ -23,8 +23,6 @@ import resource
 import sys
 import time
 
-import numpy as np
-
 sys.path.insert(0, __file__.rsplit("/", 1)[0])
 from bench_view import make_structure  # noqa: E402
 

@@ -1,6 +1,4 @@
 """The native prism table: reading, writing, round trips and bad input."""
-import json
-import zipfile
 
 import numpy as np
 import pytest

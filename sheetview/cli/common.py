@@ -117,7 +117,6 @@ def dumps(doc) -> str:
         if isinstance(o, (list, tuple)):
             return [clean(v) for v in o]
         return o
-    import numpy as np
     return json.dumps(clean(json.loads(json.dumps(doc, default=json_default, allow_nan=True))),
                       indent=2, allow_nan=False)
 

@@ -215,7 +215,7 @@ def read_csv(path, *, thickness=None, spacing=None, units=None) -> Structure:
         raise InputError("no column line and no rows after the header", path=path)
     first = body.split(b"\n", 1)[0].decode("utf-8", "replace").strip().lstrip("\ufeff")
     names = [c.strip() for c in first.split(",")]
-    extra = _check_columns(names, path, column_line)
+    _check_columns(names, path, column_line)
     types = {n: pa.float64() for n in names}
     try:
         table = pcsv.read_csv(

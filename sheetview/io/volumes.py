@@ -42,7 +42,6 @@ back exactly (labels, spacing, origin).
 from __future__ import annotations
 
 import json
-import math
 import os
 import re
 from pathlib import Path
