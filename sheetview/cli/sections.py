@@ -30,6 +30,38 @@ def _describe(mask, valid, pixel, lines, seed):
     return describe(mask, pixel, valid=valid, seed=seed, n_lines=lines)
 
 
+def _open(path, out, force, read_kw, at_progress, at_time):
+    """Check the output names (before any work), read the input and take the moment."""
+    from .. import pictures
+    from ..io.output import check_writable
+    if out is not None:
+        for p in pictures.outputs(out).values():
+            check_writable(p, force)
+    return apply_at(load(path, **read_kw), at_progress, at_time)
+
+
+def _finish(doc, moment, notes, as_json, quiet, headline):
+    """Print the result: JSON, or the headline, notes, descriptors and files written."""
+    if moment is not None:
+        doc["at"] = moment.to_dict()
+    if as_json:
+        click.echo(dumps(doc))
+        return
+    if quiet:
+        return
+    click.echo(headline)
+    for note in notes:
+        click.echo(f"  note: {note}")
+    if "descriptors" in doc:
+        _echo_descriptors(doc["descriptors"])
+    if "files" in doc:
+        click.echo("  wrote " + ", ".join(doc["files"].values()))
+
+
+def _threshold(text):
+    return None if str(text).lower() == "otsu" else _number(text, "--threshold")
+
+
 def _fmt_frac(d):
     return ", ".join(f"{k} {v:.3f}" for k, v in d.items())
 
@@ -90,16 +122,9 @@ def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memo
 
     phases = _parse_phases(solid_phases)
     n = parse_axis_or_normal(axis, normal)
-    if out is not None:
-        for p in pictures.outputs(out).values():
-            from ..io.output import check_writable
-            check_writable(p, force)
-    obj = load(path, **read_kw)
-    obj, moment = apply_at(obj, at_progress, at_time)
+    obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
     img = section(obj, n, offset, pixel=pixel, settings=_grid_settings(voxel, max_memory))
     doc = {"file": str(path), **img.to_dict()}
-    if moment is not None:
-        doc["at"] = moment.to_dict()
     if describe:
         mask = img.mask(phases) & img.valid
         doc["solid_phases"] = list(phases)
@@ -117,17 +142,9 @@ def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memo
                                        {"kind": "section", "codes": {str(k): v for k, v in img.names.items()},
                                         "off_grid": 255, "source": str(path)}, force=force)
         doc["files"] = {k: str(v) for k, v in files.items()}
-    if as_json:
-        click.echo(dumps(doc))
-    elif not quiet:
-        click.echo(f"{path}: section {doc['shape_rows_cols'][1]} x {doc['shape_rows_cols'][0]} px "
-                   f"at {img.pixel:g} nm; {_fmt_frac(img.fractions())}")
-        for note in img.notes:
-            click.echo(f"  note: {note}")
-        if describe:
-            _echo_descriptors(doc["descriptors"])
-        if out is not None:
-            click.echo("  wrote " + ", ".join(doc["files"].values()))
+    _finish(doc, moment, img.notes, as_json, quiet,
+            f"{path}: section {doc['shape_rows_cols'][1]} x {doc['shape_rows_cols'][0]} px "
+            f"at {img.pixel:g} nm; {_fmt_frac(img.fractions())}")
 
 
 def _echo_descriptors(d):
@@ -161,25 +178,11 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
     from .. import pictures
     from ..measures.sections import projection, segment_projection
 
-    if str(threshold).lower() == "otsu":
-        thr = None
-    else:
-        try:
-            thr = float(threshold)
-        except ValueError:
-            raise OptionError(f"--threshold: expected 'otsu' or a number, got {threshold!r}",
-                              field="threshold") from None
-    if out is not None:
-        from ..io.output import check_writable
-        for p in pictures.outputs(out).values():
-            check_writable(p, force)
-    obj = load(path, **read_kw)
-    obj, moment = apply_at(obj, at_progress, at_time)
+    thr = _threshold(threshold)
+    obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
     img = projection(obj, axis, slab, offset=offset, pixel=pixel, mfp=mfp, resolution=resolution,
                      settings=_grid_settings(voxel, max_memory))
     doc = {"file": str(path), **img.to_dict()}
-    if moment is not None:
-        doc["at"] = moment.to_dict()
     if describe:
         mask, used = segment_projection(img, thr)
         doc["threshold"] = used
@@ -195,18 +198,10 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
              "resolution_fwhm_nm": img.resolution, "right": img.right, "up": img.up,
              "source": str(path)}, force=force)
         doc["files"] = {k: str(v) for k, v in files.items()}
-    if as_json:
-        click.echo(dumps(doc))
-    elif not quiet:
-        click.echo(f"{path}: projection along {img.axis}, {img.thickness.shape[1]} x "
-                   f"{img.thickness.shape[0]} px at {img.pixel:g} nm; slab {img.slab[0]:.4g} to "
-                   f"{img.slab[1]:.4g} nm; mean solid thickness {doc['mean_thickness_nm'] or 0:.3g} nm")
-        for note in img.notes:
-            click.echo(f"  note: {note}")
-        if describe:
-            _echo_descriptors(doc["descriptors"])
-        if out is not None:
-            click.echo("  wrote " + ", ".join(doc["files"].values()))
+    _finish(doc, moment, img.notes, as_json, quiet,
+            f"{path}: projection along {img.axis}, {img.thickness.shape[1]} x "
+            f"{img.thickness.shape[0]} px at {img.pixel:g} nm; slab {img.slab[0]:.4g} to "
+            f"{img.slab[1]:.4g} nm; mean solid thickness {doc['mean_thickness_nm'] or 0:.3g} nm")
 
 
 @click.command("compare")
@@ -264,7 +259,8 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
     for p in outs:
         check_writable(p, force)
     phases = _parse_phases(solid_phases)
-    thr = "otsu" if str(threshold).lower() == "otsu" else _number(threshold, "--threshold")
+    thr = _threshold(threshold)
+    thr = "otsu" if thr is None else thr
     mg = read_micrograph(image, pixel_size=pixel_size, threshold=thr, solid=solid_is)
     obj = load(path, **read_kw)
     obj, moment = apply_at(obj, at_progress, at_time)
