@@ -16,6 +16,7 @@ has (TIFF 6.0 specification, Adobe 1992, tags 282, 283, 296).
 """
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 from pathlib import Path
@@ -123,9 +124,17 @@ def outputs(stem) -> dict:
             "data": p.with_name(p.name + "_data.tif")}
 
 
-def _resolution(pixel_nm: float):
+#: Largest pixels-per-cm a TIFF rational (two uint32) can hold with some precision.
+_MAX_PER_CM = 2.0 ** 31
+
+
+def _resolution(pixel_nm: float) -> dict:
+    """TIFF resolution keywords for tifffile (pixels per cm), or none where the pixel is
+    too fine for a TIFF rational (the JSON description still gives ``pixel_nm``)."""
     per_cm = 1e7 / pixel_nm
-    return (per_cm, per_cm), 3  # RESUNIT.CENTIMETER
+    if not per_cm < _MAX_PER_CM:
+        return {}
+    return {"resolution": (per_cm, per_cm), "resolutionunit": 3}  # RESUNIT.CENTIMETER
 
 
 def write_picture(stem, picture: np.ndarray, data_pages: dict, pixel: float, description: dict,
@@ -141,23 +150,21 @@ def write_picture(stem, picture: np.ndarray, data_pages: dict, pixel: float, des
         check_writable(p, force)
     if not (math.isfinite(pixel) and pixel > 0):
         raise OptionError(f"pixel size must be positive, got {pixel!r}")
-    res, unit = _resolution(pixel)
     desc = dict(description)
     desc.update({"pixel_nm": pixel, "pages": list(data_pages), "software": "sheetview"})
-    with atomic_path(files["png"], force) as tmp:
-        imsave(str(tmp), np.ascontiguousarray(picture), format="png")
-    with atomic_path(files["tif"], force) as tmp:
-        # the bar is drawn at the enlarged scale: its resolution is that of the drawn picture
-        k = picture.shape[1] / max(1, next(iter(data_pages.values())).shape[1])
-        r2, _ = _resolution(pixel / k)
-        tifffile.imwrite(str(tmp), np.ascontiguousarray(picture), photometric="rgb",
-                         resolution=r2, resolutionunit=unit,
+    # the bar is drawn at the enlarged scale: its resolution is that of the drawn picture
+    k = picture.shape[1] / max(1, next(iter(data_pages.values())).shape[1])
+    # all three are written under temporary names and renamed only when all are complete
+    with contextlib.ExitStack() as stack:
+        tmps = {key: stack.enter_context(atomic_path(files[key], force)) for key in files}
+        imsave(str(tmps["png"]), np.ascontiguousarray(picture), format="png")
+        tifffile.imwrite(str(tmps["tif"]), np.ascontiguousarray(picture), photometric="rgb",
                          description=json.dumps({**desc, "pixel_nm": pixel / k,
-                                                 "pages": ["picture with scale bar"]}))
-    with atomic_path(files["data"], force) as tmp:
-        with tifffile.TiffWriter(str(tmp)) as tw:
+                                                 "pages": ["picture with scale bar"]}),
+                         **_resolution(pixel / k))
+        with tifffile.TiffWriter(str(tmps["data"])) as tw:
             for i, (name, arr) in enumerate(data_pages.items()):
-                tw.write(np.ascontiguousarray(arr), photometric="minisblack", resolution=res,
-                         resolutionunit=unit,
-                         description=json.dumps(desc) if i == 0 else json.dumps({"page": name}))
+                tw.write(np.ascontiguousarray(arr), photometric="minisblack",
+                         description=json.dumps(desc) if i == 0 else json.dumps({"page": name}),
+                         **_resolution(pixel))
     return files

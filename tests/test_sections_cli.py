@@ -183,3 +183,64 @@ def test_measure_at_progress_measures_the_earlier_structure(born_file, tmp_path)
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
     assert doc["at"]["n_prisms"] == doc["at"]["n_total"] == doc["n_prisms"]
+
+
+SAMPLE_TIF = "sample_structures/small_volume.tif"
+
+
+def test_project_and_compare_a_voxel_volume(tmp_path):
+    """A voxel volume projects by voxel counts over its own box (solid thickness = solid
+    voxels x 0.5 nm along z, checked against the file's array), and compare accepts it."""
+    import tifffile as tf
+    r = _run(["project", SAMPLE_TIF, "--json", "-o", tmp_path / "v"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    zyx = tf.imread(SAMPLE_TIF)            # pages along z, rows y, columns x; 1 = solid
+    expected = (zyx == 1).sum(axis=0)[::-1] * 0.5   # picture rows run down y
+    with tf.TiffFile(tmp_path / "v_data.tif") as t:
+        thick = t.pages[1].asarray()
+    np.testing.assert_allclose(thick, expected, atol=1e-6)
+    assert doc["pixel_nm"] == 0.5
+    from matplotlib.image import imsave
+    m = np.where(np.random.default_rng(0).random((64, 64)) < 0.1, 20, 230).astype(np.uint8)
+    imsave(tmp_path / "mg.png", m, cmap="gray", vmin=0, vmax=255)
+    r = _run(["compare", SAMPLE_TIF, tmp_path / "mg.png", "--pixel-size", "0.5", "--count", "2",
+              "--lines", "200", "--json"])
+    assert r.exit_code == 0, r.output
+
+
+@pytest.mark.parametrize("args,needle", [
+    (["project", "{f}", "--offset", "3"], "give its thickness with --slab"),
+    (["project", "{f}", "--offset", "nan", "--slab", "2"], "finite"),
+    (["project", "{f}", "--resolution", "1e6"], "over ten times"),
+    (["project", "{f}", "--threshold", "2", "--describe"], "between 0 and 1"),
+    (["section", "{f}", "--normal", "1,1,1", "--offset", "14"], "meets no voxel"),
+    (["kinetics", "{f}", "--t0", "-inf"], "--t0"),
+    (["kinetics", "{f}", "--t0", "1e9"], "--t0"),
+])
+def test_more_bad_options(born_file, args, needle):
+    r = _run([a.replace("{f}", str(born_file)) for a in args])
+    assert r.exit_code == 2, r.output
+    assert needle in r.output and "Traceback" not in r.output
+
+
+def test_kinetics_track_default_selection(born_file):
+    r = _run(["kinetics", born_file, "--track", "1", "--only", "default", "--voxel", "0.3",
+              "--keys", "phases.", "--json"])
+    assert r.exit_code == 0, r.output
+    assert any(k.startswith("phases.") for k in json.loads(r.stdout)["track"])
+
+
+def test_picture_with_a_pixel_too_fine_for_tiff_tags(tmp_path):
+    """A pixel finer than a TIFF rational can state is written without resolution tags (the
+    description still gives pixel_nm), all three files or none."""
+    import tifffile as tf
+    from sheetview.pictures import write_picture
+    pic = np.zeros((20, 20, 3), np.uint8)
+    files = write_picture(tmp_path / "fine", pic, {"phase": np.zeros((20, 20), np.uint8)}, 1e-4,
+                          {"kind": "section"})
+    with tf.TiffFile(files["data"]) as t:
+        # no length unit is claimed (tifffile writes the neutral 1/1, unit NONE)
+        assert int(t.pages[0].tags["ResolutionUnit"].value) == 1
+        assert json.loads(t.pages[0].description)["pixel_nm"] == 1e-4
+    assert all(p.exists() for p in files.values())

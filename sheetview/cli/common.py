@@ -170,3 +170,12 @@ def apply_at(obj, at_progress=None, at_time=None):
         raise OptionError("--at-progress / --at-time need prisms with a 'born' column, but the "
                           f"input is a {type(obj).__name__}", path=getattr(obj, "source", None))
     return structure_at(obj, progress=at_progress, time=at_time)
+
+
+def echo_moment(moment, quiet: bool = False) -> None:
+    """Say on stderr which moment of a grown structure is analysed (nothing for None)."""
+    if moment is None or quiet:
+        return
+    click.echo(f"sheetview: as it stood at {moment.requested}: time {moment.time:g}, progress "
+               f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms",
+               err=True)

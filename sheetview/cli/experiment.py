@@ -12,7 +12,7 @@ import numpy as np
 from ..errors import OptionError
 from ..io.curves import read_experimental
 from ..report import plot_relaxation, plot_scattering
-from .common import apply_at, at_options, dumps, load, parse_size, read_options
+from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
 
 
 def _check_outputs(paths, force):
@@ -121,6 +121,7 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
         click.echo(f"sheetview: warning: {w}", err=True)
     mem = parse_size(max_memory)
     obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
+    echo_moment(moment)
     _, grid = _grid_of(obj, voxel, mem)
     s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe)
     f_sld = preset_sld(fluid, probe)
@@ -218,6 +219,7 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
     elif t2_bulk < 0:
         raise OptionError(f"--t2-bulk must be positive (or 0 for no bulk term), got {t2_bulk}")
     obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
+    echo_moment(moment)
     ctx, grid = _grid_of(obj, voxel, parse_size(max_memory))
     if interlayer_width is None and isinstance(obj, Structure):
         gap = float(obj.spacing) - float(np.median(obj.thickness))

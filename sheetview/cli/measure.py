@@ -9,7 +9,7 @@ import click
 from .. import __version__
 from ..errors import OptionError
 from ..pipeline import DEFAULTS, SPLIT_NAMES
-from .common import apply_at, at_options, dumps, load, parse_size, parse_split, read_options
+from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, parse_split, read_options
 
 _OPTION_OF = {"angle_tol": "--angle-tol", "gap_tol": "--gap-tol", "overlap": "--overlap",
               "tilt_limit": "--tilt-limit", "local_radius": "--local-radius", "frame": "--frame",
@@ -298,10 +298,7 @@ def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, ga
         from ..report import check_folder
         check_folder(outdir, force)
     obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
-    if moment is not None and not quiet:
-        click.echo(f"sheetview: as it stood at {moment.requested}: time {moment.time:g}, progress "
-                   f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms",
-                   err=True)
+    echo_moment(moment, quiet)
     selected = measures.select(only, obj)
     measures.check_inputs(selected, obj, file)
     progress = None if quiet else _progress  # on stderr: stdout keeps only the summary

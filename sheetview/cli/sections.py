@@ -7,7 +7,7 @@ import click
 import numpy as np
 
 from ..errors import OptionError
-from .common import apply_at, at_options, dumps, load, parse_size, read_options
+from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
 
 _PHASE_CHOICES = ("solid", "interlayer", "gel")
 
@@ -37,7 +37,9 @@ def _open(path, out, force, read_kw, at_progress, at_time):
     if out is not None:
         for p in pictures.outputs(out).values():
             check_writable(p, force)
-    return apply_at(load(path, **read_kw), at_progress, at_time)
+    obj, moment = apply_at(load(path, **read_kw), at_progress, at_time)
+    echo_moment(moment)
+    return obj, moment
 
 
 def _finish(doc, moment, notes, as_json, quiet, headline):
@@ -58,8 +60,19 @@ def _finish(doc, moment, notes, as_json, quiet, headline):
         click.echo("  wrote " + ", ".join(doc["files"].values()))
 
 
-def _threshold(text):
-    return None if str(text).lower() == "otsu" else _number(text, "--threshold")
+def _at(moment) -> dict:
+    return {} if moment is None else {"at": moment.to_dict()}
+
+
+def _threshold(text, unit_range=False):
+    if str(text).lower() == "otsu":
+        return None
+    v = _number(text, "--threshold")
+    if unit_range and not 0 < v < 1:
+        raise OptionError(f"--threshold: a transmitted fraction between 0 and 1, got {text!r}")
+    if not np.isfinite(v):
+        raise OptionError(f"--threshold: must be finite, got {text!r}")
+    return v
 
 
 def _fmt_frac(d):
@@ -140,7 +153,8 @@ def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memo
                               caption=cap, legend=legend)
         files = pictures.write_picture(out, pic, {"phase": img.labels}, img.pixel,
                                        {"kind": "section", "codes": {str(k): v for k, v in img.names.items()},
-                                        "off_grid": 255, "source": str(path)}, force=force)
+                                        "off_grid": 255, "source": str(path),
+                                        **_at(moment)}, force=force)
         doc["files"] = {k: str(v) for k, v in files.items()}
     _finish(doc, moment, img.notes, as_json, quiet,
             f"{path}: section {doc['shape_rows_cols'][1]} x {doc['shape_rows_cols'][0]} px "
@@ -178,7 +192,7 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
     from .. import pictures
     from ..measures.sections import projection, segment_projection
 
-    thr = _threshold(threshold)
+    thr = _threshold(threshold, unit_range=True)
     obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
     img = projection(obj, axis, slab, offset=offset, pixel=pixel, mfp=mfp, resolution=resolution,
                      settings=_grid_settings(voxel, max_memory))
@@ -196,7 +210,7 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
                        "valid": img.valid.astype(np.uint8)}, img.pixel,
             {"kind": "projection", "axis": img.axis, "slab_nm": list(img.slab), "mfp_nm": img.mfp,
              "resolution_fwhm_nm": img.resolution, "right": img.right, "up": img.up,
-             "source": str(path)}, force=force)
+             "source": str(path), **_at(moment)}, force=force)
         doc["files"] = {k: str(v) for k, v in files.items()}
     _finish(doc, moment, img.notes, as_json, quiet,
             f"{path}: projection along {img.axis}, {img.thickness.shape[1]} x "
@@ -262,8 +276,8 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
     thr = _threshold(threshold)
     thr = "otsu" if thr is None else thr
     mg = read_micrograph(image, pixel_size=pixel_size, threshold=thr, solid=solid_is)
-    obj = load(path, **read_kw)
-    obj, moment = apply_at(obj, at_progress, at_time)
+    obj, moment = apply_at(load(path, **read_kw), at_progress, at_time)
+    echo_moment(moment, quiet)
     vis = virtual_images(obj, kind, axis=axis, count=count, pixel=mg.pixel, slab=slab,
                          settings=_grid_settings(voxel, max_memory), mfp=mfp,
                          resolution=resolution, solid_phases=phases)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import click
 
 from ..errors import OptionError
-from .common import apply_at, at_options, load, read_options
+from .common import apply_at, at_options, echo_moment, load, read_options
 
 _COLOURINGS = ["stacking", "stack", "order", "director", "wall", "born", "tag"]
 _CAMERAS = ["iso", "cut", "+x", "-x", "+y", "-y", "+z", "-z"]
@@ -50,9 +50,7 @@ def _structure(file, read_opts, what, at_progress=None, at_time=None):
         raise OptionError(f"`sheetview {what}` draws prisms, but this file holds a {kind}; {hint}",
                           path=file)
     obj, moment = apply_at(obj, at_progress, at_time)
-    if moment is not None:
-        click.echo(f"as it stood at {moment.requested}: time {moment.time:g}, progress "
-                   f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms", err=True)
+    echo_moment(moment)
     return obj
 
 

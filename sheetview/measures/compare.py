@@ -97,7 +97,7 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
     at evenly spaced offsets (the middle ``1 - 2 margin`` of the domain), or projections of
     ``count`` slabs of thickness ``slab`` spread the same way."""
     from ..view import BACKGROUND, section_rgb
-    from .sections import (AXES, domain_centre_and_span, phase_grid_of, projection, section,
+    from .sections import (AXES, centre_and_span, phase_grid_of, projection, section,
                            segment_projection)
     kind = str(kind).lower()
     if kind not in ("section", "projection"):
@@ -110,7 +110,7 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
         raise OptionError(f"--count must be 1 to 200, got {count}", field="count")
     if not (0 <= margin < 0.5):
         raise OptionError(f"margin must be in [0, 0.5), got {margin}")
-    centre, span = domain_centre_and_span(obj.domain)
+    centre, span = centre_and_span(obj)
     L = float(span[a])
     if count == 1:
         offs = np.array([0.0])
@@ -134,13 +134,13 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
         for off in offs:
             p = projection(obj, "xyz"[a], slab, offset=float(off), pixel=pixel, mfp=mfp,
                            resolution=resolution, settings=settings)
+            label = f"projection {'xyz'[a]} {p.slab[0]:.3g}..{p.slab[1]:.3g} nm"
             try:
                 m, _ = segment_projection(p, threshold)
-            except OptionError:
-                m = np.zeros_like(p.valid)
-            out.append(VirtualImage(m, p.valid, p.pixel,
-                                    f"projection {'xyz'[a]} {p.slab[0]:.3g}..{p.slab[1]:.3g} nm",
-                                    grey_rgb(p.intensity, p.valid)))
+            except OptionError as e:
+                raise OptionError(f"{label}: {e.detail}; use a thicker --slab or fewer "
+                                  "--count", field="slab") from None
+            out.append(VirtualImage(m, p.valid, p.pixel, label, grey_rgb(p.intensity, p.valid)))
     return out
 
 

@@ -160,6 +160,8 @@ def fit_avrami(times, alpha, *, t0: float | None = None, alpha_range=(0.05, 0.95
         return None
     x = np.log(t[keep] - t0)
     y = np.log(-np.log1p(-a[keep]))
+    if not (np.all(np.isfinite(x)) and np.ptp(x) > 1e-9 * max(1.0, float(np.abs(x).max()))):
+        return None
     n, c = np.polyfit(x, y, 1)
     pred = n * x + c
     ss = float(((y - y.mean()) ** 2).sum())
@@ -196,9 +198,13 @@ def progress(structure, *, bins: int | None = None, smooth: float = 2.0,
     bins = int(bins)
     if not 1 <= bins <= 100_000:
         raise OptionError(f"--bins must be 1 to 100000, got {bins}", field="bins")
-    if not (math.isfinite(smooth) and 0 <= smooth <= bins):
-        raise OptionError(f"--smooth must be 0 to the number of bins ({bins}), got {smooth}",
+    if not (math.isfinite(smooth) and 0 <= smooth <= max(bins, 1) * 1.0):
+        raise OptionError(f"--smooth must be 0 to the number of bins ({bins}), got {smooth}"
+                          + (" (with --bins 1 use --smooth 0 or 1)" if bins == 1 else ""),
                           field="smooth")
+    if t0 is not None and not (math.isfinite(float(t0)) and float(t0) < float(born.max())):
+        raise OptionError(f"--t0 must be a finite time before the last birth "
+                          f"({float(born.max()):g}), got {t0!r}", field="t0")
     t_lo, t_hi = float(times[0]), float(times[-1])
     notes = ["alpha counts prism volumes; overlapping prisms would count twice "
              "(grown structures have no overlaps)"]
@@ -253,7 +259,7 @@ def structure_at(structure, *, progress: float | None = None, time: float | None
         if not (math.isfinite(p) and 0 < p <= 1):
             raise OptionError(f"--at-progress must be a fraction in (0, 1], got {progress!r} "
                               f"(for a percentage divide by 100)", field="at_progress")
-        i = int(np.searchsorted(alpha, p - 1e-12, side="left"))
+        i = len(times) - 1 if p >= 1 else int(np.searchsorted(alpha, p - 1e-12, side="left"))
         t = float(times[min(i, len(times) - 1)])
         req = f"progress {p:g}"
     else:
@@ -281,9 +287,9 @@ def track(structure, progresses, *, only=("stacking", "order"), settings=None,
     of each result's ``to_dict()`` as dotted names (``stacking.mean``); ``keys`` (a list
     of substrings) keeps only the columns whose names contain one of them.
     """
-    from . import parse_only, run
+    from . import run, select
     from ..batch import flatten
-    names = parse_only(",".join(only) if not isinstance(only, str) else only)
+    names = select(only, structure)
     ps = [float(p) for p in progresses]
     if not ps:
         raise OptionError("--track needs at least one progress value", field="track")

@@ -68,6 +68,20 @@ def domain_centre_and_span(domain) -> tuple[np.ndarray, np.ndarray]:
     return 0.5 * (lo + hi), hi - lo
 
 
+def grid_centre_and_span(g) -> tuple[np.ndarray, np.ndarray]:
+    span = np.asarray(g.shape) * np.asarray(g.spacing, float)
+    return np.asarray(g.origin, float) + 0.5 * span, span
+
+
+def centre_and_span(obj, grid=None) -> tuple[np.ndarray, np.ndarray]:
+    """Centre and edge lengths of the sample: its domain's box, else (a voxel volume)
+    the box of its grid."""
+    dom = getattr(obj, "domain", None)
+    if dom is not None:
+        return domain_centre_and_span(dom)
+    return grid_centre_and_span(grid if grid is not None else obj)
+
+
 def _check_pixel(pixel, what="--pixel"):
     if pixel is None:
         return None
@@ -155,13 +169,7 @@ def section(obj, normal=(0.0, 0.0, 1.0), offset: float = 0.0, *, pixel: float | 
         raise OptionError(f"--offset must be a finite length in nm, got {offset!r}", field="offset")
     g = grid if grid is not None else phase_grid_of(obj, settings)
     n, u, v = plane_basis(normal)
-    dom = getattr(obj, "domain", None) or getattr(g, "domain", None)
-    if dom is not None:
-        centre, span = domain_centre_and_span(dom)
-    else:
-        lo = np.asarray(g.origin, float)
-        span = np.asarray(g.shape) * np.asarray(g.spacing)
-        centre = lo + 0.5 * span
+    centre, span = centre_and_span(obj, g)
     half = 0.5 * float(np.abs(span) @ np.abs(n))
     notes = []
     if abs(off) > half:
@@ -184,6 +192,10 @@ def section(obj, normal=(0.0, 0.0, 1.0), offset: float = 0.0, *, pixel: float | 
         notes.append(f"pixel {px:g} nm is finer than the voxel {voxel:g} nm: the picture "
                      "cannot resolve more than the grid does")
     labels = np.ascontiguousarray(sec.labels.T[::-1])  # rows = -v (down), cols = u
+    if not ((labels != SectionImage.OFF_GRID) & (labels != OUTSIDE)).any():
+        raise OptionError(f"the plane at offset {off:g} nm meets no voxel inside the sample "
+                          f"(pixel {px:g} nm): move it inward (--offset) or use a smaller --pixel",
+                          field="offset")
     top_left = sec.origin + sec.u0 * sec.u + (sec.v0 + labels.shape[0] * sec.pixel) * sec.v
     return SectionImage(labels, float(sec.pixel), n, u, v, origin, off, top_left, dict(g.names),
                         voxel, notes)
@@ -249,17 +261,30 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
     if not (math.isfinite(resolution) and resolution >= 0):
         raise OptionError(f"--resolution must be a length >= 0 nm, got {resolution!r}",
                           field="resolution")
-    dom = getattr(obj, "domain", None)
-    if dom is None:
-        raise OptionError("the input has no domain to project through")
-    centre, span = domain_centre_and_span(dom)
     off = float(offset)
+    if not math.isfinite(off):
+        raise OptionError(f"--offset must be a finite length in nm, got {offset!r}", field="offset")
+    if slab is None and off != 0:
+        raise OptionError("--offset places a slab: give its thickness with --slab (without it "
+                          "the whole sample is projected)", field="offset")
+    if isinstance(obj, Structure):
+        g = None
+        centre, span = centre_and_span(obj)
+    elif isinstance(obj, (PhaseGrid, SurfaceBody)):
+        g = phase_grid_of(obj, settings)
+        centre, span = grid_centre_and_span(g)
+    else:
+        raise OptionError(f"cannot project a {type(obj).__name__}")
+    if resolution > 10 * float(span.max()):
+        raise OptionError(f"--resolution {resolution:g} nm is over ten times the sample "
+                          f"({float(span.max()):.4g} nm): the picture would be uniform",
+                          field="resolution")
     if slab is None:
         z0, z1 = centre[a] - 0.5 * span[a], centre[a] + 0.5 * span[a]
     else:
         slab = positive(slab, "--slab", field="slab")
         z0, z1 = centre[a] + off - 0.5 * slab, centre[a] + off + 0.5 * slab
-    if not math.isfinite(off) or z1 <= centre[a] - 0.5 * span[a] or z0 >= centre[a] + 0.5 * span[a]:
+    if z1 <= centre[a] - 0.5 * span[a] or z0 >= centre[a] + 0.5 * span[a]:
         raise OptionError(f"the slab {z0:.4g} to {z1:.4g} nm along {axis} misses the sample "
                           f"({centre[a] - 0.5 * span[a]:.4g} to {centre[a] + 0.5 * span[a]:.4g} nm)",
                           field="offset")
@@ -268,22 +293,23 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
     lo_r, hi_r = centre[ra] - 0.5 * span[ra], centre[ra] + 0.5 * span[ra]
     lo_u, hi_u = centre[ua] - 0.5 * span[ua], centre[ua] + 0.5 * span[ua]
     notes = []
-    if isinstance(obj, Structure):
+    if g is None:
         px = pixel if pixel is not None else _default_pixel(max(span[ra], span[ua]))
         nc = int(math.ceil((hi_r - lo_r) / px - 1e-9))
         nr = int(math.ceil((hi_u - lo_u) / px - 1e-9))
         _check_side(nr, nc, px)
         t, valid = _project_prisms(obj, a, ra, ua, lo_r, hi_u, px, nr, nc, z0, z1, n_threads)
         method = "exact paths through prisms"
-    elif isinstance(obj, (PhaseGrid, SurfaceBody)):
-        g = phase_grid_of(obj, settings)
-        t, valid, px = _project_grid(g, a, z0, z1, pixel)
+    else:
+        t, valid, px = _project_grid(g, a, z0, z1)
         nr, nc = t.shape
         method = "solid voxels along the path"
         if pixel is not None and abs(px - pixel) > 1e-9 * pixel:
             notes.append(f"a phase grid projects at its voxel edge ({px:g} nm), not at --pixel")
-    else:
-        raise OptionError(f"cannot project a {type(obj).__name__}")
+    if not valid.any():
+        raise OptionError(f"no pixel of the picture meets the sample (pixel {px:g} nm, sample "
+                          f"{span[ra]:.4g} x {span[ua]:.4g} nm): use a smaller --pixel",
+                          field="pixel")
     inten = np.exp(-t / mfp)
     if resolution > 0:
         from scipy.ndimage import gaussian_filter
@@ -345,8 +371,11 @@ def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1, n_th
         idx = np.flatnonzero(keep)
         planes, c0, c1, r0, r1 = planes[idx], c0[idx], c1[idx], r0[idx], r1[idx]
         # row blocks bounding the number of intervals held at once
-        work = ((c1 - c0 + 1) * (r1 - r0 + 1)).astype(float)
-        per_row = np.bincount(r0, weights=work / (r1 - r0 + 1), minlength=nr)  # rough spread
+        # intervals per picture row: each prism adds its width to every row it spans
+        d = np.zeros(nr + 1)
+        np.add.at(d, r0, (c1 - c0 + 1).astype(float))
+        np.add.at(d, r1 + 1, -(c1 - c0 + 1).astype(float))
+        per_row = np.cumsum(d[:nr])
         budget = 4_000_000
         edges = [0]
         acc = 0.0
@@ -445,10 +474,11 @@ def _merge_lengths(il, is_, ie, total, eps):
         k = j
 
 
-def _project_grid(g: PhaseGrid, a, z0, z1, pixel):
+def _project_grid(g: PhaseGrid, a, z0, z1):
+    """Solid voxels along axis ``a`` between ``z0`` and ``z1`` times the voxel edge, as a
+    picture [row = -up, col = right] at the finer in-plane voxel edge (nearest voxel where
+    the in-plane edges differ). Returns (thickness, valid, pixel)."""
     sp = np.asarray(g.spacing, float)
-    if not np.allclose(sp, sp[0], rtol=1e-9):
-        raise OptionError("projection of a grid with unequal voxel edges is not supported")
     org = np.asarray(g.origin, float)
     c = org[a] + (np.arange(g.shape[a]) + 0.5) * sp[a]
     ks = np.flatnonzero((c >= z0) & (c < z1))
@@ -456,14 +486,17 @@ def _project_grid(g: PhaseGrid, a, z0, z1, pixel):
     solid = (sub == SOLID).sum(axis=a) * sp[a]
     inside = (sub != OUTSIDE).any(axis=a)
     ra, ua = _picture_axes(a)
-    # remaining axes in increasing order; arrange as [up (descending), right]
     rem = [i for i in range(3) if i != a]
     if rem.index(ra) == 0:
-        t, valid = solid.T, inside.T  # [ua, ra]
-    else:
-        t, valid = solid, inside
-    return (np.ascontiguousarray(t[::-1]).astype(float), np.ascontiguousarray(valid[::-1]),
-            float(sp[0]))
+        solid, inside = solid.T, inside.T  # [ua, ra]
+    px = float(min(sp[ra], sp[ua]))
+    nc = max(1, int(round(g.shape[ra] * sp[ra] / px)))
+    nr = max(1, int(round(g.shape[ua] * sp[ua] / px)))
+    ic = np.minimum(((np.arange(nc) + 0.5) * px / sp[ra]).astype(np.int64), g.shape[ra] - 1)
+    iu = np.minimum(((np.arange(nr) + 0.5) * px / sp[ua]).astype(np.int64), g.shape[ua] - 1)
+    t = solid[np.ix_(iu, ic)][::-1]
+    valid = inside[np.ix_(iu, ic)][::-1]
+    return np.ascontiguousarray(t).astype(float), np.ascontiguousarray(valid), px
 
 
 # ====================================================================== pictures
