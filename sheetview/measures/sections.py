@@ -138,7 +138,8 @@ class SectionImage:
 
     def to_dict(self) -> dict:
         return {"kind": "section", "normal": self.normal.tolist(), "offset_nm": self.offset,
-                "origin_nm": self.origin.tolist(), "right": self.right.tolist(),
+                "origin_nm": self.origin.tolist(), "corner_nm": self.corner.tolist(),
+                "right": self.right.tolist(),
                 "up": self.up.tolist(), "pixel_nm": self.pixel, "voxel_nm": self.voxel,
                 "shape_rows_cols": list(self.labels.shape),
                 "valid_pixels": int(self.valid.sum()), "area_fractions": self.fractions(),
