@@ -145,6 +145,14 @@ def _curve(born, vol):
     return times, alpha
 
 
+def _time_at(times, alpha, p: float) -> float:
+    """The first birth time at which alpha reaches ``p`` (the last one for p >= 1)."""
+    if p >= 1:
+        return float(times[-1])
+    i = int(np.searchsorted(alpha, p - 1e-12, side="left"))
+    return float(times[min(i, len(times) - 1)])
+
+
 def fit_avrami(times, alpha, *, t0: float | None = None, alpha_range=(0.05, 0.95)) -> AvramiFit | None:
     """Least-squares Avrami fit of a progress curve (see the module docstring).
 
@@ -189,16 +197,13 @@ def progress(structure, *, bins: int | None = None, smooth: float = 2.0,
     vol = np.asarray(structure.volumes, float)
     total = float(vol.sum())
     times, alpha = _curve(born, vol)
-    marks = {}
-    for p in PROGRESS_MARKS:
-        i = int(np.searchsorted(alpha, p - 1e-12, side="left"))
-        marks[f"t{int(round(100 * p))}"] = float(times[min(i, len(times) - 1)])
+    marks = {f"t{int(round(100 * p))}": _time_at(times, alpha, p) for p in PROGRESS_MARKS}
     if bins is None:
         bins = int(np.clip(round(math.sqrt(len(times))), 10, 200))
     bins = int(bins)
     if not 1 <= bins <= 100_000:
         raise OptionError(f"--bins must be 1 to 100000, got {bins}", field="bins")
-    if not (math.isfinite(smooth) and 0 <= smooth <= max(bins, 1) * 1.0):
+    if not (math.isfinite(smooth) and 0 <= smooth <= bins):
         raise OptionError(f"--smooth must be 0 to the number of bins ({bins}), got {smooth}"
                           + (" (with --bins 1 use --smooth 0 or 1)" if bins == 1 else ""),
                           field="smooth")
@@ -259,8 +264,7 @@ def structure_at(structure, *, progress: float | None = None, time: float | None
         if not (math.isfinite(p) and 0 < p <= 1):
             raise OptionError(f"--at-progress must be a fraction in (0, 1], got {progress!r} "
                               f"(for a percentage divide by 100)", field="at_progress")
-        i = len(times) - 1 if p >= 1 else int(np.searchsorted(alpha, p - 1e-12, side="left"))
-        t = float(times[min(i, len(times) - 1)])
+        t = _time_at(times, alpha, p)
         req = f"progress {p:g}"
     else:
         t = float(time)
