@@ -244,7 +244,7 @@ def _picture_axes(a: int) -> tuple[int, int]:
 
 def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float = 0.0,
                pixel: float | None = None, mfp: float = DEFAULT_MFP, resolution: float = 0.0,
-               settings: dict | None = None, n_threads=None) -> ProjectionImage:
+               settings: dict | None = None) -> ProjectionImage:
     """Project ``obj`` along ``axis`` through a slab of thickness ``slab`` (nm; default the
     whole domain) centred ``offset`` nm from the domain's centre.
 
@@ -299,7 +299,7 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
         nc = int(math.ceil((hi_r - lo_r) / px - 1e-9))
         nr = int(math.ceil((hi_u - lo_u) / px - 1e-9))
         _check_side(nr, nc, px)
-        t, valid = _project_prisms(obj, a, ra, ua, lo_r, hi_u, px, nr, nc, z0, z1, n_threads)
+        t, valid = _project_prisms(obj, a, ra, ua, lo_r, hi_u, px, nr, nc, z0, z1)
         method = "exact paths through prisms"
     else:
         t, valid, px = _project_grid(g, a, z0, z1)
@@ -335,7 +335,7 @@ def _default_pixel(span: float) -> float:
     return float(target)
 
 
-def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1, n_threads):
+def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1):
     """Exact solid path length per pixel: each prism is scan-converted over the pixels of
     its footprint; each pixel's path is clipped against the prism's 5 face planes
     (Cyrus-Beck), then the intervals of one path are merged (overlaps counted once)."""
