@@ -386,8 +386,8 @@ def plane_basis(normal) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     n = np.asarray(normal, dtype=float).reshape(3)
     norm = np.linalg.norm(n)
     if not (np.isfinite(norm) and norm > 0):
-        raise OptionError(f"the plane normal must be a non-zero vector, got {tuple(n)}",
-                          field="slice_normal")
+        raise OptionError("the plane normal must be a non-zero vector, got "
+                          f"({', '.join(f'{x:g}' for x in n)})", field="slice_normal")
     n = n / norm
     a = int(np.argmax(np.abs(n)))
     if abs(abs(n[a]) - 1.0) < 1e-12:
