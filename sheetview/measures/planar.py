@@ -27,6 +27,7 @@ import numba
 import numpy as np
 
 from ..errors import OptionError, positive
+from .pores import _prefix_max
 
 PHASES = ("solid", "pore")
 DIRECTIONS = ("rows", "cols", "random")
@@ -665,12 +666,7 @@ def _containment_table_2d(kmax):
             if v1 > A[1, q]:
                 A[1, q] = v1
     M = np.full((9, kmax + 2), np.iinfo(np.int64).max, dtype=np.int64)
-    for t in range(2):
-        run = -1
-        for K in range(1, kmax + 2):
-            if A[t, K - 1] > run:
-                run = A[t, K - 1]
-            M[t, K] = run
+    _prefix_max(A, M[:2])
     return M
 
 
