@@ -73,7 +73,7 @@ def render(rgb: np.ndarray, pixel: float, *, bar_nm: float | None = None,
     bar = nice_bar(width) if bar_nm is None else float(bar_nm)
     fs = max(7.0, min(14.0, 0.045 * min(H, W) * 72 / dpi))
     pad = 0.04 * width
-    bh = max(0.012 * nr * pixel, 2.5 * pixel / k * 1.0, 0.012 * width)
+    bh = max(0.012 * nr * pixel, 2.5 * pixel / k, 0.012 * width)
     x1 = nc * pixel - pad
     y0 = 0.05 * nr * pixel
     ax.add_patch(Rectangle((x1 - bar, y0), bar, bh, facecolor=BAR_COLOUR, edgecolor=BAR_EDGE, lw=1.0))

@@ -19,11 +19,6 @@ def _floats(text, what):
     return vals
 
 
-def _write_table(path, cols: dict, force: bool, header=None):
-    from ..report import write_csv
-    write_csv(path, cols, force=force)
-
-
 @click.command("kinetics")
 @click.argument("path", type=click.Path(dir_okay=False))
 @click.option("--bins", type=int, default=None,
@@ -60,6 +55,7 @@ def kinetics(path, bins, smooth, no_fit, t0, track, only, keys, voxel, csv_out, 
     volume born by t over the final), the smoothed rate, t10/t50/t90 and an Avrami fit."""
     from ..io.output import check_writable
     from ..measures.kinetics import progress, track as track_fn
+    from ..report import write_csv
     outs = [p for p in (csv_out, rate_csv, track_csv, plot_out) if p]
     if len(set(map(str, outs))) != len(outs):
         raise OptionError("two outputs name the same file")
@@ -79,12 +75,12 @@ def kinetics(path, bins, smooth, no_fit, t0, track, only, keys, voxel, csv_out, 
         table = track_fn(obj, ps, only=only, settings={"voxel": voxel}, keys=keylist, progress_cb=cb)
         doc["track"] = table
     if csv_out:
-        _write_table(csv_out, kin.table(), force)
+        write_csv(csv_out, kin.table(), force=force)
     if rate_csv:
-        _write_table(rate_csv, kin.rate_table(), force)
+        write_csv(rate_csv, kin.rate_table(), force=force)
     if track_csv:
-        _write_table(track_csv, {k: np.asarray([np.nan if v is None else v for v in vals], float)
-                                 for k, vals in table.items()}, force)
+        write_csv(track_csv, {k: np.asarray([np.nan if v is None else v for v in vals], float)
+                                 for k, vals in table.items()}, force=force)
     if plot_out:
         _plot(kin, plot_out, force, str(path))
     if as_json:

@@ -194,25 +194,17 @@ def compare(virtual_descriptors, observed_descriptors, kind: str = "section") ->
     vds = list(virtual_descriptors)
     if not vds:
         raise OptionError("no virtual image to compare")
-    obs = observed_descriptors.distributions()
-    obs_w = _weights(observed_descriptors, obs)
-    pooled, pooled_w = {}, {}
-    for name in DISTRIBUTIONS:
-        parts, wparts = [], []
-        for d in vds:
-            dd = d.distributions()
-            ww = _weights(d, dd)
-            parts.append(np.asarray(dd.get(name, np.zeros(0)), float))
-            wparts.append(np.asarray(ww.get(name, np.ones(parts[-1].size)), float))
-        pooled[name] = np.concatenate(parts)
-        pooled_w[name] = np.concatenate(wparts)
-    dist = {name: distance(pooled[name], obs.get(name, np.zeros(0)), pooled_w[name],
-                           obs_w.get(name)) for name in DISTRIBUTIONS}
-    od = observed_descriptors.to_dict()
+    obs, obs_w = observed_descriptors.distributions(), observed_descriptors.weights()
+    each = [(d.distributions(), d.weights(), d.headline()) for d in vds]  # once per image
+    pooled = {n: np.concatenate([np.asarray(dd[n], float) for dd, _, _ in each])
+              for n in DISTRIBUTIONS}
+    pooled_w = {n: np.concatenate([np.asarray(ww[n], float) for _, ww, _ in each])
+                for n in DISTRIBUTIONS}
+    dist = {n: distance(pooled[n], obs[n], pooled_w[n], obs_w[n]) for n in DISTRIBUTIONS}
+    od = observed_descriptors.headline()
     scal = {}
     for k in SCALARS:
-        vals = [d.to_dict().get(k) for d in vds]
-        vals = np.array([v for v in vals if isinstance(v, (int, float)) and v is not None
+        vals = np.array([v for _, _, h in each if isinstance(v := h.get(k), (int, float))
                          and math.isfinite(v)], float)
         o = od.get(k)
         scal[k] = {"virtual_mean": float(vals.mean()) if vals.size else None,
@@ -222,8 +214,3 @@ def compare(virtual_descriptors, observed_descriptors, kind: str = "section") ->
              "per-pixel thickness values are correlated, so read D and W1 as distances"]
     return Comparison(dist, scal, len(vds), kind, notes, pooled, obs, pooled_w, obs_w)
 
-
-def _weights(desc, dists) -> dict:
-    """Sample weights of a descriptor set's distributions (ones where it gives none)."""
-    w = desc.weights() if hasattr(desc, "weights") else {}
-    return {k: np.asarray(w.get(k, np.ones(len(v))), float) for k, v in dists.items()}
