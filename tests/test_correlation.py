@@ -58,3 +58,26 @@ def test_errors():
         two_point_correlation(PhaseGrid(np.zeros((4, 4, 4), np.uint8)), GEL)
     with pytest.raises(OptionError, match="PhaseGrid"):
         two_point_correlation(np.zeros((4, 4, 4)), GEL)
+
+
+@pytest.mark.parametrize("periodic", [True, False])
+def test_reach_keeps_the_lags_it_names(periodic):
+    """A map cut to a reach holds the same values as direct pair counts (independent numpy
+    path) at every lag it keeps, in FFT order; the non-periodic one is padded only to
+    n + reach (a fast FFT length), not 2 n."""
+    from sheetview.measures.correlation import padded_shape
+    rng = np.random.default_rng(3)
+    m = rng.random((9, 10, 11)) < 0.35
+    w = np.ones_like(m) if periodic else rng.random(m.shape) < 0.85
+    s2, pairs = s2_map(m, None if periodic else w, periodic, reach=(2, 3, 4))
+    assert s2.shape == (5, 7, 9)
+    for d in [(0, 0, 0), (2, -3, 4), (-2, 3, -4), (1, 0, -1), (0, -1, 2)]:
+        assert s2[d] == pytest.approx(_direct(m, w, d, periodic), abs=1e-12)
+    if not periodic:
+        pad = padded_shape(m.shape, (2, 3, 4))
+        assert all(n + r <= p < 2 * n for n, r, p in zip(m.shape, (2, 3, 4), pad))
+        # no window: the pair counts are the exact prod (n_a - |k_a|)
+        _, full = s2_map(m, None, False, reach=(2, 3, 4), workers=1)
+        assert full[-2, 3, -4] == (9 - 2) * (10 - 3) * (11 - 4)
+    with pytest.raises(OptionError, match="reach"):
+        s2_map(m, reach=-1)

@@ -15,6 +15,7 @@ import numpy as np
 
 from ..errors import MemoryLimitError, OptionError
 from ..grid import OUTSIDE, PhaseGrid
+from ..threads import budget
 
 #: Default memory ceiling for the FFT work arrays (bytes).
 DEFAULT_MAX_BYTES = 2 * 1024 ** 3
@@ -54,31 +55,100 @@ class CorrelationResult:
         return {"r_nm": self.r.tolist(), "s2": self.s2.tolist(), "pairs": self.pairs.tolist()}
 
 
-def s2_map(mask: np.ndarray, window: np.ndarray | None = None, periodic: bool = False):
-    """Full 3D S2 map and pair counts at every lattice displacement (FFT).
+def _lags(n: int, reach: int) -> np.ndarray:
+    """Integer lags of a correlation axis of ``n`` points kept to ``|lag| <= reach``, in FFT
+    order (0, 1, ..., reach, -reach, ..., -1)."""
+    return np.r_[0:reach + 1, -reach:0].astype(np.int64)
 
-    Periodic: circular autocorrelation ``ifft(|fft(I)|^2) / N``. Otherwise both the
-    indicator and the window (voxels inside the domain; all True by default) are
-    zero-padded to twice the size, and ``S2(r) = C_II(r) / C_WW(r)``, the fraction of
-    the in-domain pairs at displacement ``r`` that are both in the phase.
-    Returns (s2, pairs) with displacement axes in FFT order.
-    """
-    m = np.asarray(mask, dtype=np.float64)
+
+def _crop(a: np.ndarray, reach) -> np.ndarray:
+    """Keep the lags ``|k_a| <= reach_a`` of a map in FFT order (FFT order kept)."""
+    for ax, r in enumerate(reach):
+        n = a.shape[ax]
+        if 2 * r + 1 < n:
+            a = np.take(a, np.r_[0:r + 1, n - r:n], axis=ax)
+    return a
+
+
+def _autocorrelation(x: np.ndarray, shape, workers: int) -> np.ndarray:
+    """Circular autocorrelation of ``x`` zero-padded to ``shape`` (real FFT), rounded to
+    the nearest integer (``x`` holds 0/1, so every value is a count of pairs)."""
+    import scipy.fft as sfft
+    F = sfft.rfftn(x, s=shape, axes=(0, 1, 2), workers=workers)
+    np.multiply(F, F.conj(), out=F)
+    c = sfft.irfftn(F, s=shape, axes=(0, 1, 2), workers=workers, overwrite_x=True)
+    del F
+    return np.rint(c, out=c)
+
+
+def _reach(shape, reach):
+    if reach is None:
+        return tuple(int(n) - 1 for n in shape)
+    reach = np.broadcast_to(np.asarray(reach, dtype=np.int64), (3,))
+    if np.any(reach < 0):
+        raise OptionError(f"reach must be >= 0 voxels, got {tuple(reach.tolist())}")
+    return tuple(int(min(r, n - 1)) for r, n in zip(reach, shape))
+
+
+def padded_shape(shape, reach=None, periodic: bool = False) -> tuple:
+    """Shape of the FFT work arrays of :func:`s2_map`: the grid itself when periodic;
+    otherwise each axis zero-padded to at least ``n + reach`` (no wrap-around of the lags
+    kept), rounded up to a fast FFT length."""
+    import scipy.fft as sfft
+    shape = tuple(int(n) for n in shape)
     if periodic:
-        F = np.fft.rfftn(m)
-        c = np.fft.irfftn(F * np.conj(F), s=m.shape, axes=(0, 1, 2))
+        return shape
+    return tuple(sfft.next_fast_len(n + r, real=True) for n, r in zip(shape, _reach(shape, reach)))
+
+
+def _s2_map(mask, window=None, periodic=False, reach=None, workers=None):
+    m = np.asarray(mask, dtype=bool)
+    if m.ndim != 3:
+        raise OptionError(f"s2_map needs a 3D mask, got {m.ndim}D")
+    workers = workers or budget()
+    rch = _reach(m.shape, reach)
+    if periodic:
+        c = _crop(_autocorrelation(m.astype(np.float64), m.shape, workers), rch)
+        lags = [_lags(n, r) if 2 * r + 1 < n else np.fft.fftfreq(n, 1.0 / n).astype(np.int64)
+                for n, r in zip(m.shape, rch)]
         n = float(m.size)
-        return c / n, np.full(m.shape, n)
-    w = np.ones_like(m) if window is None else np.asarray(window, dtype=np.float64)
-    shape = tuple(2 * s for s in m.shape)
-    F = np.fft.rfftn(m * w, s=shape, axes=(0, 1, 2))
-    c = np.fft.irfftn(F * np.conj(F), s=shape, axes=(0, 1, 2))
-    G = np.fft.rfftn(w, s=shape, axes=(0, 1, 2))
-    cw = np.fft.irfftn(G * np.conj(G), s=shape, axes=(0, 1, 2))
-    cw = np.rint(cw)
+        return c / n, np.full(c.shape, n), lags
+    shape = padded_shape(m.shape, rch)
+    lags = [_lags(n, r) for n, r in zip(m.shape, rch)]
+    w = None if window is None else np.asarray(window, dtype=bool)
+    x = (m & w if w is not None else m).astype(np.float64)
+    c = _crop(_autocorrelation(x, shape, workers), rch)
+    del x
+    if w is None:
+        # pairs with both points in the box at lag k: prod_a (n_a - |k_a|) (exact)
+        per = [(n - np.abs(k)).astype(np.float64) for n, k in zip(m.shape, lags)]
+        cw = per[0][:, None, None] * per[1][None, :, None] * per[2][None, None, :]
+    else:
+        cw = _crop(_autocorrelation(w.astype(np.float64), shape, workers), rch)
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.where(cw > 0.5, c / np.maximum(cw, 1.0), np.nan)
-    return s2, cw
+    return s2, cw, lags
+
+
+def s2_map(mask: np.ndarray, window: np.ndarray | None = None, periodic: bool = False,
+           reach=None, workers: int | None = None):
+    """Full 3D S2 map and pair counts at every lattice displacement (FFT).
+
+    Periodic: circular autocorrelation ``ifft(|fft(I)|^2) / N``. Otherwise the indicator
+    (times the window of voxels inside the domain, all True by default) is zero-padded
+    to :func:`padded_shape` and ``S2(r) = C_II(r) / C_WW(r)``, the fraction of the
+    in-domain pairs at displacement ``r`` that are both in the phase; without a window
+    ``C_WW`` is the exact count ``prod_a (n_a - |k_a|)`` and takes no transform.
+
+    ``reach``: the largest lag kept per axis, voxels (an int or three; default all,
+    ``n - 1``). Only the lags kept are padded for, so a reach of half the grid needs
+    work arrays of about 1.5 n per axis instead of 2 n. ``workers``: FFT threads (default
+    :func:`sheetview.threads.budget`). Returns (s2, pairs), of ``2 reach + 1`` values per
+    axis (periodic: at most ``n``), displacement axes in FFT order (index ``-k`` is the
+    lag ``-k``).
+    """
+    s2, pairs, _ = _s2_map(mask, window, periodic, reach, workers)
+    return s2, pairs
 
 
 def two_point_correlation(grid: PhaseGrid, phases, r_max: float | None = None,
@@ -111,8 +181,15 @@ def two_point_correlation(grid: PhaseGrid, phases, r_max: float | None = None,
     codes = _codes(phases, "phases")
     sp = np.asarray(grid.spacing)
     shape = np.asarray(grid.shape)
-    factor = 1 if grid.periodic else 8
-    need = int(np.prod(shape) * factor * 8 * 4)
+    ext = shape * sp
+    rmax = float(0.5 * ext.min()) if r_max is None else float(r_max)
+    bw = float(sp.max()) if bin_width is None else float(bin_width)
+    if not (rmax > 0 and bw > 0):
+        raise OptionError(f"r_max and bin_width must be positive, got {r_max!r}, {bin_width!r}")
+    # lags that can fall in a bin: |k_a| sp_a <= rmax + bw / 2
+    reach = tuple(int(v) for v in np.ceil((rmax + 0.5 * bw) / sp + 1e-9))
+    # real input, its half-spectrum (complex) and the real output at once: 3 x 8 bytes
+    need = int(np.prod(padded_shape(shape, reach, grid.periodic), dtype=np.float64) * 8 * 3)
     if need > max_bytes:
         raise MemoryLimitError(f"two-point correlation of a {tuple(shape)} grid needs about "
                                f"{need / 1e9:.1f} GB (limit {max_bytes / 1e9:.1f} GB); use a "
@@ -122,18 +199,9 @@ def two_point_correlation(grid: PhaseGrid, phases, r_max: float | None = None,
     mask = np.isin(lab, codes) & window
     if window.sum() == 0:
         raise OptionError("the grid has no voxel inside the domain")
-    ext = shape * sp
-    rmax = float(0.5 * ext.min()) if r_max is None else float(r_max)
-    bw = float(sp.max()) if bin_width is None else float(bin_width)
-    if not (rmax > 0 and bw > 0):
-        raise OptionError(f"r_max and bin_width must be positive, got {r_max!r}, {bin_width!r}")
-    s2, pairs = s2_map(mask, None if window.all() else window, grid.periodic)
-    n = s2.shape
+    s2, pairs, lags = _s2_map(mask, None if window.all() else window, grid.periodic, reach)
     # displacement lengths in FFT order
-    comps = []
-    for a in range(3):
-        k = np.fft.fftfreq(n[a], d=1.0 / n[a])
-        comps.append(k * sp[a])
+    comps = [k * s for k, s in zip(lags, sp)]
     R = np.sqrt(comps[0][:, None, None] ** 2 + comps[1][None, :, None] ** 2
                 + comps[2][None, None, :] ** 2)
     ok = np.isfinite(s2) & (R <= rmax + 0.5 * bw) & (pairs > 0)

@@ -27,6 +27,7 @@ import numba
 import numpy as np
 
 from ..errors import OptionError, positive
+from ..threads import budget
 from .pores import _prefix_max
 
 PHASES = ("solid", "pore")
@@ -38,8 +39,6 @@ LINE_STEP_PX = 0.25
 HYSTERESIS_PX = 0.3
 #: Orientation histogram bins over [0, 180) degrees.
 ORIENTATION_BINS = 36
-#: Threads for the distance transforms.
-EDT_THREADS = 2
 
 
 # ======================================================================= checks
@@ -437,8 +436,8 @@ def signed_distance(mask) -> np.ndarray:
         return np.full(m.shape, 1e6)
     if not m.any():
         return np.full(m.shape, -1e6)
-    din = edt.edt(m, black_border=False, parallel=EDT_THREADS)
-    dout = edt.edt(1 - m, black_border=False, parallel=EDT_THREADS)
+    din = edt.edt(m, black_border=False, parallel=budget())
+    dout = edt.edt(1 - m, black_border=False, parallel=budget())
     return np.where(m.astype(bool), din - 0.5, 0.5 - dout).astype(np.float64)
 
 
@@ -696,7 +695,7 @@ def thickness_map(phase, pixel=1.0) -> np.ndarray:
     out = np.full(m.shape, np.nan, dtype=np.float32)
     if not m.any():
         return out
-    d2 = edt.edtsq(m.astype(np.uint8), black_border=True, parallel=EDT_THREADS)
+    d2 = edt.edtsq(m.astype(np.uint8), black_border=True, parallel=budget())
     # one plane of a 3D grid, (1, rows, cols): the painting bit sets run along the rows
     K = np.ascontiguousarray(d2, dtype=np.float32)[None]
     m3 = m[None]
@@ -822,15 +821,15 @@ def s2_2d(mask, pixel, *, valid=None, r_max=None) -> S2Result:
     shape = (sfft.next_fast_len(M + rpx, real=True), sfft.next_fast_len(L + rpx, real=True))
     I = (m & v).astype(np.float64)
     W = v.astype(np.float64)
-    FI = sfft.rfft2(I, s=shape, workers=EDT_THREADS)
-    cI = sfft.irfft2(FI * np.conj(FI), s=shape, workers=EDT_THREADS)
+    FI = sfft.rfft2(I, s=shape, workers=budget())
+    cI = sfft.irfft2(FI * np.conj(FI), s=shape, workers=budget())
     del FI
     if v.all():
         # C_WW of a full rectangle: (M - |dy|) (L - |dx|)
         cW = None
     else:
-        FW = sfft.rfft2(W, s=shape, workers=EDT_THREADS)
-        cW = sfft.irfft2(FW * np.conj(FW), s=shape, workers=EDT_THREADS)
+        FW = sfft.rfft2(W, s=shape, workers=budget())
+        cW = sfft.irfft2(FW * np.conj(FW), s=shape, workers=budget())
         del FW
     ry = min(rpx, M - 1)
     rx = min(rpx, L - 1)

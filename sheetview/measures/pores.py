@@ -57,9 +57,7 @@ from numba.cpython.unsafe.numbers import trailing_zeros as _tz
 
 from ..errors import OptionError
 from ..grid import GEL, OUTSIDE, PhaseGrid, _phase_code
-
-#: Threads used for the distance transforms.
-EDT_THREADS = 2
+from ..threads import budget
 
 # 26-neighbour offsets
 _OFFS = np.array([(a, b, c) for a in (-1, 0, 1) for b in (-1, 0, 1) for c in (-1, 0, 1)
@@ -106,7 +104,7 @@ def squared_distance(fg, rel, *, periodic=False, black_border=True):
     anis = tuple(float(a) for a in rel)
     if not periodic:
         return edt.edtsq(fg, anisotropy=anis, black_border=black_border,
-                         parallel=EDT_THREADS).astype(np.float32, copy=False)
+                         parallel=budget()).astype(np.float32, copy=False)
     if fg.all():
         raise OptionError("the phase fills the whole periodic grid: it has no wall, so its "
                           "pore sizes are undefined", field="phases")
@@ -114,7 +112,7 @@ def squared_distance(fg, rel, *, periodic=False, black_border=True):
     pad = np.minimum(shape, 16)
     while True:
         padded = np.pad(fg, [(int(p), int(p)) for p in pad], mode="wrap")
-        d2 = edt.edtsq(padded, anisotropy=anis, black_border=False, parallel=EDT_THREADS)
+        d2 = edt.edtsq(padded, anisotropy=anis, black_border=False, parallel=budget())
         sl = tuple(slice(int(p), int(p) + int(n)) for p, n in zip(pad, shape))
         core = np.ascontiguousarray(d2[sl], dtype=np.float32)
         reach = float(np.min(pad * np.asarray(rel)))
@@ -1123,7 +1121,7 @@ def intrusion_diameter(mask, spacing, reservoir=None, *, diameters=None,
     else:
         dr2 = edt.edtsq(np.ascontiguousarray(~res, dtype=np.uint8),
                         anisotropy=tuple(float(a) for a in rel), black_border=False,
-                        parallel=EDT_THREADS)
+                        parallel=budget())
     door = dr2.reshape(-1) < flat
     del dr2
     idx = np.flatnonzero(m.reshape(-1))

@@ -31,6 +31,7 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID
+from ..threads import budget
 
 NM_TO_CM = 1e-7
 #: 1e-6 Å⁻² in cm⁻².
@@ -224,7 +225,7 @@ def fft_bytes(shape, pad: int = 1) -> int:
 
 
 def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | None = None,
-                     bins=None, q_range=None, workers: int = 2,
+                     bins=None, q_range=None, workers: int | None = None,
                      max_memory: int | None = None) -> ScatteringResult:
     """Predicted small-angle scattering I(q) (cm⁻¹) of a phase grid.
 
@@ -248,8 +249,8 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
         bin edges (nm⁻¹).
     q_range : (q_min, q_max), optional
         Range of the log-spaced bins (default the valid range).
-    workers : int
-        Threads of the FFT.
+    workers : int, optional
+        Threads of the FFT (default this process's budget, :func:`sheetview.threads.budget`).
     max_memory : int, optional
         Bytes allowed for the transform (default half the available memory); above it a
         :class:`~sheetview.errors.MemoryLimitError` names the padding or voxel size that
@@ -322,7 +323,7 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
     vox_cm3 = float(np.prod(sp)) * NM_TO_CM ** 3
     vol_nm3 = float(np.prod(shape * sp))
     vol_cm3 = vol_nm3 * NM_TO_CM ** 3
-    F = scipy.fft.rfftn(f, workers=workers, overwrite_x=True)
+    F = scipy.fft.rfftn(f, workers=workers or budget(), overwrite_x=True)
     del f
     q_lo = 2 * np.pi / float(np.max(shape * sp))
     q_hi = np.pi / float(np.max(sp))
