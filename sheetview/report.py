@@ -49,7 +49,9 @@ def check_folder(outdir, force: bool = False) -> Path:
                                  path=out)
         if any(out.iterdir()) and not force:
             raise OutputExistsError("folder exists and is not empty; pass --force to write "
-                                    "into it (files of the same name are replaced)", path=out)
+                                    "into it (files of the same name are replaced, and those an "
+                                    "earlier report wrote that this one does not are removed)",
+                                    path=out)
     return out
 
 
@@ -218,8 +220,8 @@ def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
 def atomic_folder(outdir, force: bool = False):
     """Yield ``(tmp, final)``: a temporary folder beside ``outdir`` to fill, and the final
     path. On success the folder is renamed into place (with ``force`` into an existing
-    folder, the files of the same name are replaced); on any exception it is removed and
-    ``outdir`` is untouched. ``outdir`` is checked (:func:`check_folder`) first."""
+    folder: see :func:`_move_into_place`); on any exception it is removed and ``outdir``
+    is untouched. ``outdir`` is checked (:func:`check_folder`) first."""
     final = check_folder(outdir, force)
     parent = final.parent if str(final.parent) else Path(".")
     if not parent.exists():
@@ -240,15 +242,35 @@ def atomic_folder(outdir, force: bool = False):
         raise
 
 
+#: Hidden file in a report folder listing the files that run wrote (one name per line).
+MANIFEST = ".sheetview-files"
+
+
+def _listed(folder: Path) -> set:
+    try:
+        return {n for n in (folder / MANIFEST).read_text().splitlines() if n and "/" not in n}
+    except OSError:
+        return set()
+
+
 def _move_into_place(tmp: Path, final: Path) -> None:
-    """Rename the finished temporary folder to ``final``; with an existing folder (force),
-    replace the files of the same name and keep the others."""
+    """Rename the finished temporary folder to ``final``. With an existing folder (force)
+    the files of the same name are replaced, the files an earlier run wrote (listed in
+    its :data:`MANIFEST`) that this run did not write are removed, and any other file
+    (the user's own) is kept."""
+    names = sorted(p.name for p in tmp.iterdir())
+    (tmp / MANIFEST).write_text("".join(n + "\n" for n in names))
     if not final.exists():
         os.replace(tmp, final)
         return
+    stale = _listed(final) - set(names)
     for p in tmp.iterdir():
         os.replace(p, final / p.name)
     tmp.rmdir()
+    for n in sorted(stale):
+        p = final / n
+        if p.is_file() and not p.is_symlink():
+            p.unlink()
 
 
 def _write_all(out: Path, doc, results, plots, grid) -> list[str]:

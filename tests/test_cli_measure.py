@@ -64,7 +64,8 @@ def test_report_folder(two_stacks, tmp_path):
     assert {"summary.json", "prisms.csv", "stacks.csv", "tilted_contacts.csv",
             "stacking_histogram.png", "pole_figure.png", "pole_figure.csv",
             "orientation_distribution.csv", "order.png"} <= names
-    assert not any(n.startswith(".") for n in names)  # no temporary files left
+    assert not any(n.startswith(".") and n != ".sheetview-files" for n in names)  # no temporary files
+    assert (out / ".sheetview-files").read_text().split() == sorted(names - {".sheetview-files"})
     rows = (out / "prisms.csv").read_text().splitlines()
     assert rows[0].startswith("prism,layer,stack,stacking_number") and len(rows) == 145
     stacks = (out / "stacks.csv").read_text().splitlines()
@@ -72,6 +73,13 @@ def test_report_folder(two_stacks, tmp_path):
     r = run(two_stacks, "-o", out, "--only", "stacking,order")
     assert r.exit_code == 2 and "--force" in r.output
     assert run(two_stacks, "-o", out, "--force", "--only", "stacking,order").exit_code == 0
+    # --force with fewer measures: the files only the earlier report wrote go, the user's stay
+    (out / "notes.txt").write_text("mine")
+    assert run(two_stacks, "-o", out, "--force", "--only", "stacking").exit_code == 0
+    now = {p.name for p in out.iterdir()}
+    assert {"summary.json", "prisms.csv", "stacks.csv", "notes.txt"} <= now
+    assert not now & {"pole_figure.png", "pole_figure.csv", "order.png"}
+    assert "notes.txt" not in (out / ".sheetview-files").read_text().split()
 
 
 @pytest.mark.parametrize("args,msg", [

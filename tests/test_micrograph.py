@@ -253,7 +253,7 @@ def test_cli_writes_the_folder_atomically(grey_png, tmp_path):
     assert r.exit_code == 0, r.output
     names = {p.name for p in out.iterdir()}
     assert names == {"descriptors.json", "chords.csv", "thickness.csv", "s2.csv",
-                     "orientation.csv", "overview.png"}
+                     "orientation.csv", "overview.png", ".sheetview-files"}
     doc = json.loads((out / "descriptors.json").read_text())
     again = json.loads(run("micrograph", grey_png, "--pixel-size", 2, "--lines", 200,
                            "--seed", 7, "--json").stdout)

@@ -189,8 +189,8 @@ def overview_figure(mg, desc):
 # ======================================================================= folder
 def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
     """Write the output folder: assembled under a temporary name beside ``outdir`` and
-    renamed into place when complete (with ``force`` into an existing folder, the files
-    of the same name are replaced). Every file goes through ``atomic_path``."""
+    renamed into place when complete (with ``force`` into an existing folder:
+    :func:`sheetview.report.atomic_folder`). Every file goes through ``atomic_path``."""
     from ..io.output import atomic_path
     from ..report import atomic_folder, write_csv, write_json
 
