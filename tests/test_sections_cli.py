@@ -82,6 +82,7 @@ def test_project_json_and_files(born_file, tmp_path):
     (["section", "{f}", "--at-time", "-5"], "no prism is born"),
     (["kinetics", "{f}", "--smooth", "-1"], "--smooth"),
     (["kinetics", "{f}", "--track", "a,b"], "--track"),
+    (["kinetics", "{f}", "--track", "0.5,50"], "--track values must be fractions in (0, 1], got 50"),
 ])
 def test_bad_options_exit_2_with_a_message(born_file, args, needle):
     r = _run([a.replace("{f}", str(born_file)) for a in args])

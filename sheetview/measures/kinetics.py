@@ -245,6 +245,20 @@ class Moment:
                 "n_prisms": self.n_prisms, "n_total": self.n_total}
 
 
+def check_moment(progress: float | None = None, time: float | None = None) -> None:
+    """Refuse (OptionError) anything but exactly one of a progress in (0, 1] and a finite
+    time; what :func:`structure_at` accepts, checked before any structure is read."""
+    if (progress is None) == (time is None):
+        raise OptionError("give either --at-progress or --at-time, not both", field="at")
+    if progress is not None:
+        p = float(progress)
+        if not (math.isfinite(p) and 0 < p <= 1):
+            raise OptionError(f"--at-progress must be a fraction in (0, 1], got {progress!r} "
+                              f"(for a percentage divide by 100)", field="at_progress")
+    elif not math.isfinite(float(time)):
+        raise OptionError(f"--at-time must be a finite number, got {time!r}", field="at_time")
+
+
 def structure_at(structure, *, progress: float | None = None, time: float | None = None):
     """The structure as it stood when its progress reached ``progress`` (0 < P <= 1) or at
     time ``time``: the prisms born at or before that moment.
@@ -252,8 +266,7 @@ def structure_at(structure, *, progress: float | None = None, time: float | None
     Returns ``(structure, Moment)``. The moment's time for a progress ``P`` is the first
     birth time at which alpha >= P (so the kept volume fraction is P or just above it).
     """
-    if (progress is None) == (time is None):
-        raise OptionError("give either --at-progress or --at-time, not both", field="at")
+    check_moment(progress, time)
     born = _born(structure)
     if len(born) == 0:
         raise InputError("holds no prisms", path=structure.source)
@@ -261,15 +274,10 @@ def structure_at(structure, *, progress: float | None = None, time: float | None
     times, alpha = _curve(born, vol)
     if progress is not None:
         p = float(progress)
-        if not (math.isfinite(p) and 0 < p <= 1):
-            raise OptionError(f"--at-progress must be a fraction in (0, 1], got {progress!r} "
-                              f"(for a percentage divide by 100)", field="at_progress")
         t = _time_at(times, alpha, p)
         req = f"progress {p:g}"
     else:
         t = float(time)
-        if not math.isfinite(t):
-            raise OptionError(f"--at-time must be a finite number, got {time!r}", field="at_time")
         req = f"time {t:g}"
     keep = born <= t
     n = int(keep.sum())
@@ -297,6 +305,10 @@ def track(structure, progresses, *, only=("stacking", "order"), settings=None,
     ps = [float(p) for p in progresses]
     if not ps:
         raise OptionError("--track needs at least one progress value", field="track")
+    bad = [p for p in ps if not (math.isfinite(p) and 0 < p <= 1)]
+    if bad:
+        raise OptionError(f"--track values must be fractions in (0, 1], got {bad[0]!r} "
+                          f"(for a percentage divide by 100)", field="track")
     rows = []
     for p in ps:
         sub, m = structure_at(structure, progress=p)
