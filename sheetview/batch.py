@@ -151,8 +151,12 @@ def _safe(stem: str) -> str:
 
 # ------------------------------------------------------------------ one structure
 def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plots=True,
-                numba_threads: int | None = None) -> dict:
+                numba_threads: int | None = None, at: dict | None = None) -> dict:
     """Measure one input and write its report folder ``out_folder`` (atomically).
+
+    ``at``: ``{"progress": P}`` or ``{"time": T}`` measures the structure as it stood
+    then (:func:`sheetview.measures.kinetics.structure_at`; the moment is recorded under
+    ``at`` in its summary), as ``measure --at-progress/--at-time``.
 
     Runs in a worker (a local process, a Dask worker or the calling process). Never
     raises for a bad input: returns ``{"status": "ok" | "failed", "error": message,
@@ -165,14 +169,16 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         _set_threads(numba_threads)
     try:
         from . import measures
-        from .cli.common import load
+        from .cli.common import apply_at, load
         from .cli.measure import summary_document
         from .report import write_report
-        obj = load(path, **read_kw)
+        obj, moment = apply_at(load(path, **read_kw), *_moment_args(at))
         selected = measures.select(only or None, obj)
         measures.check_inputs(selected, obj, path)
         ctx = measures.run(selected, obj, settings)
         doc = summary_document(path, obj, ctx, settings)
+        if moment is not None:
+            doc["at"] = moment.to_dict()
         doc["input_metadata"] = dict(getattr(obj, "metadata", {}) or {})
         if read_kw:
             doc["read_options"] = dict(read_kw)
@@ -199,6 +205,12 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
                + "".join(traceback.format_exception(e)[-3:]))
     return {"status": "failed", "error": msg, "seconds": time.perf_counter() - t0,
             "write_seconds": 0.0}
+
+
+def _moment_args(at: dict | None) -> tuple:
+    """``(at_progress, at_time)`` of a batch's ``at`` setting."""
+    at = at or {}
+    return at.get("progress"), at.get("time")
 
 
 def _set_threads(n: int) -> None:
@@ -257,6 +269,76 @@ def keep_heap(on: bool) -> bool:
     libc.mallopt(_M_TRIM_THRESHOLD, _TRIM_THRESHOLD_DEFAULT)
     libc.malloc_trim(0)
     return True
+
+
+def warm_up() -> float:
+    """Load in this process what the first measure would otherwise load on the way: the
+    measure modules, every compiled numba kernel found in the on-disk cache (loaded, never
+    compiled here: entries of other numba or CPU builds are skipped) and matplotlib's Agg
+    backend. Worker processes forked afterwards inherit all of it, so none of them pays
+    it again. Returns the seconds spent. Performance only: any failure is ignored.
+    """
+    import importlib
+    import pkgutil
+    t0 = time.perf_counter()
+    try:
+        from numba.core.registry import CPUDispatcher
+        from . import __path__ as pkg_path
+        mods = []
+        for info in pkgutil.walk_packages(pkg_path, __package__ + "."):
+            if info.name.startswith((f"{__package__}.cli", f"{__package__}.view",
+                                     f"{__package__}.__main__")):
+                continue  # the command line and the viewer (VTK) are not measures
+            try:
+                mods.append(importlib.import_module(info.name))
+            except Exception:
+                continue
+        for mod in mods:
+            for obj in list(vars(mod).values()):
+                if not (isinstance(obj, CPUDispatcher) and obj.__module__ == mod.__name__):
+                    continue
+                try:  # numba internals (cache index): guarded, skipped if they change
+                    index = obj._cache._cache_file._load_index()
+                    magic = obj.targetctx.codegen().magic_tuple()
+                    for key in index:
+                        if key[1] == magic and not obj.overloads.get(key[0]):
+                            obj.compile(key[0])
+                except Exception:
+                    continue
+        import matplotlib
+        matplotlib.use("Agg")
+        import matplotlib.pyplot  # noqa: F401  (fonts and the Agg renderer)
+    except Exception:
+        pass
+    return time.perf_counter() - t0
+
+
+def _fork_context(choose_layer: bool = False):
+    """A ``fork`` multiprocessing context when forking this process is safe, else None.
+
+    Forking copies a warm process (modules imported, numba kernels loaded): a worker
+    starts measuring at once instead of spending a second or two on start-up. It is safe
+    on Linux when numba's threading layer is fork-safe (workqueue or TBB; GNU OpenMP is
+    not: numba documentation, "The Threading Layers"). With ``choose_layer`` (the
+    command line, whose process ends with the batch), a process that has not started a
+    layer yet is given the workqueue layer, unless NUMBA_THREADING_LAYER names one: a
+    batch process makes one numba call at a time, which is all that layer supports.
+    Without it the layer of a library user's process is never changed.
+    """
+    if not sys.platform.startswith("linux"):
+        return None
+    import multiprocessing as mp
+    try:
+        import numba
+        try:
+            layer = numba.threading_layer()
+        except ValueError:  # no layer started in this process yet
+            if not choose_layer or os.environ.get("NUMBA_THREADING_LAYER"):
+                return None
+            numba.config.THREADING_LAYER = layer = "workqueue"
+        return mp.get_context("fork") if layer in ("workqueue", "tbb") else None
+    except Exception:
+        return None
 
 
 def _worker_init(n_threads: int, batch_pid: int | None = None) -> None:
@@ -345,7 +427,8 @@ def prepare_out(out) -> Path:
 def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, only=None,
               plots: bool = True, workers: int = 1, cluster=None, html_pages: bool = True,
               quiet: bool = False, echo=None, dask_options: dict | None = None,
-              threads: int | None = None) -> BatchResult:
+              threads: int | None = None, fork_warm: bool = False,
+              at: dict | None = None) -> BatchResult:
     """Measure every input of ``patterns`` into ``out``; skip finished results.
 
     Parameters
@@ -372,6 +455,15 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
         ``"local"``: start a Dask ``LocalCluster`` of ``workers`` processes; otherwise the
         address of a running Dask scheduler (the inputs and ``out`` must be visible to
         its workers at the same paths).
+    at : dict, optional
+        ``{"progress": P}`` or ``{"time": T}``: measure every structure as it stood then
+        (needs a ``born`` column; see :func:`measure_one`). Part of the result key.
+    fork_warm : bool
+        Local workers only, Linux: allow switching a process that has not started numba's
+        threading layer to the fork-safe workqueue layer, so that the worker processes
+        are forked from it once warm (:func:`_fork_context`). The command line sets it
+        (its process ends with the batch); a library caller's process keeps its layer,
+        and its workers are forked only if that layer is already fork-safe.
 
     Returns
     -------
@@ -385,10 +477,18 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
         only = ",".join(measures.parse_only(only))
     if workers < 1:
         raise OptionError(f"--workers: must be at least 1, got {workers}")
+    at = {k: float(v) for k, v in (at or {}).items() if v is not None}
+    if at:
+        from .measures.kinetics import check_moment
+        if set(at) - {"progress", "time"}:
+            raise OptionError(f"at: expected 'progress' or 'time', got {sorted(at)}")
+        check_moment(*_moment_args(at))
     paths = expand_inputs(patterns)
     out = prepare_out(out)
     log = _Log(out / "batch.log", echo, quiet)
     config = {"settings": key_settings(settings), "read": read_kw, "only": only}
+    if at:  # only when set: the keys of earlier results without it stay valid
+        config["at"] = at
     jobs = plan(paths, config)
     res = BatchResult(out)
     recs = {}          # key -> record of the first input with that key
@@ -442,7 +542,7 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
             log(f"[{k}/{n_todo}] FAILED {first}; elapsed {el:.0f} s, ETA {eta:.0f} s")
 
     args = lambda j, threads: (str(j.path), str(out / "runs" / j.name), settings, read_kw,
-                               only, plots, threads)
+                               only, plots, threads, at or None)
     if todo:
         ncpu = os.cpu_count() or 1
         if cluster:
@@ -459,7 +559,8 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
                         if threads and before:
                             _set_threads(before)
                 else:
-                    _run_local(todo, args, finished, min(workers, len(todo)), ncpu, threads)
+                    _run_local(todo, args, finished, min(workers, len(todo)), ncpu, threads,
+                               log=log, choose_layer=fork_warm)
             finally:
                 if kept:
                     keep_heap(False)
@@ -473,7 +574,8 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
     return res
 
 
-def _run_local(todo, args, finished, workers, ncpu, threads=None, task=None):
+def _run_local(todo, args, finished, workers, ncpu, threads=None, task=None, log=None,
+               choose_layer=False):
     """Measure ``todo`` with ``workers`` workers: the calling process and ``workers - 1``
     worker processes beside it.
 
@@ -488,6 +590,12 @@ def _run_local(todo, args, finished, workers, ncpu, threads=None, task=None):
     A worker process that dies (killed, out of memory) fails the structure it had in
     hand; the remaining structures go on in the calling process. ``task`` (default
     :func:`measure_one`) is called with ``args(job, threads)``.
+
+    On Linux the worker processes are forked from the calling process once it has loaded
+    the measure modules, numba kernels and matplotlib (:func:`warm_up`,
+    :func:`_fork_context`); elsewhere, or when numba's threading layer in this process
+    is not fork-safe, they start fresh from a fork server (or by spawning). ``log``
+    (optional) is told which. ``choose_layer``: see :func:`_fork_context`.
     """
     import multiprocessing as mp
     import threading
@@ -507,12 +615,23 @@ def _run_local(todo, args, finished, workers, ncpu, threads=None, task=None):
             if not stop.is_set():
                 finished(job, r)
 
-    try:
-        mpctx = mp.get_context("forkserver")
-    except ValueError:
-        mpctx = mp.get_context("spawn")
+    mpctx = _fork_context(choose_layer)
+    if mpctx is not None:
+        how = f"forked from this process after a {warm_up():.1f} s warm-up"
+    else:
+        try:
+            mpctx = mp.get_context("forkserver")
+        except ValueError:
+            mpctx = mp.get_context("spawn")
+        how = f"started by {mpctx.get_start_method()}"
+    if log:
+        log(f"{workers - 1} worker process(es) {how}, {threads} numba thread(s) each",
+            console=False)
     ex = ProcessPoolExecutor(workers - 1, mp_context=mpctx, initializer=_worker_init,
                              initargs=(threads, os.getpid()))
+    if mpctx.get_start_method() == "fork":
+        # fork every worker now, from this thread, while no numba kernel is running here
+        ex.submit(os.getpid).result()
 
     def drive():
         while (job := take()) is not None:

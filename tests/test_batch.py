@@ -356,17 +356,16 @@ def test_batch_equals_measure_with_non_default_tolerances(tmp_path):
 
 def test_batch_accepts_every_measure_setting():
     """Every option of ``measure`` that changes a number is an option of ``batch`` with the
-    same flags and default; ``measure`` has only its output options and the moment of a
-    grown structure (``--at-progress``/``--at-time``, one structure's history) besides
+    same flags and default, and so is the moment of a grown structure
+    (``--at-progress``/``--at-time``); ``measure`` has only its output options besides
     (derived from the two commands' declared parameters)."""
     from sheetview.cli.batch import batch as batch_cmd
     from sheetview.cli.measure import SETTINGS
     from sheetview.cli.measure import measure as measure_cmd
     m = {p.name: p for p in measure_cmd.params}
     b = {p.name: p for p in batch_cmd.params}
-    assert set(m) - set(b) == {"file", "as_json", "outdir", "force",  # FILE: batch takes many
-                               "at_progress", "at_time"}
-    for name in SETTINGS:
+    assert set(m) - set(b) == {"file", "as_json", "outdir", "force"}  # FILE: batch takes many
+    for name in SETTINGS + ("at_progress", "at_time"):
         assert m[name].opts == b[name].opts and m[name].default == b[name].default, name
         assert m[name].secondary_opts == b[name].secondary_opts, name
 
@@ -415,7 +414,7 @@ def test_batch_option_errors_like_measure(inputs, tmp_path, args, msg):
     assert not out.exists()
 
 
-def _fake_task(path, folder, settings, read_kw, only, plots, threads):
+def _fake_task(path, folder, settings, read_kw, only, plots, threads, at=None):
     """Stands in for measure_one. In the worker process: the first structure is done,
     the second kills the process (as the OOM killer would). In the calling process: wait
     until the worker has done its first, so that it is sure to get a second."""
@@ -457,3 +456,103 @@ def test_local_workers_share_out_and_survive_a_dead_worker(tmp_path):
     pids = [r["pid"] for r in got.values() if r["status"] == "ok"]
     assert pids.count(os.getpid()) == 6 and len(set(pids)) == 2
     assert {r["threads"] for r in got.values() if r["status"] == "ok"} == {1}
+
+
+def test_workers_forked_from_a_warm_process(inputs, reference, tmp_path):
+    """From the command line (a process that has run no numba kernel yet) the worker is
+    forked after the warm-up, under numba's fork-safe workqueue layer, and the summary
+    equals that of the in-process run (derived: the same job)."""
+    d, paths, _ = inputs
+    out = tmp_path / "out"
+    cmd = [sys.executable, "-m", "sheetview", "batch", str(d / "s*.csv"), "-o", str(out),
+           "--workers", "2", *FAST]
+    r = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    log = (out / "batch.log").read_text()
+    assert "1 worker process(es) forked from this process after a" in log
+    assert comparable(read_summary(out / "summary.csv")) == \
+        comparable(read_summary(reference / "summary.csv"))
+
+
+_FORK_PROBE = """
+import sys
+import numba
+from sheetview.batch import _fork_context
+if sys.argv[1] == "started":
+    @numba.njit(parallel=True)
+    def total(a):
+        s = 0.0
+        for i in numba.prange(a.size):
+            s += a[i]
+        return s
+    import numpy as np
+    total(np.ones(1000))
+ctx = _fork_context(choose_layer=sys.argv[2] == "choose")
+try:
+    layer = numba.threading_layer()
+except ValueError:
+    layer = numba.config.THREADING_LAYER
+print(ctx.get_start_method() if ctx else None, layer)
+"""
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="fork path is Linux only")
+@pytest.mark.parametrize("env_layer, state, choose", [
+    (None, "fresh", "choose"), ("omp", "fresh", "choose"), (None, "fresh", "keep"),
+    (None, "started", "choose"), ("workqueue", "started", "keep")])
+def test_fork_only_under_a_fork_safe_threading_layer(env_layer, state, choose):
+    """Workers are forked only under a fork-safe numba threading layer (workqueue or
+    TBB; GNU OpenMP is not fork-safe: numba documentation, "The Threading Layers"). A
+    process that has started no layer is switched to workqueue only when allowed
+    (the command line) and when NUMBA_THREADING_LAYER names none; a started layer is
+    never changed."""
+    env = {k: v for k, v in os.environ.items() if k != "NUMBA_THREADING_LAYER"}
+    if env_layer:
+        env["NUMBA_THREADING_LAYER"] = env_layer
+    r = subprocess.run([sys.executable, "-c", _FORK_PROBE, state, choose], capture_output=True,
+                       text=True, env=env, timeout=120)
+    assert r.returncode == 0, r.stderr
+    method, layer = r.stdout.split()
+    if state == "fresh":
+        if choose == "choose" and not env_layer:
+            assert (method, layer) == ("fork", "workqueue")
+        else:
+            assert method == "None" and layer == (env_layer or "default")
+    else:  # a layer runs: fork exactly when it is fork-safe
+        assert (method == "fork") == (layer in ("workqueue", "tbb"))
+        if env_layer:
+            assert layer == env_layer
+
+
+def test_batch_at_progress_equals_measure_at_progress(tmp_path):
+    """``batch --at-progress`` gives each structure exactly the numbers of ``measure
+    --at-progress`` (derived: the same job on the same sub-structure); the moment is in
+    the summary, the setting is part of the result key (a rerun at another progress
+    measures anew, the full structure stays as it was), and an absurd value is refused
+    before anything is read (exit 2)."""
+    from sheetview import Sphere
+    res = pack_stacks(Sphere((0, 0, 0), 8.0), 16, seeding="wall", orientation="wall",
+                      lateral_size="fixed:4", layers="fixed:2", born=True, seed=2)
+    p = tmp_path / "grown.npz"
+    sv.write(res.structure, p)
+    runner = CliRunner()
+    m = runner.invoke(main, ["measure", str(p), "--json", "-q", "--at-progress", "0.5", *FAST[:5]])
+    assert m.exit_code == 0, m.output
+    doc = json.loads(m.stdout)
+    out = tmp_path / "out"
+    r = batch(p, "-o", out, "--at-progress", "0.5", *FAST)
+    assert r.exit_code == 0, r.output
+    got = json.loads(next((out / "runs").glob("*/summary.json")).read_text())
+    assert got["at"] == doc["at"] and 0 < got["at"]["n_prisms"] < len(res.structure)
+    for k in ("n_prisms", "volume_fractions", "stacking"):
+        assert got[k] == doc[k]
+    cols = read_summary(out / "summary.csv")
+    assert cols["at.progress"] == [pytest.approx(doc["at"]["progress"])]
+    r = batch(p, "-o", out, *FAST)          # the whole structure: another key, measured
+    assert r.exit_code == 0 and "1 measured, 0 finished before" in r.output
+    assert len(list((out / "runs").iterdir())) == 2
+    r = batch(p, "-o", out, "--at-progress", "0.5", *FAST)
+    assert r.exit_code == 0 and "0 measured, 1 finished before" in r.output
+    r = batch(p, "-o", tmp_path / "o2", "--at-progress", "50", *FAST)
+    assert r.exit_code == 2 and "fraction in (0, 1]" in r.output
+    assert not (tmp_path / "o2").exists()

@@ -6,7 +6,7 @@ import sys
 import click
 
 from ..errors import OptionError
-from .common import read_options
+from .common import at_options, read_options
 from .measure import measure_options, measure_settings
 
 
@@ -32,10 +32,11 @@ from .measure import measure_options, measure_settings
 @click.option("--no-plots", is_flag=True, help="Tables only in the report folders, no PNG.")
 @click.option("--no-html", is_flag=True, help="No HTML pages (report.html, index.html).")
 @click.option("-q", "--quiet", is_flag=True, help="No progress on stderr (the log is kept).")
+@at_options
 @read_options
 def batch(inputs, out, only, voxel, max_memory, angle_tol, gap_tol, overlap, tilt_limit,
           local_radius, frame, density, pore_split, intrusion, lines, seed, workers, threads,
-          cluster, no_plots, no_html, quiet, **read_kw):
+          cluster, no_plots, no_html, quiet, at_progress, at_time, **read_kw):
     """Measure every structure of PATHS_OR_GLOBS... with the same settings into OUT.
 
     The measure options are those of `sheetview measure`, with the same names, defaults
@@ -61,7 +62,8 @@ def batch(inputs, out, only, voxel, max_memory, angle_tol, gap_tol, overlap, til
         raise OptionError(f"--threads: must be at least 1, got {threads}")
     res = run_batch(list(inputs), out, settings, read_kw, only=only, plots=not no_plots,
                     workers=workers, cluster=cluster, html_pages=not no_html, quiet=quiet,
-                    echo=lambda m: click.echo(m, err=True), threads=threads)
+                    echo=lambda m: click.echo(m, err=True), threads=threads,
+                    fork_warm=True, at={"progress": at_progress, "time": at_time})
     click.echo(f"{len(res.records)} input(s): {res.n_done} measured, {res.n_skipped} "
                f"finished before, {res.n_failed} failed; summary {res.out / 'summary.csv'}")
     for r in res.failed:
