@@ -167,6 +167,15 @@ def test_table_and_dict():
     assert set(d["phases"]) == {"solid", "pore"}
     counts, edges = r.histogram("pore", bins=10)
     assert len(edges) == 11
+    # a density integrates to 1 (numpy's density=True, computed here from the counts)
+    x = r.chords("solid")
+    dens, e = r.histogram("solid", bins=7)
+    ref, ref_e = np.histogram(x, bins=7, density=True)
+    assert np.allclose(dens, ref) and np.allclose(e, ref_e)
+    # no interior pore chord here (10 small prisms in a 20 nm box: every pore line is cut by
+    # the box): an empty density is zeros, not NaN
+    assert len(r.chords("pore")) == 0
+    assert np.array_equal(counts, np.zeros(10))
 
 
 def test_bad_inputs():

@@ -564,9 +564,15 @@ class ChordResult:
 
     def histogram(self, phase: str, bins=50, range=None, include_cut: bool = False,
                   density: bool = True):
-        """Chord-length histogram ``(values, edges)``, by default a probability density."""
-        return np.histogram(self.chords(phase, include_cut), bins=bins, range=range,
-                            density=density)
+        """Chord-length histogram ``(values, edges)``, by default a probability density
+        (all zeros when there is no chord: a density of nothing is not defined)."""
+        x = self.chords(phase, include_cut)
+        counts, edges = np.histogram(x, bins=bins, range=range)
+        if not density:
+            return counts, edges
+        if counts.sum() == 0:
+            return np.zeros(len(counts)), edges
+        return counts / np.diff(edges) / counts.sum(), edges
 
     def to_dict(self) -> dict:
         out = {"method": self.method, "n_lines": int(self.n_lines),
