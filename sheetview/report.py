@@ -392,8 +392,8 @@ def plot_scattering(res, path, cmp_=None, notes=(), force=False):
                   label=f"scale {cmp_.scale:.3g} x model + {cmp_.background:.3g}")
     from matplotlib.ticker import NullFormatter
     ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.set_xlabel("q (nm$^{-1}$)")
-    ax.set_ylabel("I(q) (cm$^{-1}$)")
+    ax.set_xlabel("q (nm⁻¹)")
+    ax.set_ylabel("I(q) (cm⁻¹)")
     ax.legend(fontsize=8)
     fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
     fig.subplots_adjust(bottom=0.25)
@@ -466,7 +466,7 @@ def plot_chords(ch, path, force=False):
             a.axvline(L.mean(), color="k", lw=1, ls="--", label=f"mean {L.mean():.3g} nm")
             a.legend(fontsize=8)
         a.set_xlabel(f"{ph_name} chord length (nm)")
-        a.set_ylabel("probability density (nm$^{-1}$)")
+        a.set_ylabel("probability density (nm⁻¹)")
     how = "isotropic random lines (exact)" if src is not None else "voxel rows along x, y, z"
     fig.suptitle(f"Chords not cut by the domain wall; {how}", fontsize=10)
     fig.tight_layout()
@@ -479,9 +479,9 @@ def plot_s2(cor, path, force=False):
     r = cor.parts["s2_solid"]
     fig, ax = plt.subplots(figsize=(5, 3.6))
     ax.plot(r.r, r.s2, "o-", ms=2)
-    ax.axhline(r.phi ** 2, color="0.5", ls=":", label="$\\phi^2$")
+    ax.axhline(r.phi ** 2, color="0.5", ls=":", label="φ²")
     ax.set_xlabel("r (nm)")
-    ax.set_ylabel("$S_2(r)$ of the solid")
+    ax.set_ylabel("S₂(r) of the solid")
     ax.legend(fontsize=8)
     fig.tight_layout()
     _savefig(fig, path, force)
