@@ -20,6 +20,7 @@ import numba
 import numpy as np
 
 from ..errors import OptionError, positive
+from .cells import cell_list
 
 DEFAULTS = {"local_radius": 5.0, "frame": "z", "n_cos": 10, "n_phi": 12, "pole_bins": 41}
 
@@ -198,34 +199,11 @@ def local_order(centroids, normals, weights, radius, domain=None) -> np.ndarray:
         return np.zeros(0)
     nrm = np.asarray(normals, dtype=float)
     w = np.asarray(weights, dtype=float)
-    periodic = bool(getattr(domain, "periodic", False))
-    if periodic:
-        lo = np.asarray(domain.min, dtype=float)
-        L = np.asarray(domain.lengths, dtype=float)
-        P = np.mod(P - lo, L)
-        P[P >= L] = 0.0
-        ncell = np.maximum(np.floor(L / radius).astype(np.int64), 1)
-        size = L / ncell
-    else:
-        L = np.ones(3)
-        lo = P.min(axis=0)
-        P = P - lo
-        ext = P.max(axis=0)
-        size = np.full(3, float(radius))
-        ncell = np.floor(ext / size).astype(np.int64) + 1
-        while np.prod(ncell.astype(float)) > 8.0 * n + 64:  # sparse points: coarser cells
-            size = size * 2.0
-            ncell = np.floor(ext / size).astype(np.int64) + 1
-    idx = np.minimum((P / size).astype(np.int64), ncell - 1)
-    cell = (idx[:, 0] * ncell[1] + idx[:, 1]) * ncell[2] + idx[:, 2]
-    order = np.argsort(cell, kind="stable")
-    cell_s = cell[order]
-    start = np.searchsorted(cell_s, np.arange(int(np.prod(ncell)) + 1)).astype(np.int64)
+    cl = cell_list(P, radius, domain, sparse=8.0)
+    order = cl.order
     T = np.ascontiguousarray(_moments6(nrm, w)[order])
-    cells = np.unique(cell_s)
-    mom = _local_moments(np.ascontiguousarray(P[order]), T, np.ascontiguousarray(w[order]),
-                         cells, start, ncell, np.asarray(size, dtype=np.float64), float(radius),
-                         periodic, L)
+    mom = _local_moments(cl.P, T, np.ascontiguousarray(w[order]), cl.cells, cl.start,
+                         cl.ncell, cl.size, float(radius), cl.periodic, cl.L)
     S = np.empty(n)
     S[order] = _largest_eig(mom[:, :6], mom[:, 6])
     return S

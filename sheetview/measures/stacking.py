@@ -33,6 +33,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from ..errors import InputError, OptionError
+from .cells import cell_list
 
 #: Default tolerances. See docs/measures.md for the reasoning behind each.
 DEFAULTS = {
@@ -519,40 +520,15 @@ def _cell_pairs(P, start, cells, ncell, radius, periodic, L, chunk_bounds, offse
 
 
 def _cell_list(centroids, radius, domain):
-    """Sort points into a grid of cells at least ``radius`` wide.
+    """Points in cells at least ``radius`` wide (:func:`sheetview.measures.cells.cell_list`).
 
-    Returns ``(P, order, start, cells, ncell, periodic, L)``: ``P`` the (wrapped) points in
-    cell order, ``order`` their original indices, ``start`` the CSR cell bounds, ``cells``
-    the non-empty cells; ``None`` when a periodic axis would have fewer than 3 cells (the
-    half shell would then meet a cell twice).
+    Returns ``(P, order, start, cells, ncell, periodic, L)``; ``None`` when a periodic axis
+    would have fewer than 3 cells (the half shell would then meet a cell twice).
     """
-    c = np.asarray(centroids, dtype=np.float64)
-    n = len(c)
-    periodic, L = _box_lengths(domain)
-    if periodic:
-        lo = np.asarray(domain.min, dtype=np.float64)
-        P = np.mod(c - lo, L)
-        P[P >= L] = 0.0
-        ncell = np.floor(L / radius).astype(np.int64)
-        if np.any(ncell < 3):
-            return None
-        size = L / ncell
-    else:
-        P = c - c.min(axis=0)
-        ext = P.max(axis=0)
-        size = np.full(3, float(radius))
-        ncell = np.floor(ext / size).astype(np.int64) + 1
-        while np.prod(ncell.astype(float)) > 2.0 * n + 64:  # sparse points: coarser cells
-            size = size * 2.0
-            ncell = np.floor(ext / size).astype(np.int64) + 1
-    idx = np.minimum((P / size).astype(np.int64), ncell - 1)
-    cell = (idx[:, 0] * ncell[1] + idx[:, 1]) * ncell[2] + idx[:, 2]
-    order = np.argsort(cell, kind="stable")
-    cs = cell[order]
-    start = np.zeros(int(np.prod(ncell)) + 1, np.int64)
-    np.cumsum(np.bincount(cs, minlength=len(start) - 1), out=start[1:])
-    cells = np.flatnonzero(start[1:] != start[:-1])
-    return np.ascontiguousarray(P[order]), order, start, cells, ncell, periodic, L
+    cl = cell_list(centroids, radius, domain, sparse=2.0, min_periodic=3)
+    if cl is None:
+        return None
+    return cl.P, cl.order, cl.start, cl.cells, cl.ncell, cl.periodic, cl.L
 
 
 def _chunks(n_items, per=64, most=1 << 14):
