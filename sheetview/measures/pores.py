@@ -1255,9 +1255,164 @@ class PoreSizeResult:
                 "histogram": self.table()}
 
 
-def _bin_edges(values, bins, h):
-    vmax = float(values.max()) if values.size else h
-    vmin = float(values.min()) if values.size else h
+#: Fine bins of the quantile search in :func:`size_distribution`.
+QUANTILE_FINE_BINS = 1 << 12
+
+
+@numba.njit(parallel=True, cache=True)
+def _diameter_stats(d, nch):
+    """One pass over a diameter map (flat): the number of finite values, of positive
+    finite values, their sum, least and largest."""
+    n = d.size
+    cnt = np.zeros((nch, 2), np.int64)
+    tot = np.zeros(nch)
+    lo_ = np.full(nch, np.inf)
+    hi_ = np.full(nch, -np.inf)
+    for c in numba.prange(nch):
+        a = c * n // nch
+        b = (c + 1) * n // nch
+        nf = 0
+        npos = 0
+        sm = 0.0
+        mn = np.inf
+        mx = -np.inf
+        for i in range(a, b):
+            v = np.float64(d[i])
+            if np.isfinite(v):
+                nf += 1
+                if v > 0:
+                    npos += 1
+                    sm += v
+                    if v < mn:
+                        mn = v
+                    if v > mx:
+                        mx = v
+        cnt[c, 0] = nf
+        cnt[c, 1] = npos
+        tot[c] = sm
+        lo_[c] = mn
+        hi_[c] = mx
+    return cnt[:, 0].sum(), cnt[:, 1].sum(), tot.sum(), lo_.min(), hi_.max()
+
+
+def _fine_to_coarse(edges, vmin, scale, nfine):
+    """For each fine bin (``floor((v - vmin) * scale)``), the histogram bin of ``edges``
+    that holds all of it, or -1 below the first edge, -2 above the last, -3 when it may
+    straddle an edge (with a margin far above float64 rounding: those values are placed
+    one by one)."""
+    f = np.arange(nfine, dtype=np.float64)
+    lo = vmin + f / scale
+    hi = vmin + (f + 1) / scale
+    tol = 1e-9 * max(abs(float(edges[-1])), abs(vmin), 1.0)
+    k_lo = np.searchsorted(edges, lo - tol, side="right") - 1
+    k_hi = np.searchsorted(edges, hi + tol, side="right") - 1
+    nb = edges.size - 1
+    out = np.where(k_lo == k_hi, k_lo, -3).astype(np.int64)
+    out[(k_lo == k_hi) & (k_lo < 0)] = -1
+    out[(k_lo == k_hi) & (k_lo >= nb)] = -2
+    return out
+
+
+@numba.njit(parallel=True, cache=True)
+def _diameter_hist(d, edges, vmin, scale, nfine, coarse, nch):
+    """One pass over the positive finite values of a diameter map (flat): counts per bin of
+    ``edges`` (``[e_k, e_k+1)``, the last bin closed, as numpy.histogram), the number
+    below the first edge and equal to the last, and counts on ``nfine`` equal fine bins
+    from ``vmin`` (``floor((v - vmin) * scale)``, monotone in ``v``). ``coarse``: the
+    bin of each fine bin (:func:`_fine_to_coarse`); only values of straddling fine bins
+    are compared with the edges."""
+    n = d.size
+    nb = edges.size - 1
+    counts = np.zeros((nch, nb), np.int64)
+    fine = np.zeros((nch, nfine), np.int64)
+    below = np.zeros(nch, np.int64)
+    atlast = np.zeros(nch, np.int64)
+    e0 = edges[0]
+    e1 = edges[nb]
+    for c in numba.prange(nch):
+        a = c * n // nch
+        b = (c + 1) * n // nch
+        for i in range(a, b):
+            v = np.float64(d[i])
+            if not (np.isfinite(v) and v > 0):
+                continue
+            f = int((v - vmin) * scale)
+            if f >= nfine:
+                f = nfine - 1
+            fine[c, f] += 1
+            k = coarse[f]
+            if k >= 0:
+                counts[c, k] += 1
+            elif k == -1:
+                below[c] += 1
+            elif k == -3:
+                if v < e0:
+                    below[c] += 1
+                elif v == e1:
+                    atlast[c] += 1
+                    counts[c, nb - 1] += 1
+                elif v < e1:
+                    lo = 0
+                    hi = nb
+                    while hi - lo > 1:  # largest k with edges[k] <= v
+                        mid = (lo + hi) // 2
+                        if edges[mid] <= v:
+                            lo = mid
+                        else:
+                            hi = mid
+                    counts[c, lo] += 1
+    cs = np.zeros(nb, np.int64)
+    fs = np.zeros(nfine, np.int64)
+    for c in range(nch):
+        cs += counts[c]
+        fs += fine[c]
+    return cs, fs, below.sum(), atlast.sum()
+
+
+@numba.njit(cache=True)
+def _fine_bin_values(d, vmin, scale, nfine, targets, sizes):
+    """The positive finite values of a diameter map (flat) that fall in the fine bins
+    ``targets`` (distinct; ``sizes[t]`` values each, counted before), one after the
+    other in the order of ``targets``."""
+    slot = np.full(nfine, -1, np.int64)
+    start = np.zeros(targets.size + 1, np.int64)
+    for t in range(targets.size):
+        slot[targets[t]] = t
+        start[t + 1] = start[t] + sizes[t]
+    out = np.empty(start[targets.size], np.float64)
+    pos = start[:-1].copy()
+    for i in range(d.size):
+        v = np.float64(d[i])
+        if np.isfinite(v) and v > 0:
+            f = int((v - vmin) * scale)
+            if f >= nfine:
+                f = nfine - 1
+            t = slot[f]
+            if t >= 0:
+                out[pos[t]] = v
+                pos[t] += 1
+    return out, start
+
+
+def _order_statistics(d, ranks, vmin, scale, fine):
+    """The values of 0-based ``ranks`` among the positive finite values of ``d``, exactly:
+    the fine bin holding each rank (the fine bins are in value order), then a selection
+    among that bin's values (one more pass over ``d`` for all ranks)."""
+    cum = np.cumsum(fine)
+    bins = [int(np.searchsorted(cum, r, side="right")) for r in ranks]
+    targets = np.unique(np.asarray(bins, dtype=np.int64))
+    vals, start = _fine_bin_values(d, vmin, scale, fine.size, targets, fine[targets])
+    out = []
+    for r, b in zip(ranks, bins):
+        t = int(np.searchsorted(targets, b))
+        k = int(r - (cum[b - 1] if b else 0))
+        seg = vals[start[t]:start[t + 1]]
+        out.append(float(np.partition(seg, k)[k]))
+    return np.asarray(out)
+
+
+def _bin_edges(vmin, vmax, bins, h):
+    """Bin edges for values in [vmin, vmax] (voxel edge ``h``) and whether they are log."""
     if isinstance(bins, str):
         if bins == "log":
             lo = math.floor(10 * math.log10(max(min(vmin, h), 1e-6))) / 10
@@ -1288,29 +1443,53 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
                       method="local_thickness", phases=("gel",)) -> PoreSizeResult:
     """Histogram, cumulative curves, quantiles and mean of a per-voxel diameter map
     (NaN: not in the phase; 0: in the phase but not sized). Equal voxels, so voxel counts
-    are volume weights."""
+    are volume weights.
+
+    Two parallel passes over the map (no copy of its values): the counts of numpy's
+    ``histogram`` on the same edges, the quantiles of ``numpy.quantile(...,
+    method="inverted_cdf")`` exactly (the fine bin that holds each rank, then a selection
+    among its values), and the mean (summed in float64 by chunks: it may differ from
+    numpy's pairwise sum in the last digits)."""
     d = np.asarray(diameter)
-    vals = d[np.isfinite(d)]
-    n_phase = vals.size
-    vals = vals[vals > 0].astype(np.float64)
+    if d.dtype not in (np.float32, np.float64):
+        d = d.astype(np.float64)
+    flat = d.reshape(-1)  # a view of a contiguous map
+    nch = max(1, min(flat.size // 65536 + 1, 16 * numba.get_num_threads()))
+    n_phase, n_pos, vsum, vmin, vmax = _diameter_stats(flat, nch)
+    n_phase, n_pos = int(n_phase), int(n_pos)
     sp = np.broadcast_to(np.asarray(voxel_size, dtype=float), (3,))
     h = float(np.prod(sp) ** (1 / 3))
-    edges, log_bins = _bin_edges(vals, bins, h)
-    counts, _ = np.histogram(vals, bins=edges)
-    total = max(vals.size, 1)
+    edges, log_bins = _bin_edges(float(vmin) if n_pos else h, float(vmax) if n_pos else h,
+                                 bins, h)
+    edges = np.ascontiguousarray(edges, dtype=np.float64)
+    nfine = QUANTILE_FINE_BINS
+    scale = (nfine / (vmax - vmin)) if n_pos and vmax > vmin else 0.0
+    v0 = float(vmin) if n_pos else 0.0
+    coarse = (_fine_to_coarse(edges, v0, scale, nfine) if scale > 0
+              else np.full(nfine, -3, np.int64))
+    counts, fine, n_below, n_last = _diameter_hist(flat, edges, v0, scale, nfine, coarse, nch)
+    total = max(n_pos, 1)
     frac = counts / total
     width = np.diff(np.log(edges)) if log_bins else np.diff(edges)
-    if vals.size:
-        q = np.quantile(vals, [0.1, 0.5, 0.9], method="inverted_cdf")
-        mean = float(vals.mean())
+    if n_pos:
+        # numpy.quantile(method="inverted_cdf"): 0-based index n q - 1, rounded up unless
+        # whole (Hyndman & Fan 1996, definition 1), computed as numpy computes it
+        idx = np.float64(n_pos) * np.array([0.1, 0.5, 0.9]) - 1
+        prev = np.floor(idx)
+        ranks = np.where(idx - prev == 0, prev, prev + 1).astype(np.int64).clip(0, n_pos - 1)
+        if vmax > vmin:
+            q = _order_statistics(flat, ranks, float(vmin), scale, fine)
+        else:  # one value
+            q = np.full(3, float(vmin))
+        mean = float(vsum / n_pos)
     else:
         q = np.full(3, np.nan)
         mean = float("nan")
     # below[k] = #(vals < edges[k]) from the histogram counts (bins are [e_k, e_k+1), the
     # last one closed), without sorting the values
     below = np.concatenate([[0], np.cumsum(counts)]).astype(np.float64)
-    below += np.count_nonzero(vals < edges[0])
-    below[-1] -= np.count_nonzero(vals == edges[-1])
+    below += n_below
+    below[-1] -= n_last
     below /= total
     return PoreSizeResult(
         method=method, phases=tuple(phases), diameter=d, bin_edges=edges,
@@ -1318,7 +1497,7 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
         cumulative_finer=below[1:], cumulative_coarser=1.0 - below[:-1],
         d10=float(q[0]), d50=float(q[1]), d90=float(q[2]), mean=mean,
         phase_volume=float(n_phase * np.prod(sp)),
-        sized_fraction=float(vals.size / n_phase) if n_phase else 0.0,
+        sized_fraction=float(n_pos / n_phase) if n_phase else 0.0,
         voxel_size=tuple(float(x) for x in sp), log_bins=log_bins)
 
 
