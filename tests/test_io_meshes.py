@@ -5,6 +5,8 @@ the meshes themselves and their volumes; pyvista (Sullivan & Kaszynski, "PyVista
 plotting and mesh analysis through a streamlined interface for the Visualization
 Toolkit", JOSS 4 (2019) 1450, doi:10.21105/joss.01450) to read back VTK files.
 """
+import json
+
 import numpy as np
 import pytest
 import pyvista as pv
@@ -308,3 +310,234 @@ def test_vtk_lines_and_vertices_are_ignored(tmp_path):
     assert len(s) == 2
     np.testing.assert_allclose(s.vertices, pts[[[0, 1, 2], [0, 1, 3]]])
     np.testing.assert_array_equal(s.columns["sheet"], [7, 6])
+
+
+# ------------------------------------------------------------ the sheetview header
+HEADER_FORMATS = ["ply", "obj", "off", "glb", "vtp", "vtk"]
+
+
+def _apart(n=6, seed=3, domain=None):
+    """Random prisms moved apart, so that each written prism is its own closed solid."""
+    s = random_structure(n, seed=seed)
+    v = s.vertices + (np.arange(n) * 40.0)[:, None, None]
+    return Structure(v, s.thickness, domain or s.domain, 1.25, s.columns,
+                     {"study": "invented", "seed": 11, "note": "é"})
+
+
+@pytest.mark.parametrize("domain", [sv.Sphere((1.0, 2.5, -3.125), 300.3),
+                                    sv.Box((-7.1, -5.0, -6.3), (230.7, 9.9, 11.2), periodic=True)])
+def test_prism_vtk_gives_back_domain_spacing_and_metadata(tmp_path, domain):
+    """write_prisms_vtk -> read: the domain is the one written (exact, as its JSON form
+    holds shortest round-trip decimals), the spacing of a sheet reading too, and the
+    metadata. The field data is plain JSON that pyvista hands over (VTK field data,
+    reference reader: pyvista)."""
+    s = _apart(domain=domain)
+    for suffix in (".vtp", ".vtk"):
+        p = tmp_path / f"prisms{suffix}"
+        sv.write(s, p)
+        raw = json.loads(str(np.asarray(pv.read(p).field_data["sheetview"]).ravel()[0]))
+        assert raw["format"] == "sheetview mesh v1" and raw["domain"] == domain.to_dict()
+        body = sv.read(p)
+        assert isinstance(body, SurfaceBody)
+        assert body.domain == domain and not body.domain.inferred
+        assert {k: body.metadata[k] for k in s.metadata} == s.metadata
+        assert body.metadata["source_format"] == suffix[1:]
+        sheets = sv.read(p, as_="sheets")
+        assert sheets.domain == domain and sheets.spacing == 1.25
+        assert sv.read(p, as_="sheets", spacing=2.0).spacing == 2.0  # the option wins
+        # --units scales the header's lengths like the vertices
+        ang = sv.read(p, as_="sheets", units="A")
+        lo, hi = ang.domain.bounds
+        np.testing.assert_allclose(lo, 0.1 * domain.bounds[0], rtol=1e-15)
+        np.testing.assert_allclose(hi, 0.1 * domain.bounds[1], rtol=1e-15)
+        assert ang.spacing == pytest.approx(0.125, rel=1e-15)
+
+
+def test_inferred_domain_comes_back_as_written_and_marked(tmp_path):
+    """A structure with an inferred domain: the written box comes back exactly, still
+    marked inferred, although a solid reading would have inferred a different box
+    (padding 1.4 nm about the prism corners instead of t_max + 1.4 about mid-planes)."""
+    s0 = _apart()
+    s = Structure(s0.vertices, s0.thickness, sv.structure.with_inferred_domain(s0.vertices, s0.thickness),
+                  s0.spacing, s0.columns, s0.metadata)
+    assert s.domain.inferred
+    p = tmp_path / "prisms.vtp"
+    sv.write(s, p)
+    body = sv.read(p)
+    assert body.domain == s.domain and body.domain.inferred
+    corners = s.prism_corners().reshape(-1, 3)
+    assert not np.allclose(body.domain.bounds[0], corners.min(axis=0) - 1.4)
+
+
+def test_body_header_round_trips_in_every_format_but_stl(tmp_path):
+    """write_body -> read: domain (exact), its inferred mark and the metadata come back
+    for PLY, OBJ, OFF, GLB, VTP and legacy VTK; binary STL has no room for a header and
+    gets the inferred box (trimesh's bounds padded by 1.4 nm). Metadata holding the PLY
+    header words 'end_header' and 'TextureFile' does not disturb trimesh's PLY parser."""
+    ico = trimesh.creation.icosphere(subdivisions=2, radius=4.0)
+    dom = sv.Box((-5.25, -6.0, -7.125), (5.5, 6.1, 7.3), periodic=True)
+    meta = {"study": "a end_header b TextureFile c.png # d", "n": 3, "x": [0.1, None]}
+    body = SurfaceBody(ico.vertices, ico.faces, dom, meta)
+    for fmt in HEADER_FORMATS + ["stl"]:
+        p = tmp_path / f"body.{fmt}"
+        sv.write(body, p)
+        back = sv.read(p)
+        assert isinstance(back, SurfaceBody), fmt
+        assert back.n_faces == body.n_faces, fmt
+        assert back.metadata["source_format"] == fmt
+        if fmt == "stl":
+            assert back.domain.inferred
+            np.testing.assert_allclose(back.domain.bounds[0], ico.bounds[0] - 1.4, atol=1e-6)
+            continue
+        assert back.domain == dom and not back.domain.inferred, fmt
+        assert {k: back.metadata[k] for k in meta} == meta, fmt
+    inferred = SurfaceBody(ico.vertices, ico.faces, sv.Box((-9, -9, -9), (9, 9, 9), inferred=True))
+    for fmt in HEADER_FORMATS:
+        p = tmp_path / f"inferred.{fmt}"
+        sv.write(inferred, p)
+        back = sv.read(p)
+        assert back.domain == inferred.domain and back.domain.inferred, fmt
+
+
+def test_files_with_header_stay_plain_for_other_readers(tmp_path):
+    """The header does not disturb other readers: VTK's PLY, OBJ, glTF and XML readers
+    (through pyvista) and trimesh's OFF reader give the written triangles."""
+    ico = trimesh.creation.icosphere(subdivisions=1, radius=2.0)
+    body = SurfaceBody(ico.vertices, ico.faces, sv.Box((-3, -3, -3), (3, 3, 3)),
+                       {"note": "end_header texturefile"})
+    for fmt in ("ply", "obj", "glb", "vtp", "vtk"):
+        p = tmp_path / f"b.{fmt}"
+        sv.write(body, p)
+        m = pv.read(p)
+        if isinstance(m, pv.MultiBlock):
+            m = m.combine()
+        assert m.n_cells == len(ico.faces), fmt
+        assert m.n_points >= len(ico.vertices), fmt
+    p = tmp_path / "b.off"
+    sv.write(body, p)
+    tm = trimesh.load(p, process=False)
+    np.testing.assert_allclose(tm.vertices[tm.faces], ico.vertices[ico.faces], atol=1e-12)
+    assert p.read_text().splitlines()[0] == "OFF"
+
+
+def test_foreign_comments_and_fields_keep_the_inferred_domain(tmp_path, ico):
+    """Other programs' PLY comments, OBJ comments, VTK field data (including a field named
+    'sheetview' with another format) are ignored: the padded bounding box as before."""
+    expect_lo = ico.bounds[0] - 1.4
+    p = tmp_path / "a.ply"
+    ico.export(p)  # trimesh's PLY
+    text = p.read_bytes().replace(b"end_header", b"comment VCGLIB generated\ncomment sheetview\nend_header", 1)
+    p.write_bytes(text)
+    p2 = tmp_path / "a.obj"
+    p2.write_text("# Blender 4.0\n# sheetview mesh\n" + ico.export(file_type="obj"))
+    m = pv.PolyData.from_regular_faces(ico.vertices, ico.faces)
+    m.field_data["sheetview"] = np.array(['{"format": "sheetview phase codes v1", "spacing": [1, 1, 1]}'])
+    m.field_data["info"] = np.array(["made elsewhere"])
+    p3 = tmp_path / "a.vtp"
+    m.save(p3)
+    for q in (p, p2, p3):
+        b = sv.read(q)
+        assert b.domain.inferred, q
+        np.testing.assert_allclose(b.domain.bounds[0], expect_lo, atol=1e-6)
+
+
+def test_first_writer_header_without_format_is_read(tmp_path, ico):
+    """Prism files of the first writer hold field data 'sheetview' without a 'format'
+    key; it is read as version 1."""
+    m = pv.PolyData.from_regular_faces(ico.vertices, ico.faces)
+    old = {"spacing": 1.1, "domain": {"shape": "sphere", "center": [0, 0, 0], "radius": 40.0},
+           "domain_inferred": False, "metadata": {"k": 1}}
+    m.field_data["sheetview"] = np.array([json.dumps(old)])
+    p = tmp_path / "old.vtp"
+    m.save(p)
+    b = sv.read(p)
+    assert b.domain == sv.Sphere((0, 0, 0), 40.0) and b.metadata["k"] == 1
+    assert sv.read(p, as_="sheets", thickness=0.3).spacing == 1.1
+
+
+def _damage(tmp_path, fmt, payload):
+    """A closed icosphere body file whose sheetview header text is replaced by ``payload``."""
+    ico = trimesh.creation.icosphere(subdivisions=1, radius=2.0)
+    body = SurfaceBody(ico.vertices, ico.faces, sv.Box((-3, -3, -3), (3, 3, 3)), {"k": "v"})
+    p = tmp_path / f"dmg.{fmt}"
+    if fmt in ("vtp", "vtk"):
+        m = pv.PolyData.from_regular_faces(ico.vertices, ico.faces)
+        m.field_data["sheetview"] = payload if isinstance(payload, np.ndarray) else np.array([payload])
+        m.save(p)
+        return p, None
+    sv.write(body, p)
+    raw = p.read_bytes()
+    if fmt == "glb":  # keep the chunk length: rewrite the JSON chunk
+        import struct
+        n = struct.unpack("<I", raw[12:16])[0]
+        doc = json.loads(raw[20:20 + n])
+        doc["scenes"][0]["extras"]["sheetview"] = payload
+        j = json.dumps(doc).encode()
+        j += b" " * (-len(j) % 4)
+        rest = raw[20 + n:]
+        out = raw[:12] + struct.pack("<I", len(j)) + b"JSON" + j + rest
+        out = out[:8] + struct.pack("<I", len(out)) + out[12:]
+        p.write_bytes(out)
+        return p, None
+    start = raw.index(b"sheetview mesh v1 ")
+    end = raw.index(b"\n", start)
+    line = raw[:start].count(b"\n") + 1
+    p.write_bytes(raw[:start] + payload.encode() + raw[end:])
+    return p, line
+
+
+DAMAGED = [
+    ("ply", "sheetview mesh v1 {\"domain\": {\"shape\": \"box\", ", "not valid JSON", "sheetview"),
+    ("obj", 'sheetview mesh v1 {"domain": {"shape": "box", "min": [0, 0, 0], "max": [1, -1, 1]}}',
+     "max must exceed min", "domain"),
+    ("off", 'sheetview mesh v1 {"spacing": -1}', "spacing must be a positive number", "spacing"),
+    ("ply", 'sheetview mesh v1 [1, 2]', "expected a JSON object", "sheetview"),
+    ("obj", 'sheetview mesh v2 {}', "newer than this sheetview reads", "sheetview"),
+    ("off", 'sheetview mesh v1 {"units": "furlong"}', "unknown units", "units"),
+    ("ply", 'sheetview mesh v1 {"domain": {"shape": "cube"}}', "domain", "domain"),
+    ("obj", 'sheetview mesh v1 {"domain": {"shape": "sphere", "center": [0, 0], "radius": 2}, '
+            '"domain_inferred": false}', "sphere center", "domain"),
+    ("ply", 'sheetview mesh v1 {"domain": {"shape": "box", "min": [0, 0, 0], "max": [1, 1, 1]}, '
+            '"domain_inferred": "yes"}', "true or false", "domain_inferred"),
+    ("vtp", '{"domain": {"shape": "sphere", "center": [0, 0, 0], "radius": -2}}', "radius",
+     "domain"),
+    ("vtk", "not json at all", "not valid JSON", "sheetview"),
+    ("vtp", np.array([1.0, 2.0]), "expected one JSON text", "sheetview"),
+    ("vtp", '{"format": "sheetview mesh v1", "metadata": [1]}', "metadata must be a JSON object",
+     "metadata"),
+    ("glb", '{"format": "sheetview mesh v1", "domain": {"shape": "box", "min": [0, 0, 0]}}',
+     "a box needs", "domain"),
+]
+
+
+@pytest.mark.parametrize("fmt,payload,words,field", DAMAGED)
+def test_damaged_sheetview_header_is_refused_with_file_line_and_key(tmp_path, fmt, payload, words, field):
+    """A header that is sheetview's but damaged is refused (not silently replaced by a
+    bounding box), naming the file, the line for text formats and the key, and saying how
+    to read the mesh anyway. Reference for the file layouts: the PLY, OBJ and OFF headers
+    as written by trimesh and sheetview, VTK field data written by pyvista, the GLB chunk
+    layout of the glTF 2.0 specification."""
+    p, line = _damage(tmp_path, fmt, payload)
+    before = p.read_bytes()
+    with pytest.raises(InputError) as ei:
+        sv.read(p)
+    msg = str(ei.value)
+    assert msg.startswith(str(p)), msg
+    assert words in msg, msg
+    assert ei.value.field == field, msg
+    assert ei.value.line == line, msg
+    if "newer" not in msg:
+        assert "inferred domain" in msg, msg  # how to read it anyway
+    assert p.read_bytes() == before  # the input is never touched
+
+
+def test_damaged_header_exits_2_from_the_command_line(tmp_path):
+    """`sheetview info` on a damaged header: one line on stderr, exit status 2, no traceback."""
+    from click.testing import CliRunner
+
+    from sheetview.cli import main
+
+    p, _ = _damage(tmp_path, "obj", 'sheetview mesh v1 {"domain": 5}')
+    r = CliRunner().invoke(main, ["info", str(p)])
+    assert r.exit_code == 2, r.output
+    assert "Traceback" not in r.output and str(p) in r.output and "domain" in r.output

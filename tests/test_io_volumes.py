@@ -253,3 +253,105 @@ def test_write_refuses_unknown_suffix(tmp_path, grid):
     with pytest.raises(OptionError):
         sv.write(grid, tmp_path / "g.raw")
     assert not (tmp_path / "g.raw").exists()
+
+
+# ------------------------------------------------------------------- solid fraction
+@pytest.fixture(scope="module")
+def fraction_grid():
+    """A grid rasterized with 3 x 3 x 3 sub-points per voxel: a real solid fraction."""
+    from sheetview.grid import rasterize
+    from tests.conftest import random_structure
+
+    g = rasterize(random_structure(15, seed=5), 1.5, supersample=3)
+    assert g.solid_fraction is not None and g.solid_fraction.dtype == np.float32
+    assert 0 < np.count_nonzero((g.solid_fraction > 0) & (g.solid_fraction < 1))
+    return g
+
+
+def test_solid_fraction_round_trips_in_vti(tmp_path, fraction_grid):
+    """write_volume -> read_volume gives the fraction back bit for bit (float32). The file
+    holds it as a second cell array in VTK's x-fastest order, as pyvista reads it
+    (reference reader: pyvista/VTK), and 'phase' stays the active scalars."""
+    g = fraction_grid
+    p = tmp_path / "g.vti"
+    sv.write(g, p)
+    back = sv.read(p)
+    assert back.solid_fraction is not None and back.solid_fraction.dtype == np.float32
+    np.testing.assert_array_equal(back.solid_fraction, g.solid_fraction)
+    np.testing.assert_array_equal(back.labels, g.labels)
+    img = pv.read(p)
+    assert img.active_scalars_name == "phase"
+    np.testing.assert_array_equal(np.asarray(img.cell_data["solid_fraction"]),
+                                  g.solid_fraction.ravel(order="F"))
+    # a grid without a fraction writes none and reads back without one
+    plain = PhaseGrid(g.labels, g.spacing, g.origin)
+    sv.write(plain, tmp_path / "plain.vti")
+    assert "solid_fraction" not in pv.read(tmp_path / "plain.vti").cell_data.keys()
+    assert sv.read(tmp_path / "plain.vti").solid_fraction is None
+
+
+@pytest.mark.parametrize("suffix", [".npy", ".tif"])
+def test_npy_and_tiff_carry_labels_only(tmp_path, fraction_grid, suffix):
+    """NPY and TIFF hold one array: the labels round-trip, the fraction is not written
+    (documented), and the file stays a single plain array for np.load / tifffile."""
+    p = tmp_path / f"g{suffix}"
+    sv.write(fraction_grid, p)
+    back = sv.read(p)
+    np.testing.assert_array_equal(back.labels, fraction_grid.labels)
+    assert back.solid_fraction is None
+    ref = np.load(p) if suffix == ".npy" else tifffile.imread(p).transpose(2, 1, 0)
+    np.testing.assert_array_equal(ref, fraction_grid.labels)
+
+
+def _marked_vti(path, frac, *, name="solid_fraction", announce="solid_fraction"):
+    """A sheetview-marked VTI (marker as documented in docs/formats.md) built with pyvista."""
+    import json
+
+    lab = np.ones((3, 4, 5), np.uint8)
+    img = pv.ImageData(dimensions=(4, 5, 6), spacing=(1, 1, 1))
+    img.cell_data["phase"] = lab.ravel(order="F")
+    if frac is not None:
+        img.cell_data[name] = frac
+    mk = {"format": volumes.MARKER, "spacing": [1, 1, 1], "origin": [0, 0, 0]}
+    if announce is not None:
+        mk["solid_fraction"] = announce
+    img.field_data["sheetview"] = np.array([json.dumps(mk)])
+    img.save(path)
+    return path
+
+
+@pytest.mark.parametrize("frac,kw,words", [
+    (None, {}, "holds no cell array"),
+    (np.full(60, 0.5, np.float32), {"name": "other"}, "holds no cell array"),
+    (np.full(60, 1.5, np.float32), {}, "must lie in [0, 1]"),
+    (np.where(np.arange(60) == 7, np.nan, 0.2).astype(np.float32), {}, "at voxel 7"),
+    (np.arange(60, dtype=np.int32), {}, "one real number per voxel"),
+    (np.zeros((60, 3), np.float32), {}, "one real number per voxel"),
+])
+def test_bad_solid_fraction_is_refused(tmp_path, frac, kw, words):
+    """A marked VTI whose announced fraction is missing, out of [0, 1], NaN, integer or
+    multi-component is refused with the file and the problem named."""
+    p = _marked_vti(tmp_path / "f.vti", frac, **kw)
+    with pytest.raises(InputError) as ei:
+        sv.read(p)
+    assert str(p) in str(ei.value) and words in str(ei.value), str(ei.value)
+
+
+def test_fraction_array_read_only_when_the_marker_names_it(tmp_path):
+    """An array called solid_fraction that sheetview's marker does not announce (a file
+    made elsewhere) is not taken for the fraction; an announced one is read."""
+    frac = np.linspace(0, 1, 60).astype(np.float32)
+    p = _marked_vti(tmp_path / "quiet.vti", frac, announce=None)
+    assert sv.read(p).solid_fraction is None
+    p = _marked_vti(tmp_path / "told.vti", frac)
+    np.testing.assert_array_equal(sv.read(p).solid_fraction, frac.reshape((3, 4, 5), order="F"))
+
+
+def test_write_refuses_a_fraction_of_the_wrong_shape(tmp_path):
+    """A fraction whose shape is not the labels' (here transposed) is refused before any
+    file is made (derived: the format needs one value per voxel)."""
+    g = PhaseGrid(np.zeros((3, 4, 5), np.uint8), 1.0, solid_fraction=np.zeros((5, 4, 3), np.float32))
+    with pytest.raises(OptionError) as ei:
+        sv.write(g, tmp_path / "g.vti")
+    assert "solid_fraction" in str(ei.value)
+    assert not (tmp_path / "g.vti").exists()

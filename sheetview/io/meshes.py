@@ -14,36 +14,52 @@ What becomes what
   per-face array named ``thickness`` (VTK cell data, a PLY face property), else the
   reading stops and asks for ``--thickness``. Per-face arrays named ``sheet``, ``born``
   and ``tag`` are kept as prism columns. The domain is the padded bounding box
-  (:func:`sheetview.structure.with_inferred_domain`), marked as inferred.
+  (:func:`sheetview.structure.with_inferred_domain`), marked as inferred, unless the
+  file carries sheetview's header (below).
 * A **closed** (watertight, consistently wound) surface is a solid body: a
   :class:`~sheetview.structure.SurfaceBody` whose domain is its bounding box padded by
-  one nominal repeat (the ``spacing`` option, default 1.4 nm), marked as inferred.
+  one nominal repeat (the ``spacing`` option, default 1.4 nm), marked as inferred,
+  unless the file carries sheetview's header.
 
 ``as_="sheets"`` or ``as_="solid"`` forces a reading (a solid reading of a surface that is
 not closed is refused). ``units`` gives the length unit of the file (nm, A, um); lengths
 are converted to nm. Options given in nm (``thickness``, ``spacing``) are not scaled.
 
+The header sheetview writes
+---------------------------
+A file sheetview wrote (every form but STL) carries a header ``sheetview mesh v1``
+(:func:`mesh_header`): units, domain, ``domain_inferred``, metadata, and for prisms the
+spacing. Reading gives them back: the domain exactly (with its inferred mark), the
+spacing of a sheet reading (unless ``spacing`` is given), the metadata. Files without
+it, or with another program's comments or field data, get the inferred domain as above.
+A header that is sheetview's but damaged is refused (:func:`_interpret_header`).
+
 Writers
 -------
 * :func:`write_prisms_vtk`: the closed prism solids of a Structure as VTK PolyData
-  (``.vtp`` binary XML, or legacy ``.vtk``) with every per-prism quantity as cell data;
+  (``.vtp`` binary XML, or legacy ``.vtk``) with every per-prism quantity as cell data
+  and the header as field data ``sheetview``;
 * :func:`write_body`: a SurfaceBody as STL, PLY, OBJ, OFF, GLB (trimesh) or VTP/VTK
-  (pyvista).
+  (pyvista), with the header in a PLY ``comment``, a leading OBJ/OFF ``#`` line, the GLB
+  scene ``extras`` or VTK field data (STL: none).
 """
 from __future__ import annotations
 
 import contextlib
+import dataclasses
+import json
 import re
+import struct
 import warnings
 from pathlib import Path
 
 import numpy as np
 
-from ..domain import bounding_box
+from ..domain import Domain, bounding_box, domain_from_dict
 from ..errors import InputError, OptionError, SheetviewError
 from ..structure import DEFAULT_SPACING_NM, KNOWN_COLUMNS, Structure, SurfaceBody, with_inferred_domain
 from .output import atomic_path
-from .prisms import unit_factor
+from .prisms import UNITS, unit_factor
 
 VTK_SUFFIXES = {".vtk", ".vtp", ".vtu"}
 TRIMESH_SUFFIXES = {".stl", ".ply", ".obj", ".off", ".glb", ".gltf"}
@@ -80,7 +96,8 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     ------
     InputError
         Unreadable file, no triangles, non-finite or degenerate faces, no thickness for
-        a sheet reading, a solid reading of an open surface.
+        a sheet reading, a solid reading of an open surface, a damaged or newer
+        sheetview header (see the module text).
     """
     path = Path(path)
     suffix = path.suffix.lower()
@@ -89,13 +106,17 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     for name, v in (("thickness", thickness), ("spacing", spacing)):
         if v is not None and not (np.isfinite(v) and v > 0):
             raise OptionError(f"--{name} must be a positive number of nm, got {v}", path=path)
-    f = unit_factor(units if units is not None else "nm", path=path)
+    if units is not None:
+        unit_factor(units, path=path)  # refuse a bad option before reading
     if suffix in VTK_SUFFIXES:
-        vertices, faces, face_arrays = _load_vtk(path)
+        vertices, faces, face_arrays, found = _load_vtk(path)
     elif suffix in TRIMESH_SUFFIXES:
         vertices, faces, face_arrays = _load_trimesh(path)
+        found = _find_text_header(path, suffix)
     else:
         raise InputError(f"not a mesh file suffix {suffix!r}", path=path)
+    header = _interpret_header(found, path, units)
+    f = header.factor if header is not None else unit_factor(units or "nm", path=path)
 
     if faces.shape[0] == 0:
         raise InputError(f"has no triangles (the {_FORMAT_NAMES[suffix]} file holds "
@@ -118,7 +139,8 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
         reading = "solid" if closed else "sheets"
     else:
         reading = as_
-    meta = {"source_format": suffix.lstrip(".")}
+    meta = dict(header.metadata) if header is not None else {}
+    meta["source_format"] = suffix.lstrip(".")
     if reading == "solid":
         if closed is None:
             closed = _is_closed(vertices, faces)
@@ -128,8 +150,11 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
                              "read it as sheets (--as sheets) or repair the mesh", path=path)
         v_m, f_m = _merge(vertices, faces)
         _check_degenerate(v_m[f_m], path)
-        pad = spacing if spacing is not None else DEFAULT_SPACING_NM
-        return SurfaceBody(v_m, f_m, bounding_box(v_m, pad), meta, str(path))
+        if header is not None and header.domain is not None:
+            dom = header.domain
+        else:
+            dom = bounding_box(v_m, spacing if spacing is not None else DEFAULT_SPACING_NM)
+        return SurfaceBody(v_m, f_m, dom, meta, str(path))
 
     # sheets
     if thickness is not None:
@@ -149,8 +174,17 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
                     raise InputError(f"per-face array '{name}' must hold whole numbers",
                                      path=path, field=name)
             cols[name] = a
-    sp = spacing if spacing is not None else DEFAULT_SPACING_NM
-    s = Structure(tri, thick, with_inferred_domain(tri, thick), sp, cols, meta, str(path))
+    if spacing is not None:
+        sp = spacing
+    elif header is not None and header.spacing is not None:
+        sp = header.spacing
+    else:
+        sp = DEFAULT_SPACING_NM
+    if header is not None and header.domain is not None:
+        dom = header.domain
+    else:
+        dom = with_inferred_domain(tri, thick)
+    s = Structure(tri, thick, dom, sp, cols, meta, str(path))
     try:
         s.validate()
     except InputError as e:
@@ -235,22 +269,260 @@ def _load_vtk(path: Path):
     if mesh is None or (errors and mesh.n_points == 0):
         why = err or (errors[0] if errors else "unknown error")
         raise InputError(f"cannot be read as {fmt}: {_short(why)}", path=path)
+    found = _field_header(mesh)
     if isinstance(mesh, pv.MultiBlock):
         mesh = mesh.combine()
     if mesh.n_cells == 0:
-        return np.array(mesh.points, dtype=np.float64).reshape(-1, 3), np.zeros((0, 3), np.int64), {}
+        return (np.array(mesh.points, dtype=np.float64).reshape(-1, 3), np.zeros((0, 3), np.int64),
+                {}, found)
     with _quiet_vtk():
         if not isinstance(mesh, pv.PolyData):
             mesh = mesh.extract_surface()
         mesh = _polygons_only(mesh)
         if mesh.n_cells == 0:
-            return np.array(mesh.points, dtype=np.float64).reshape(-1, 3), np.zeros((0, 3), np.int64), {}
+            return (np.array(mesh.points, dtype=np.float64).reshape(-1, 3),
+                    np.zeros((0, 3), np.int64), {}, found)
         surf = mesh.triangulate()
     # copies: views into VTK memory must not outlive the dataset
     faces = np.array(surf.regular_faces, dtype=np.int64).reshape(-1, 3)
     arrays = {k: np.array(surf.cell_data[k]) for k in surf.cell_data.keys()
               if np.asarray(surf.cell_data[k]).ndim == 1}
-    return np.array(surf.points, dtype=np.float64), faces, arrays
+    return np.array(surf.points, dtype=np.float64), faces, arrays, found
+
+
+# ----------------------------------------------------------------------------- header
+#: The header sheetview writes into its own mesh files: format name and version.
+MESH_MAGIC = "sheetview mesh"
+MESH_FORMAT_VERSION = 1
+MESH_MARKER = f"{MESH_MAGIC} v{MESH_FORMAT_VERSION}"
+#: Name of the VTK field data array and of the glTF scene ``extras`` key holding it.
+HEADER_FIELD = "sheetview"
+#: Most bytes of leading lines searched for the header comment of a PLY, OBJ or OFF file.
+HEADER_SCAN_BYTES = 1 << 24
+_COMMENT_RE = re.compile(r"sheetview mesh v(\d+)(?:\s+(.*))?$", re.S)
+_FORMAT_RE = re.compile(r"sheetview mesh v(\d+)")
+_NOT_TEXT = object()
+
+
+@dataclasses.dataclass(frozen=True)
+class MeshHeader:
+    """What a sheetview header gives back: the length factor to nm (``--units``, else the
+    header's ``units``), the domain (nm), the spacing (nm) and the metadata."""
+
+    factor: float
+    domain: Domain | None
+    spacing: float | None
+    metadata: dict
+
+
+@dataclasses.dataclass(frozen=True)
+class _Found:
+    """A sheetview header found in a file, not yet checked."""
+
+    version: int
+    payload: object  # JSON text, a parsed object, or _NOT_TEXT
+    where: str  # how the file holds it, for messages
+    remedy: str  # how to read the mesh without it
+    line: int | None = None
+
+
+def _found_json(value, where, remedy):
+    """A header stored as JSON (VTK field data, glTF extras): ours when it is a JSON
+    object without a ``format`` key (files of the first writer) or whose ``format`` is
+    ``sheetview mesh vN``; another program's header (another ``format``) is None."""
+    obj = value
+    if isinstance(value, str):
+        try:
+            obj = json.loads(value)
+        except ValueError:
+            return _Found(MESH_FORMAT_VERSION, value, where, remedy)
+    version = MESH_FORMAT_VERSION
+    if isinstance(obj, dict) and "format" in obj:
+        m = _FORMAT_RE.fullmatch(str(obj["format"]))
+        if not m:
+            return None
+        version = int(m.group(1))
+    return _Found(version, obj, where, remedy)
+
+
+def _field_header(dataset):
+    """The header in the field data of a VTK dataset, or None."""
+    fd = getattr(dataset, "field_data", None)
+    if fd is None or HEADER_FIELD not in fd.keys():
+        return None
+    where = f"VTK field data '{HEADER_FIELD}'"
+    remedy = f"remove the field data array '{HEADER_FIELD}' to read the mesh with an inferred domain"
+    try:
+        a = np.asarray(fd[HEADER_FIELD]).ravel()
+    except Exception:  # noqa: BLE001 - an array pyvista cannot hand over is as bad as garbage
+        a = None
+    if a is None or a.size != 1 or a.dtype.kind not in "USO":
+        return _Found(MESH_FORMAT_VERSION, _NOT_TEXT, where, remedy)
+    return _found_json(str(a[0]), where, remedy)
+
+
+def _find_text_header(path: Path, suffix: str):
+    """The sheetview header of a trimesh-read file, or None: a ``comment sheetview mesh
+    vN {...}`` line of a PLY header, a leading ``# sheetview mesh vN {...}`` comment line
+    of an OBJ or OFF file, or the ``extras`` of the default scene of a GLB file."""
+    if suffix == ".glb":
+        return _glb_header(path)
+    if suffix not in (".ply", ".obj", ".off"):
+        return None
+    name = {".ply": "PLY", ".obj": "OBJ", ".off": "OFF"}[suffix]
+    try:
+        fh = open(path, "rb")
+    except OSError:
+        return None
+    with fh:
+        used = 0
+        lineno = 0
+        while used < HEADER_SCAN_BYTES:
+            raw = fh.readline(HEADER_SCAN_BYTES - used)
+            if not raw:
+                break
+            used += len(raw)
+            lineno += 1
+            text = raw.decode("latin1").strip()
+            if suffix == ".ply":
+                if lineno == 1:
+                    if text != "ply":
+                        return None
+                    continue
+                if text == "end_header":
+                    return None
+                if not text.startswith("comment"):
+                    continue
+                body = text[len("comment"):].strip()
+            else:
+                if lineno == 1 and suffix == ".off" and text.endswith("OFF"):
+                    continue
+                if not text:
+                    continue
+                if not text.startswith("#"):
+                    return None  # the data begins: the header comes before it
+                body = text[1:].strip()
+            m = _COMMENT_RE.match(body)
+            if m:
+                return _Found(int(m.group(1)), m.group(2) or "", f"{name} comment line",
+                              "fix or delete that comment line to read the mesh with an "
+                              "inferred domain", lineno)
+    return None
+
+
+def _glb_header(path: Path):
+    """The ``sheetview`` key of the default scene's ``extras`` in a binary glTF: the file
+    starts with a 12-byte header and a JSON chunk (glTF 2.0 specification, "GLB File
+    Format Specification")."""
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(20)
+            if len(head) < 20 or head[:4] != b"glTF":
+                return None
+            length, kind = struct.unpack("<II", head[12:20])
+            if kind != 0x4E4F534A or length > HEADER_SCAN_BYTES:  # "JSON"
+                return None
+            doc = json.loads(fh.read(length).decode("utf-8"))
+        scene = doc["scenes"][doc.get("scene", 0)]
+        extras = scene.get("extras")
+    except (OSError, ValueError, KeyError, IndexError, TypeError, AttributeError):
+        return None  # not readable as glTF: trimesh says why
+    if not isinstance(extras, dict) or HEADER_FIELD not in extras:
+        return None
+    return _found_json(extras[HEADER_FIELD], f"glTF scene extras '{HEADER_FIELD}'",
+                       f"remove the scene extras '{HEADER_FIELD}' to read the mesh with an "
+                       f"inferred domain")
+
+
+def _interpret_header(found, path, units) -> MeshHeader | None:
+    """Check a found header and turn it into a :class:`MeshHeader`; None when there is none.
+
+    A header that is sheetview's but damaged (not JSON, not an object, a bad domain,
+    spacing, units or metadata, a newer version) is refused with an :class:`InputError`
+    naming the file, the line (text formats) and the key: reading on with an inferred
+    domain would silently change every measure that uses the domain.
+    """
+    if found is None:
+        return None
+
+    def bad(msg, field=HEADER_FIELD):
+        raise InputError(f"sheetview header ({found.where}): {msg}; {found.remedy}",
+                         path=path, line=found.line, field=field)
+
+    if found.version > MESH_FORMAT_VERSION:
+        raise InputError(f"sheetview header ({found.where}) is version {found.version}, newer "
+                         f"than this sheetview reads (v{MESH_FORMAT_VERSION}); update sheetview",
+                         path=path, line=found.line, field=HEADER_FIELD)
+    h = found.payload
+    if h is _NOT_TEXT:
+        bad("expected one JSON text")
+    if isinstance(h, str):
+        try:
+            h = json.loads(h)
+        except ValueError as e:
+            bad(f"not valid JSON ({getattr(e, 'msg', str(e))} at column {getattr(e, 'colno', '?')})")
+    if not isinstance(h, dict):
+        bad(f"expected a JSON object, got {type(h).__name__}")
+    if units is not None:
+        f = unit_factor(units, path=path)
+    elif "units" in h:
+        u = h["units"]
+        if not isinstance(u, str) or u.strip().lower() not in UNITS:
+            bad(f'unknown units {json.dumps(u)}; expected "nm", "A" or "um"', "units")
+        f = UNITS[u.strip().lower()]
+    else:
+        f = 1.0
+    dom = None
+    if h.get("domain") is not None:
+        try:
+            dom = domain_from_dict(h["domain"], scale=f)
+        except InputError as e:
+            bad(f"domain: {e.detail}", "domain")
+        inferred = h.get("domain_inferred", False)
+        if not isinstance(inferred, bool):
+            bad(f'"domain_inferred" must be true or false, got {json.dumps(inferred)}',
+                "domain_inferred")
+        if inferred:
+            dom = dataclasses.replace(dom, inferred=True)
+    sp = None
+    if h.get("spacing") is not None:
+        v = h["spacing"]
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not np.isfinite(v) or v <= 0:
+            bad(f"spacing must be a positive number, got {json.dumps(v)}", "spacing")
+        sp = float(v) * f
+    meta = h.get("metadata")
+    if meta is None:
+        meta = {}
+    elif not isinstance(meta, dict):
+        bad(f"metadata must be a JSON object, got {type(meta).__name__}", "metadata")
+    return MeshHeader(f, dom, sp, meta)
+
+
+def mesh_header(obj) -> dict:
+    """The header written into a mesh file made from a Structure or a SurfaceBody:
+    format, units (nm), spacing (Structure only), domain, ``domain_inferred`` and metadata."""
+    h = {"format": MESH_MARKER, "units": "nm"}
+    if isinstance(obj, Structure):
+        h["spacing"] = obj.spacing
+    h["domain"] = obj.domain.to_dict()
+    h["domain_inferred"] = bool(obj.domain.inferred)
+    h["metadata"] = obj.metadata
+    return h
+
+
+def _header_json(header: dict) -> str:
+    """The header as one line of ASCII JSON. Inside its strings, ``end_header`` and
+    ``texturefile`` are written with one JSON ``\\u`` escape (same value), so that PLY
+    readers that look for those words anywhere in a header line are not misled."""
+    text = json.dumps(header, default=_json_default, ensure_ascii=True)
+    text = re.sub(r"(?i)(end)_(header)", lambda m: m.group(1) + "\\u005f" + m.group(2), text)
+    return re.sub(r"(?i)(texturefil)(e)", lambda m: m.group(1) + "\\u%04x" % ord(m.group(2)), text)
+
+
+def _comment_line(header: dict) -> str:
+    """``sheetview mesh v1 {JSON}``: the text after a PLY ``comment`` or an OBJ/OFF ``#``."""
+    body = {k: v for k, v in header.items() if k != "format"}
+    return f"{MESH_MARKER} {_header_json(body)}"
 
 
 def _polygons_only(poly):
@@ -397,19 +669,16 @@ def write_prisms_vtk(structure: Structure, path, *, force: bool = False) -> Path
     data, LZ4-compressed, see :func:`write_vtk_xml`) or legacy binary ``.vtk`` (by suffix),
     through :func:`~sheetview.io.output.atomic_path`.
 
-    See :func:`prism_polydata` for the content. The spacing, domain and metadata go into
-    field data ``sheetview`` as a JSON string.
+    See :func:`prism_polydata` for the content. The header (:func:`mesh_header`: spacing,
+    domain, ``domain_inferred``, metadata) goes into field data ``sheetview`` as a JSON
+    string; :func:`read_mesh` gives them back.
     """
-    import json
-
     path = Path(path)
     suffix = path.suffix.lower()
     if suffix not in (".vtp", ".vtk"):
         raise OptionError(f"prisms are written to VTK as .vtp or .vtk, not {suffix!r}", path=path)
     poly = prism_polydata(structure)
-    header = {"spacing": structure.spacing, "domain": structure.domain.to_dict(),
-              "domain_inferred": bool(structure.domain.inferred), "metadata": structure.metadata}
-    poly.field_data["sheetview"] = np.array([json.dumps(header, default=_json_default)])
+    poly.field_data[HEADER_FIELD] = np.array([_header_json(mesh_header(structure))])
     _save_vtk(poly, path, suffix, force)
     return path
 
@@ -466,7 +735,13 @@ BODY_SUFFIXES = {".stl", ".ply", ".obj", ".off", ".glb", ".vtp", ".vtk"}
 def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
     """Write a SurfaceBody, lengths in nm: STL (binary, float32) and GLB (float32) through
     trimesh, OBJ and OFF (17 significant digits) through trimesh, PLY (binary, float64),
-    or VTK PolyData (``.vtp`` / legacy ``.vtk``, float64) through pyvista."""
+    or VTK PolyData (``.vtp`` / legacy ``.vtk``, float64) through pyvista.
+
+    Every form but STL also carries the header (:func:`mesh_header`: domain,
+    ``domain_inferred``, metadata), which :func:`read_mesh` gives back: VTK field data
+    ``sheetview``, a PLY ``comment``, a leading OBJ/OFF ``#`` comment line, the GLB
+    default scene's ``extras``. Binary STL has no room for it (an 80-byte header).
+    """
     path = Path(path)
     suffix = path.suffix.lower()
     if not isinstance(body, SurfaceBody):
@@ -474,15 +749,18 @@ def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
     if suffix not in BODY_SUFFIXES:
         raise OptionError(f"cannot write a surface body as {suffix or '(no suffix)'!r}; use "
                           f"{', '.join(sorted(BODY_SUFFIXES))}", path=path)
+    header = mesh_header(body)
     if suffix in (".vtp", ".vtk"):
         import pyvista as pv
 
         poly = pv.PolyData.from_regular_faces(np.asarray(body.vertices), np.asarray(body.faces))
+        poly.field_data[HEADER_FIELD] = np.array([_header_json(header)])
         _save_vtk(poly, path, suffix, force)
         return path
     if suffix == ".ply":
         with atomic_path(path, force) as tmp:
-            _write_ply_double(tmp, np.asarray(body.vertices), np.asarray(body.faces))
+            _write_ply_double(tmp, np.asarray(body.vertices), np.asarray(body.faces),
+                              _comment_line(header))
         return path
     mesh = body.to_trimesh()
     if suffix == ".obj":
@@ -490,11 +768,19 @@ def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
 
         data = export_obj(mesh, include_normals=False, include_color=False,
                           include_texture=False, digits=17)
+        data = f"# {_comment_line(header)}\n" + data
     elif suffix == ".off":
         from trimesh.exchange.off import export_off
 
-        data = export_off(mesh, digits=17)
-    else:  # STL and GLB hold float32 by definition
+        first, _, rest = export_off(mesh, digits=17).partition("\n")
+        data = f"{first}\n# {_comment_line(header)}\n{rest}"
+    elif suffix == ".glb":  # float32 by definition; the header in the scene's extras
+        import trimesh
+
+        scene = trimesh.Scene(mesh)
+        scene.metadata[HEADER_FIELD] = _header_json(header)
+        data = scene.export(file_type="glb")
+    else:  # binary STL: float32 by definition, no header
         data = mesh.export(file_type=suffix.lstrip("."))
     with atomic_path(path, force) as tmp:
         mode = "w" if isinstance(data, str) else "wb"
@@ -503,10 +789,12 @@ def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
     return path
 
 
-def _write_ply_double(fname, vertices: np.ndarray, faces: np.ndarray) -> None:
-    """Binary little-endian PLY with float64 vertices (exact round trip) and int32 faces."""
+def _write_ply_double(fname, vertices: np.ndarray, faces: np.ndarray, comment: str | None = None) -> None:
+    """Binary little-endian PLY with float64 vertices (exact round trip) and int32 faces;
+    ``comment`` (one line of ASCII) is written as a further ``comment`` line."""
+    extra = f"comment {comment}\n" if comment else ""
     header = ("ply\nformat binary_little_endian 1.0\ncomment written by sheetview, lengths in nm\n"
-              f"element vertex {len(vertices)}\nproperty double x\nproperty double y\n"
+              f"{extra}element vertex {len(vertices)}\nproperty double x\nproperty double y\n"
               f"property double z\nelement face {len(faces)}\n"
               "property list uchar int vertex_indices\nend_header\n")
     fdt = np.dtype([("n", "u1"), ("idx", "<i4", (3,))])

@@ -37,7 +37,10 @@ Writers (:func:`write_volume`)
 ``.npy`` (uint8 ``[i, j, k]``; the marker with spacing and origin sits in a comment of
 the NPY header, which NumPy ignores) and ``.tif``/``.tiff`` (ImageJ hyperstack, one page
 per z slice, ``unit=nm``, ``spacing`` = z voxel size, X/Y resolution). All three read
-back exactly (labels, spacing, origin).
+back exactly (labels, spacing, origin). ``PhaseGrid.solid_fraction`` (float32, when
+present) travels in ``.vti`` only, as a second cell array ``solid_fraction`` named by the
+marker, and reads back bit for bit; NPY and TIFF hold the labels only (one array per file,
+and no second-file convention).
 """
 from __future__ import annotations
 
@@ -54,6 +57,8 @@ from .output import atomic_path
 from .prisms import unit_factor
 
 MARKER = "sheetview phase codes v1"
+#: Name of the VTI cell array holding ``PhaseGrid.solid_fraction``.
+FRACTION_ARRAY = "solid_fraction"
 #: Largest image data written as an ImageJ (classic, 32-bit offset) TIFF; beyond it a
 #: BigTIFF with the same metadata in its JSON description.
 IMAGEJ_TIFF_LIMIT = 2**32 - 2**25
@@ -193,8 +198,10 @@ def read_volume(path, *, voxel_size=None, phases=None, shape=None, dtype=None, u
     if marker is not None and isinstance(marker.get("metadata"), dict):
         meta.update(marker["metadata"])
     periodic = bool(marker.get("periodic", False)) if marker is not None else False
+    fraction = info.get("solid_fraction")
     try:
-        return PhaseGrid(labels, spacing, origin, names, periodic, meta, str(path))
+        return PhaseGrid(labels, spacing, origin, names, periodic, meta, str(path),
+                         solid_fraction=fraction)
     except ValueError as e:
         raise InputError(f"bad voxel geometry: {e}", path=path) from None
 
@@ -519,7 +526,8 @@ def _load_vti(path: Path, ufac):
                          "header found", path=path)
     ext = [int(v) for v in m.groups()]
     npts = [ext[1] - ext[0] + 1, ext[3] - ext[2] + 1, ext[5] - ext[4] + 1]
-    _check_memory(npts, 8, path)
+    # the phase array, and a float32 solid fraction where one is named in the file
+    _check_memory(npts, 8 + (4 if f'Name="{FRACTION_ARRAY}"' in head else 0), path)
     err = None
     grid = None
     with _quiet_vtk() as catcher:
@@ -558,7 +566,32 @@ def _load_vti(path: Path, ufac):
                 info["marker"] = mk
         except (ValueError, IndexError, TypeError):
             pass
+    mk = info.get("marker")
+    if mk is not None and mk.get("solid_fraction") is not None:
+        info["solid_fraction"] = _vti_fraction(grid, mk["solid_fraction"], where, vshape, path)
     return arr, info
+
+
+def _vti_fraction(grid, name, where, vshape, path) -> np.ndarray:
+    """The solid-fraction array that the marker of a sheetview VTI names: one float per
+    voxel, beside the phase array (same cell or point association), each in [0, 1]."""
+    data = grid.cell_data if where == "cell" else grid.point_data
+    if not isinstance(name, str) or name not in data.keys():
+        raise InputError(f"its sheetview marker announces a solid-fraction array {name!r}, "
+                         f"but the file holds no {where} array of that name", path=path,
+                         field="solid_fraction")
+    a = np.asarray(data[name])
+    if a.ndim != 1 or a.size != int(np.prod(vshape)) or a.dtype.kind != "f":
+        raise InputError(f"solid-fraction array {name!r} must hold one real number per voxel "
+                         f"({int(np.prod(vshape))}), got {a.dtype} of shape {a.shape}",
+                         path=path, field=name)
+    bad = ~((a >= 0) & (a <= 1))  # NaN is bad too
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise InputError(f"solid-fraction array {name!r} must lie in [0, 1]; value {a[i]!r} "
+                         f"at voxel {i} ({int(bad.sum())} voxel(s) affected)", path=path,
+                         field=name)
+    return np.ascontiguousarray(a.reshape(vshape, order="F"), dtype=np.float32)
 
 
 def _vti_array(grid, path):
@@ -596,11 +629,26 @@ def _marker(grid: PhaseGrid) -> dict:
     return mk
 
 
+def _fraction_to_write(grid: PhaseGrid, shape, path):
+    """``grid.solid_fraction`` as float32 of the labels' shape, or None when there is none."""
+    frac = grid.solid_fraction
+    if frac is None:
+        return None
+    frac = np.asarray(frac)
+    if frac.shape != tuple(shape) or frac.dtype.kind != "f":
+        raise OptionError(f"the grid's solid_fraction must be a real array of the labels' shape "
+                          f"{tuple(shape)}, got {frac.dtype} of shape {frac.shape}", path=path,
+                          field="solid_fraction")
+    return np.asarray(frac, dtype=np.float32)
+
+
 def write_volume(grid: PhaseGrid, path, *, force: bool = False) -> Path:
     """Write a PhaseGrid as ``.vti``, ``.npy`` or ``.tif``/``.tiff`` (see the module text).
 
     Every form carries a ``sheetview`` marker so that reading it back needs no options and
-    gives the same labels, spacing and origin.
+    gives the same labels, spacing and origin. ``grid.solid_fraction``, when present, is
+    written to ``.vti`` only (a second cell array, float32, named in the marker); NPY and
+    TIFF hold one array, the labels, and leave it out.
     """
     path = Path(path)
     suffix = path.suffix.lower()
@@ -613,7 +661,13 @@ def write_volume(grid: PhaseGrid, path, *, force: bool = False) -> Path:
         img = pv.ImageData(dimensions=tuple(int(s) + 1 for s in labels.shape),
                            spacing=grid.spacing, origin=grid.origin)
         img.cell_data["phase"] = labels.ravel(order="F")
-        img.field_data["sheetview"] = np.array([json.dumps(_marker(grid))])
+        mk = _marker(grid)
+        frac = _fraction_to_write(grid, labels.shape, path)
+        if frac is not None:
+            img.cell_data[FRACTION_ARRAY] = frac.ravel(order="F")
+            img.set_active_scalars("phase", preference="cell")
+            mk["solid_fraction"] = FRACTION_ARRAY
+        img.field_data["sheetview"] = np.array([json.dumps(mk)])
         with atomic_path(path, force) as tmp:
             write_vtk_xml(img, tmp)
         return path
