@@ -355,3 +355,29 @@ def test_write_refuses_a_fraction_of_the_wrong_shape(tmp_path):
         sv.write(g, tmp_path / "g.vti")
     assert "solid_fraction" in str(ei.value)
     assert not (tmp_path / "g.vti").exists()
+
+
+@pytest.mark.parametrize("suffix", [".vti", ".npy", ".tif"])
+def test_metadata_round_trips(tmp_path, suffix):
+    """A grid's metadata (study parameters, rasterization settings; numpy scalars among
+    them) comes back from every volume form; ``source_format`` names the file just read.
+    An NPY file keeps metadata only while its header stays within what ``numpy.load``
+    reads by default (10,000 bytes, numpy's ``max_header_size``): longer metadata is left
+    out and the file stays readable by numpy."""
+    rng = np.random.default_rng(3)
+    lab = rng.integers(0, 4, (4, 5, 6)).astype(np.uint8)
+    meta = {"w_c": 0.45, "replica": np.int64(3), "voxel_size_nm": np.float32(0.25),
+            "note": "invented study", "source_format": "csv"}
+    g = PhaseGrid(lab, 0.25, metadata=meta)
+    p = tmp_path / f"m{suffix}"
+    sv.write(g, p)
+    back = sv.read(p)
+    assert back.metadata["source_format"] == suffix.lstrip(".")
+    assert {k: v for k, v in back.metadata.items() if k != "source_format"} == {
+        "w_c": 0.45, "replica": 3, "voxel_size_nm": pytest.approx(0.25), "note": "invented study"}
+    if suffix == ".npy":
+        big = PhaseGrid(lab, 0.25, metadata={"long": "x" * 70000})
+        q = tmp_path / "big.npy"
+        sv.write(big, q)
+        np.testing.assert_array_equal(np.load(q), lab)
+        assert "long" not in sv.read(q).metadata

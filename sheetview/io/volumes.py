@@ -194,9 +194,10 @@ def read_volume(path, *, voxel_size=None, phases=None, shape=None, dtype=None, u
         except (TypeError, ValueError):
             names = dict(PHASE_NAMES)
     labels = map_phases(arr, phases, marker is not None, path, names)
-    meta = {"source_format": suffix.lstrip(".")}
+    meta = {}
     if marker is not None and isinstance(marker.get("metadata"), dict):
         meta.update(marker["metadata"])
+    meta["source_format"] = suffix.lstrip(".")
     periodic = bool(marker.get("periodic", False)) if marker is not None else False
     fraction = info.get("solid_fraction")
     try:
@@ -620,13 +621,28 @@ def _short(e) -> str:
 
 
 # ----------------------------------------------------------------------------- writing
+#: numpy.load refuses (without ``max_header_size``) NPY headers longer than this (bytes).
+NPY_SAFE_HEADER = 10000
+
+
 def _marker(grid: PhaseGrid) -> dict:
     mk = {"format": MARKER, "spacing": list(grid.spacing), "origin": list(grid.origin)}
     if grid.periodic:
         mk["periodic"] = True
     if dict(grid.names) != PHASE_NAMES:
         mk["names"] = {str(k): v for k, v in grid.names.items()}
+    meta = {k: v for k, v in dict(grid.metadata or {}).items() if k != "source_format"}
+    if meta:  # JSON-ready: numpy scalars and arrays as numbers and lists, the rest as text
+        mk["metadata"] = json.loads(json.dumps(meta, default=_json_default))
     return mk
+
+
+def _json_default(o):
+    if isinstance(o, np.generic):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    return str(o)
 
 
 def _fraction_to_write(grid: PhaseGrid, shape, path):
@@ -673,7 +689,7 @@ def write_volume(grid: PhaseGrid, path, *, force: bool = False) -> Path:
         return path
     if suffix == ".npy":
         with atomic_path(path, force) as tmp:
-            _write_npy_marked(tmp, labels, _marker(grid))
+            _write_npy_marked(tmp, labels, _npy_marker(grid, labels))
         return path
     if suffix in (".tif", ".tiff"):
         import tifffile
@@ -703,10 +719,21 @@ def _write_npy_marked(fname, labels: np.ndarray, marker: dict) -> None:
     header = d + comment
     magic = b"\x93NUMPY\x01\x00"
     total = len(magic) + 2 + len(header) + 1
-    header = header + " " * ((-total) % 64) + "\n"
-    hb = header.encode("latin1")
-    if len(hb) > 65535:
-        raise ValueError("npy header too long")
+    hb = (header + " " * ((-total) % 64) + "\n").encode("latin1")
+    if len(hb) > NPY_SAFE_HEADER:
+        raise ValueError("npy header too long")  # _npy_marker keeps it short
     with open(fname, "wb") as fh:
         fh.write(magic + len(hb).to_bytes(2, "little") + hb)
         fh.write(labels.tobytes(order="C"))
+
+
+def _npy_marker(grid: PhaseGrid, labels: np.ndarray) -> dict:
+    """The marker of an NPY file: with the grid's metadata only when the header stays
+    within what ``numpy.load`` reads without ``max_header_size`` (:data:`NPY_SAFE_HEADER`);
+    longer metadata is left out (``.vti`` and TIFF carry any length)."""
+    mk = _marker(grid)
+    body = {k: v for k, v in mk.items() if k != "format"}
+    size = len(json.dumps(body, separators=(",", ":"))) + 200 + len(str(labels.shape))
+    if size > NPY_SAFE_HEADER - 64:
+        mk.pop("metadata", None)
+    return mk
