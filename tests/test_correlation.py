@@ -81,3 +81,18 @@ def test_reach_keeps_the_lags_it_names(periodic):
         assert full[-2, 3, -4] == (9 - 2) * (10 - 3) * (11 - 4)
     with pytest.raises(OptionError, match="reach"):
         s2_map(m, reach=-1)
+
+
+def test_unbounded_r_max_is_the_whole_grid():
+    """An r_max beyond the grid (or infinite) keeps every lag the grid has: the same bins
+    as r_max equal to the grid's diagonal (derived: no pair is farther apart)."""
+    rng = np.random.default_rng(5)
+    g = PhaseGrid(np.where(rng.random((8, 9, 10)) < 0.4, SOLID, GEL).astype(np.uint8), 0.3)
+    diag = 0.3 * float(np.sqrt(7 ** 2 + 8 ** 2 + 9 ** 2))
+    ref = two_point_correlation(g, SOLID, r_max=diag)
+    for rmax in (float("inf"), 1e30):
+        r = two_point_correlation(g, SOLID, r_max=rmax)
+        np.testing.assert_array_equal(r.r, ref.r)
+        np.testing.assert_array_equal(r.s2, ref.s2)
+    with pytest.raises(OptionError, match="reach"):
+        s2_map(np.ones((3, 3, 3), bool), reach=(1, 2))

@@ -84,7 +84,10 @@ def _autocorrelation(x: np.ndarray, shape, workers: int) -> np.ndarray:
 def _reach(shape, reach):
     if reach is None:
         return tuple(int(n) - 1 for n in shape)
-    reach = np.broadcast_to(np.asarray(reach, dtype=np.int64), (3,))
+    try:
+        reach = np.broadcast_to(np.asarray(reach, dtype=np.int64), (3,))
+    except (TypeError, ValueError):
+        raise OptionError(f"reach must be one or three whole numbers of voxels, got {reach!r}") from None
     if np.any(reach < 0):
         raise OptionError(f"reach must be >= 0 voxels, got {tuple(reach.tolist())}")
     return tuple(int(min(r, n - 1)) for r, n in zip(reach, shape))
@@ -187,7 +190,8 @@ def two_point_correlation(grid: PhaseGrid, phases, r_max: float | None = None,
     if not (rmax > 0 and bw > 0):
         raise OptionError(f"r_max and bin_width must be positive, got {r_max!r}, {bin_width!r}")
     # lags that can fall in a bin: |k_a| sp_a <= rmax + bw / 2
-    reach = tuple(int(v) for v in np.ceil((rmax + 0.5 * bw) / sp + 1e-9))
+    reach = tuple(int(v) for v in np.minimum(np.ceil((rmax + 0.5 * bw) / sp + 1e-9),
+                                             shape - 1))
     # real input, its half-spectrum (complex) and the real output at once: 3 x 8 bytes
     need = int(np.prod(padded_shape(shape, reach, grid.periodic), dtype=np.float64) * 8 * 3)
     if need > max_bytes:

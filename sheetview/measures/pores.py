@@ -1336,9 +1336,10 @@ def _diameter_hist(d, edges, vmin, scale, nfine, coarse, nch):
             v = np.float64(d[i])
             if not (np.isfinite(v) and v > 0):
                 continue
-            f = int((v - vmin) * scale)
-            if f >= nfine:
-                f = nfine - 1
+            x = (v - vmin) * scale
+            f = int(x) if x < nfine else nfine - 1
+            if f < 0:
+                f = 0
             fine[c, f] += 1
             k = coarse[f]
             if k >= 0:
@@ -1384,9 +1385,10 @@ def _fine_bin_values(d, vmin, scale, nfine, targets, sizes):
     for i in range(d.size):
         v = np.float64(d[i])
         if np.isfinite(v) and v > 0:
-            f = int((v - vmin) * scale)
-            if f >= nfine:
-                f = nfine - 1
+            x = (v - vmin) * scale
+            f = int(x) if x < nfine else nfine - 1
+            if f < 0:
+                f = 0
             t = slot[f]
             if t >= 0:
                 out[pos[t]] = v
@@ -1409,6 +1411,11 @@ def _order_statistics(d, ranks, vmin, scale, fine):
         seg = vals[start[t]:start[t + 1]]
         out.append(float(np.partition(seg, k)[k]))
     return np.asarray(out)
+
+
+def _ratio(a, b):
+    with np.errstate(over="ignore"):  # bins of subnormal width: an infinite density
+        return a / b
 
 
 def _bin_edges(vmin, vmax, bins, h):
@@ -1455,6 +1462,9 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
         d = d.astype(np.float64)
     flat = d.reshape(-1)  # a view of a contiguous map
     nch = max(1, min(flat.size // 65536 + 1, 16 * numba.get_num_threads()))
+    nb_guess = bins if isinstance(bins, (int, np.integer)) else np.size(bins)
+    if nb_guess > 4096:  # per-chunk tables of many bins: fewer chunks
+        nch = max(1, min(nch, numba.get_num_threads()))
     n_phase, n_pos, vsum, vmin, vmax = _diameter_stats(flat, nch)
     n_phase, n_pos = int(n_phase), int(n_pos)
     sp = np.broadcast_to(np.asarray(voxel_size, dtype=float), (3,))
@@ -1464,6 +1474,8 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
     edges = np.ascontiguousarray(edges, dtype=np.float64)
     nfine = QUANTILE_FINE_BINS
     scale = (nfine / (vmax - vmin)) if n_pos and vmax > vmin else 0.0
+    if not np.isfinite(scale):  # a spread of subnormal size: one fine bin, placed one by one
+        scale = 0.0
     v0 = float(vmin) if n_pos else 0.0
     coarse = (_fine_to_coarse(edges, v0, scale, nfine) if scale > 0
               else np.full(nfine, -3, np.int64))
@@ -1477,8 +1489,11 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
         idx = np.float64(n_pos) * np.array([0.1, 0.5, 0.9]) - 1
         prev = np.floor(idx)
         ranks = np.where(idx - prev == 0, prev, prev + 1).astype(np.int64).clip(0, n_pos - 1)
-        if vmax > vmin:
+        if vmax > vmin and scale > 0:
             q = _order_statistics(flat, ranks, float(vmin), scale, fine)
+        elif vmax > vmin:  # all in one fine bin: select among the sized values
+            vals = flat[np.isfinite(flat) & (flat > 0)].astype(np.float64)
+            q = np.array([float(np.partition(vals, r)[r]) for r in ranks])
         else:  # one value
             q = np.full(3, float(vmin))
         mean = float(vsum / n_pos)
@@ -1493,7 +1508,7 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
     below /= total
     return PoreSizeResult(
         method=method, phases=tuple(phases), diameter=d, bin_edges=edges,
-        volume_fraction=frac, density=frac / width,
+        volume_fraction=frac, density=_ratio(frac, width),
         cumulative_finer=below[1:], cumulative_coarser=1.0 - below[:-1],
         d10=float(q[0]), d50=float(q[1]), d90=float(q[2]), mean=mean,
         phase_volume=float(n_phase * np.prod(sp)),
