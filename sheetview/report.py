@@ -217,11 +217,11 @@ def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
 
 
 @contextlib.contextmanager
-def atomic_folder(outdir, force: bool = False):
+def atomic_folder(outdir, force: bool = False, kind: str = "report"):
     """Yield ``(tmp, final)``: a temporary folder beside ``outdir`` to fill, and the final
     path. On success the folder is renamed into place (with ``force`` into an existing
-    folder: see :func:`_move_into_place`); on any exception it is removed and ``outdir``
-    is untouched. ``outdir`` is checked (:func:`check_folder`) first."""
+    folder: see :func:`_move_into_place`; ``kind`` names the command in the manifest);
+    on any exception it is removed and ``outdir`` is untouched. ``outdir`` is checked (:func:`check_folder`) first."""
     final = check_folder(outdir, force)
     parent = final.parent if str(final.parent) else Path(".")
     if not parent.exists():
@@ -236,41 +236,63 @@ def atomic_folder(outdir, force: bool = False):
                              path=final) from None
     try:
         yield tmp, final
-        _move_into_place(tmp, final)
+        _move_into_place(tmp, final, kind)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
 
 
-#: Hidden file in a report folder listing the files that run wrote (one name per line).
+#: Hidden file in an output folder: a first line ``# sheetview <kind>`` naming what wrote the
+#: folder (``report``, ``micrograph``), then the names of the files that run wrote.
 MANIFEST = ".sheetview-files"
+#: Longest file name (bytes) taken from a manifest (NAME_MAX on common file systems).
+_NAME_MAX = 255
 
 
-def _listed(folder: Path) -> set:
+def _plain_name(n: str) -> bool:
+    """A file name of this folder itself: no path separator, not ``.``/``..``, not the
+    manifest, not too long."""
+    return (bool(n) and n not in (".", "..", MANIFEST) and n == os.path.basename(n)
+            and os.sep not in n and (os.altsep is None or os.altsep not in n)
+            and len(n.encode("utf-8", "replace")) <= _NAME_MAX)
+
+
+def _listed(folder: Path, kind: str) -> set:
+    """Names in the manifest of ``folder`` when the same kind of run wrote it; nothing for
+    another kind, a folder written before manifests existed, or a manifest that cannot be
+    read (corrupted lines are skipped)."""
     try:
-        return {n for n in (folder / MANIFEST).read_text().splitlines() if n and "/" not in n}
-    except OSError:
+        lines = (folder / MANIFEST).read_text(encoding="utf-8", errors="replace").splitlines()
+    except (OSError, ValueError):
         return set()
+    if not lines or lines[0].strip() != f"# sheetview {kind}":
+        return set()
+    return {n for n in lines[1:] if _plain_name(n)}
 
 
-def _move_into_place(tmp: Path, final: Path) -> None:
+def _move_into_place(tmp: Path, final: Path, kind: str = "report") -> None:
     """Rename the finished temporary folder to ``final``. With an existing folder (force)
-    the files of the same name are replaced, the files an earlier run wrote (listed in
-    its :data:`MANIFEST`) that this run did not write are removed, and any other file
-    (the user's own) is kept."""
+    the files of the same name are replaced; the files an earlier run of the same kind
+    wrote (listed in its :data:`MANIFEST`) that this run did not write are removed; any
+    other file (the user's own, another command's output, the files of a folder written
+    before manifests existed) is kept. Only plain files of the folder itself are removed,
+    never a folder, a symbolic link or anything outside it."""
     names = sorted(p.name for p in tmp.iterdir())
-    (tmp / MANIFEST).write_text("".join(n + "\n" for n in names))
+    (tmp / MANIFEST).write_text(f"# sheetview {kind}\n" + "".join(n + "\n" for n in names))
     if not final.exists():
         os.replace(tmp, final)
         return
-    stale = _listed(final) - set(names)
+    stale = _listed(final, kind) - set(names)
     for p in tmp.iterdir():
         os.replace(p, final / p.name)
     tmp.rmdir()
     for n in sorted(stale):
         p = final / n
-        if p.is_file() and not p.is_symlink():
-            p.unlink()
+        try:
+            if p.is_file() and not p.is_symlink():
+                p.unlink()
+        except OSError:
+            continue  # best effort: the new report is complete already
 
 
 def _write_all(out: Path, doc, results, plots, grid) -> list[str]:

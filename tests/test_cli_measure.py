@@ -65,7 +65,8 @@ def test_report_folder(two_stacks, tmp_path):
             "stacking_histogram.png", "pole_figure.png", "pole_figure.csv",
             "orientation_distribution.csv", "order.png"} <= names
     assert not any(n.startswith(".") and n != ".sheetview-files" for n in names)  # no temporary files
-    assert (out / ".sheetview-files").read_text().split() == sorted(names - {".sheetview-files"})
+    manifest = (out / ".sheetview-files").read_text().splitlines()
+    assert manifest == ["# sheetview report"] + sorted(names - {".sheetview-files"})
     rows = (out / "prisms.csv").read_text().splitlines()
     assert rows[0].startswith("prism,layer,stack,stacking_number") and len(rows) == 145
     stacks = (out / "stacks.csv").read_text().splitlines()

@@ -194,7 +194,7 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
     from ..io.output import atomic_path
     from ..report import atomic_folder, write_csv, write_json
 
-    with atomic_folder(outdir, force) as (tmp, final):
+    with atomic_folder(outdir, force, kind="micrograph") as (tmp, final):
         write_json(tmp / "descriptors.json", doc)
         write_csv(tmp / "chords.csv", desc.chords.table())
         write_csv(tmp / "thickness.csv", desc.thickness.table())
