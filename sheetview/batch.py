@@ -319,26 +319,47 @@ def _fork_context(choose_layer: bool = False):
     Forking copies a warm process (modules imported, numba kernels loaded): a worker
     starts measuring at once instead of spending a second or two on start-up. It is safe
     on Linux when numba's threading layer is fork-safe (workqueue or TBB; GNU OpenMP is
-    not: numba documentation, "The Threading Layers"). With ``choose_layer`` (the
-    command line, whose process ends with the batch), a process that has not started a
-    layer yet is given the workqueue layer, unless NUMBA_THREADING_LAYER names one: a
-    batch process makes one numba call at a time, which is all that layer supports.
-    Without it the layer of a library user's process is never changed.
+    not: numba documentation, "The Threading Layers"), and when this process runs no
+    other thread. With ``choose_layer``, in the ``sheetview`` program itself
+    (:func:`_is_command_line`: its process ends with the batch), a process that has not
+    started a layer yet is given the workqueue layer for the rest of its life, unless
+    NUMBA_THREADING_LAYER is set (then the workers start fresh): the batch makes one numba
+    call at a time, which is all that layer supports. Anywhere else (a library call, a
+    notebook, the command run in-process by a test) the layer is never changed.
     """
     if not sys.platform.startswith("linux"):
         return None
     import multiprocessing as mp
+    import threading
+    if threading.active_count() != 1:
+        return None  # other threads (a notebook kernel, a GUI, Dask): forking is not safe
     try:
         import numba
         try:
             layer = numba.threading_layer()
         except ValueError:  # no layer started in this process yet
-            if not choose_layer or os.environ.get("NUMBA_THREADING_LAYER"):
+            if not (choose_layer and _is_command_line()) or os.environ.get("NUMBA_THREADING_LAYER"):
                 return None
             numba.config.THREADING_LAYER = layer = "workqueue"
         return mp.get_context("fork") if layer in ("workqueue", "tbb") else None
     except Exception:
         return None
+
+
+def _is_command_line() -> bool:
+    """Whether this process is the ``sheetview`` program itself (``python -m sheetview``
+    or the ``sheetview`` script), which ends with its command; not a test runner, a
+    notebook or another program calling the command in-process."""
+    main = sys.modules.get("__main__")
+    spec = getattr(main, "__spec__", None)
+    if spec is not None and getattr(spec, "name", "") == f"{__package__}.__main__":
+        return True
+    return Path(sys.argv[0] if sys.argv else "").name == __package__
+
+
+#: Seconds a forked worker may take to answer its first task before the batch gives up on
+#: forking and starts fresh workers.
+FORK_START_TIMEOUT = 60.0
 
 
 def _worker_init(n_threads: int, batch_pid: int | None = None) -> None:
@@ -477,11 +498,15 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
         only = ",".join(measures.parse_only(only))
     if workers < 1:
         raise OptionError(f"--workers: must be at least 1, got {workers}")
-    at = {k: float(v) for k, v in (at or {}).items() if v is not None}
+    at = {k: v for k, v in (at or {}).items() if v is not None}
     if at:
         from .measures.kinetics import check_moment
         if set(at) - {"progress", "time"}:
             raise OptionError(f"at: expected 'progress' or 'time', got {sorted(at)}")
+        try:
+            at = {k: float(v) for k, v in at.items()}
+        except (TypeError, ValueError):
+            raise OptionError(f"at: expected numbers, got {at!r}") from None
         check_moment(*_moment_args(at))
     paths = expand_inputs(patterns)
     out = prepare_out(out)
@@ -615,23 +640,37 @@ def _run_local(todo, args, finished, workers, ncpu, threads=None, task=None, log
             if not stop.is_set():
                 finished(job, r)
 
+    ex = None
+    note = ""
     mpctx = _fork_context(choose_layer)
     if mpctx is not None:
-        how = f"forked from this process after a {warm_up():.1f} s warm-up"
-    else:
+        warm = warm_up()
+        ex = ProcessPoolExecutor(workers - 1, mp_context=mpctx, initializer=_worker_init,
+                                 initargs=(threads, os.getpid()))
+        try:
+            # fork every worker now, from this thread, while no numba kernel runs here; a
+            # pool that would fork more of them later, from a driver thread, is not used
+            ex.submit(os.getpid).result(timeout=FORK_START_TIMEOUT)
+            if len(getattr(ex, "_processes", None) or ()) < workers - 1:
+                raise RuntimeError("the pool starts its workers on demand")
+            how = f"forked from this process after a {warm:.1f} s warm-up"
+        except Exception as e:  # fork failed (memory), a worker died or hung at start
+            for p in list((getattr(ex, "_processes", None) or {}).values()):
+                p.terminate()
+            ex.shutdown(wait=False, cancel_futures=True)
+            ex = None
+            note = f"forking failed ({type(e).__name__}: {e}), so "
+    if ex is None:
         try:
             mpctx = mp.get_context("forkserver")
         except ValueError:
             mpctx = mp.get_context("spawn")
-        how = f"started by {mpctx.get_start_method()}"
+        how = f"{note}started by {mpctx.get_start_method()}"
+        ex = ProcessPoolExecutor(workers - 1, mp_context=mpctx, initializer=_worker_init,
+                                 initargs=(threads, os.getpid()))
     if log:
         log(f"{workers - 1} worker process(es) {how}, {threads} numba thread(s) each",
             console=False)
-    ex = ProcessPoolExecutor(workers - 1, mp_context=mpctx, initializer=_worker_init,
-                             initargs=(threads, os.getpid()))
-    if mpctx.get_start_method() == "fork":
-        # fork every worker now, from this thread, while no numba kernel is running here
-        ex.submit(os.getpid).result()
 
     def drive():
         while (job := take()) is not None:

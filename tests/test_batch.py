@@ -478,6 +478,8 @@ _FORK_PROBE = """
 import sys
 import numba
 from sheetview.batch import _fork_context
+if sys.argv[3] == "program":
+    sys.argv[0] = "/usr/local/bin/sheetview"  # as when the sheetview script runs
 if sys.argv[1] == "started":
     @numba.njit(parallel=True)
     def total(a):
@@ -497,24 +499,25 @@ print(ctx.get_start_method() if ctx else None, layer)
 
 
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="fork path is Linux only")
-@pytest.mark.parametrize("env_layer, state, choose", [
-    (None, "fresh", "choose"), ("omp", "fresh", "choose"), (None, "fresh", "keep"),
-    (None, "started", "choose"), ("workqueue", "started", "keep")])
-def test_fork_only_under_a_fork_safe_threading_layer(env_layer, state, choose):
+@pytest.mark.parametrize("env_layer, state, choose, who", [
+    (None, "fresh", "choose", "program"), ("omp", "fresh", "choose", "program"),
+    (None, "fresh", "keep", "program"), (None, "fresh", "choose", "library"),
+    (None, "started", "choose", "program"), ("workqueue", "started", "keep", "library")])
+def test_fork_only_under_a_fork_safe_threading_layer(env_layer, state, choose, who):
     """Workers are forked only under a fork-safe numba threading layer (workqueue or
     TBB; GNU OpenMP is not fork-safe: numba documentation, "The Threading Layers"). A
-    process that has started no layer is switched to workqueue only when allowed
-    (the command line) and when NUMBA_THREADING_LAYER names none; a started layer is
-    never changed."""
+    process that has started no layer is switched to workqueue only when allowed, in the
+    sheetview program itself (not a library caller) and when NUMBA_THREADING_LAYER is
+    unset; a started layer is never changed."""
     env = {k: v for k, v in os.environ.items() if k != "NUMBA_THREADING_LAYER"}
     if env_layer:
         env["NUMBA_THREADING_LAYER"] = env_layer
-    r = subprocess.run([sys.executable, "-c", _FORK_PROBE, state, choose], capture_output=True,
-                       text=True, env=env, timeout=120)
+    r = subprocess.run([sys.executable, "-c", _FORK_PROBE, state, choose, who],
+                       capture_output=True, text=True, env=env, timeout=120)
     assert r.returncode == 0, r.stderr
     method, layer = r.stdout.split()
     if state == "fresh":
-        if choose == "choose" and not env_layer:
+        if choose == "choose" and not env_layer and who == "program":
             assert (method, layer) == ("fork", "workqueue")
         else:
             assert method == "None" and layer == (env_layer or "default")
@@ -556,3 +559,44 @@ def test_batch_at_progress_equals_measure_at_progress(tmp_path):
     r = batch(p, "-o", tmp_path / "o2", "--at-progress", "50", *FAST)
     assert r.exit_code == 2 and "fraction in (0, 1]" in r.output
     assert not (tmp_path / "o2").exists()
+
+
+_FALLBACK_PROBE = """
+import os, sys, time
+import numba, numpy as np
+import sheetview.batch as B
+
+@numba.njit(parallel=True)
+def total(a):
+    s = 0.0
+    for i in numba.prange(a.size):
+        s += a[i]
+    return s
+total(np.ones(100))              # the workqueue layer (from the environment) runs
+assert numba.threading_layer() == "workqueue"
+
+def slow_init(*a):               # a forked worker that hangs at start
+    time.sleep(30)
+B._worker_init = slow_init
+B.FORK_START_TIMEOUT = 1.0
+jobs = [B.Job(f"in{i}.csv", None, f"k{i}", f"n{i}") for i in range(6)]
+done = {}
+lines = []
+B._run_local(jobs, lambda j, t: (len(j.key), t), lambda j, r: done.setdefault(j.key, r),
+             workers=2, ncpu=2, task=max, log=lambda m, console=True: lines.append(m))
+print(sorted(done) == sorted(j.key for j in jobs), lines[0])
+"""
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="fork path is Linux only")
+def test_a_worker_that_hangs_at_fork_falls_back_to_fresh_workers():
+    """A forked worker that does not answer in time (or a fork that fails) is given up:
+    the batch starts fresh workers and every structure is still measured once (derived
+    from the scheduling rules)."""
+    env = dict(os.environ, NUMBA_THREADING_LAYER="workqueue")
+    r = subprocess.run([sys.executable, "-c", _FALLBACK_PROBE], capture_output=True, text=True,
+                       env=env, timeout=180)
+    assert r.returncode == 0, r.stderr
+    ok, _, line = r.stdout.partition(" ")
+    assert ok == "True", r.stdout
+    assert "forking failed (TimeoutError" in line and "started by forkserver" in line
