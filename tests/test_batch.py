@@ -12,6 +12,7 @@ import os
 import signal
 import subprocess
 import sys
+import textwrap
 import time
 from pathlib import Path
 
@@ -474,6 +475,17 @@ def test_workers_forked_from_a_warm_process(inputs, reference, tmp_path):
         comparable(read_summary(reference / "summary.csv"))
 
 
+#: Probe code that starts numba's threading layer (a parallel kernel runs once).
+_START_LAYER = """import numba, numpy as np
+@numba.njit(parallel=True)
+def total(a):
+    s = 0.0
+    for i in numba.prange(a.size):
+        s += a[i]
+    return s
+total(np.ones(1000))
+"""
+
 _FORK_PROBE = """
 import sys
 import numba
@@ -481,15 +493,7 @@ from sheetview.batch import _fork_context
 if sys.argv[3] == "program":
     sys.argv[0] = "/usr/local/bin/sheetview"  # as when the sheetview script runs
 if sys.argv[1] == "started":
-    @numba.njit(parallel=True)
-    def total(a):
-        s = 0.0
-        for i in numba.prange(a.size):
-            s += a[i]
-        return s
-    import numpy as np
-    total(np.ones(1000))
-ctx = _fork_context(choose_layer=sys.argv[2] == "choose")
+""" + textwrap.indent(_START_LAYER, "    ") + """ctx = _fork_context(choose_layer=sys.argv[2] == "choose")
 try:
     layer = numba.threading_layer()
 except ValueError:
@@ -565,15 +569,7 @@ _FALLBACK_PROBE = """
 import os, sys, time
 import numba, numpy as np
 import sheetview.batch as B
-
-@numba.njit(parallel=True)
-def total(a):
-    s = 0.0
-    for i in numba.prange(a.size):
-        s += a[i]
-    return s
-total(np.ones(100))              # the workqueue layer (from the environment) runs
-assert numba.threading_layer() == "workqueue"
+""" + _START_LAYER + """assert numba.threading_layer() == "workqueue"   # from the environment
 
 def slow_init(*a):               # a forked worker that hangs at start
     time.sleep(30)

@@ -58,7 +58,7 @@ import numpy as np
 from ..domain import Domain, bounding_box, domain_from_dict
 from ..errors import InputError, OptionError, SheetviewError
 from ..structure import DEFAULT_SPACING_NM, KNOWN_COLUMNS, Structure, SurfaceBody, with_inferred_domain
-from .output import atomic_path
+from .output import atomic_path, json_default
 from .prisms import UNITS, unit_factor
 
 VTK_SUFFIXES = {".vtk", ".vtp", ".vtu"}
@@ -514,7 +514,7 @@ def _header_json(header: dict) -> str:
     """The header as one line of ASCII JSON. Inside its strings, ``end_header`` and
     ``texturefile`` are written with one JSON ``\\u`` escape (same value), so that PLY
     readers that look for those words anywhere in a header line are not misled."""
-    text = json.dumps(header, default=_json_default, ensure_ascii=True)
+    text = json.dumps(header, default=json_default, ensure_ascii=True)
     text = re.sub(r"(?i)(end)_(header)", lambda m: m.group(1) + "\\u005f" + m.group(2), text)
     return re.sub(r"(?i)(texturefil)(e)", lambda m: m.group(1) + "\\u%04x" % ord(m.group(2)), text)
 
@@ -720,13 +720,6 @@ def write_vtk_xml(dataset, fname) -> None:
         raise SheetviewError(f"VTK could not write the file: "
                              f"{_short(errors[0]) if errors else 'unknown error'}", path=fname)
 
-
-def _json_default(o):
-    if isinstance(o, np.generic):
-        return o.item()
-    if isinstance(o, np.ndarray):
-        return o.tolist()
-    return str(o)
 
 
 BODY_SUFFIXES = {".stl", ".ply", ".obj", ".off", ".glb", ".vtp", ".vtk"}

@@ -66,3 +66,14 @@ def _umask() -> int:
     mask = os.umask(0)
     os.umask(mask)
     return mask
+
+
+def json_default(o):
+    """``json.dumps`` fallback for metadata written into files: numpy scalars and arrays as
+    numbers and lists, anything else as its text."""
+    import numpy as np
+    if isinstance(o, np.generic):
+        return o.item()
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    return str(o)

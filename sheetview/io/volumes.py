@@ -53,7 +53,7 @@ import numpy as np
 
 from ..errors import InputError, MemoryLimitError, OptionError
 from ..grid import PHASE_ALIASES, PHASE_NAMES, PhaseGrid
-from .output import atomic_path
+from .output import atomic_path, json_default
 from .prisms import unit_factor
 
 MARKER = "sheetview phase codes v1"
@@ -633,16 +633,9 @@ def _marker(grid: PhaseGrid) -> dict:
         mk["names"] = {str(k): v for k, v in grid.names.items()}
     meta = {k: v for k, v in dict(grid.metadata or {}).items() if k != "source_format"}
     if meta:  # JSON-ready: numpy scalars and arrays as numbers and lists, the rest as text
-        mk["metadata"] = json.loads(json.dumps(meta, default=_json_default))
+        mk["metadata"] = json.loads(json.dumps(meta, default=json_default))
     return mk
 
-
-def _json_default(o):
-    if isinstance(o, np.generic):
-        return o.item()
-    if isinstance(o, np.ndarray):
-        return o.tolist()
-    return str(o)
 
 
 def _fraction_to_write(grid: PhaseGrid, shape, path):
