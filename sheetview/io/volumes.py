@@ -37,7 +37,8 @@ Writers (:func:`write_volume`)
 ``.npy`` (uint8 ``[i, j, k]``; the marker with spacing and origin sits in a comment of
 the NPY header, which NumPy ignores) and ``.tif``/``.tiff`` (ImageJ hyperstack, one page
 per z slice, ``unit=nm``, ``spacing`` = z voxel size, X/Y resolution). All three read
-back exactly (labels, spacing, origin). ``PhaseGrid.solid_fraction`` (float32, when
+back exactly (labels, spacing, origin, and the grid's metadata; in NPY only while the
+header stays short). ``PhaseGrid.solid_fraction`` (float32, when
 present) travels in ``.vti`` only, as a second cell array ``solid_fraction`` named by the
 marker, and reads back bit for bit; NPY and TIFF hold the labels only (one array per file,
 and no second-file convention).
@@ -635,7 +636,6 @@ def _marker(grid: PhaseGrid) -> dict:
     if meta:  # JSON-ready: numpy scalars and arrays as numbers and lists, the rest as text
         mk["metadata"] = json.loads(json.dumps(meta, default=json_default))
     return mk
-
 
 
 def _fraction_to_write(grid: PhaseGrid, shape, path):
