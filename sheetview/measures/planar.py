@@ -310,6 +310,17 @@ def _bilinear(F, x, y):
             + (F[yb, xa] * (1.0 - fx) + F[yb, xb] * fx) * fy)
 
 
+@numba.njit(cache=True, inline="always")
+def _end_segment(tend, cstart, state, seg0, seg_first, i, base, o_len, o_ph, o_cut, o_seg):
+    """Close a valid segment of a line at ``tend``: its last chord (index ``i``), cut by the
+    segment's end, and the segment's length for each of its chords (from ``seg_first``)."""
+    o_len[i] = tend - cstart
+    o_ph[i] = state
+    o_cut[i] = True
+    for q in range(base + seg_first, i + 1):
+        o_seg[q] = tend - seg0
+
+
 @numba.njit(cache=True)
 def _trace_line(F, V, ox, oy, ux, uy, t0, t1, step, tau, write, o_len, o_ph, o_cut, o_seg,
                 base):
@@ -341,13 +352,9 @@ def _trace_line(F, V, ox, oy, ux, uy, t0, t1, step, tau, write, o_len, o_ph, o_c
         ok = V[iy, ix]
         if not ok:
             if in_valid:
-                tb = 0.5 * (pt + t)
                 if write:
-                    o_len[base + nout] = tb - cstart
-                    o_ph[base + nout] = state
-                    o_cut[base + nout] = True
-                    for q in range(seg_first, nout + 1):
-                        o_seg[base + q] = tb - seg0
+                    _end_segment(0.5 * (pt + t), cstart, state, seg0, seg_first,
+                                 base + nout, base, o_len, o_ph, o_cut, o_seg)
                 nout += 1
                 in_valid = False
             pt = t
@@ -381,11 +388,8 @@ def _trace_line(F, V, ox, oy, ux, uy, t0, t1, step, tau, write, o_len, o_ph, o_c
         pt = t
     if in_valid:
         if write:
-            o_len[base + nout] = t1 - cstart
-            o_ph[base + nout] = state
-            o_cut[base + nout] = True
-            for q in range(seg_first, nout + 1):
-                o_seg[base + q] = t1 - seg0
+            _end_segment(t1, cstart, state, seg0, seg_first, base + nout, base, o_len, o_ph,
+                         o_cut, o_seg)
         nout += 1
     return nout
 
