@@ -163,9 +163,9 @@ def overview_figure(mg, desc):
     ax3 = fig.add_subplot(gs[1, 2])
     s2 = desc.s2
     ax3.plot(s2.r, s2.s2, color=colours["solid"], lw=1.5)
-    ax3.axhline(s2.phi ** 2, color="grey", lw=0.8, ls="--", label="phi^2")
+    ax3.axhline(s2.phi ** 2, color="grey", lw=0.8, ls="--", label="φ²")
     ax3.set_xlabel("r (nm)")
-    ax3.set_ylabel("S2(r), solid")
+    ax3.set_ylabel("S₂(r), solid")
     ax3.set_title("two-point probability", fontsize=9)
     ax3.legend(fontsize=7, frameon=False)
     # orientation
