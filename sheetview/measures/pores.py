@@ -1295,6 +1295,15 @@ def _diameter_stats(d, nch):
     return cnt[:, 0].sum(), cnt[:, 1].sum(), tot.sum(), lo_.min(), hi_.max()
 
 
+@numba.njit(cache=True, inline="always")
+def _fine_index(v, vmin, scale, nfine):
+    """Fine bin of value ``v``: ``floor((v - vmin) * scale)`` clamped to ``[0, nfine)``,
+    monotone in ``v``. Every pass over the map places values with this one function."""
+    x = (v - vmin) * scale
+    f = int(x) if x < nfine else nfine - 1
+    return f if f > 0 else 0
+
+
 def _fine_to_coarse(edges, vmin, scale, nfine):
     """For each fine bin (``floor((v - vmin) * scale)``), the histogram bin of ``edges``
     that holds all of it, or -1 below the first edge, -2 above the last, -3 when it may
@@ -1336,10 +1345,7 @@ def _diameter_hist(d, edges, vmin, scale, nfine, coarse, nch):
             v = np.float64(d[i])
             if not (np.isfinite(v) and v > 0):
                 continue
-            x = (v - vmin) * scale
-            f = int(x) if x < nfine else nfine - 1
-            if f < 0:
-                f = 0
+            f = _fine_index(v, vmin, scale, nfine)
             fine[c, f] += 1
             k = coarse[f]
             if k >= 0:
@@ -1385,11 +1391,7 @@ def _fine_bin_values(d, vmin, scale, nfine, targets, sizes):
     for i in range(d.size):
         v = np.float64(d[i])
         if np.isfinite(v) and v > 0:
-            x = (v - vmin) * scale
-            f = int(x) if x < nfine else nfine - 1
-            if f < 0:
-                f = 0
-            t = slot[f]
+            t = slot[_fine_index(v, vmin, scale, nfine)]
             if t >= 0:
                 out[pos[t]] = v
                 pos[t] += 1
@@ -1462,9 +1464,6 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
         d = d.astype(np.float64)
     flat = d.reshape(-1)  # a view of a contiguous map
     nch = max(1, min(flat.size // 65536 + 1, 16 * numba.get_num_threads()))
-    nb_guess = bins if isinstance(bins, (int, np.integer)) else np.size(bins)
-    if nb_guess > 4096:  # per-chunk tables of many bins: fewer chunks
-        nch = max(1, min(nch, numba.get_num_threads()))
     n_phase, n_pos, vsum, vmin, vmax = _diameter_stats(flat, nch)
     n_phase, n_pos = int(n_phase), int(n_pos)
     sp = np.broadcast_to(np.asarray(voxel_size, dtype=float), (3,))
@@ -1479,7 +1478,9 @@ def size_distribution(diameter, *, bins="log", voxel_size=(1.0, 1.0, 1.0),
     v0 = float(vmin) if n_pos else 0.0
     coarse = (_fine_to_coarse(edges, v0, scale, nfine) if scale > 0
               else np.full(nfine, -3, np.int64))
-    counts, fine, n_below, n_last = _diameter_hist(flat, edges, v0, scale, nfine, coarse, nch)
+    # per-chunk tables of many bins: fewer chunks
+    nch_h = nch if edges.size <= 4097 else max(1, min(nch, numba.get_num_threads()))
+    counts, fine, n_below, n_last = _diameter_hist(flat, edges, v0, scale, nfine, coarse, nch_h)
     total = max(n_pos, 1)
     frac = counts / total
     width = np.diff(np.log(edges)) if log_bins else np.diff(edges)
