@@ -418,18 +418,20 @@ def test_batch_option_errors_like_measure(inputs, tmp_path, args, msg):
 def _fake_task(path, folder, settings, read_kw, only, plots, threads, at=None):
     """Stands in for measure_one. In the worker process: the first structure is done,
     the second kills the process (as the OOM killer would). In the calling process: wait
-    until the worker has done its first, so that it is sure to get a second."""
+    until the worker has taken its second, so that the calling process cannot take every
+    remaining structure first (its own tasks are instant)."""
     import os as _os
     import time as _time
     here = Path(folder).parent
     if _os.getpid() != settings["parent"]:
         marker = here / f"worker-{_os.getpid()}"
         if marker.exists():
+            (here / f"dying-{_os.getpid()}").write_text("")
             _os._exit(3)
         marker.write_text("")
     else:
         t0 = _time.time()
-        while not list(here.glob("worker-*")) and _time.time() - t0 < 60:
+        while not list(here.glob("dying-*")) and _time.time() - t0 < 60:
             _time.sleep(0.01)
     return {"status": "ok", "error": None, "seconds": 0.0, "write_seconds": 0.0,
             "pid": _os.getpid(), "threads": threads}
