@@ -17,6 +17,8 @@ import numpy as np
 
 from .errors import OptionError
 from .grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
+from .material import (DEFAULT_DENSITY, DEFAULT_FORMULA, DEFAULT_WATER_DENSITY, MASS_BASIS,
+                       Hydrate)
 from .structure import Structure, SurfaceBody
 
 #: Settings of a measure run and their defaults (lengths nm, angles degrees).
@@ -27,9 +29,11 @@ DEFAULTS = {
     "local_radius": 5.0, "frame": "z",
     # phase grid
     "voxel": None, "max_memory": None,
-    # surfaces: C-S-H solid density, Muller, Scrivener, Gajewicz & McDonald,
-    # J. Phys. Chem. C 117 (2013) 403
-    "density": 2.73,
+    # the material model (sheetview.material): C-S-H composition and density with its
+    # interlayer water, Allen, Thomas & Jennings, Nature Materials 6 (2007) 311; the
+    # water density of interlayer and gel water (bulk water at 25 C, from memory)
+    "composition": DEFAULT_FORMULA, "density": DEFAULT_DENSITY,
+    "water_density": DEFAULT_WATER_DENSITY,
     # pore sizes: thresholds (nm) splitting the gel pores by local thickness
     "pore_split": (), "intrusion": False,
     # chords
@@ -87,6 +91,15 @@ class Context:
             m = REGISTRY[name]
             self.results[name] = m.function(self)
         return self.results[name]
+
+    @cached_property
+    def hydrate(self) -> Hydrate:
+        """The material model of the run (composition, density, water density)."""
+        s = self.settings
+        source = ("Allen, Thomas & Jennings, Nature Materials 6 (2007) 311"
+                  if (s["composition"], s["density"]) == (DEFAULT_FORMULA, DEFAULT_DENSITY)
+                  else "given by the user")
+        return Hydrate(s["composition"], s["density"], s["water_density"], source)
 
     def stacking_kwargs(self) -> dict:
         return {k: self.settings[k] for k in ("angle_tol", "gap_tol", "overlap", "tilt_limit",
@@ -187,35 +200,19 @@ def run_phases(ctx: Context):
     from .measures.phases import volume_fractions
     dom = ctx.domain
     exact = float(dom.volume) if dom is not None and not getattr(dom, "inferred", False) else None
-    return ctx.stage("volume fractions", volume_fractions, ctx.grid, exact)
+    return ctx.stage("volume fractions", volume_fractions, ctx.grid, exact, hydrate=ctx.hydrate)
 
 
 def run_surface(ctx: Context):
-    from .measures.surface import interface_area, minkowski_functionals, surfaces
+    from .measures.surface import minkowski_functionals, pore_codes, surfaces
     g = ctx.grid
-    base = ctx.stage("surfaces", surfaces, g, ctx.settings["density"])
-    extra = [c for c in ctx.pore_codes if c != GEL]
-    figures = {}
-    if extra:
-        # size classes split from the gel pores: their own interfaces and S/V
-        counts = np.bincount(g.labels.ravel(), minlength=256)
-        for c in extra:
-            name = g.names[c]
-            a = interface_area(g, SOLID, c)
-            base.areas[f"solid-{name}"] = a
-            base.volumes[name] = float(counts[c] * g.voxel_volume)
-            base.s_over_v[name] = a / base.volumes[name] if base.volumes[name] > 0 else float("nan")
-        base.areas["solid-gel"] = sum(base.areas[f"solid-{g.names[c]}"] for c in ctx.pore_codes)
-    pore_area = base.areas.get("solid-interlayer", 0.0) + base.areas.get("solid-gel", 0.0)
-    inside = float(np.count_nonzero(g.labels != OUTSIDE) * g.voxel_volume)
-    figures["solid_void_area_nm2"] = pore_area
-    figures["specific_surface_per_domain_volume_nm-1"] = pore_area / inside if inside else None
+    base = ctx.stage("surfaces", surfaces, g, ctx.hydrate)
     solid = ctx.stage("Minkowski functionals", minkowski_functionals, g.labels == SOLID,
-                      g.spacing, g.periodic)
+                      g.spacing, g.periodic, reference_volume=base.domain_volume)
     pores = ctx.stage("Minkowski functionals", minkowski_functionals,
-                      np.isin(g.labels, ctx.pore_codes), g.spacing, g.periodic)
-    return Bundle({"interfaces": base, "minkowski_solid": solid, "minkowski_gel": pores},
-                  figures)
+                      np.isin(g.labels, pore_codes(g)), g.spacing, g.periodic,
+                      reference_volume=base.domain_volume)
+    return Bundle({"interfaces": base, "minkowski_solid": solid, "minkowski_pore": pores})
 
 
 def run_pores(ctx: Context):
@@ -275,7 +272,7 @@ def run_chords(ctx: Context):
         vols = sur.parts["interfaces"].volumes
         vs = vols.get("solid", 0.0)
         vp = sum(v for k, v in vols.items() if k != "solid")
-        a_sp = sur.figures["solid_void_area_nm2"]
+        a_sp = sur.parts["interfaces"].pore_area
         a_so = a.get("solid-outside", 0.0)
         from .measures.surface import interface_areas_with
         a_po = 0.0
@@ -303,20 +300,31 @@ def run_correlation(ctx: Context):
 
 def run_scattering(ctx: Context):
     """Predicted SANS curve of the base phase grid with the default contrast: neutrons,
-    the C-S-H preset solid (Allen, Thomas & Jennings 2007) in H2O, interlayer water as
-    pore fluid, outside as pore fluid (``sheetview scatter`` sets other contrasts)."""
+    the sheets with the layer SLD of the material model (:mod:`sheetview.material`: the
+    hydrate less its interlayer water), interlayer and gel water and the outside as H2O
+    (``sheetview scatter`` sets other contrasts)."""
     from .measures.scattering import (ScatteringMeasure, curve_features, phase_slds,
                                       scattering_curve)
-    from .sld import PRESETS, preset_sld, sld
+    from .material import interlayer_share
+    from .sld import preset_sld
     g = ctx.base_grid
-    solid = sld(*PRESETS["csh"], probe="neutron")
-    slds = phase_slds(solid, preset_sld("h2o", "neutron"))
+    counts = np.bincount(g.labels.ravel(), minlength=256)
+    split = ctx.hydrate.split(interlayer_share({"solid": counts[SOLID],
+                                                "interlayer": counts[INTERLAYER]}))
+    slds = phase_slds(split.layer_sld("neutron"), preset_sld("h2o", "neutron"))
     res = ctx.stage("scattering curve", scattering_curve, g, slds,
                     max_memory=ctx.settings["max_memory"])
-    phi = float(np.count_nonzero(g.labels == SOLID) / g.labels.size)
+    phi = float(counts[SOLID] / g.labels.size)
     feats = ctx.stage("scattering features", curve_features, res, phi)
-    return ScatteringMeasure(res, feats, "neutron",
-                             f"C-S-H {PRESETS['csh'][0]} at {PRESETS['csh'][1]} g/cm3", "h2o")
+    return ScatteringMeasure(res, feats, "neutron", describe_sheets(split), "h2o")
+
+
+def describe_sheets(split) -> str:
+    """How the sheets' SLD was obtained, for figures and JSON."""
+    h = split.hydrate
+    return (f"sheets = {h.formula} at {h.density:g} g/cm3 less its interlayer water "
+            f"({100 * split.interlayer_share:.1f} % of the C-S-H volume): layer density "
+            f"{split.layer_density:.4g} g/cm3")
 
 
 def run_relaxation(ctx: Context):
@@ -367,9 +375,13 @@ def summary(ctx: Context) -> dict:
     if "phases" in r:
         out["volume_fractions"] = dict(r["phases"].fractions)
     if "surface" in r:
-        out["specific_surface_nm-1"] = r["surface"].figures["specific_surface_per_domain_volume_nm-1"]
-        out["specific_surface_m2_per_g"] = _finite(
-            r["surface"].parts["interfaces"].specific_surface_m2_per_g)
+        sf = r["surface"].parts["interfaces"]
+        out["specific_surface_nm-1"] = _finite(sf.specific_surface_per_domain_volume)
+        out["specific_surface_m2_per_g"] = _finite(sf.specific_surface_m2_per_g)
+        out["specific_surface_basis"] = {
+            "nm-1": "solid area facing every pore class (interlayer and gel) per domain volume",
+            "m2_per_g": f"the same area per {MASS_BASIS}: {ctx.hydrate.formula} at "
+                        f"{ctx.hydrate.density:g} g/cm3 ({ctx.hydrate.source})"}
     if "chords" in r:
         f = r["chords"].figures
         out["chords"] = {k: f.get(k) for k in ("solid_mean_nm", "pore_mean_nm", "source")}

@@ -15,8 +15,10 @@ Folder layout (files appear only for the measures that ran)::
     pole_figure.csv              Lambert equal-area grid: density in multiples of uniform
     pole_figure.png, order.png   pole figure; local-order and polar-angle histograms
     phase_fractions.csv          volume fraction and volume of each phase class
-    interfaces.csv               interface areas (solid-interlayer, solid-gel, solid-outside)
-    minkowski.csv                Minkowski functionals of the solid and of the gel pores
+    interfaces.csv               solid interface areas per pore class, with the domain wall, and
+                                 their total over the pore classes
+    minkowski.csv                Minkowski functionals of the solid and of the pore space,
+                                 densities per domain volume
     pore_sizes_local_thickness.csv, pore_sizes_intrusion.csv, pore_sizes.png
     chords_solid.csv, chords_pore.csv, chords.png
     s2_solid.csv, s2_solid.png   two-point correlation of the solid
@@ -37,6 +39,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import OutputExistsError, SheetviewError
+from .grid import GEL, INTERLAYER, SOLID
 from .io.output import atomic_path
 
 
@@ -341,8 +344,7 @@ def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
     sur = results.get("surface")
     if sur is not None:
         itf = sur.parts["interfaces"]
-        written.append(write_csv(out / "interfaces.csv", {
-            "interface": list(itf.areas), "area_nm2": list(itf.areas.values())}))
+        written.append(write_csv(out / "interfaces.csv", itf.table()))
         mk = {k: v.to_dict() for k, v in sur.parts.items() if k.startswith("minkowski")}
         keys = sorted({kk for d in mk.values() for kk, vv in d.items()
                        if isinstance(vv, (int, float)) and not isinstance(vv, bool)})
@@ -512,7 +514,7 @@ def plot_s2(cor, path, force=False):
 
 def plot_sections(grid, path, force=False):
     """Three orthogonal central sections of the phase grid, with a scale bar."""
-    from .view import PHASE_COLOURS, PHASE_LABELS, section_rgb
+    from .view import PHASE_COLOURS, SECTION_ORDER, phase_label, section_rgb
     plt = _pyplot()
     lab = grid.labels
     sp = grid.spacing
@@ -532,7 +534,9 @@ def plot_sections(grid, path, force=False):
         a.set_xlabel("xyz"[u] + " (nm)")
         a.set_ylabel("xyz"[v] + " (nm)")
     from matplotlib.patches import Patch
-    handles = [Patch(color=PHASE_COLOURS[c], label=PHASE_LABELS[c]) for c in PHASE_COLOURS]
+    present = set(np.flatnonzero(np.bincount(lab.ravel(), minlength=256)).tolist())
+    shown = [c for c in SECTION_ORDER if c in present or c in (SOLID, INTERLAYER, GEL)]
+    handles = [Patch(color=PHASE_COLOURS[c], label=phase_label(c, grid.names)) for c in shown]
     fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=8, frameon=False)
     fig.tight_layout(rect=(0, 0.07, 1, 1))
     _savefig(fig, path, force)

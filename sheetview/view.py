@@ -42,11 +42,26 @@ PHASE_COLOURS = {
     INTERLAYER: "#a58fd0",  # lavender: apart from the orange of the stack palette
     GEL: "#9fd3f0",
     OUTSIDE: "#d9d9d9",
+    # pore size classes split from the gel pores (codes 4, 5, 6: larger pores, deeper blue)
+    GEL + 1: "#5aa9d6",
+    GEL + 2: "#2c72b0",
+    GEL + 3: "#1d4677",
 }
 PHASE_LABELS = {SOLID: "solid", INTERLAYER: "interlayer", GEL: "gel pore",
                 OUTSIDE: "outside the domain"}
 #: Drawing order of phases in legends and their toggle keys.
 PHASE_ORDER = (SOLID, INTERLAYER, GEL, OUTSIDE)
+#: Drawing order of every phase a section can show (size classes after the gel pores).
+SECTION_ORDER = (SOLID, INTERLAYER, GEL, GEL + 1, GEL + 2, GEL + 3, OUTSIDE)
+
+
+def phase_label(code: int, names: dict | None = None) -> str:
+    """Legend text of a phase code: the fixed labels, else the grid's name of a size class
+    ("interhydrate pore")."""
+    if code in PHASE_LABELS and (names is None or code != GEL or names.get(GEL) == "gel"):
+        return PHASE_LABELS[code]
+    name = (names or {}).get(code, f"phase {code}")
+    return f"{name} pore"
 
 #: Qualitative palette for stacks and tags: the colour-blind-safe set of Okabe & Ito
 #: (Color Universal Design, 2008) without its black, cycled when there are more groups.
@@ -481,7 +496,7 @@ def sample_section(grid, origin, normal, *, pixel: float | None = None,
     return Section(labels, o, n, u, v, u0, v0, px)
 
 
-def section_rgb(labels: np.ndarray, visible=PHASE_ORDER, background=BACKGROUND) -> np.ndarray:
+def section_rgb(labels: np.ndarray, visible=SECTION_ORDER, background=BACKGROUND) -> np.ndarray:
     """RGB uint8 image of a label array (hidden phases and off-grid in ``background``)."""
     lut = np.tile(_rgb8(background), (256, 1))
     for code in visible:

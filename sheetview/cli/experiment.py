@@ -64,13 +64,23 @@ def _grid_of(obj, voxel, max_memory=None):
     return ctx, ctx.grid
 
 
-def _solid_sld(formula, density, probe):
-    from ..sld import PRESETS, sld
-    if formula is None and density is None:
-        return sld(*PRESETS["csh"], probe=probe), f"C-S-H {PRESETS['csh'][0]} at {PRESETS['csh'][1]} g/cm3"
-    if formula is None or density is None:
-        raise OptionError("give --solid-formula and --solid-density together")
-    return sld(formula, density, probe=probe), f"{formula} at {density:g} g/cm3"
+def _solid_sld(formula, density, probe, grid, interlayer_contrast=True):
+    """SLD of the sheets from the material model: the hydrate (default or given) less the
+    interlayer water the grid resolves; the whole hydrate's SLD when the interlayer is not
+    contrasted (sheets and interlayer water as one particle)."""
+    from ..grid import INTERLAYER, SOLID
+    from ..material import DEFAULT_DENSITY, DEFAULT_FORMULA, Hydrate, interlayer_share
+    from ..pipeline import describe_sheets
+    given = formula is not None or density is not None
+    h = Hydrate(DEFAULT_FORMULA if formula is None else formula,
+                DEFAULT_DENSITY if density is None else density,
+                source="given by the user" if given else
+                "Allen, Thomas & Jennings, Nature Materials 6 (2007) 311")
+    counts = np.bincount(grid.labels.ravel(), minlength=256)
+    split = h.split(interlayer_share({"solid": counts[SOLID], "interlayer": counts[INTERLAYER]}))
+    if not interlayer_contrast:
+        return split.hydrate_sld(probe), f"sheets and interlayer water = {h.formula} at {h.density:g} g/cm3"
+    return split.layer_sld(probe), describe_sheets(split)
 
 
 @click.command()
@@ -82,8 +92,11 @@ def _solid_sld(formula, density, probe):
 @click.option("--fluid", default="h2o", show_default=True,
               help="Pore fluid: h2o, d2o, or a D2O volume fraction (0.3 or 30%).")
 @click.option("--solid-formula", default=None,
-              help="Solid composition, e.g. '(CaO)1.7(SiO2)(H2O)1.8' (default C-S-H).")
-@click.option("--solid-density", type=float, default=None, help="Solid density (g/cm3).")
+              help="C-S-H composition with its interlayer water, e.g. '(CaO)1.7(SiO2)(H2O)1.8' "
+                   "(the default, Allen et al. 2007); the sheets get it less the interlayer "
+                   "water the grid resolves.")
+@click.option("--solid-density", type=float, default=None,
+              help="Density (g/cm3) of that composition (default 2.604, Allen et al. 2007).")
 @click.option("--no-interlayer-contrast", is_flag=True,
               help="Give the interlayer the solid's SLD (sheets and interlayer as one particle).")
 @click.option("--pad", type=int, default=2, show_default=True,
@@ -123,7 +136,8 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
     echo_moment(moment)
     _, grid = _grid_of(obj, voxel, mem)
-    s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe)
+    s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe, grid,
+                               not no_interlayer_contrast)
     f_sld = preset_sld(fluid, probe)
     slds = phase_slds(s_sld, f_sld, interlayer_contrast=not no_interlayer_contrast)
     res = scattering_curve(grid, slds, pad=pad, window=None if window == "none" else window,

@@ -27,7 +27,8 @@ def _as_cli_error(e: OptionError, source=None) -> OptionError:
 #: in the order of :func:`measure_settings` (every one changes a number of the results,
 #: except ``max_memory``, which only decides whether a grid may be built).
 SETTINGS = ("voxel", "max_memory", "angle_tol", "gap_tol", "overlap", "tilt_limit",
-            "local_radius", "frame", "density", "pore_split", "intrusion", "lines", "seed")
+            "local_radius", "frame", "composition", "density", "water_density", "pore_split",
+            "intrusion", "lines", "seed")
 
 #: Settings that change no number (only whether a run fits in memory): left out of the
 #: batch result key, so a rerun with another limit keeps its finished results.
@@ -68,10 +69,18 @@ def measure_options(f):
         click.option("--frame", type=click.Choice(["z", "director"]), default=d["frame"],
                      show_default=True,
                      help="Reference axis of the orientation histogram and pole figure."),
+        click.option("--composition", default=d["composition"], show_default=True,
+                     metavar="FORMULA",
+                     help="C-S-H composition with its interlayer water (Allen, Thomas & "
+                          "Jennings 2007): the material model that gives the mass of the "
+                          "specific surface, the sheets' SLD and the water of each class."),
         click.option("--density", type=float, default=d["density"], show_default=True,
                      metavar="G/CM3",
-                     help="Solid density for the specific surface per mass (C-S-H, Muller et "
-                          "al. 2013)."),
+                     help="Density of that composition with its interlayer water, without "
+                          "gel water (2.604 Allen et al. 2007; Muller et al. 2013 give 2.73)."),
+        click.option("--water-density", type=float, default=d["water_density"],
+                     show_default=True, metavar="G/CM3",
+                     help="Density of the interlayer and gel-pore water."),
         click.option("--pore-split", default=None, metavar="NM,NM",
                      help="Split the gel pores by local thickness at these diameters into gel, "
                           "interhydrate, capillary classes (e.g. 5,20)."),
@@ -92,7 +101,9 @@ def measure_options(f):
 def measure_settings(voxel=None, max_memory=None, angle_tol=DEFAULTS["angle_tol"],
                      gap_tol=DEFAULTS["gap_tol"], overlap=DEFAULTS["overlap"],
                      tilt_limit=DEFAULTS["tilt_limit"], local_radius=DEFAULTS["local_radius"],
-                     frame=DEFAULTS["frame"], density=DEFAULTS["density"], pore_split=None,
+                     frame=DEFAULTS["frame"], composition=DEFAULTS["composition"],
+                     density=DEFAULTS["density"], water_density=DEFAULTS["water_density"],
+                     pore_split=None,
                      intrusion=DEFAULTS["intrusion"], lines=DEFAULTS["lines"],
                      seed=DEFAULTS["seed"], *, spacing=None) -> dict:
     """Check the measure options and build the settings of a measure run.
@@ -121,8 +132,15 @@ def measure_settings(voxel=None, max_memory=None, angle_tol=DEFAULTS["angle_tol"
         raise OptionError(f"--frame: must be z or director, got {frame!r}")
     if voxel is not None and not (math.isfinite(voxel) and voxel >= 0.01):
         raise OptionError(f"--voxel: must be at least 0.01 nm, got {voxel}")
-    if not (math.isfinite(density) and density > 0):
-        raise OptionError(f"--density: must be a positive number of g/cm^3, got {density}")
+    water_density = _number("--water-density", water_density)
+    for opt, v in (("--density", density), ("--water-density", water_density)):
+        if not (math.isfinite(v) and v > 0):
+            raise OptionError(f"{opt}: must be a positive number of g/cm^3, got {v}")
+    from ..material import Hydrate
+    try:
+        Hydrate(composition, density, water_density)
+    except OptionError as e:
+        raise OptionError(f"--composition: {e.detail}") from None
     if not 1 <= lines <= 10_000_000:
         raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
     if pore_split is None or isinstance(pore_split, str):
@@ -144,7 +162,8 @@ def measure_settings(voxel=None, max_memory=None, angle_tol=DEFAULTS["angle_tol"
             "max_memory": parse_size(max_memory),
             "angle_tol": float(angle_tol), "gap_tol": float(gap_tol), "overlap": float(overlap),
             "tilt_limit": float(tilt_limit), "local_radius": float(local_radius),
-            "frame": frame, "density": float(density), "pore_split": split,
+            "frame": frame, "composition": str(composition), "density": float(density),
+            "water_density": float(water_density), "pore_split": split,
             "intrusion": bool(intrusion), "lines": int(lines), "seed": int(seed)}
 
 
@@ -233,9 +252,13 @@ def _print_summary(doc):
              + ", ".join(f"{k} {100 * v:.2f}%" for k, v in vf.items()))
     if doc.get("specific_surface_nm-1") is not None:
         ssa = doc.get("specific_surface_m2_per_g")
-        echo(f"  solid-void surface per domain volume: {doc['specific_surface_nm-1']:.4g} nm^-1"
-             + (f"; per solid mass {ssa:.4g} m^2/g (density {doc['settings']['density']} g/cm^3)"
-                if ssa is not None else ""))
+        st = doc["settings"]
+        echo(f"  solid-pore surface per domain volume: {doc['specific_surface_nm-1']:.4g} nm^-1"
+             + (f"; {ssa:.4g} m^2/g of C-S-H (sheets + interlayer water as "
+                f"{st['composition']} at {st['density']:g} g/cm^3)" if ssa is not None else ""))
+        mat = (doc.get("surface") or {}).get("interfaces", {}).get("material", {})
+        for note in mat.get("notes", []):
+            echo(f"  note: {note}")
     ps = doc.get("pore_size")
     if ps and ps.get("d50_nm") is not None:
         line = (f"  gel pore size (local thickness): d10 {ps['d10_nm']:.3g}, d50 {ps['d50_nm']:.3g}, "
@@ -277,9 +300,7 @@ def _print_summary(doc):
 @click.option("-q", "--quiet", is_flag=True, help="No progress messages on stderr.")
 @at_options
 @read_options
-def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, gap_tol, overlap,
-            tilt_limit, local_radius, frame, density, pore_split, intrusion, lines, seed,
-            no_plots, quiet, at_progress, at_time, **read_kw):
+def measure(file, only, as_json, outdir, force, no_plots, quiet, at_progress, at_time, **kw):
     """Measure FILE: stacks, orientation order, phase fractions, surfaces, pore sizes,
     chords and the two-point correlation.
 
@@ -291,9 +312,9 @@ def measure(file, only, as_json, outdir, force, voxel, max_memory, angle_tol, ga
     from .. import measures
 
     # check options before reading (the file's spacing is checked again below)
-    settings = measure_settings(voxel, max_memory, angle_tol, gap_tol, overlap, tilt_limit,
-                                local_radius, frame, density, pore_split, intrusion, lines,
-                                seed, spacing=read_kw.get("spacing"))
+    opts = {k: kw.pop(k) for k in SETTINGS}
+    read_kw = kw
+    settings = measure_settings(**opts, spacing=read_kw.get("spacing"))
     if outdir is not None:
         from ..report import check_folder
         check_folder(outdir, force)

@@ -25,6 +25,7 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, rasterize
+from ..material import Hydrate, MaterialSplit, interlayer_share
 from .stacking import (StackingSettings, clip_polygon_buf, pair_frame, plane_basis,
                        stacking_graph)
 
@@ -206,16 +207,20 @@ def classify(structure, voxel_size=None, *, graph=None, settings: StackingSettin
 
 @dataclass
 class PhaseFractions:
-    """Volume fractions of the phase classes.
+    """Volume fractions of the phase classes, and the water they hold.
 
     Attributes
     ----------
     fractions : dict name -> fraction of the domain volume (voxels inside the domain)
     volumes_nm3 : dict name -> volume in nm^3
-    domain_volume_nm3 : volume of the domain voxels (nm^3)
+    domain_volume_nm3 : volume of the domain voxels (nm^3): the reference volume
     domain_volume_exact_nm3 : the domain's exact volume, for comparison (None if unknown)
     void_fraction : fraction of the domain that is not solid
     interlayer_share_of_void : interlayer volume / void volume
+    material : the layer / interlayer-water split of the material model
+        (:class:`sheetview.material.MaterialSplit`)
+    water : class -> {"mass_g", "fraction_of_water"}: structural water of the layers,
+        interlayer water and the water of each gel-pore class (saturated)
     """
 
     fractions: dict
@@ -224,13 +229,21 @@ class PhaseFractions:
     domain_volume_exact_nm3: float | None
     void_fraction: float
     interlayer_share_of_void: float | None
+    material: MaterialSplit | None = None
+    water: dict | None = None
 
     def to_dict(self) -> dict:
-        return {"fractions": dict(self.fractions), "volumes_nm3": dict(self.volumes_nm3),
-                "domain_volume_nm3": self.domain_volume_nm3,
-                "domain_volume_exact_nm3": self.domain_volume_exact_nm3,
-                "void_fraction": self.void_fraction,
-                "interlayer_share_of_void": self.interlayer_share_of_void}
+        d = {"reference": "domain", "fractions": dict(self.fractions),
+             "volumes_nm3": dict(self.volumes_nm3),
+             "domain_volume_nm3": self.domain_volume_nm3,
+             "domain_volume_exact_nm3": self.domain_volume_exact_nm3,
+             "void_fraction": self.void_fraction,
+             "interlayer_share_of_void": self.interlayer_share_of_void}
+        if self.material is not None:
+            d["interlayer_share_of_csh_volume"] = self.material.interlayer_share
+            d["water"] = self.water
+            d["material"] = self.material.to_dict()
+        return d
 
     def table(self) -> dict:
         names = list(self.fractions)
@@ -238,11 +251,16 @@ class PhaseFractions:
                 "volume_nm3": [self.volumes_nm3[n] for n in names]}
 
 
-def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None) -> PhaseFractions:
-    """Volume fraction of each phase class relative to the domain (non-OUTSIDE voxels).
+def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None, *,
+                     hydrate: Hydrate | None = None) -> PhaseFractions:
+    """Volume fraction of each phase class relative to the domain (non-OUTSIDE voxels),
+    and the water of each class from the material model.
 
     Every phase code present other than OUTSIDE is reported, plus zero entries for
-    solid, interlayer and gel when absent.
+    solid, interlayer and gel when absent. ``hydrate`` (default
+    :class:`sheetview.material.Hydrate`, Allen, Thomas & Jennings 2007) splits the C-S-H
+    into layers and interlayer water (:mod:`sheetview.material`); the gel-pore classes are
+    taken as saturated with water of the same density.
     """
     counts = np.bincount(grid.labels.ravel(), minlength=256).astype(np.int64)
     inside = int(counts.sum() - counts[OUTSIDE])
@@ -258,8 +276,9 @@ def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None) -> Pha
         vol[name] = float(counts[c] * vv)
     void = 1.0 - fr.get("solid", 0.0)
     inter = fr.get("interlayer", 0.0)
+    split = (Hydrate() if hydrate is None else hydrate).split(interlayer_share(vol))
     return PhaseFractions(fr, vol, inside * vv, domain_volume, void,
-                          inter / void if void > 0 else None)
+                          inter / void if void > 0 else None, split, split.water(vol))
 
 
 def split_pores_by_size(grid: PhaseGrid, thresholds, thickness: np.ndarray,
