@@ -328,9 +328,9 @@ def describe_sheets(split) -> str:
 
 
 def run_relaxation(ctx: Context):
-    """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the base grid
-    with the default surface relaxivity and bulk T2; gel pores as slits of their local
-    thickness; the interlayer gap from the structure's repeat minus its median thickness
+    """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the phase grid
+    (each size class of ``pore_split`` apart) with the default surface relaxivity and bulk
+    T2; gel pores as slits of their local thickness; the interlayer gap from the structure's repeat minus its median thickness
     (``sheetview relax`` sets other parameters)."""
     from .measures.relaxation import relaxation_spectrum
     width = None
@@ -338,7 +338,7 @@ def run_relaxation(ctx: Context):
     if s is not None and len(s):
         gap = float(s.spacing) - float(np.median(s.thickness))
         width = gap if gap > 0 else None
-    return ctx.stage("T2 distribution", relaxation_spectrum, ctx.base_grid, ctx.pore_thickness,
+    return ctx.stage("T2 distribution", relaxation_spectrum, ctx.grid, ctx.pore_thickness,
                      interlayer_width=width)
 
 
