@@ -372,6 +372,9 @@ def summary(ctx: Context) -> dict:
     if "grid" in ctx.__dict__:
         out["voxel_size_nm"] = float(np.prod(ctx.grid.spacing) ** (1 / 3))
         out["grid_shape"] = list(ctx.grid.shape)
+        vd = ctx.base_grid.metadata.get("voxel_default")
+        if vd is not None:
+            out["voxel_default"] = dict(vd)
     if "phases" in r:
         out["volume_fractions"] = dict(r["phases"].fractions)
     if "surface" in r:

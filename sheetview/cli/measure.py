@@ -245,7 +245,11 @@ def _print_summary(doc):
             echo(f"  note: {note}")
     if "voxel_size_nm" in doc:
         sh = " x ".join(str(v) for v in doc["grid_shape"])
-        echo(f"  phase grid: {sh} voxels of {doc['voxel_size_nm']:.4g} nm")
+        vd = doc.get("voxel_default")
+        echo(f"  phase grid: {sh} voxels of {doc['voxel_size_nm']:.4g} nm"
+             + (f" (default voxel: {vd['rule']})" if vd else ""))
+        if vd and vd.get("note"):
+            echo(f"  note: {vd['note']}")
     vf = doc.get("volume_fractions")
     if vf:
         echo("  volume fractions of the domain: "
