@@ -188,15 +188,25 @@ def default_body_voxel_size(body) -> tuple[float, str]:
                  f"{VOXELS_PER_MEAN_CHORD}")
 
 
+#: A default voxel is coarsened at most this much to fit the memory limit (half the
+#: voxels across the thinnest feature: 3 instead of 6); beyond, the run stops and names
+#: the voxel that would fit.
+MAX_DEFAULT_COARSENING = 2.0
+
+
 def fit_default_voxel(dom, v: float, max_memory=None, *, fraction=False) -> tuple[float, str | None]:
-    """The default voxel ``v``, or the finest coarser voxel whose grid fits in
-    ``max_memory`` (default half the available memory), with a note saying so."""
+    """The default voxel ``v``, or the finest coarser voxel (at most
+    :data:`MAX_DEFAULT_COARSENING` times ``v``) whose grid fits in ``max_memory`` (default
+    half the available memory), with a note saying so; :class:`MemoryLimitError` when even
+    that does not fit."""
     shape = grid_geometry(dom, v)[0]
     need = estimate_grid_bytes(int(np.prod(shape, dtype=np.int64)), fraction=fraction)
     limit = available_memory() // 2 if max_memory is None else int(max_memory)
     if need <= limit:
         return v, None
     fit = _voxel_that_fits(dom, v, need, limit, fraction)
+    if fit > MAX_DEFAULT_COARSENING * v:
+        check_memory(dom, v, shape, max_memory, fraction=fraction)  # raises, naming the fit
     return fit, (f"the default voxel {v:.4g} nm would need {need / 2**30:.2f} GiB, over the "
                  f"memory limit of {limit / 2**30:.2f} GiB: {fit:.4g} nm used instead (give "
                  f"--voxel or --max-memory to choose)")
