@@ -73,9 +73,9 @@ def _positive(v, name, unit):
         x = float(v)
     except (TypeError, ValueError):
         raise OptionError(f"{name} must be a positive number of {unit}, got {v!r}",
-                          field=name) from None
+                          param=name) from None
     if not (math.isfinite(x) and x > 0):
-        raise OptionError(f"{name} must be a positive number of {unit}, got {v!r}", field=name)
+        raise OptionError(f"{name} must be a positive number of {unit}, got {v!r}", param=name)
     return x
 
 
@@ -104,7 +104,7 @@ class Hydrate:
                            _positive(self.water_density, "water_density", "g/cm3"))
         if atoms.get("H", 0.0) <= 0 or atoms.get("O", 0.0) <= 0:
             raise OptionError(f"composition {self.formula!r} holds no water (H and O): the "
-                              "interlayer water cannot be taken from it", field="composition")
+                              "interlayer water cannot be taken from it", param="composition")
 
     @property
     def molar_mass(self) -> float:
@@ -122,7 +122,7 @@ class Hydrate:
         f = float(interlayer_share)
         if not (math.isfinite(f) and 0.0 <= f < 1.0):
             raise OptionError(f"the interlayer share of the C-S-H volume must lie in [0, 1), "
-                              f"got {interlayer_share!r}", field="interlayer_share")
+                              f"got {interlayer_share!r}", param="interlayer_share")
         m_w = molar_mass(WATER)
         M = self.molar_mass
         vm = M / self.density  # cm^3 per mol of formula units

@@ -129,7 +129,7 @@ def _cells(c: np.ndarray, kind: str) -> list:
 
 
 def write_json(path, doc, force: bool = False) -> Path:
-    from .cli.common import dumps
+    from .app.document import dumps
     with atomic_path(path, force=force) as tmp:
         Path(tmp).write_text(dumps(doc) + "\n")
     return Path(path)
@@ -343,14 +343,8 @@ def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
         written.append(write_csv(out / "phase_fractions.csv", ph.table()))
     sur = results.get("surface")
     if sur is not None:
-        itf = sur.parts["interfaces"]
-        written.append(write_csv(out / "interfaces.csv", itf.table()))
-        mk = {k: v.to_dict() for k, v in sur.parts.items() if k.startswith("minkowski")}
-        keys = sorted({kk for d in mk.values() for kk, vv in d.items()
-                       if isinstance(vv, (int, float)) and not isinstance(vv, bool)})
-        written.append(write_csv(out / "minkowski.csv", dict(
-            {"phase": [k.replace("minkowski_", "") for k in mk]},
-            **{k: [float(d.get(k, np.nan)) for d in mk.values()] for k in keys})))
+        for name, table in sur.tables().items():
+            written.append(write_csv(out / f"{name}.csv", table))
     pores = results.get("pores")
     if pores is not None:
         for key in ("local_thickness", "intrusion"):
@@ -514,7 +508,7 @@ def plot_s2(cor, path, force=False):
 
 def plot_sections(grid, path, force=False):
     """Three orthogonal central sections of the phase grid, with a scale bar."""
-    from .view import PHASE_COLOURS, SECTION_ORDER, phase_label, section_rgb
+    from .style import PHASE_COLOURS, SECTION_ORDER, phase_label, section_rgb
     plt = _pyplot()
     lab = grid.labels
     sp = grid.spacing

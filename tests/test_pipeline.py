@@ -106,7 +106,7 @@ def test_pore_split_makes_named_classes(stack_file):
 
 def test_split_classes_have_their_own_colours_and_legend(stack_file, tmp_path):
     """The section figure gives each size class a colour and a legend entry of its own."""
-    from sheetview.view import PHASE_COLOURS, phase_label
+    from sheetview.style import PHASE_COLOURS, phase_label
     names = {3: "gel", 4: "interhydrate", 5: "capillary"}
     cols = [PHASE_COLOURS[c] for c in (1, 2, 3, 4, 5, 6, 0)]
     assert len(set(cols)) == len(cols)

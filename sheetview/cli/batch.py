@@ -6,7 +6,7 @@ import sys
 import click
 
 from ..errors import OptionError
-from .common import at_options, read_options
+from .common import at_options, read_kwargs, read_options
 from .measure import SETTINGS, measure_options, measure_settings
 
 
@@ -53,7 +53,7 @@ def batch(inputs, out, only, workers, threads, cluster, no_plots, no_html, quiet
     """
     from ..batch import run_batch
     opts = {k: kw.pop(k) for k in SETTINGS}
-    read_kw = kw
+    read_kw = read_kwargs(kw)
     settings = measure_settings(**opts, spacing=read_kw.get("spacing"))
     if workers < 1:
         raise OptionError(f"--workers: must be at least 1, got {workers}")

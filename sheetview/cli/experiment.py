@@ -56,12 +56,15 @@ def _save_fig(fig, path, force):
 
 
 def _grid_of(obj, voxel, max_memory=None):
-    from .. import measures
+    """``(run, grid)``: the run that built the phase grid (None for a voxel volume, which
+    is its own grid) and the grid."""
+    from ..app.run import Run
+    from ..app.settings import Settings
     from ..grid import PhaseGrid
     if isinstance(obj, PhaseGrid):
         return None, obj
-    ctx = measures.run(["phases"], obj, {"voxel": voxel, "max_memory": max_memory})
-    return ctx, ctx.grid
+    run = Run(obj, Settings(voxel=voxel, max_memory=max_memory))
+    return run, run.grid
 
 
 def _solid_sld(formula, density, probe, grid, interlayer_contrast=True):
@@ -70,7 +73,7 @@ def _solid_sld(formula, density, probe, grid, interlayer_contrast=True):
     contrasted (sheets and interlayer water as one particle)."""
     from ..grid import INTERLAYER, SOLID
     from ..material import DEFAULT_DENSITY, DEFAULT_FORMULA, Hydrate, interlayer_share
-    from ..pipeline import describe_sheets
+    from ..app.adapters import describe_sheets
     given = formula is not None or density is not None
     h = Hydrate(DEFAULT_FORMULA if formula is None else formula,
                 DEFAULT_DENSITY if density is None else density,
@@ -239,10 +242,7 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
         gap = float(obj.spacing) - float(np.median(obj.thickness))
         if gap > 0:
             interlayer_width = gap
-    if ctx is not None:
-        gel = ctx.pore_thickness
-    else:
-        gel = None
+    gel = ctx.thickness if ctx is not None else None
     res = relaxation_spectrum(grid, gel, interlayer_width=interlayer_width, rho2=rho2,
                               t2_bulk=t2_bulk, shape=shape)
     cmp_ = compare_t2(res, exp.x, exp.y, source=compare) if exp else None

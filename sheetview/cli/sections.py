@@ -17,7 +17,7 @@ def _parse_phases(text):
     bad = [n for n in names if n not in _PHASE_CHOICES]
     if not names or bad:
         raise OptionError(f"--solid-phases: expected names from {', '.join(_PHASE_CHOICES)}, "
-                          f"got {text!r}", field="solid_phases")
+                          f"got {text!r}", param="solid_phases")
     return tuple(names)
 
 
@@ -131,7 +131,7 @@ def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memo
     structure or volume, as PNG/TIFF with a scale bar."""
     from .. import pictures
     from ..measures.sections import parse_axis_or_normal, section
-    from ..view import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
+    from ..style import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
 
     phases = _parse_phases(solid_phases)
     n = parse_axis_or_normal(axis, normal)

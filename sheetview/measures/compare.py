@@ -96,18 +96,18 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
     """``count`` virtual micrographs of ``obj`` at ``pixel`` nm: sections across ``axis``
     at evenly spaced offsets (the middle ``1 - 2 margin`` of the domain), or projections of
     ``count`` slabs of thickness ``slab`` spread the same way."""
-    from ..view import BACKGROUND, section_rgb
+    from ..style import BACKGROUND, section_rgb
     from .sections import (AXES, centre_and_span, phase_grid_of, projection, section,
                            segment_projection)
     kind = str(kind).lower()
     if kind not in ("section", "projection"):
-        raise OptionError(f"--virtual must be section or projection, got {kind!r}", field="virtual")
+        raise OptionError(f"--virtual must be section or projection, got {kind!r}", param="virtual")
     a = AXES.get(str(axis).lower())
     if a is None:
-        raise OptionError(f"--axis must be x, y or z, got {axis!r}", field="axis")
+        raise OptionError(f"--axis must be x, y or z, got {axis!r}", param="axis")
     count = int(count)
     if not 1 <= count <= 200:
-        raise OptionError(f"--count must be 1 to 200, got {count}", field="count")
+        raise OptionError(f"--count must be 1 to 200, got {count}", param="count")
     if not (0 <= margin < 0.5):
         raise OptionError(f"margin must be in [0, 0.5), got {margin}")
     centre, span = centre_and_span(obj)
@@ -139,7 +139,7 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
                 m, _ = segment_projection(p, threshold)
             except OptionError as e:
                 raise OptionError(f"{label}: {e.detail}; use a thicker --slab or fewer "
-                                  "--count", field="slab") from None
+                                  "--count", param="slab") from None
             out.append(VirtualImage(m, p.valid, p.pixel, label, grey_rgb(p.intensity, p.valid)))
     return out
 

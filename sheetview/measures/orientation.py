@@ -378,12 +378,12 @@ def orientation(structure, *, local_radius: float = DEFAULTS["local_radius"],
     """
     from .stacking import _check_structure
     _check_structure(structure)
-    local_radius = positive(local_radius, "local radius", field="local_radius")
+    local_radius = positive(local_radius, "local radius", param="local_radius")
     if frame not in ("z", "director"):
-        raise OptionError(f"frame must be 'z' or 'director', got {frame!r}", field="frame")
+        raise OptionError(f"frame must be 'z' or 'director', got {frame!r}", param="frame")
     for name, v in (("n_cos", n_cos), ("n_phi", n_phi), ("pole_bins", pole_bins)):
         if int(v) != v or v < 1:
-            raise OptionError(f"{name} must be a positive whole number, got {v!r}", field=name)
+            raise OptionError(f"{name} must be a positive whole number, got {v!r}", param=name)
     n = len(structure)
     notes = []
     nrm = np.asarray(structure.normals, dtype=float)

@@ -250,6 +250,14 @@ class PhaseFractions:
         return {"phase": names, "fraction_of_domain": [self.fractions[n] for n in names],
                 "volume_nm3": [self.volumes_nm3[n] for n in names]}
 
+    def headline(self) -> dict:
+        """The summary's headline: fractions of the domain volume."""
+        return {"volume_fractions": dict(self.fractions)}
+
+    def __repr__(self) -> str:
+        fr = ", ".join(f"{k} {v:.4g}" for k, v in self.fractions.items())
+        return f"PhaseFractions(of the domain: {fr})"
+
 
 def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None, *,
                      hydrate: Hydrate | None = None) -> PhaseFractions:
@@ -266,7 +274,7 @@ def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None, *,
     inside = int(counts.sum() - counts[OUTSIDE])
     if inside == 0:
         raise OptionError("no voxel lies inside the domain: the domain is empty at this voxel size",
-                          path=grid.source, field="voxel_size")
+                          path=grid.source, param="voxel_size")
     vv = grid.voxel_volume
     codes = sorted({SOLID, INTERLAYER, GEL} | {int(c) for c in np.flatnonzero(counts)} - {OUTSIDE})
     fr, vol = {}, {}
@@ -304,10 +312,10 @@ def split_pores_by_size(grid: PhaseGrid, thresholds, thickness: np.ndarray,
         return grid
     if any(not (math.isfinite(x) and x > 0) for x in t) or any(b <= a for a, b in zip(t, t[1:])):
         raise OptionError(f"pore size thresholds must be increasing positive numbers of nm, "
-                          f"got {list(thresholds)}", field="pore_split")
+                          f"got {list(thresholds)}", param="pore_split")
     if len(t) >= len(names):
         raise OptionError(f"at most {len(names) - 1} pore size thresholds, got {len(t)}",
-                          field="pore_split")
+                          param="pore_split")
     labels = grid.labels.copy()
     gel = labels == GEL
     cls = np.searchsorted(np.asarray(t), np.where(gel, thickness, 0.0), side="right")

@@ -113,10 +113,11 @@ def test_bragg_peak_periodic_slabs():
 def test_bragg_peak_finite_stack():
     """A finite stack of 15 layers of repeat 1.4 nm (sheetview.synth.perfect_stack,
     rasterized with its interlayer): strongest peak at 2π/d within 2% (Bragg, textbook)."""
-    from sheetview import measures
+    from sheetview.app.run import phase_grid
+    from sheetview.app.settings import Settings
     from sheetview.synth import perfect_stack
     s = perfect_stack(15, 10.0).structure
-    g = measures.run(["phases"], s, {"voxel": 0.14}).grid
+    g = phase_grid(s, Settings(voxel=0.14))
     res = scattering_curve(g, phase_slds(2.55, -0.56), pad=2)
     bp = bragg_peaks(res, q_range=(2.0, 8.0), prominence=0.5)
     top = bp.q[np.argmax(bp.prominence)]

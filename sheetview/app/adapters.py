@@ -1,0 +1,184 @@
+"""Measures whose entry functions still live here while their modules change.
+
+Each function is a measure of the registry: its subject is the phase grid, its other
+parameters come by name from the run (settings and shared inputs).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..grid import INTERLAYER, OUTSIDE, SOLID, PhaseGrid
+from ..structure import SurfaceBody
+
+
+@dataclass
+class Bundle:
+    """Several results of one measure, with a few headline figures."""
+
+    parts: dict
+    figures: dict = field(default_factory=dict)
+    notes: list = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        d = dict(self.figures)
+        for k, v in self.parts.items():
+            d[k] = None if v is None else v.to_dict()
+        if self.notes:
+            d["notes"] = list(self.notes)
+        return d
+
+
+def _finite(x):
+    return float(x) if x is not None and math.isfinite(x) else None
+
+
+def _pore_codes(g):
+    return tuple(sorted(c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)))
+
+
+class PoreSizes(Bundle):
+    def headline(self) -> dict:
+        lt = self.parts["local_thickness"]
+        it = self.parts["intrusion"]
+        return {"pore_size": {
+            "d10_nm": _finite(lt.d10) if lt else None, "d50_nm": _finite(lt.d50) if lt else None,
+            "d90_nm": _finite(lt.d90) if lt else None,
+            "intrusion_d50_nm": _finite(it.d50) if it else None}}
+
+
+def pores(grid: PhaseGrid, *, thickness=None, intrusion: bool = False):
+    from ..measures.pores import (default_reservoir, intrusion_diameter, local_thickness,
+                                  size_distribution)
+    g = grid
+    codes = _pore_codes(g)
+    names = tuple(g.names[c] for c in codes)
+    mask = np.isin(g.labels, codes)
+    if not mask.any():
+        return PoreSizes({"local_thickness": None, "intrusion": None},
+                         notes=["no gel pore space: pore sizes undefined"])
+    lt = thickness if thickness is not None else local_thickness(mask, g.spacing,
+                                                                 periodic=g.periodic)
+    parts = {"local_thickness": size_distribution(lt, voxel_size=g.spacing,
+                                                  method="local_thickness", phases=names),
+             "intrusion": None}
+    notes = []
+    if intrusion:
+        if g.periodic:
+            notes.append("periodic box: no reservoir at the boundary, so no intrusion distribution")
+        else:
+            m = ~np.isnan(lt)
+            res = default_reservoir(m, outside=g.labels == OUTSIDE)
+            d = intrusion_diameter(m, g.spacing, res)
+            parts["intrusion"] = size_distribution(d, voxel_size=g.spacing, method="intrusion",
+                                                   phases=names)
+    return PoreSizes(parts, notes=notes)
+
+
+class Chords(Bundle):
+    def headline(self) -> dict:
+        f = self.figures
+        return {"chords": {k: f.get(k) for k in ("solid_mean_nm", "pore_mean_nm", "source")}}
+
+
+def chords(grid: PhaseGrid, *, geometry=None, lines: int = 20000, seed: int = 0):
+    from ..measures.chords import exact_chords, voxel_chords
+    from ..measures.surface import interface_areas_with
+    g = grid
+    exact = None
+    notes = []
+    if geometry is not None:
+        if isinstance(geometry, SurfaceBody) and getattr(geometry.domain, "periodic", False):
+            notes.append("closed body in a periodic box: exact chords not available")
+        else:
+            exact = exact_chords(geometry, int(lines), seed)
+    solid = pore = None
+    codes = _pore_codes(g)
+    if exact is None:
+        solid = voxel_chords(g, (SOLID,), name="solid")
+        pore = voxel_chords(g, (INTERLAYER,) + codes, name="pore")
+    figures = {}
+    for ph, vox in (("solid", solid), ("pore", pore)):
+        src = exact if exact is not None else vox
+        figures[f"{ph}_mean_nm"] = _finite(src.mean(ph))
+        figures[f"{ph}_mean_all_nm"] = _finite(src.mean(ph, include_cut=True))
+    figures["source"] = ("exact isotropic random lines" if exact is not None
+                         else "voxel rows (x, y, z)")
+    # Cauchy: mean of all chords of a phase = 4 V / S, S its whole boundary (Santaló 1976)
+    counts = np.bincount(g.labels.ravel(), minlength=256)
+    v = g.voxel_volume
+    pore_all = (INTERLAYER,) + codes
+    vs = counts[SOLID] * v
+    vp = float(sum(counts[c] for c in pore_all)) * v
+    ws = interface_areas_with(g, SOLID)
+    a_sp = float(sum(ws[c] for c in pore_all))
+    a_so = float(ws[OUTSIDE])
+    a_po = 0.0
+    if not g.periodic:
+        wo = interface_areas_with(g, OUTSIDE)
+        a_po = float(sum(wo[c] for c in pore_all))
+    figures["cauchy_solid_4v_over_s_nm"] = _finite(4 * vs / (a_sp + a_so)) if a_sp + a_so else None
+    figures["cauchy_pore_4v_over_s_nm"] = _finite(4 * vp / (a_sp + a_po)) if a_sp + a_po else None
+    return Chords({"exact": exact, "voxel_solid": solid, "voxel_pore": pore}, figures, notes)
+
+
+def central_block(g: PhaseGrid, n: int):
+    """The central block of at most ``n`` voxels per side (the grid itself if smaller)."""
+    shape = np.asarray(g.shape)
+    if np.all(shape <= n):
+        return g, None
+    m = np.minimum(shape, n)
+    lo = (shape - m) // 2
+    sl = tuple(slice(int(a), int(a + b)) for a, b in zip(lo, m))
+    origin = np.asarray(g.origin) + lo * np.asarray(g.spacing)
+    sub = PhaseGrid(np.ascontiguousarray(g.labels[sl]), g.spacing, tuple(origin), g.names,
+                    periodic=False, metadata={}, source=g.source)
+    return sub, (f"computed on the central {m[0]} x {m[1]} x {m[2]} voxel block "
+                 f"({m[0] * g.spacing[0]:.3g} nm across) of the {shape[0]} x {shape[1]} x "
+                 f"{shape[2]} grid")
+
+
+def correlation(grid: PhaseGrid, *, s2_block: int = 160, s2_rmax: float | None = None):
+    from ..measures.correlation import two_point_correlation
+    sub, note = central_block(grid, int(s2_block))
+    rmax = s2_rmax
+    if rmax is None:
+        rmax = 0.5 * float(min(np.asarray(sub.shape) * np.asarray(sub.spacing)))
+    res = two_point_correlation(sub, (SOLID,), r_max=rmax)
+    return Bundle({"s2_solid": res}, {"block_voxels": list(sub.shape)}, [note] if note else [])
+
+
+def describe_sheets(split) -> str:
+    """How the sheets' SLD was obtained, for figures and JSON."""
+    h = split.hydrate
+    return (f"sheets = {h.formula} at {h.density:g} g/cm3 less its interlayer water "
+            f"({100 * split.interlayer_share:.1f} % of the C-S-H volume): layer density "
+            f"{split.layer_density:.4g} g/cm3")
+
+
+def scattering(grid: PhaseGrid, *, hydrate=None, max_memory=None):
+    """Predicted SANS curve with the default contrast: neutrons, the sheets with the layer
+    SLD of the material model, interlayer and gel water and the outside as H2O."""
+    from ..material import Hydrate, interlayer_share
+    from ..measures.scattering import (ScatteringMeasure, curve_features, phase_slds,
+                                       scattering_curve)
+    from ..sld import preset_sld
+    g = grid
+    hydrate = Hydrate() if hydrate is None else hydrate
+    counts = np.bincount(g.labels.ravel(), minlength=256)
+    split = hydrate.split(interlayer_share({"solid": counts[SOLID],
+                                            "interlayer": counts[INTERLAYER]}))
+    slds = phase_slds(split.layer_sld("neutron"), preset_sld("h2o", "neutron"))
+    res = scattering_curve(g, slds, max_memory=max_memory)
+    phi = float(counts[SOLID] / g.labels.size)
+    feats = curve_features(res, phi)
+    return ScatteringMeasure(res, feats, "neutron", describe_sheets(split), "h2o")
+
+
+def relaxation(grid: PhaseGrid, *, thickness=None, interlayer_width=None):
+    """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the phase grid
+    (each size class apart) with the default surface relaxivity and bulk T2."""
+    from ..measures.relaxation import relaxation_spectrum
+    return relaxation_spectrum(grid, thickness, interlayer_width=interlayer_width)
