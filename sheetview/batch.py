@@ -47,6 +47,7 @@ from .app.settings import Settings
 from .errors import OptionError, OutputExistsError, SheetviewError
 from .io.output import atomic_path, json_default
 from .measures.kinetics import check_moment
+from .figures import new_figure
 from .report import write_json, write_report
 
 #: Scalar headline keys shown first in the HTML pages.
@@ -272,7 +273,7 @@ def warm_up() -> float:
     t0 = time.perf_counter()
     try:
         from numba.core.registry import CPUDispatcher
-        from . import __path__ as pkg_path
+        pkg_path = [os.path.dirname(os.path.abspath(__file__))]
         mods = []
         for info in pkgutil.walk_packages(pkg_path, __package__ + "."):
             if info.name.startswith((f"{__package__}.cli", f"{__package__}.view",
@@ -294,9 +295,8 @@ def warm_up() -> float:
                             obj.compile(key[0])
                 except Exception:
                     continue
-        import matplotlib
-        matplotlib.use("Agg")
-        import matplotlib.pyplot  # noqa: F401  (fonts and the Agg renderer)
+        import matplotlib.backends.backend_agg  # noqa: F401  (the renderer; no backend switch)
+        import matplotlib.figure  # noqa: F401
     except Exception:
         pass
     return time.perf_counter() - t0
@@ -993,10 +993,7 @@ def trend_plot(summary_path, x: str, y: str, out_png, group: str | None = None,
     stats = group_stats(cols[x], yv, cols[group] if group else None)
     if not stats:
         raise OptionError(f"--y: column {y!r} has no values", path=summary_path)
-    import matplotlib
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
-    fig, ax = plt.subplots(figsize=(6, 4.2))
+    fig, (ax,) = new_figure((6, 4.2))
     cats = sorted({v for xs, *_ in stats.values() for v in xs if isinstance(v, str)})
     for gi, (xs, m, s, n) in stats.items():
         pos = [cats.index(v) if isinstance(v, str) else v for v in xs]
@@ -1014,5 +1011,4 @@ def trend_plot(summary_path, x: str, y: str, out_png, group: str | None = None,
     fig.tight_layout()
     with atomic_path(out_png, force=force) as tmp:
         fig.savefig(tmp, dpi=120, format="png")
-    plt.close(fig)
     return stats

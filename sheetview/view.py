@@ -1109,8 +1109,7 @@ def render(structure, path=None, *, colour_by: str = "stacking", plane=None, gri
                       decorations=decorations, cache=cache)
     view = camera or ("cut" if scene.section_on else "iso")
     camera_direction(view, scene.plane_normal)  # validate before opening a window
-    pv.OFF_SCREEN = True
-    p = pv.Plotter(off_screen=True, window_size=(int(w), int(h)))
+    p = pv.Plotter(off_screen=True, window_size=(int(w), int(h)))  # no global flag set
     try:
         p.disable_anti_aliasing()
         scene.attach(p)

@@ -11,7 +11,8 @@ import numpy as np
 
 from ..errors import OptionError
 from ..io.curves import read_experimental
-from ..report import plot_relaxation, plot_scattering
+from ..figures import plot_relaxation, plot_scattering
+from ..report import save_figure
 from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
 
 
@@ -45,14 +46,6 @@ def _fmt(v):
     if v is None or (isinstance(v, float) and not math.isfinite(v)):
         return "nan"
     return f"{v:.8g}" if isinstance(v, float) else str(v)
-
-
-def _save_fig(fig, path, force):
-    from ..io.output import atomic_path
-    import matplotlib.pyplot as plt
-    with atomic_path(path, force) as tmp:
-        fig.savefig(tmp, dpi=120, format=Path(path).suffix.lstrip(".") or "png")
-    plt.close(fig)
 
 
 def _grid_of(obj, voxel, max_memory=None):
@@ -166,7 +159,7 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:
-        plot_scattering(res, plot_out, cmp_, notes, force)
+        save_figure(plot_scattering(res, comparison=cmp_, notes=notes), plot_out, force)
     click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1 -> {csv_out}")
     if cmp_ is not None:
         click.echo(f"fit to {compare}: scale {cmp_.scale:.4g}, background {cmp_.background:.4g} "
@@ -261,7 +254,7 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:
-        plot_relaxation(res, plot_out, cmp_, notes, force)
+        save_figure(plot_relaxation(res, comparison=cmp_, notes=notes), plot_out, force)
     fr = ", ".join(f"{k} {v:.3f} (T2 {res.class_t2_logmean[k] * 1e3:.3g} ms)"
                    for k, v in res.class_fraction.items())
     click.echo(f"T2 distribution: {fr} -> {csv_out}")

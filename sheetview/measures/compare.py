@@ -80,13 +80,15 @@ def distance(a, b, wa=None, wb=None) -> dict:
 @dataclass
 class VirtualImage:
     """One binary virtual micrograph: ``mask`` (solid), ``valid`` (inside the sample),
-    what it is (``label``) and, for the figure, a grey or RGB picture."""
+    what it is (``label``) and what it was made from, for a figure: the section's phase
+    labels (``kind`` "section") or the projection's transmitted intensity ("projection")."""
 
     mask: np.ndarray
     valid: np.ndarray
     pixel: float
     label: str
-    picture: np.ndarray
+    image: np.ndarray
+    kind: str = "section"
 
 
 def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 5,
@@ -96,7 +98,6 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
     """``count`` virtual micrographs of ``obj`` at ``pixel`` nm: sections across ``axis``
     at evenly spaced offsets (the middle ``1 - 2 margin`` of the domain), or projections of
     ``count`` slabs of thickness ``slab`` spread the same way."""
-    from ..style import BACKGROUND, section_rgb
     from .sections import (AXES, centre_and_span, phase_grid_of, projection, section,
                            segment_projection)
     kind = str(kind).lower()
@@ -126,11 +127,10 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
             img = section(obj, n, float(off), pixel=pixel, grid=g)
             out.append(VirtualImage(img.mask(codes) & img.valid, img.valid, img.pixel,
                                     f"section {'xyz'[a]} = {centre[a] + off:.3g} nm",
-                                    section_rgb(img.labels, background=BACKGROUND)))
+                                    img.labels, "section"))
     else:
         if slab is None:
             slab = L / count
-        from ..pictures import grey_rgb
         for off in offs:
             p = projection(obj, "xyz"[a], slab, offset=float(off), pixel=pixel, mfp=mfp,
                            resolution=resolution, settings=settings)
@@ -140,7 +140,7 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
             except OptionError as e:
                 raise OptionError(f"{label}: {e.detail}; use a thicker --slab or fewer "
                                   "--count", param="slab") from None
-            out.append(VirtualImage(m, p.valid, p.pixel, label, grey_rgb(p.intensity, p.valid)))
+            out.append(VirtualImage(m, p.valid, p.pixel, label, p.intensity, "projection"))
     return out
 
 
