@@ -11,14 +11,12 @@ water D and rho2 = 3.7e-3 nm/us, rho a / D ~ 1e-6 and the decay takes ~1e9 steps
 walker: see docs/diffusion.md.)
 """
 import argparse
-import math
 import time
 
 import numba
 import numpy as np
 
 from sheetview.grid import GEL, SOLID, PhaseGrid
-from sheetview.measures import _walk
 from sheetview.measures import diffusion as dm
 
 D0 = dm.D_BULK_WATER_NM2_PER_US
