@@ -33,7 +33,7 @@ def weighted_ks(a, b, wa=None, wb=None) -> tuple[float, float]:
     """Two-sample Kolmogorov-Smirnov statistic of weighted samples,
     D = max |F_a(x) - F_b(x)| over all sample points with weighted empirical CDFs, and its
     p-value from the Kolmogorov distribution at the effective sample sizes
-    n = (sum w)^2 / sum w^2 (Kish 1965). With unit weights D equals
+    n = (sum w)^2 / sum w^2 (Kish, Survey Sampling, Wiley 1965). With unit weights D equals
     :func:`scipy.stats.ks_2samp`'s statistic and the p-value its ``method='asymp'``
     gives (the one-sample Kolmogorov distribution at n = n_a n_b / (n_a + n_b))."""
     from scipy.stats import kstwo

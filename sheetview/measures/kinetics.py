@@ -17,7 +17,8 @@ times), divided by the total volume and the bin width, then smoothed with a Gaus
 ``t10``, ``t50``, ``t90`` are the first birth times at which alpha reaches 0.1, 0.5, 0.9.
 
 The Avrami form alpha = 1 - exp(-(k (t - t0))^n) (Avrami, J. Chem. Phys. 7 (1939) 1103;
-8 (1940) 212; 9 (1941) 177; Johnson & Mehl 1939; Kolmogorov 1937) is fitted by least
+8 (1940) 212; 9 (1941) 177; Johnson & Mehl, Trans. AIME 135 (1939) 416; Kolmogorov, Izv.
+Akad. Nauk SSSR Ser. Mat. 1 (1937) 355; the last two from memory) is fitted by least
 squares of ln(-ln(1 - alpha)) against ln(t - t0) over 0.05 <= alpha <= 0.95, with ``t0``
 the first birth time unless given. It is a description of the curve's shape, not
 evidence of a nucleation-and-growth mechanism.

@@ -30,6 +30,10 @@ from .stacking import (StackingSettings, clip_polygon_buf, pair_frame, plane_bas
                        stacking_graph)
 
 
+#: Squared distance (nm^2) under which two vertices of a clipped polygon are one vertex.
+_DUP2 = 1e-18
+
+
 @numba.njit(cache=True)
 def _dot(a0, a1, a2, b0, b1, b2):
     return a0 * b0 + a1 * b1 + a2 * b2
@@ -93,6 +97,22 @@ def _paint_gaps(pairs, V, C, Nrm, T, periodic, L, org, sp, shape, labels):
                 continue
             px = buf[0]
             py = buf[1]
+            # drop vertices repeating their predecessor: where the two triangles share an
+            # edge (layers that are exact copies) the clipping leaves near-duplicates, and
+            # an edge ~1e-16 nm long has a direction set by rounding that would cut the
+            # polygon along a random line in the inside test below
+            m = 0
+            for k in range(npoly):
+                if m > 0 and (px[k] - px[m - 1]) ** 2 + (py[k] - py[m - 1]) ** 2 <= _DUP2:
+                    continue
+                px[m] = px[k]
+                py[m] = py[k]
+                m += 1
+            while m > 1 and (px[m - 1] - px[0]) ** 2 + (py[m - 1] - py[0]) ** 2 <= _DUP2:
+                m -= 1
+            npoly = m
+            if npoly < 3:
+                continue
             # faces: top of i  {r : r.ni >= t_i/2}; bottom of j {r : (r - d).nj <= -t_j/2}
             ci = 0.5 * T[i]
             cj = _dot(d0, d1, d2, nj0, nj1, nj2) - 0.5 * T[j]

@@ -452,7 +452,8 @@ def iur_lines_2d(n: int, shape, seed=None):
     image centre uniform on ``[-R, R]`` (R = half the diagonal); lines missing the
     rectangle ``[-1/2, L - 1/2] x [-1/2, M - 1/2]`` (pixel units, x = column, y = row)
     are drawn again. This is the motion-invariant line measure restricted to the lines
-    hitting the image (Santalo 1976). Returns origins (ox, oy), unit directions (ux, uy)
+    hitting the image (Santaló, *Integral Geometry and Geometric Probability*,
+    Addison-Wesley 1976). Returns origins (ox, oy), unit directions (ux, uy)
     and the parameter interval [t0, t1] inside the rectangle."""
     M, L = shape
     rng = np.random.default_rng(seed)
@@ -511,8 +512,8 @@ def chords_2d(mask, pixel, *, valid=None, directions=DIRECTIONS, n_lines: int = 
     against long chords (minus-sampling with Horvitz-Thompson weights; common practice).
 
     Under isotropic uniform random lines the mean chord of a phase of area ``A`` and
-    boundary length ``P`` is ``pi A / P`` (Cauchy-Crofton; Santalo, *Integral Geometry
-    and Geometric Probability*, 1976).
+    boundary length ``P`` is ``pi A / P`` (Cauchy-Crofton; Santaló, *Integral Geometry
+    and Geometric Probability*, Addison-Wesley 1976).
     """
     px = _check_pixel(pixel)
     m, v = _check_mask(mask, valid)
@@ -807,7 +808,8 @@ def s2_2d(mask, pixel, *, valid=None, r_max=None) -> S2Result:
     valid`` are zero-padded (by at least ``r_max``), and at each displacement ``d``
     ``S2(d) = C_II(d) / C_WW(d)``, the fraction of the valid pixel pairs at ``d`` that are
     both solid; each bin averages ``S2(d)`` weighted by ``C_WW(d)``. ``S2(0)`` is the area
-    fraction (Torquato, *Random Heterogeneous Materials*, 2002, ch. 2).
+    fraction (Torquato, *Random Heterogeneous Materials*, Springer 2002, ch. 2; chapter
+    from memory).
 
     ``r_max`` (nm): default half the smaller image side.
     """
@@ -948,7 +950,9 @@ def orientation_2d(grey_or_mask, pixel, *, valid=None, sigma_nm=None,
                    bins: int = ORIENTATION_BINS, derivative: str = "gaussian",
                    derivative_px: float = DERIVATIVE_PX) -> Orientation2D:
     """Dominant layer orientation, coherence and nematic order of a 2D image from the
-    structure tensor (Jähne, *Digital Image Processing*; Bigün & Granlund 1987).
+    structure tensor (Bigün & Granlund, Optimal orientation detection of linear symmetry,
+    Proc. 1st Int. Conf. Computer Vision, London, 1987, 433-438; Jähne, *Digital Image
+    Processing*, Springer; venue, pages and edition from memory).
 
     At each pixel the tensor ``J = G_sigma * (grad g grad g^T)`` (:func:`structure_tensor_2d`)
     has eigenvalues ``l1 >= l2``; the gradient lies along the first eigenvector and the
