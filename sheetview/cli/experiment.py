@@ -153,6 +153,8 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1 -> {csv_out}")
     for line in _feature_lines(doc["features"]):
         click.echo(line)
+    for note in res.notes:
+        click.echo(f"note: {note}")
     if cmp_ is not None:
         click.echo(f"fit to {compare}: scale {cmp_.scale:.4g}, background {cmp_.background:.4g} "
                    f"cm^-1, reduced chi2 {cmp_.chi2_reduced:.4g} ({cmp_.weighting})")
