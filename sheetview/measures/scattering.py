@@ -990,6 +990,37 @@ def _window_bounds(x, half, symmetric):
     return a, b
 
 
+@numba.njit(cache=True)
+def _window_stat(y, keep, a, b, mad, min_kept):
+    """Per point i: the median of ``y[a[i]:b[i]]`` over the kept points (all points of the
+    window when none is kept), or with ``mad`` 1.4826 × their median absolute deviation
+    (nan with fewer than ``min_kept`` kept points)."""
+    n = y.size
+    out = np.empty(n)
+    buf = np.empty(n)
+    for i in range(n):
+        m = 0
+        for j in range(a[i], b[i]):
+            if keep[j]:
+                buf[m] = y[j]
+                m += 1
+        if m == 0 and not mad:
+            for j in range(a[i], b[i]):
+                buf[m] = y[j]
+                m += 1
+        if m == 0 or m < min_kept:
+            out[i] = np.nan
+            continue
+        med = np.median(buf[:m])
+        if mad:
+            for j in range(m):
+                buf[j] = abs(buf[j] - med)
+            out[i] = 1.4826 * np.median(buf[:m])
+        else:
+            out[i] = med
+    return out
+
+
 def _peak_background(x, y, keep, half, smooth_half):
     """Running median of ``y`` over the points ``keep`` within ±``half`` of each point
     (as many points on each side; all points of the window when none is kept there), then
@@ -997,11 +1028,7 @@ def _peak_background(x, y, keep, half, smooth_half):
     smoother: the median ignores narrow peaks and follows a monotonic trend exactly, the
     mean lets the bin-to-bin ripple of the curve show in the residual)."""
     a, b = _window_bounds(x, half, True)
-    med = np.empty_like(y)
-    for i in range(x.size):
-        k = keep[a[i]:b[i]]
-        v = y[a[i]:b[i]]
-        med[i] = np.median(v[k]) if k.any() else np.median(v)
+    med = _window_stat(np.ascontiguousarray(y, np.float64), keep, a, b, False, 1)
     a, b = _window_bounds(x, smooth_half, True)
     cs = np.concatenate([[0.0], np.cumsum(med)])
     return (cs[b] - cs[a]) / (b - a)
@@ -1012,12 +1039,7 @@ def _peak_scatter(x, r, keep, half):
     within ±``half`` (not shrunk near the ends; one standard deviation for Gaussian
     scatter); nan where fewer than 3 points are kept."""
     a, b = _window_bounds(x, half, False)
-    out = np.full(x.size, np.nan)
-    for i in range(x.size):
-        v = r[a[i]:b[i]][keep[a[i]:b[i]]]
-        if v.size >= 3:
-            out[i] = 1.4826 * float(np.median(np.abs(v - np.median(v))))
-    return out
+    return _window_stat(np.ascontiguousarray(r, np.float64), keep, a, b, True, 3)
 
 
 def _extent(v, i, level, lo=0, hi=None):
