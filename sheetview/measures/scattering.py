@@ -590,11 +590,10 @@ class Porod:
         return self.status == "ok"
 
     def to_dict(self) -> dict:
-        has = bool(np.isfinite(self.constant))
         return {"status": self.status, "reason": self.reason,
                 "porod_constant_cm-1_nm-4": _f(self.constant),
                 "s_over_v_nm-1": _f(self.s_over_v), "contrast_1e-6_A-2": _f(self.contrast),
-                "q_range_nm-1": [_f(x) for x in self.q_range] if has else None,
+                "q_range_nm-1": [_f(x) for x in self.q_range],  # [null, null] without
                 "log_slope_q4I": _f(self.log_slope), "flat_tolerance": _f(self.flat_tolerance),
                 "trend_departure": _f(self.departure),
                 "trend_departure_tolerance": _f(self.departure_tolerance),
@@ -868,8 +867,8 @@ class Invariant:
         return {"invariant_cm-4": _f(self.total), "measured_part_cm-4": _f(self.measured),
                 "low_q_part_cm-4": _f(self.low_q_extrapolation),
                 "porod_tail_cm-4": _f(self.porod_tail), "tail": self.tail,
-                "porod_q_range_nm-1": ([_f(x) for x in self.porod_q_range]
-                                       if np.isfinite(self.porod_tail) else None),
+                "porod_q_range_nm-1": [_f(x) if np.isfinite(self.porod_tail) else None
+                                       for x in self.porod_q_range],
                 "two_phase_expected_cm-4": _f(self.expected_two_phase), "phi": _f(self.phi)}
 
 
