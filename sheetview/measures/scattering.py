@@ -1117,7 +1117,7 @@ def bragg_peaks(res: ScatteringResult, significance: float = PEAK_SIGNIFICANCE, 
     Measured (tests/validation and the study behind them): a single ball of 10 to 40
     voxels radius at a random offset reaches 2.4 σ at most (its form-factor maxima are at
     most about twice the local mean); periodic random two-phase media (Boolean balls,
-    level-cut Gaussian fields; 36 realisations) 4.2 σ at most; a periodic lamellar stack's
+    level-cut Gaussian fields; about 40 realisations) 4.2 σ at most; a periodic lamellar stack's
     orders stand 1e6 σ and more above the roundoff; finite stacks of 3 to 15 sheets show
     their first and third orders at 10 σ and more. On a non-periodic grid whose structure
     is cut by the box faces, the box's own fringes (odd multiples of π/L, strongest at low
