@@ -161,9 +161,43 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     if plot_out:
         save_figure(plot_scattering(res, comparison=cmp_, notes=notes), plot_out, force)
     click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1 -> {csv_out}")
+    for line in _feature_lines(doc["features"]):
+        click.echo(line)
+    for note in res.notes:
+        click.echo(f"note: {note}")
     if cmp_ is not None:
         click.echo(f"fit to {compare}: scale {cmp_.scale:.4g}, background {cmp_.background:.4g} "
                    f"cm^-1, reduced chi2 {cmp_.chi2_reduced:.4g} ({cmp_.weighting})")
+
+
+def _feature_lines(feats):
+    """The Porod range (or why there is none) and the peaks, in words."""
+    out = []
+    po = feats.get("porod", {})
+    if "error" in po:
+        out.append(f"Porod: {po['error']}")
+    elif po.get("status") == "ok":
+        a, b = po["q_range_nm-1"]
+        out.append(f"Porod: S/V {po['s_over_v_nm-1']:.4g} nm^-1 "
+                   f"(K {po['porod_constant_cm-1_nm-4']:.4g} cm^-1 nm^-4) over q {a:.4g}-{b:.4g} nm^-1; q^4 I flat there: log-slope "
+                   f"{po['log_slope_q4I']:+.3f}, trend within {100 * po['trend_departure']:.1f} % "
+                   f"(aliasing divided out, at most {100 * po['alias_correction_max']:.0f} %)")
+    else:
+        out.append(f"Porod: no Porod range: {po.get('reason')}")
+    bp = feats.get("bragg_peaks", {})
+    if "error" in bp:
+        out.append(f"peaks: {bp['error']}")
+    elif not bp.get("n_peaks"):
+        out.append(f"peaks: none {bp.get('significance_min_sigma', 5):g} sigma above the "
+                   f"background ({bp.get('background', '')})")
+    else:
+        out.append(f"peaks {bp['significance_min_sigma']:g} sigma or more above the background "
+                   f"({bp['background']}):")
+        for q, d, w, h, z in zip(bp["q_nm-1"], bp["d_nm"], bp["fwhm_nm-1"], bp["height_ln"],
+                                 bp["significance_sigma"]):
+            out.append(f"  q {q:.4g} nm^-1, d = 2pi/q {d:.4g} nm, FWHM {w:.3g} nm^-1, "
+                       f"{math.exp(h):.3g} x the background, {z:.3g} sigma")
+    return out
 
 
 def _parse_range(text):
