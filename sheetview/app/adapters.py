@@ -150,33 +150,6 @@ def correlation(grid: PhaseGrid, *, s2_block: int = 160, s2_rmax: float | None =
     return Bundle({"s2_solid": res}, {"block_voxels": list(sub.shape)}, [note] if note else [])
 
 
-def describe_sheets(split) -> str:
-    """How the sheets' SLD was obtained, for figures and JSON."""
-    h = split.hydrate
-    return (f"sheets = {h.formula} at {h.density:g} g/cm3 less its interlayer water "
-            f"({100 * split.interlayer_share:.1f} % of the C-S-H volume): layer density "
-            f"{split.layer_density:.4g} g/cm3")
-
-
-def scattering(grid: PhaseGrid, *, hydrate=None, max_memory=None):
-    """Predicted SANS curve with the default contrast: neutrons, the sheets with the layer
-    SLD of the material model, interlayer and gel water and the outside as H2O."""
-    from ..material import Hydrate, interlayer_share
-    from ..measures.scattering import (ScatteringMeasure, curve_features, phase_slds,
-                                       scattering_curve)
-    from ..sld import preset_sld
-    g = grid
-    hydrate = Hydrate() if hydrate is None else hydrate
-    counts = np.bincount(g.labels.ravel(), minlength=256)
-    split = hydrate.split(interlayer_share({"solid": counts[SOLID],
-                                            "interlayer": counts[INTERLAYER]}))
-    slds = phase_slds(split.layer_sld("neutron"), preset_sld("h2o", "neutron"))
-    res = scattering_curve(g, slds, max_memory=max_memory)
-    phi = float(counts[SOLID] / g.labels.size)
-    feats = curve_features(res, phi)
-    return ScatteringMeasure(res, feats, "neutron", describe_sheets(split), "h2o")
-
-
 def relaxation(grid: PhaseGrid, *, thickness=None, interlayer_width=None):
     """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the phase grid
     (each size class apart) with the default surface relaxivity and bulk T2."""

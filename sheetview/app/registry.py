@@ -145,7 +145,7 @@ register("chords", f"{_A}:chords", "grid",
          "chord lengths of solid and pore on isotropic random lines, Cauchy 4V/S")
 register("correlation", f"{_A}:correlation", "grid",
          "two-point correlation S2(r) of the solid and its slope at the origin")
-register("scattering", f"{_A}:scattering", "grid",
+register("scattering", f"{_M}.scattering:scattering_measure", "grid",
          "predicted SANS curve I(q) (neutrons, C-S-H in H2O): slopes, Porod, Guinier, "
          "invariant, Bragg peaks (opt-in; `sheetview scatter` for other contrasts)",
          default=False)

@@ -66,7 +66,7 @@ def _solid_sld(formula, density, probe, grid, interlayer_contrast=True):
     contrasted (sheets and interlayer water as one particle)."""
     from ..grid import INTERLAYER, SOLID
     from ..material import DEFAULT_DENSITY, DEFAULT_FORMULA, Hydrate, interlayer_share
-    from ..app.adapters import describe_sheets
+    from ..measures.scattering import describe_sheets
     given = formula is not None or density is not None
     h = Hydrate(DEFAULT_FORMULA if formula is None else formula,
                 DEFAULT_DENSITY if density is None else density,

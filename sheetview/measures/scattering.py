@@ -36,7 +36,10 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID
+from ..material import Hydrate, interlayer_share
+from ..sld import preset_sld
 from ..threads import budget
+from ._result import Result
 
 NM_TO_CM = 1e-7
 #: 1e-6 Å⁻² in cm⁻².
@@ -869,7 +872,9 @@ class Invariant:
                 "porod_tail_cm-4": _f(self.porod_tail), "tail": self.tail,
                 "porod_q_range_nm-1": [_f(x) if np.isfinite(self.porod_tail) else None
                                        for x in self.porod_q_range],
-                "two_phase_expected_cm-4": _f(self.expected_two_phase), "phi": _f(self.phi)}
+                "two_phase_expected_cm-4": _f(self.expected_two_phase), "phi": _f(self.phi),
+                "phi_reference": "the scattering volume: the whole grid box (pore fluid outside "
+                                 "the domain), the volume I(q) is per"}
 
 
 def invariant(res: ScatteringResult, phi: float | None = None, contrast: float | None = None,
@@ -1291,11 +1296,11 @@ def curve_features(res: ScatteringResult, phi: float | None = None, ranges=()) -
     return out
 
 
-@dataclass
-class ScatteringMeasure:
+@dataclass(repr=False)
+class ScatteringMeasure(Result):
     """The ``scattering`` measure of ``sheetview measure``: a curve with fixed contrast
-    (neutrons; the C-S-H preset solid in H2O, interlayer water as pore fluid) and its
-    features."""
+    (neutrons; the sheets with the layer SLD of the material model, water as pore fluid)
+    and its features."""
 
     curve: ScatteringResult
     features: dict
@@ -1306,6 +1311,43 @@ class ScatteringMeasure:
     def table(self) -> dict:
         return self.curve.table()
 
+    def tables(self) -> dict:
+        return {"scattering": self.curve.table()}
+
     def to_dict(self) -> dict:
         return {"probe": self.probe, "solid": self.solid, "fluid": self.fluid,
                 "features": self.features, **self.curve.to_dict()}
+
+    def brief(self) -> str:
+        po = self.features.get("porod", {})
+        porod = (f"Porod S/V {po['s_over_v_nm-1']:.4g} nm^-1" if po.get("s_over_v_nm-1")
+                 else "no Porod range")
+        n = len(self.features.get("bragg_peaks", {}).get("q_nm-1", []))
+        lo, hi = self.curve.q_valid
+        return f"{self.probe}s, q {lo:.3g}-{hi:.3g} nm^-1, {porod}, {n} peaks"
+
+
+def describe_sheets(split) -> str:
+    """How the sheets' SLD was obtained (material model), for figures and JSON."""
+    h = split.hydrate
+    return (f"sheets = {h.formula} at {h.density:g} g/cm3 less its interlayer water "
+            f"({100 * split.interlayer_share:.1f} % of the C-S-H volume): layer density "
+            f"{split.layer_density:.4g} g/cm3")
+
+
+def scattering_measure(grid, *, hydrate: Hydrate | None = None, max_memory: int | None = None,
+                       probe: str = "neutron", fluid: str = "h2o") -> ScatteringMeasure:
+    """The predicted curve of a phase grid with its features, as ``sheetview measure``
+    reports it: the sheets get the layer SLD of the material model (``hydrate``, default
+    Allen, Thomas & Jennings 2007, less the interlayer water the grid resolves:
+    :mod:`sheetview.material`), interlayer, gel pores and the outside the pore fluid
+    (``fluid``: H2O by default); the invariant's φ is the solid fraction of the grid box
+    (the volume the intensity is per)."""
+    hydrate = Hydrate() if hydrate is None else hydrate
+    counts = np.bincount(grid.labels.ravel(), minlength=256)
+    split = hydrate.split(interlayer_share({"solid": counts[SOLID],
+                                            "interlayer": counts[INTERLAYER]}))
+    slds = phase_slds(split.layer_sld(probe), preset_sld(fluid, probe))
+    res = scattering_curve(grid, slds, max_memory=max_memory)
+    phi = float(counts[SOLID] / grid.labels.size)
+    return ScatteringMeasure(res, curve_features(res, phi), probe, describe_sheets(split), fluid)
