@@ -34,8 +34,9 @@ DEFAULTS = {
     "pore_split": (), "intrusion": False,
     # chords
     "lines": 20000, "seed": 0,
-    # two-point correlation: largest block (voxels per side) it is computed on
-    "s2_block": 160, "s2_rmax": None,
+    # two-point correlation: over the whole domain unless a central block (voxels per
+    # side) is asked for; largest r (nm), default pipeline.default_s2_rmax
+    "s2_block": None, "s2_rmax": None,
 }
 
 #: Names of the pore classes made by ``pore_split`` (smallest first). After Muller et al.
@@ -289,16 +290,78 @@ def run_chords(ctx: Context):
 
 
 def run_correlation(ctx: Context):
-    from .measures.correlation import two_point_correlation
+    """S2 of the solid over the whole domain (OUTSIDE voxels excluded through the window),
+    so S2(0) is the solid fraction ``phases`` reports. ``s2_rmax`` (nm) bounds the lags
+    transformed for (default :func:`default_s2_rmax`). A central block is used only when
+    ``s2_block`` (voxels per side) asks for one, or when the domain's padded transform
+    would exceed :data:`S2_WHOLE_POINTS` points (time) or ``max_memory`` bytes (default
+    :data:`sheetview.measures.correlation.DEFAULT_MAX_BYTES`): the largest central cube
+    within both. The result then names the block as its reference volume, and a note says
+    why."""
+    from dataclasses import replace
+
+    from .measures.correlation import DEFAULT_MAX_BYTES, two_point_correlation
     g = ctx.grid
-    n = int(ctx.settings["s2_block"])
-    sub, note = central_block(g, n)
+    limit = int(ctx.settings["max_memory"] or DEFAULT_MAX_BYTES)
     rmax = ctx.settings["s2_rmax"]
-    if rmax is None:
-        rmax = 0.5 * float(min(np.asarray(sub.shape) * np.asarray(sub.spacing)))
-    res = ctx.stage("two-point correlation", two_point_correlation, sub, (SOLID,), r_max=rmax)
-    return Bundle({"s2_solid": res}, {"block_voxels": list(sub.shape)},
-                  [note] if note else [])
+    rmax = default_s2_rmax(g) if rmax is None else float(rmax)
+    block = ctx.settings["s2_block"]
+    note = None
+
+    def fits(shape, periodic):
+        pts, nbytes = _s2_cost(shape, g.spacing, periodic, rmax)
+        return pts <= S2_WHOLE_POINTS and nbytes <= limit
+
+    if block is None:
+        sub = g
+        if not fits(g.shape, g.periodic):
+            n = max(g.shape)
+            while n > 16 and not fits(np.minimum(g.shape, n), False):
+                n = int(n * 0.95)
+            sub, note = central_block(g, n)
+            pts, nbytes = _s2_cost(g.shape, g.spacing, g.periodic, rmax)
+            note = (f"two-point correlation {note}, not the whole domain: its padded transform "
+                    f"would have {pts / 1e6:.0f} M points (at most {S2_WHOLE_POINTS / 1e6:.0f} M "
+                    f"for time) and need {nbytes / 1e9:.1f} GB (max_memory "
+                    f"{limit / 1e9:.1f} GB); phi and S2 are fractions of the block")
+    else:
+        sub, note = central_block(g, int(block))
+        if note:
+            note = (f"two-point correlation {note} (s2_block), not the whole domain; phi and "
+                    "S2 are fractions of the block")
+    res = ctx.stage("two-point correlation", two_point_correlation, sub, (SOLID,), r_max=rmax,
+                    max_bytes=limit)
+    figures = {"reference": "domain", "r_max_nm": float(rmax)}
+    if note:
+        res = replace(res, reference="central block", notes=res.notes + [note])
+        figures.update(reference="central block", block_voxels=list(sub.shape))
+    return Bundle({"s2_solid": res}, figures, [note] if note else [])
+
+
+#: Cap of the default S2 range in voxels (see :func:`default_s2_rmax`).
+S2_RMAX_VOXELS = 80
+#: Largest padded transform (points) `measure` runs S2 on: 512^3, about 4 s for the
+#: phase and the window of a 432^3 grid on 2 cores (docs/performance.md); beyond, a block.
+S2_WHOLE_POINTS = 512 ** 3
+
+
+def default_s2_rmax(g: PhaseGrid) -> float:
+    """Largest r (nm) of `measure`'s S2: half the grid's smallest extent, at most
+    :data:`S2_RMAX_VOXELS` voxels (the FFT is padded by that many voxels per axis)."""
+    sp = np.asarray(g.spacing, float)
+    return float(min(0.5 * float((np.asarray(g.shape) * sp).min()), S2_RMAX_VOXELS * sp.max()))
+
+
+def _s2_cost(shape, spacing, periodic: bool, rmax: float) -> tuple:
+    """(padded points, FFT work bytes with a window) of S2 on a grid of ``shape`` up to
+    ``rmax`` (the reach of :func:`sheetview.measures.correlation.two_point_correlation`)."""
+    from .measures.correlation import padded_shape, work_bytes
+    sp = np.broadcast_to(np.asarray(spacing, float), (3,))
+    shape = np.asarray(shape)
+    reach = np.minimum(np.maximum(np.ceil((rmax + 0.5 * sp.max()) / sp + 1e-9), 2), shape - 1)
+    reach = tuple(int(r) for r in reach)
+    pts = float(np.prod(padded_shape(tuple(shape), reach, periodic), dtype=np.float64))
+    return pts, work_bytes(tuple(shape), reach, periodic, True)
 
 
 def run_scattering(ctx: Context):
