@@ -104,15 +104,17 @@ def test_crossing_counts_match_direct_counts():
     and periodic wrap (independent numpy path)."""
     from sheetview.measures.correlation import _cross_counts
     rng = np.random.default_rng(7)
-    lab = rng.choice([SOLID, GEL], size=(23, 19, 21)).astype(np.uint8)
-    lab[rng.random(lab.shape) < 0.05] = OUTSIDE
-    lab[15:, 10:, :] = OUTSIDE
+    one = rng.choice([SOLID, GEL], size=(23, 19, 21)).astype(np.uint8)
+    one[rng.random(one.shape) < 0.05] = OUTSIDE
+    one[15:, 10:, :] = OUTSIDE
+    two = rng.choice([SOLID, GEL], size=(25, 26, 22)).astype(np.uint8)
+    two[-1] = OUTSIDE  # reached only across the periodic wrap from the first layers
     inphase = np.zeros(256, bool)
     inphase[SOLID] = True
     lags = np.array([[1, 0, 0], [-2, 1, 0], [2, 2, -2], [0, -1, 2], [-1, -1, -1]])
-    m = lab == SOLID
-    w = lab != OUTSIDE
-    for periodic in (False, True):
+    for lab, periodic in ((one, False), (one, True), (two, False), (two, True)):
+        m = lab == SOLID
+        w = lab != OUTSIDE
         got = _cross_counts(lab, inphase, lags, periodic, int(m.sum()))
         for k, g in zip(lags, got):
             if periodic:

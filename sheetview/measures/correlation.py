@@ -486,14 +486,12 @@ def _cross_counts(labels, inphase, lags, periodic, n_phase):
             for dk in (-1, 0, 1):
                 dirty |= pad[1 + di:pad.shape[0] - 1 + di, 1 + dj:pad.shape[1] - 1 + dj,
                              1 + dk:pad.shape[2] - 1 + dk]
-    if not periodic:
-        # blocks within the reach of a grid face
-        for ax, n in enumerate(labels.shape):
-            idx = [slice(None)] * 3
-            lo = np.arange(dirty.shape[ax]) * b
-            near = (lo < r) | (np.minimum(lo + b, n) > n - r)
-            idx[ax] = near
-            dirty[tuple(idx)] = True
+    # blocks within the reach of a grid face (off the grid, or wrapped onto the far face)
+    for ax, n in enumerate(labels.shape):
+        idx = [slice(None)] * 3
+        lo = np.arange(dirty.shape[ax]) * b
+        idx[ax] = (lo < r) | (np.minimum(lo + b, n) > n - r)
+        dirty[tuple(idx)] = True
     # only blocks with an OUTSIDE voxel or a grid face within reach can miss a partner
     blocks = np.argwhere(dirty).astype(np.int64)
     miss = _lag_misses(labels, inphase, np.ascontiguousarray(lags, np.int64), blocks, b,
