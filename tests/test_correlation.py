@@ -192,3 +192,26 @@ def test_measure_uses_the_whole_domain():
     ctx = _ctx({"max_memory": 3_000_000})
     b = run_correlation(ctx)
     assert b.figures["reference"] == "central block" and "max_memory" in b.notes[0]
+
+
+@pytest.mark.parametrize("shape", [(21, 20, 17), (16, 17, 18)])
+def test_symmetric_window_transform_matches_direct_counts(shape):
+    """A window mirror-symmetric along each axis (an ellipsoid; odd and even sizes) is
+    detected as such (and one voxel off breaks it), and its octant transform gives the
+    window pair counts of direct numpy counting at the kept lags (naive reference)."""
+    from sheetview.measures.correlation import (_reach, _symmetric_autocorrelation,
+                                                _window_mirror_symmetric, padded_shape)
+    c = [(np.arange(n) + 0.5 - n / 2) for n in shape]
+    w = (c[0][:, None, None] ** 2 / 1.1 + c[1][None, :, None] ** 2
+         + c[2][None, None, :] ** 2 / 0.9) <= (min(shape) / 2) ** 2
+    lab = np.where(w, GEL, OUTSIDE).astype(np.uint8)
+    assert _window_mirror_symmetric(lab)
+    lab[0, 0, 0] = GEL
+    assert not _window_mirror_symmetric(lab)
+    rch = _reach(shape, (5, 7, 4))
+    cw = _symmetric_autocorrelation(w, padded_shape(shape, rch), rch, 1)
+    assert cw.shape == (11, 15, 9)
+    for d in [(0, 0, 0), (5, -7, 4), (-3, 2, 0), (1, 1, -1), (0, 7, -4), (-5, -1, -2)]:
+        sa = tuple(slice(max(0, -k), n - max(0, k)) for k, n in zip(d, shape))
+        sb = tuple(slice(max(0, k), n - max(0, -k)) for k, n in zip(d, shape))
+        assert cw[d] == (w[sa] & w[sb]).sum()
