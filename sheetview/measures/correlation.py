@@ -486,18 +486,24 @@ def s2_map(mask: np.ndarray, window: np.ndarray | None = None, periodic: bool = 
 
 # --------------------------------------------------------------- slope at the origin
 @numba.njit(cache=True, parallel=True)
-def _block_has_outside(labels, b):
-    """True for each block of ``b^3`` voxels holding an OUTSIDE voxel."""
+def _block_flags(labels, inphase, b):
+    """For each block of ``b^3`` voxels: whether it holds an OUTSIDE voxel, and whether it
+    holds a phase voxel."""
     n0, n1, n2 = labels.shape
     nb0 = (n0 + b - 1) // b
-    out = np.zeros((nb0, (n1 + b - 1) // b, (n2 + b - 1) // b), np.bool_)
+    shp = (nb0, (n1 + b - 1) // b, (n2 + b - 1) // b)
+    out = np.zeros(shp, np.bool_)
+    ph = np.zeros(shp, np.bool_)
     for bi in numba.prange(nb0):
         for i in range(bi * b, min(n0, bi * b + b)):
             for j in range(n1):
                 for k in range(n2):
-                    if labels[i, j, k] == 0:
+                    v = labels[i, j, k]
+                    if v == 0:
                         out[bi, j // b, k // b] = True
-    return out
+                    elif inphase[v]:
+                        ph[bi, j // b, k // b] = True
+    return out, ph
 
 
 @numba.njit(cache=True, parallel=True)
@@ -540,7 +546,7 @@ def _cross_counts(labels, inphase, lags, periodic, n_phase):
     """``C_IW(k) = #{x in phase : x + k inside the domain}`` at small lags ``k``."""
     r = int(np.abs(lags).max())
     b = max(4, r)
-    has_out = _block_has_outside(labels, b)
+    has_out, has_phase = _block_flags(labels, inphase, b)
     dirty = has_out.copy()
     # a block is dirty if it or a neighbour holds an OUTSIDE voxel (b >= reach)
     pad = np.pad(has_out, 1)
@@ -555,8 +561,9 @@ def _cross_counts(labels, inphase, lags, periodic, n_phase):
         lo = np.arange(dirty.shape[ax]) * b
         idx[ax] = (lo < r) | (np.minimum(lo + b, n) > n - r)
         dirty[tuple(idx)] = True
-    # only blocks with an OUTSIDE voxel or a grid face within reach can miss a partner
-    blocks = np.argwhere(dirty).astype(np.int64)
+    # only phase voxels of blocks with an OUTSIDE voxel or a grid face within reach can
+    # miss a partner
+    blocks = np.argwhere(dirty & has_phase).astype(np.int64)
     miss = _lag_misses(labels, inphase, np.ascontiguousarray(lags, np.int64), blocks, b,
                        bool(periodic))
     return n_phase - miss.astype(np.float64)
