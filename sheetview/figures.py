@@ -140,9 +140,13 @@ def plot_chords(ch, ax=None):
 def plot_s2(cor, ax=None):
     """Two-point correlation of the solid, with φ² marked."""
     fig, (a,) = new_figure((5, 3.6), 1, ax)
-    r = cor.parts["s2_solid"]
-    a.plot(r.r, r.s2, "o-", ms=2)
+    r = cor.s2_solid
+    a.plot(r.r, r.s2, "o-", ms=2, label=f"S₂ ({cor.reference})")
     a.axhline(r.phi ** 2, color="0.5", ls=":", label="φ²")
+    if np.isfinite(r.slope0):
+        rr = np.linspace(0.0, min(float(r.r[-1]), r.phi / max(-r.slope0, 1e-12)), 20)
+        a.plot(rr, r.phi + r.slope0 * rr, "--", color="C3", lw=1,
+               label=f"slope −S_V/4, S_V = {r.specific_surface:.3g} nm⁻¹")
     a.set_xlabel("r (nm)")
     a.set_ylabel("S₂(r) of the solid")
     a.legend(fontsize=8)

@@ -298,7 +298,7 @@ def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
 
     cor = results.get("correlation")
     if cor is not None:
-        written.append(write_csv(out / "s2_solid.csv", cor.parts["s2_solid"].table()))
+        written.append(write_csv(out / "s2_solid.csv", cor.s2_solid.table()))
 
     sc = results.get("scattering")
     if sc is not None:

@@ -375,7 +375,7 @@ def test_key_hashes_exactly_the_number_settings():
     """The result key changes with every setting that changes a number and not with
     --max-memory (which only decides whether a grid may be built); defaults given
     explicitly give the key of defaults left out (derived: canonical JSON of the settings
-    completed with pipeline.DEFAULTS)."""
+    completed with the Settings defaults)."""
     from sheetview.batch import key_settings
     from sheetview.cli.measure import NO_NUMBER_SETTINGS, SETTINGS, measure_settings
     sha = "ab" * 32

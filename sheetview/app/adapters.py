@@ -124,32 +124,6 @@ def chords(grid: PhaseGrid, *, geometry=None, lines: int = 20000, seed: int = 0)
     return Chords({"exact": exact, "voxel_solid": solid, "voxel_pore": pore}, figures, notes)
 
 
-def central_block(g: PhaseGrid, n: int):
-    """The central block of at most ``n`` voxels per side (the grid itself if smaller)."""
-    shape = np.asarray(g.shape)
-    if np.all(shape <= n):
-        return g, None
-    m = np.minimum(shape, n)
-    lo = (shape - m) // 2
-    sl = tuple(slice(int(a), int(a + b)) for a, b in zip(lo, m))
-    origin = np.asarray(g.origin) + lo * np.asarray(g.spacing)
-    sub = PhaseGrid(np.ascontiguousarray(g.labels[sl]), g.spacing, tuple(origin), g.names,
-                    periodic=False, metadata={}, source=g.source)
-    return sub, (f"computed on the central {m[0]} x {m[1]} x {m[2]} voxel block "
-                 f"({m[0] * g.spacing[0]:.3g} nm across) of the {shape[0]} x {shape[1]} x "
-                 f"{shape[2]} grid")
-
-
-def correlation(grid: PhaseGrid, *, s2_block: int = 160, s2_rmax: float | None = None):
-    from ..measures.correlation import two_point_correlation
-    sub, note = central_block(grid, int(s2_block))
-    rmax = s2_rmax
-    if rmax is None:
-        rmax = 0.5 * float(min(np.asarray(sub.shape) * np.asarray(sub.spacing)))
-    res = two_point_correlation(sub, (SOLID,), r_max=rmax)
-    return Bundle({"s2_solid": res}, {"block_voxels": list(sub.shape)}, [note] if note else [])
-
-
 def relaxation(grid: PhaseGrid, *, thickness=None, interlayer_width=None):
     """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the phase grid
     (each size class apart) with the default surface relaxivity and bulk T2."""

@@ -143,7 +143,7 @@ register("pores", f"{_A}:pores", "grid",
          "pore sizes: local thickness and simulated intrusion, d10/d50/d90")
 register("chords", f"{_A}:chords", "grid",
          "chord lengths of solid and pore on isotropic random lines, Cauchy 4V/S")
-register("correlation", f"{_A}:correlation", "grid",
+register("correlation", f"{_M}.correlation:correlation_measure", "grid",
          "two-point correlation S2(r) of the solid and its slope at the origin")
 register("scattering", f"{_M}.scattering:scattering_measure", "grid",
          "predicted SANS curve I(q) (neutrons, C-S-H in H2O): slopes, Porod, Guinier, "

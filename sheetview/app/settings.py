@@ -97,10 +97,13 @@ class Settings:
                     group="chords")
     seed: int = _f(0, "", "Seed of the random lines.", metavar="N", group="chords")
     # two-point correlation (sheetview.measures.correlation)
-    s2_block: int = _f(160, "voxels", "Largest block (voxels per side) the two-point "
-                       "correlation is computed on.", metavar="N", group="correlation")
+    s2_block: int | None = _f(None, "voxels", "Compute the two-point correlation on the "
+                              "central block of this many voxels per side instead of the whole "
+                              "domain (default: the whole domain while its transform fits).",
+                              metavar="N", group="correlation")
     s2_rmax: float | None = _f(None, "nm", "Largest distance of the two-point correlation "
-                               "(default half the block).", group="correlation")
+                               "(default half the smallest extent, at most 80 voxels).",
+                               group="correlation")
 
     def __post_init__(self):
         from ..measures.stacking import StackingSettings
@@ -144,10 +147,11 @@ class Settings:
         if not 0 <= self.seed < 2 ** 63:
             raise OptionError(f"must be a whole number from 0 to 2**63 - 1, got {self.seed}",
                               param="seed")
-        set_("s2_block", _whole("s2_block", self.s2_block))
-        if not 8 <= self.s2_block <= 4096:
-            raise OptionError(f"must be between 8 and 4096 voxels, got {self.s2_block}",
-                              param="s2_block")
+        if self.s2_block is not None:
+            set_("s2_block", _whole("s2_block", self.s2_block))
+            if not 8 <= self.s2_block <= 4096:
+                raise OptionError(f"must be between 8 and 4096 voxels, got {self.s2_block}",
+                                  param="s2_block")
         if self.s2_rmax is not None:
             r = _number("s2_rmax", self.s2_rmax)
             if not r > 0:

@@ -1,5 +1,5 @@
-"""Validation of chord lengths and the two-point correlation against closed forms of
-integral geometry and the Boolean model."""
+"""Validation of chord lengths against closed forms of integral geometry and the Boolean
+model (the two-point correlation: test_correlation_validation.py)."""
 import numpy as np
 import pytest
 import trimesh
@@ -8,7 +8,6 @@ from scipy import stats
 from sheetview.domain import Box, Sphere
 from sheetview.grid import GEL, SOLID, PhaseGrid
 from sheetview.measures.chords import exact_chords, voxel_chords
-from sheetview.measures.correlation import two_point_correlation
 from sheetview.measures.surface import minkowski_functionals
 from sheetview.structure import Structure, SurfaceBody
 
@@ -173,33 +172,3 @@ def test_boolean_porosity_surface_chords(boolean_grid):
     # exponential shape: coefficient of variation of an exponential is 1
     L = ch.chords("pore")
     assert L.std() / L.mean() == pytest.approx(1.0, abs=0.08)
-
-
-def test_boolean_two_point_correlation(boolean_grid):
-    """S2(0) = phi, S2(r large) -> phi^2 (Torquato, Random Heterogeneous Materials, 2002),
-    S2'(0) = -s/4 with s the specific surface (Debye, Anderson & Brumberger, J. Appl.
-    Phys. 28 (1957) 679) compared with the Crofton surface (3 %); and the Boolean void
-    function phi^(1 + 3r/(4R) - r^3/(16R^3)) at r = R (from memory; 0.01 absolute)."""
-    g, m, lam, R = boolean_grid
-    res = two_point_correlation(g, GEL)
-    phi = 1 - m.mean()
-    assert res.s2[0] == pytest.approx(phi, abs=1e-9)
-    assert res.s2[-1] == pytest.approx(phi ** 2, abs=0.01)
-    mf = minkowski_functionals(~m, g.spacing, periodic=True)
-    assert res.specific_surface == pytest.approx(mf.densities["S_V"], rel=0.03)
-    k = np.argmin(np.abs(res.r - R))
-    r = res.r[k]
-    assert res.s2[k] == pytest.approx(phi ** (1 + 3 * r / (4 * R) - r ** 3 / (16 * R ** 3)), abs=0.01)
-
-
-def test_s2_nonperiodic_matches_periodic(boolean_grid):
-    """Zero-padded FFT with overlap-count normalisation (the grid treated as non-periodic)
-    agrees with the circular S2 of the periodic Boolean model at r <= 8 nm within 0.005
-    (both estimate the same S2 of a stationary medium; Torquato 2002); S2(0) = phi exactly."""
-    g, m, lam, R = boolean_grid
-    a = two_point_correlation(g, GEL, r_max=8)
-    gn = PhaseGrid(g.labels, spacing=g.spacing, periodic=False)
-    b = two_point_correlation(gn, GEL, r_max=8)
-    assert b.s2[0] == pytest.approx(1 - m.mean(), abs=1e-12)
-    assert np.allclose(a.r, b.r, atol=0.05)
-    assert np.max(np.abs(a.s2 - b.s2)) < 0.005
