@@ -245,46 +245,44 @@ def run_pores(ctx: Context):
 
 
 def run_chords(ctx: Context):
-    from .measures.chords import exact_chords, voxel_chords
+    """Chords of solid and pore under isotropic uniform random lines (``lines``, ``seed``),
+    one definition for every input: exact chords of prisms or a closed body, or the same
+    kind of lines through the voxel grid (volumes; a body in a periodic box). Volumes also
+    get the axis-row run lengths as a named extra (``voxel_rows``). The Cauchy figures
+    4V/S come from the phase grid alone (:func:`~sheetview.measures.chords.cauchy_figures`),
+    whatever other measures run."""
+    from .measures.chords import cauchy_figures, exact_chords, grid_chords, voxel_rows
     s = ctx.settings
     g = ctx.grid
-    exact = None
+    exact = lines = rows = None
     notes = []
     if isinstance(ctx.obj, (Structure, SurfaceBody)):
         body = ctx.obj
         if isinstance(body, SurfaceBody) and getattr(body.domain, "periodic", False):
-            notes.append("closed body in a periodic box: exact chords not available")
+            notes.append("closed body in a periodic box: exact chords not available; "
+                         "isotropic random lines through the phase grid instead")
         else:
             exact = ctx.stage("exact chords", exact_chords, body, int(s["lines"]), s["seed"])
-    solid = pore = None
-    if exact is None:  # voxel rows only where no exact geometry is given (volumes)
-        solid = ctx.stage("voxel chords", voxel_chords, g, (SOLID,), name="solid")
-        pore = ctx.stage("voxel chords", voxel_chords, g, (INTERLAYER,) + ctx.pore_codes,
-                         name="pore")
+    if exact is None:
+        lines = ctx.stage("voxel line chords", grid_chords, g, int(s["lines"]), s["seed"])
+        if isinstance(ctx.obj, PhaseGrid):
+            rows = ctx.stage("voxel row chords", voxel_rows, g)
+    head = exact if exact is not None else lines
     figures = {}
-    for ph, vox in (("solid", solid), ("pore", pore)):
-        src = exact if exact is not None else vox
-        figures[f"{ph}_mean_nm"] = _finite(src.mean(ph))
-        figures[f"{ph}_mean_all_nm"] = _finite(src.mean(ph, include_cut=True))
-    figures["source"] = ("exact isotropic random lines" if exact is not None
-                         else "voxel rows (x, y, z)")
+    for ph in ("solid", "pore"):
+        figures[f"{ph}_mean_nm"] = _finite(head.mean(ph))
+        figures[f"{ph}_mean_all_nm"] = _finite(head.mean(ph, include_cut=True))
+    if exact is not None:
+        what = "prisms" if isinstance(ctx.obj, Structure) else "closed mesh"
+        figures["source"] = f"isotropic random lines, exact {what} geometry"
+    else:
+        figures["source"] = ("voxel grid: isotropic random lines, boundary at the "
+                             "interpolated signed distance")
     # Cauchy: mean of all chords of a phase = 4 V / S, S its whole boundary (Santaló 1976)
-    sur = ctx.results.get("surface")
-    if sur is not None:
-        a = sur.parts["interfaces"].areas
-        vols = sur.parts["interfaces"].volumes
-        vs = vols.get("solid", 0.0)
-        vp = sum(v for k, v in vols.items() if k != "solid")
-        a_sp = sur.figures["solid_void_area_nm2"]
-        a_so = a.get("solid-outside", 0.0)
-        from .measures.surface import interface_areas_with
-        a_po = 0.0
-        if not g.periodic:
-            with_outside = ctx.stage("Cauchy figures", interface_areas_with, g, OUTSIDE)
-            a_po = float(sum(with_outside[c] for c in (INTERLAYER,) + ctx.pore_codes))
-        figures["cauchy_solid_4v_over_s_nm"] = _finite(4 * vs / (a_sp + a_so)) if a_sp + a_so else None
-        figures["cauchy_pore_4v_over_s_nm"] = _finite(4 * vp / (a_sp + a_po)) if a_sp + a_po else None
-    parts = {"exact": exact, "voxel_solid": solid, "voxel_pore": pore}
+    cauchy = ctx.stage("Cauchy figures", cauchy_figures, g)
+    for ph in ("solid", "pore"):
+        figures[f"cauchy_{ph}_4v_over_s_nm"] = _finite(cauchy.figures[ph])
+    parts = {"exact": exact, "voxel_lines": lines, "voxel_rows": rows, "cauchy": cauchy}
     return Bundle(parts, figures, notes)
 
 

@@ -359,9 +359,8 @@ def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
             written.append(plot_pore_sizes(pores, out / "pore_sizes.png"))
     ch = results.get("chords")
     if ch is not None:
-        src = ch.parts["exact"]
+        res = ch.parts["exact"] if ch.parts["exact"] is not None else ch.parts["voxel_lines"]
         for ph_name in ("solid", "pore"):
-            res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
             if ph_name in res.lengths:
                 written.append(write_csv(out / f"chords_{ph_name}.csv", {
                     "length_nm": res.lengths[ph_name], "cut": res.cut[ph_name].astype(np.int8),
@@ -480,8 +479,8 @@ def plot_chords(ch, path, force=False):
     plt = _pyplot()
     fig, ax = plt.subplots(1, 2, figsize=(9, 3.6))
     src = ch.parts["exact"]
+    res = src if src is not None else ch.parts["voxel_lines"]
     for a, ph_name in zip(ax, ("solid", "pore")):
-        res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
         L = res.chords(ph_name) if ph_name in res.lengths else np.zeros(0)
         if L.size:
             a.hist(L, bins=60, density=True, color="#0072b2" if ph_name == "solid" else "#e69f00")
@@ -489,7 +488,8 @@ def plot_chords(ch, path, force=False):
             a.legend(fontsize=8)
         a.set_xlabel(f"{ph_name} chord length (nm)")
         a.set_ylabel("probability density (nm⁻¹)")
-    how = "isotropic random lines (exact)" if src is not None else "voxel rows along x, y, z"
+    how = ("isotropic random lines (exact)" if src is not None
+           else "isotropic random lines through the voxel grid")
     fig.suptitle(f"Chords not cut by the domain wall; {how}", fontsize=10)
     fig.tight_layout()
     _savefig(fig, path, force)

@@ -470,3 +470,84 @@ def test_signed_distance_matches_scipy(periodic):
         assert np.allclose(ch.signed_distance(g), ref, atol=1e-5)
     finally:
         ch._SLAB_VOXELS = old
+
+
+# --------------------------------------------------------------- the measure itself
+def _chord_docs(obj, settings):
+    import json
+
+    from sheetview.measures import run
+    out = []
+    for only in (["chords"], ["chords", "surface"], ["surface", "chords"]):
+        ctx = run(only, obj, settings)
+        out.append(json.dumps(ctx.results["chords"].to_dict(), sort_keys=True))
+    return out
+
+
+@pytest.mark.parametrize("kind", ["prisms", "volume"])
+def test_chord_results_do_not_depend_on_other_measures(kind):
+    """`measure --only chords`, `chords,surface` and `surface,chords` give identical chord
+    results (the Cauchy figures come from the grid, not from the surface measure), with a
+    finite Cauchy figure for both phases; a box domain's wall counts in the pore boundary."""
+    v, th = _random_prisms(40, 7, box=12.0)
+    s = Structure(v, th * 2, Box((0, 0, 0), (12, 12, 12)))
+    obj = s
+    settings = {"voxel": 0.25, "lines": 400, "seed": 1}
+    if kind == "volume":
+        from sheetview.grid import rasterize
+        obj = rasterize(s, 0.25)
+    docs = _chord_docs(obj, settings)
+    assert docs[0] == docs[1] == docs[2]
+    import json
+    d = json.loads(docs[0])
+    assert d["cauchy_solid_4v_over_s_nm"] > 0 and d["cauchy_pore_4v_over_s_nm"] > 0
+    assert d["cauchy"]["areas_nm2"]["pore-grid_edge"] > 0
+    if kind == "volume":
+        assert d["source"].startswith("voxel grid: isotropic random lines")
+        assert d["voxel_lines"]["method"] == "iur-voxels" and d["voxel_rows"] is not None
+    else:
+        assert d["source"] == "isotropic random lines, exact prisms geometry"
+        assert d["voxel_lines"] is None and d["voxel_rows"] is None
+
+
+def test_grid_chords_bad_options():
+    g = PhaseGrid(_random_labels((8, 9, 10), 0, outside=False))
+    from sheetview.measures.chords import cauchy_figures, grid_chords, voxel_rows
+    with pytest.raises(OptionError, match="boundary"):
+        grid_chords(g, 10, boundary="smooth")
+    with pytest.raises(OptionError, match="hysteresis"):
+        grid_chords(g, 10, hysteresis=0.5)
+    with pytest.raises(OptionError, match="n_lines"):
+        grid_chords(g, 0)
+    with pytest.raises(OptionError, match="solid"):
+        grid_chords(g, 10, solid=[0])
+    with pytest.raises(OptionError, match="domain"):
+        grid_chords(g, 10, domain=Box((0, 0, 0), (1, 1, 1), periodic=True))
+    with pytest.raises(OptionError, match="PhaseGrid"):
+        grid_chords(np.zeros((3, 3, 3)), 10)
+    with pytest.raises(OptionError, match="PhaseGrid"):
+        cauchy_figures(np.zeros((3, 3, 3)))
+    with pytest.raises(OptionError, match="axes"):
+        voxel_rows(g, axes=(4,))
+    with pytest.raises(OptionError, match="line_length"):
+        grid_chords(PhaseGrid(g.labels, periodic=True), 10, line_length=-1)
+
+
+def test_voxel_rows_match_loop():
+    """Pore run lengths along z (every label but OUTSIDE and solid: codes 2, 3, 4) and
+    their cut flags against a plain loop."""
+    from sheetview.measures.chords import voxel_rows
+    lab = _random_labels((6, 7, 15), 9, outside=True)
+    g = PhaseGrid(lab, spacing=(0.5, 1.0, 0.3))
+    r = voxel_rows(g, axes=(2,))
+    pore = (lab != SOLID) & (lab != OUTSIDE)
+    ref_len, ref_cut = [], []
+    for i in range(6):
+        for j in range(7):
+            for st, ln in _runs_loop(pore[i, j]):
+                ref_len.append(ln * 0.3)
+                ref_cut.append(st == 0 or st + ln == 15 or lab[i, j, st - 1] == OUTSIDE
+                               or lab[i, j, min(st + ln, 14)] == OUTSIDE)
+    assert np.allclose(r.lengths["pore"], ref_len)
+    assert r.cut["pore"].tolist() == ref_cut
+    assert any(ref_cut) and not all(ref_cut)

@@ -149,7 +149,8 @@ register("surface", f"{_P}:run_surface", "grid", ("density",),
 register("pores", f"{_P}:run_pores", "grid", ("intrusion",),
          "pore sizes: local thickness and simulated intrusion, d10/d50/d90")
 register("chords", f"{_P}:run_chords", "grid", ("lines", "seed"),
-         "chord lengths of solid and pore: exact random lines and voxel rows, Cauchy 4V/S")
+         "chord lengths of solid and pore along isotropic random lines (exact geometry, or "
+         "through the voxel grid for volumes), Cauchy 4V/S")
 register("correlation", f"{_P}:run_correlation", "grid", ("s2_block", "s2_rmax"),
          "two-point correlation S2(r) of the solid and its slope at the origin")
 register("scattering", f"{_P}:run_scattering", "grid", ("max_memory",),

@@ -963,9 +963,13 @@ def _mesh_run(o, u, tlo, thi, tseg, body, eps, n_threads):
 
 
 # ================================================== voxel chords along random lines
-#: Default hysteresis (voxels) of the interpolated boundary, as for 2D images
-#: (:data:`sheetview.measures.planar.HYSTERESIS_PX`).
-HYSTERESIS_VOXELS = 0.3
+#: Default hysteresis (voxels) of the interpolated boundary (2D images use 0.3 px,
+#: :data:`sheetview.measures.planar.HYSTERESIS_PX`). Measured on digitised balls of
+#: radius R = 10, 20, 40 voxels (100,000 lines each): at 0.2 the staircase still adds
+#: slivers (chord count +0.3 %, +0.5 % at R = 20, 40, growing with R); at 0.25 the count
+#: is within 0.2 % from R = 20 and the mean chord within 0.7 %, 0.2 %, 0.1 % of 4R/3; 0.3
+#: loses more of the short chords of grazing lines (mean +1.5 % at R = 10).
+HYSTERESIS_VOXELS = 0.25
 #: Boundary models of :func:`grid_chords`.
 BOUNDARIES = ("interpolated", "faces")
 #: |F| (voxels) at a valid corner of an interpolation cell beyond which the cell holds no
