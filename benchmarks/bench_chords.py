@@ -89,16 +89,26 @@ def trimesh_intervals(mesh, o, u, tlo, thi, engine):
     return out, dt
 
 
-def numpy_sampling(g, n_lines, seed, step=0.25):
-    """Reference: the lines of ``grid_chords`` (grid circumsphere, same seed), the voxel
-    label sampled every ``step`` voxels along each line, runs of solid between OUTSIDE
-    samples. Returns (solid run count, seconds)."""
+def grid_lines(g, n_all, n_lines, seed):
+    """The first ``n_lines`` of the ``n_all`` lines of ``grid_chords`` (grid circumsphere,
+    same seed): origins, directions, parameter interval in the grid."""
     sp = np.asarray(g.spacing)
     lo = np.asarray(g.origin)
     hi = lo + np.asarray(g.shape) * sp
     c, R = 0.5 * (lo + hi), 0.5 * float(np.linalg.norm(hi - lo))
-    o, u = iur_lines(n_lines, c, R * (1 + 1e-9), seed)
-    tlo, thi = _domain_interval(Box(tuple(lo), tuple(hi)), o, u, np.full(n_lines, 2 * R))
+    o, u = iur_lines(n_all, c, R * (1 + 1e-9), seed)
+    o, u = o[:n_lines], u[:n_lines]
+    tlo, thi = _domain_interval(Box(tuple(lo), tuple(hi)), o, u,
+                                np.full(n_lines, 2 * R * (1 + 1e-9)))
+    return o, u, tlo, thi
+
+
+def numpy_sampling(g, n_all, n_lines, seed, step=0.25):
+    """Reference: the voxel label sampled every ``step`` voxels along each of the first
+    ``n_lines`` lines, runs of solid samples counted. Returns (solid runs, seconds)."""
+    sp = np.asarray(g.spacing)
+    lo = np.asarray(g.origin)
+    o, u, tlo, thi = grid_lines(g, n_all, n_lines, seed)
     lab = g.labels
     n = np.asarray(g.shape)
     dt = step * float(sp.min())
@@ -132,6 +142,27 @@ def random_grid(n, seed=0, corr=3.0):
     return PhaseGrid(lab, spacing=0.25)
 
 
+def scipy_trilinear_sampling(g, F, n_all, n_lines, seed, step=0.25):
+    """Reference for the interpolated boundary: the first ``n_lines`` lines, the signed
+    distance interpolated by ``scipy.ndimage.map_coordinates`` (order 1) every ``step``
+    voxels, sign changes counted. Returns (sign changes, seconds)."""
+    from scipy.ndimage import map_coordinates
+    sp = np.asarray(g.spacing)
+    lo = np.asarray(g.origin)
+    o, u, tlo, thi = grid_lines(g, n_all, n_lines, seed)
+    dt = step * float(sp.min())
+    t0 = time.perf_counter()
+    count = 0
+    for i in range(n_lines):
+        if not tlo[i] < thi[i]:
+            continue
+        t = np.arange(tlo[i] + dt / 2, thi[i], dt)
+        q = (o[i] + t[:, None] * u[i] - lo) / sp - 0.5
+        v = map_coordinates(F, q.T, order=1, mode="nearest")
+        count += int(np.count_nonzero((v[1:] > 0) != (v[:-1] > 0)))
+    return count, time.perf_counter() - t0
+
+
 def grid_part(a):
     g = random_grid(a.grid)
     print(f"\nvoxel grid {g.shape[0]}^3 (Gaussian random field, porosity 0.5, OUTSIDE beyond "
@@ -141,7 +172,7 @@ def grid_part(a):
     best = {}
     for _ in range(max(1, a.repeat)):
         for name, fn in (
-                ("signed distance (edt, slabs)", lambda: signed_distance(g)),
+                ("signed distance (separable, capped)", lambda: signed_distance(g)),
                 ("grid_chords, interpolated (whole)", lambda: grid_chords(g, a.grid_lines, seed=a.seed)),
                 ("grid_chords, faces", lambda: grid_chords(g, a.grid_lines, seed=a.seed,
                                                             boundary="faces")),
@@ -152,7 +183,7 @@ def grid_part(a):
             if dt < best.get(name, (np.inf,))[0]:
                 best[name] = (dt, out)
     n_ref = max(1, a.grid_lines // 10)
-    cnt, t_ref = numpy_sampling(g, n_ref, a.seed)
+    cnt, t_ref = numpy_sampling(g, a.grid_lines, n_ref, a.seed)
     t_ref_all = t_ref * a.grid_lines / n_ref
     faces = best["grid_chords, faces"][1]
     n_faces = int(np.count_nonzero(faces.line["solid"] < n_ref))
@@ -162,11 +193,18 @@ def grid_part(a):
         print(f"{name:44s} {dt:10.2f} {n!s:>10s}")
     print(f"{'numpy sampling every 1/4 voxel (scaled)':44s} {t_ref_all:10.2f} "
           f"{'(' + str(n_ref) + ' lines run)':>10s}")
+    n_ref2 = max(1, a.grid_lines // 100)
+    _, t_ref2 = scipy_trilinear_sampling(g, best["signed distance (separable, capped)"][1],
+                                         a.grid_lines, n_ref2, a.seed)
+    t_ref2_all = t_ref2 * a.grid_lines / n_ref2
+    print(f"{'scipy map_coordinates(order=1), 1/4 voxel (scaled)':44s} {t_ref2_all:10.2f} "
+          f"{'(' + str(n_ref2) + ' lines run)':>10s}")
     t_int = best["grid_chords, interpolated (whole)"][0]
     t_fac = best["grid_chords, faces"][0]
     print(f"solid runs on the first {n_ref} lines: numpy sampling {cnt}, faces kernel {n_faces}")
-    print(f"speed-up over numpy sampling: faces {t_ref_all / t_fac:.1f}x, interpolated "
-          f"{t_ref_all / t_int:.1f}x; axis rows / interpolated lines: "
+    print(f"speed-up: faces over numpy label sampling {t_ref_all / t_fac:.1f}x; interpolated "
+          f"(whole) over scipy trilinear sampling {t_ref2_all / t_int:.1f}x, over numpy label "
+          f"sampling {t_ref_all / t_int:.1f}x; axis rows / interpolated lines: "
           f"{best['axis rows (voxel_rows)'][0] / t_int:.2f}")
 
 

@@ -544,10 +544,13 @@ class ChordResult:
     lengths : dict phase -> (n,) chord lengths, nm
     cut : dict phase -> (n,) bool, chord truncated by the domain wall / grid edge /
         OUTSIDE voxels / the end of a finite periodic line
-    line : dict phase -> (n,) int, index of the line (exact) or of the grid row (voxel)
-    axis : dict phase -> (n,) int axis 0/1/2 for voxel chords, -1 for IUR lines
+    line : dict phase -> (n,) int, index of the line (IUR lines) or of the grid row (axis
+        rows)
+    axis : dict phase -> (n,) int axis 0/1/2 for axis rows, -1 for IUR lines
     n_lines : lines cast (or grid rows scanned)
-    method : "iur-prisms", "iur-mesh", "iur-periodic-prisms" or "voxel-axes"
+    method : "iur-prisms", "iur-mesh", "iur-periodic-prisms" (exact), "iur-voxels",
+        "iur-periodic-voxels" (through a voxel grid; "-faces" appended for the union of
+        voxel cubes) or "voxel-axes" (axis rows)
     cauchy : dict phase -> 4 V / S (nm) where V and S are known, else NaN
     n_bad_lines : lines dropped (odd number of mesh crossings)
     """
@@ -1382,7 +1385,21 @@ def _trace_voxel_line(labels, F, lut, qx0, qy0, qz0, dx, dy, dz, t0, t1, periodi
                     skip = in_seg and ((cmin > 0.0) if state else (cmax < 0.0))
                     if skip:
                         fprev = c[0]
-                    else:
+                    elif in_seg and ((cmin > -tau) if state else (cmax < tau)):
+                        # no change of phase can happen in this cell; if the field also
+                        # leaves it on the side of the state, its zeros here do not matter
+                        # either (a change needs a later crossing away from the state)
+                        x1 = qx0 + tnext * dx - (ix0 + 0.5)
+                        y1 = qy0 + tnext * dy - (iy0 + 0.5)
+                        z1 = qz0 + tnext * dz - (iz0 + 0.5)
+                        fe = (((c[0] * (1 - x1) + c[1] * x1) * (1 - y1)
+                               + (c[2] * (1 - x1) + c[3] * x1) * y1) * (1 - z1)
+                              + ((c[4] * (1 - x1) + c[5] * x1) * (1 - y1)
+                                 + (c[6] * (1 - x1) + c[7] * x1) * y1) * z1)
+                        skip = (fe > 0.0) if state else (fe < 0.0)
+                        if skip:
+                            fprev = fe
+                    if not skip:
                         # local coordinates in the cell at tcur and their change
                         x0 = qx0 + tcur * dx - (ix0 + 0.5)
                         y0 = qy0 + tcur * dy - (iy0 + 0.5)
