@@ -546,3 +546,29 @@ def test_voxel_rows_match_loop():
     assert np.allclose(r.lengths["pore"], ref_len)
     assert r.cut["pore"].tolist() == ref_cut
     assert any(ref_cut) and not all(ref_cut)
+
+
+@pytest.mark.parametrize("periodic", [False, True])
+def test_cauchy_areas_equal_surface_interface_areas(periodic):
+    """The one-pass pair counts of cauchy_figures give the Crofton interface areas of
+    sheetview.measures.surface.interface_areas_with (the estimator of the surface
+    measure), label by label; volumes are voxel counts; the grid edge is counted exactly
+    (a non-periodic grid: the share of its outer faces, from numpy)."""
+    from sheetview.measures.chords import cauchy_figures
+    from sheetview.measures.surface import interface_areas_with
+    lab = _random_labels((13, 17, 11), 4, outside=True)
+    g = PhaseGrid(lab, spacing=(0.5, 0.7, 0.6), periodic=periodic)
+    cf = cauchy_figures(g)
+    ts, to = interface_areas_with(g, SOLID), interface_areas_with(g, OUTSIDE)
+    pore = [INTERLAYER, GEL, 4]
+    assert cf.areas["solid-pore"] == pytest.approx(ts[pore].sum(), rel=1e-12)
+    assert cf.areas["solid-outside"] == pytest.approx(ts[OUTSIDE], rel=1e-12)
+    assert cf.areas["pore-outside"] == pytest.approx(to[pore].sum(), rel=1e-12)
+    vv = 0.5 * 0.7 * 0.6
+    assert cf.volumes["solid"] == pytest.approx((lab == SOLID).sum() * vv)
+    assert cf.volumes["pore"] == pytest.approx(np.isin(lab, pore).sum() * vv)
+    faces = {0: 0.7 * 0.6, 1: 0.5 * 0.6, 2: 0.5 * 0.7}
+    edge = sum(faces[a] * np.count_nonzero(np.take(lab, i, axis=a) == SOLID)
+               for a in range(3) for i in (0, lab.shape[a] - 1))
+    assert cf.areas["solid-grid_edge"] == pytest.approx(0.0 if periodic else edge)
+    assert edge > 0

@@ -1823,6 +1823,49 @@ def _phase_volume_surface(grid: PhaseGrid, lut) -> tuple[float, float]:
     return float(counts[lut].sum() * grid.voxel_volume), S + _edge_area(grid, lut)
 
 
+@numba.njit(cache=True, parallel=True)
+def _class_pairs(lab, cls, dirs, periodic):
+    """Lattice-neighbour pairs ``x, x + d_q`` (13 directions, one of each +- pair) whose
+    classes (``cls``: 0 outside, 1 solid, 2 pore) differ, as (3, 13) counts of the pairs
+    outside-solid, outside-pore, solid-pore; and the voxel count of each class. Pairs
+    across the grid edge count only for periodic grids."""
+    nx, ny, nz = lab.shape
+    nd = dirs.shape[0]
+    nchunk = min(nx, 64)
+    out = np.zeros((nchunk, 3, nd), np.int64)
+    cnt = np.zeros((nchunk, 3), np.int64)
+    for ch in numba.prange(nchunk):
+        for i in range(ch * nx // nchunk, (ch + 1) * nx // nchunk):
+            for j in range(ny):
+                for k in range(nz):
+                    a = cls[lab[i, j, k]]
+                    cnt[ch, a] += 1
+                    for q in range(nd):
+                        i2 = i + dirs[q, 0]
+                        j2 = j + dirs[q, 1]
+                        k2 = k + dirs[q, 2]
+                        if periodic:
+                            if i2 < 0:
+                                i2 += nx
+                            elif i2 >= nx:
+                                i2 -= nx
+                            if j2 < 0:
+                                j2 += ny
+                            elif j2 >= ny:
+                                j2 -= ny
+                            if k2 < 0:
+                                k2 += nz
+                            elif k2 >= nz:
+                                k2 -= nz
+                        elif (i2 < 0 or j2 < 0 or k2 < 0 or i2 >= nx or j2 >= ny
+                              or k2 >= nz):
+                            continue
+                        b = cls[lab[i2, j2, k2]]
+                        if a != b:
+                            out[ch, a + b - 1, q] += 1
+    return out.sum(axis=0), cnt.sum(axis=0)
+
+
 @dataclass
 class CauchyFigures:
     """Cauchy mean chords ``4 V / S`` of the solid and the pore of a phase grid.
@@ -1869,25 +1912,26 @@ def cauchy_figures(grid: PhaseGrid, solid=(SOLID,)) -> CauchyFigures:
     plane reads 0.927 of its area); exact chords of prisms and chords of the voxel grid
     are checked against these figures in docs/validation.md.
     """
-    from .surface import interface_areas_with
+    from .surface import DIRECTIONS_13, direction_weights
 
     if not isinstance(grid, PhaseGrid):
         raise OptionError(f"expected a PhaseGrid, got {type(grid).__name__}")
     lut = _solid_lut(solid)
-    counts = np.bincount(grid.labels.ravel(), minlength=256)
+    lab = np.ascontiguousarray(grid.labels)
     pore = ~lut.copy()
     pore[OUTSIDE] = False
-    tab_s = np.zeros(256)
-    for a in np.flatnonzero((counts > 0) & lut):
-        tab_s += interface_areas_with(grid, int(a))
-    a_sp = float(tab_s[pore].sum())
-    a_so = float(tab_s[OUTSIDE])
-    a_po = 0.0
-    if counts[OUTSIDE]:
-        a_po = float(interface_areas_with(grid, OUTSIDE)[pore].sum())
+    # one pass over the grid: lattice-neighbour pairs of the three classes, per direction,
+    # weighted as in the Crofton sum of surface.interface_areas_with (which it equals)
+    cls = np.where(lut, 1, 2).astype(np.uint8)
+    cls[OUTSIDE] = 0
+    vec, w = direction_weights(grid.spacing)
+    f = 2.0 * w * grid.voxel_volume / np.linalg.norm(vec, axis=1)
+    pairs, counts = _class_pairs(lab, cls, np.asarray(DIRECTIONS_13, np.int64),
+                                 bool(grid.periodic))
+    a_so, a_po, a_sp = (float(x) for x in pairs @ f)
     e_s, e_p = _edge_area(grid, lut), _edge_area(grid, pore)
     vv = grid.voxel_volume
-    volumes = {"solid": float(counts[lut].sum() * vv), "pore": float(counts[pore].sum() * vv)}
+    volumes = {"solid": float(counts[1] * vv), "pore": float(counts[2] * vv)}
     areas = {"solid-pore": a_sp, "solid-outside": a_so, "pore-outside": a_po,
              "solid-grid_edge": e_s, "pore-grid_edge": e_p}
     surfaces = {"solid": a_sp + a_so + e_s, "pore": a_sp + a_po + e_p}
