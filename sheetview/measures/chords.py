@@ -1901,8 +1901,9 @@ def cauchy_figures(grid: PhaseGrid, solid=(SOLID,)) -> CauchyFigures:
 
     ``V``: voxel count x voxel volume. ``S``: the interfaces with the other phase and with
     OUTSIDE voxels (the wall of a spherical domain), Crofton estimates over the 13 lattice
-    directions (:func:`sheetview.measures.surface.interface_areas_with`; Ohser & Mücklich
-    2000), plus, for a non-periodic grid, the phase's share of the grid's outer faces,
+    directions (the sum of :func:`sheetview.measures.surface.interface_areas_with`, Ohser &
+    Mücklich 2000, counted for the three classes in one pass over the grid), plus, for a
+    non-periodic grid, the phase's share of the grid's outer faces,
     exact (the grid edge is the wall of a box domain, or the edge of the sample). A
     periodic grid has no wall. The result depends on the grid alone, never on which other
     measures ran.
