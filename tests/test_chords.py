@@ -471,18 +471,18 @@ def test_signed_distance_matches_scipy(periodic):
 def _chord_docs(obj, settings):
     import json
 
-    from sheetview.measures import run
+    from sheetview import measure
     out = []
     for only in (["chords"], ["chords", "surface"], ["surface", "chords"]):
-        ctx = run(only, obj, settings)
-        out.append(json.dumps(ctx.results["chords"].to_dict(), sort_keys=True))
+        m = measure(obj, only=only, **settings)
+        out.append(json.dumps(m.results["chords"].to_dict(), sort_keys=True))
     return out
 
 
 @pytest.mark.parametrize("kind", ["prisms", "volume"])
 def test_chord_results_do_not_depend_on_other_measures(kind):
-    """`measure --only chords`, `chords,surface` and `surface,chords` give identical chord
-    results (the Cauchy figures come from the grid, not from the surface measure), with a
+    """`sheetview.measure(obj, only=...)` (what `measure --only` runs) with chords,
+    chords + surface and surface + chords gives identical chord results (the Cauchy figures come from the grid, not from the surface measure), with a
     finite Cauchy figure for both phases; a box domain's wall counts in the pore boundary."""
     v, th = _random_prisms(40, 7, box=12.0)
     s = Structure(v, th * 2, Box((0, 0, 0), (12, 12, 12)))

@@ -39,7 +39,7 @@ def info(file, as_json, **read_opts):
     Warnings include prisms outside the domain, prisms crossing the wall, duplicated
     triangles and a missing domain.
     """
-    from ..summary import describe
+    from ..app.describe import describe
 
     obj = load(file, **read_opts)
     d = describe(obj)

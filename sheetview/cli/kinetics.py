@@ -54,7 +54,8 @@ def kinetics(path, bins, smooth, no_fit, t0, track, only, keys, voxel, csv_out, 
     """Growth kinetics of a structure from its 'born' column: progress alpha(t) (solid
     volume born by t over the final), the smoothed rate, t10/t50/t90 and an Avrami fit."""
     from ..io.output import check_writable
-    from ..measures.kinetics import progress, track as track_fn
+    from ..app.track import track as track_fn
+    from ..measures.kinetics import progress
     from ..report import write_csv
     outs = [p for p in (csv_out, rate_csv, track_csv, plot_out) if p]
     if len(set(map(str, outs))) != len(outs):

@@ -14,7 +14,7 @@ from pathlib import Path
 import click
 import numpy as np
 
-from .. import __version__
+from .._version import __version__
 from ..errors import OptionError
 from .common import dumps
 

@@ -17,7 +17,7 @@ def _parse_phases(text):
     bad = [n for n in names if n not in _PHASE_CHOICES]
     if not names or bad:
         raise OptionError(f"--solid-phases: expected names from {', '.join(_PHASE_CHOICES)}, "
-                          f"got {text!r}", field="solid_phases")
+                          f"got {text!r}", param="solid_phases")
     return tuple(names)
 
 
@@ -131,7 +131,7 @@ def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memo
     structure or volume, as PNG/TIFF with a scale bar."""
     from .. import pictures
     from ..measures.sections import parse_axis_or_normal, section
-    from ..view import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
+    from ..style import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
 
     phases = _parse_phases(solid_phases)
     n = parse_axis_or_normal(axis, normal)
@@ -324,6 +324,7 @@ def _plot_compare(mg, vi, cmp_, path, force, name_v, name_o):
 
     from ..io.output import atomic_path
     from ..pictures import grey_rgb
+    from ..style import BACKGROUND, section_rgb
     fig = Figure(figsize=(10, 7.0), dpi=100)
     FigureCanvasAgg(fig)
     gs = fig.add_gridspec(2, 4, height_ratios=[1.5, 1], hspace=0.45, wspace=0.35,
@@ -337,7 +338,9 @@ def _plot_compare(mg, vi, cmp_, path, force, name_v, name_o):
     ax.set_title(f"observed: {Path(name_o).name}", fontsize=8)
     ax.set_xlabel("nm", fontsize=8)
     ax2 = fig.add_subplot(gs[0, 2:4])
-    ax2.imshow(vi.picture, interpolation="nearest",
+    picture = (section_rgb(vi.image, background=BACKGROUND) if vi.kind == "section"
+               else grey_rgb(vi.image, vi.valid))
+    ax2.imshow(picture, interpolation="nearest",
                extent=(0, vi.mask.shape[1] * vi.pixel, 0, vi.mask.shape[0] * vi.pixel))
     ax2.set_title(f"virtual: {vi.label}", fontsize=8)
     ax2.set_xlabel("nm", fontsize=8)

@@ -7,9 +7,12 @@ is built from the second moment ``n n^T``:
     Q = sum_i w_i (3 n_i n_i^T - I) / 2 / sum_i w_i        (w_i = prism volume)
 
 the nematic order tensor of de Gennes (de Gennes & Prost, The Physics of Liquid Crystals,
-2nd ed., 1993). Its largest eigenvalue is the order parameter ``S`` (1 for perfect
-alignment, 0 for an isotropic set in the limit of many prisms, 1/4 for normals spread
-evenly over one plane); its eigenvector is the director.
+2nd ed., Oxford University Press, 1993). Its largest eigenvalue is the order parameter ``S``
+(1 for perfect alignment, 1/4 for normals spread evenly over one plane, 0 for an isotropic
+set only in the limit of many prisms: N isotropic normals give on average
+``(9/4) sqrt(2/(5 pi)) / sqrt(N) = 0.80 / sqrt(N)`` for large N, derived from the Gaussian
+limit of Q and checked in tests/validation/test_orientation_validation.py); its
+eigenvector is the director.
 """
 from __future__ import annotations
 
@@ -256,7 +259,9 @@ def lambert_xy(normals, axis=(0, 0, 1)):
     """Lambert azimuthal equal-area projection of sign-less normals about ``axis``:
     ``r = 2 sin(theta/2) = sqrt(2 (1 - cos theta))``, ``(x, y) = r (cos phi, sin phi)``;
     the upper hemisphere maps onto the disc of radius sqrt(2) preserving area
-    (Lambert 1772; Snyder, Map Projections: A Working Manual, USGS PP 1395, 1987, p. 182)."""
+    (Lambert 1772; Snyder, Map Projections: A Working Manual, USGS Professional Paper
+    1395, 1987, chapter on the Lambert azimuthal equal-area projection; the spherical
+    formulas are usually cited as pp. 185-186: page numbers not checked)."""
     ct, phi = polar_angles(normals, axis)
     r = np.sqrt(2.0 * (1.0 - ct))
     return r * np.cos(phi), r * np.sin(phi)
@@ -373,17 +378,17 @@ def orientation(structure, *, local_radius: float = DEFAULTS["local_radius"],
 
     References
     ----------
-    de Gennes & Prost, The Physics of Liquid Crystals (1993); Mardia & Jupp, Directional
-    Statistics (2000), for the Watson distribution used in validation.
+    de Gennes & Prost, The Physics of Liquid Crystals, 2nd ed. (1993); Mardia & Jupp,
+    Directional Statistics, Wiley (2000), for the Watson distribution used in validation.
     """
     from .stacking import _check_structure
     _check_structure(structure)
-    local_radius = positive(local_radius, "local radius", field="local_radius")
+    local_radius = positive(local_radius, "local radius", param="local_radius")
     if frame not in ("z", "director"):
-        raise OptionError(f"frame must be 'z' or 'director', got {frame!r}", field="frame")
+        raise OptionError(f"frame must be 'z' or 'director', got {frame!r}", param="frame")
     for name, v in (("n_cos", n_cos), ("n_phi", n_phi), ("pole_bins", pole_bins)):
         if int(v) != v or v < 1:
-            raise OptionError(f"{name} must be a positive whole number, got {v!r}", field=name)
+            raise OptionError(f"{name} must be a positive whole number, got {v!r}", param=name)
     n = len(structure)
     notes = []
     nrm = np.asarray(structure.normals, dtype=float)

@@ -151,8 +151,9 @@ def phase_grid_of(obj, settings: dict | None = None) -> PhaseGrid:
     ``max_memory``, stacking tolerances): the same grid ``sheetview measure`` uses."""
     if isinstance(obj, PhaseGrid):
         return obj
-    from ..pipeline import Context
-    return Context(obj, settings).base_grid
+    from ..app.run import phase_grid
+    from ..app.settings import Settings
+    return phase_grid(obj, Settings.of(settings))
 
 
 def section(obj, normal=(0.0, 0.0, 1.0), offset: float = 0.0, *, pixel: float | None = None,

@@ -65,7 +65,7 @@ class StackingSettings:
 
     def __post_init__(self):
         def bad(opt, msg):
-            raise OptionError(msg, field=opt)
+            raise OptionError(msg, param=opt)
 
         for name in ("angle_tol", "gap_tol", "overlap", "tilt_limit", "edge_tol", "spacing"):
             v = getattr(self, name)

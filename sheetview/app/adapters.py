@@ -1,0 +1,157 @@
+"""Measures whose entry functions still live here while their modules change.
+
+Each function is a measure of the registry: its subject is the phase grid, its other
+parameters come by name from the run (settings and shared inputs).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..grid import INTERLAYER, OUTSIDE, SOLID, PhaseGrid
+from ..structure import SurfaceBody
+
+
+@dataclass
+class Bundle:
+    """Several results of one measure, with a few headline figures."""
+
+    parts: dict
+    figures: dict = field(default_factory=dict)
+    notes: list = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        d = dict(self.figures)
+        for k, v in self.parts.items():
+            d[k] = None if v is None else v.to_dict()
+        if self.notes:
+            d["notes"] = list(self.notes)
+        return d
+
+
+def _finite(x):
+    return float(x) if x is not None and math.isfinite(x) else None
+
+
+def _pore_codes(g):
+    return tuple(sorted(c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)))
+
+
+class PoreSizes(Bundle):
+    def headline(self) -> dict:
+        lt = self.parts["local_thickness"]
+        it = self.parts["intrusion"]
+        return {"pore_size": {
+            "d10_nm": _finite(lt.d10) if lt else None, "d50_nm": _finite(lt.d50) if lt else None,
+            "d90_nm": _finite(lt.d90) if lt else None,
+            "intrusion_d50_nm": _finite(it.d50) if it else None}}
+
+
+def pores(grid: PhaseGrid, *, thickness=None, intrusion: bool = False):
+    from ..measures.pores import (default_reservoir, intrusion_diameter, local_thickness,
+                                  size_distribution)
+    g = grid
+    codes = _pore_codes(g)
+    names = tuple(g.names[c] for c in codes)
+    mask = np.isin(g.labels, codes)
+    if not mask.any():
+        return PoreSizes({"local_thickness": None, "intrusion": None},
+                         notes=["no gel pore space: pore sizes undefined"])
+    lt = thickness if thickness is not None else local_thickness(mask, g.spacing,
+                                                                 periodic=g.periodic)
+    parts = {"local_thickness": size_distribution(lt, voxel_size=g.spacing,
+                                                  method="local_thickness", phases=names),
+             "intrusion": None}
+    notes = []
+    if intrusion:
+        if g.periodic:
+            notes.append("periodic box: no reservoir at the boundary, so no intrusion distribution")
+        else:
+            m = ~np.isnan(lt)
+            res = default_reservoir(m, outside=g.labels == OUTSIDE)
+            d = intrusion_diameter(m, g.spacing, res)
+            parts["intrusion"] = size_distribution(d, voxel_size=g.spacing, method="intrusion",
+                                                   phases=names)
+    return PoreSizes(parts, notes=notes)
+
+
+class Chords(Bundle):
+    def headline(self) -> dict:
+        f = self.figures
+        return {"chords": {k: f.get(k) for k in ("solid_mean_nm", "pore_mean_nm", "source")}}
+
+
+def chords(grid: PhaseGrid, *, geometry=None, lines: int = 20000, seed: int = 0):
+    """Chords of solid and pore under isotropic uniform random lines (``lines``, ``seed``),
+    one definition for every input: exact chords of prisms or a closed body
+    (``geometry``), or the same kind of lines through the voxel grid (volumes; a body in a
+    periodic box). Volumes also get the axis-row run lengths as a named extra
+    (``voxel_rows``). The Cauchy figures 4V/S come from the phase grid alone
+    (:func:`~sheetview.measures.chords.cauchy_figures`, box walls included), whatever
+    other measures run."""
+    from ..measures.chords import cauchy_figures, exact_chords, grid_chords, voxel_rows
+    g = grid
+    exact = lines_res = rows = None
+    notes = []
+    if geometry is not None:
+        if isinstance(geometry, SurfaceBody) and getattr(geometry.domain, "periodic", False):
+            notes.append("closed body in a periodic box: exact chords not available; "
+                         "isotropic random lines through the phase grid instead")
+        else:
+            exact = exact_chords(geometry, int(lines), seed)
+    if exact is None:
+        lines_res = grid_chords(g, int(lines), seed)
+        if geometry is None:
+            rows = voxel_rows(g)
+    head = exact if exact is not None else lines_res
+    figures = {}
+    for ph in ("solid", "pore"):
+        figures[f"{ph}_mean_nm"] = _finite(head.mean(ph))
+        figures[f"{ph}_mean_all_nm"] = _finite(head.mean(ph, include_cut=True))
+    if exact is not None:
+        what = "prisms" if exact.method.endswith("prisms") else "closed mesh"
+        figures["source"] = f"isotropic random lines, exact {what} geometry"
+    else:
+        figures["source"] = ("voxel grid: isotropic random lines, boundary at the "
+                             "interpolated signed distance")
+    # Cauchy: mean of all chords of a phase = 4 V / S, S its whole boundary (Santaló 1976)
+    cauchy = cauchy_figures(g)
+    for ph in ("solid", "pore"):
+        figures[f"cauchy_{ph}_4v_over_s_nm"] = _finite(cauchy.figures[ph])
+    return Chords({"exact": exact, "voxel_lines": lines_res, "voxel_rows": rows,
+                   "cauchy": cauchy}, figures, notes)
+
+
+def central_block(g: PhaseGrid, n: int):
+    """The central block of at most ``n`` voxels per side (the grid itself if smaller)."""
+    shape = np.asarray(g.shape)
+    if np.all(shape <= n):
+        return g, None
+    m = np.minimum(shape, n)
+    lo = (shape - m) // 2
+    sl = tuple(slice(int(a), int(a + b)) for a, b in zip(lo, m))
+    origin = np.asarray(g.origin) + lo * np.asarray(g.spacing)
+    sub = PhaseGrid(np.ascontiguousarray(g.labels[sl]), g.spacing, tuple(origin), g.names,
+                    periodic=False, metadata={}, source=g.source)
+    return sub, (f"computed on the central {m[0]} x {m[1]} x {m[2]} voxel block "
+                 f"({m[0] * g.spacing[0]:.3g} nm across) of the {shape[0]} x {shape[1]} x "
+                 f"{shape[2]} grid")
+
+
+def correlation(grid: PhaseGrid, *, s2_block: int = 160, s2_rmax: float | None = None):
+    from ..measures.correlation import two_point_correlation
+    sub, note = central_block(grid, int(s2_block))
+    rmax = s2_rmax
+    if rmax is None:
+        rmax = 0.5 * float(min(np.asarray(sub.shape) * np.asarray(sub.spacing)))
+    res = two_point_correlation(sub, (SOLID,), r_max=rmax)
+    return Bundle({"s2_solid": res}, {"block_voxels": list(sub.shape)}, [note] if note else [])
+
+
+def relaxation(grid: PhaseGrid, *, thickness=None, interlayer_width=None):
+    """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the phase grid
+    (each size class apart) with the default surface relaxivity and bulk T2."""
+    from ..measures.relaxation import relaxation_spectrum
+    return relaxation_spectrum(grid, thickness, interlayer_width=interlayer_width)
