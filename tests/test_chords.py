@@ -526,6 +526,8 @@ def test_grid_chords_bad_options():
         voxel_rows(g, axes=(4,))
     with pytest.raises(OptionError, match="line_length"):
         grid_chords(PhaseGrid(g.labels, periodic=True), 10, line_length=-1)
+    with pytest.raises(OptionError, match="non-periodic"):
+        grid_chords(PhaseGrid(g.labels, periodic=True), 10, domain=Sphere((1, 1, 1), 1))
 
 
 def test_voxel_rows_match_loop():

@@ -1565,8 +1565,8 @@ def grid_chords(grid: PhaseGrid, n_lines: int = 10000, seed=None, *,
         interpolated signed distance is this deep in the other phase (interpolated only).
     solid : phase code(s) of the solid; the pore is every other label but OUTSIDE
         (interlayer, gel and any size classes split from it).
-    domain : optional Sphere or non-periodic Box: draw the lines as for that domain and
-        clip them to it as well as to the grid.
+    domain : optional Sphere or non-periodic Box (non-periodic grids only): draw the lines
+        as for that domain and clip them to it as well as to the grid.
     line_length : periodic grids only, nm.
     n_threads : worker threads (default: all cores).
 
@@ -1618,6 +1618,9 @@ def grid_chords(grid: PhaseGrid, n_lines: int = 10000, seed=None, *,
     glo, ghi = org, org + np.asarray(grid.shape) * sp
     n = int(n_lines)
     if grid.periodic:
+        if domain is not None:
+            raise OptionError("domain is for non-periodic grids; a periodic grid's lines wrap "
+                              "in its cell")
         length = 4 * float((ghi - glo).max()) if line_length is None else float(line_length)
         if not length > 0:
             raise OptionError(f"line_length must be positive, got {line_length!r}")
