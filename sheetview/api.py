@@ -6,8 +6,8 @@ Examples
 >>> m = sv.measure("sample_structures/single_stack.csv", only="stacking,phases", voxel=0.2)
 >>> m.stacking.mean
 5.0
->>> round(m.summary()["volume_fractions"]["solid"], 3)
-0.052
+>>> round(m.summary()["volume_fractions"]["solid"], 2)
+0.06
 >>> m.phases.fractions["interlayer"] > 0
 True
 """
@@ -105,9 +105,16 @@ class Measurement:
                             plots=plots, grid=self.grid)
 
     def plot(self, name: str, ax=None):
-        """The figure of measure ``name`` (a matplotlib Figure; nothing is written and no
-        global state changes)."""
+        """The figure of measure ``name``, or ``"sections"`` (three central sections of the
+        phase grid): a matplotlib Figure; nothing is written and no global state changes."""
         from .figures import figure_of
+        if name == "sections":
+            if self.grid is None:
+                raise OptionError("no phase grid: no grid measure ran", param="name")
+            return figure_of(name, None, ax=ax, grid=self.grid)
+        if name not in self._run.results:
+            raise OptionError(f"measure {name!r} did not run (ran: "
+                              f"{', '.join(self._run.results)})", param="name")
         return figure_of(name, self[name], ax=ax, grid=self.grid)
 
     # ------------------------------------------------------------------ display
