@@ -121,8 +121,8 @@ def plot_chords(ch, ax=None):
     """Chord-length densities of solid and pore (two panels)."""
     fig, axes = new_figure((9, 3.6), 2, ax)
     src = ch.parts["exact"]
+    res = src if src is not None else ch.parts["voxel_lines"]
     for a, ph_name in zip(axes, ("solid", "pore")):
-        res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
         L = res.chords(ph_name) if ph_name in res.lengths else np.zeros(0)
         if L.size:
             a.hist(L, bins=60, density=True, color="#0072b2" if ph_name == "solid" else "#e69f00")
@@ -130,7 +130,8 @@ def plot_chords(ch, ax=None):
             a.legend(fontsize=8)
         a.set_xlabel(f"{ph_name} chord length (nm)")
         a.set_ylabel("probability density (nm⁻¹)")
-    how = "isotropic random lines (exact)" if src is not None else "voxel rows along x, y, z"
+    how = ("isotropic random lines (exact)" if src is not None
+           else "isotropic random lines through the voxel grid")
     if ax is None:
         fig.suptitle(f"Chords not cut by the domain wall; {how}", fontsize=10)
         fig.tight_layout()

@@ -288,9 +288,8 @@ def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
 
     ch = results.get("chords")
     if ch is not None:
-        src = ch.parts["exact"]
+        res = ch.parts["exact"] if ch.parts["exact"] is not None else ch.parts["voxel_lines"]
         for ph_name in ("solid", "pore"):
-            res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
             if ph_name in res.lengths:
                 written.append(write_csv(out / f"chords_{ph_name}.csv", {
                     "length_nm": res.lengths[ph_name], "cut": res.cut[ph_name].astype(np.int8),

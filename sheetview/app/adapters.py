@@ -84,44 +84,44 @@ class Chords(Bundle):
 
 
 def chords(grid: PhaseGrid, *, geometry=None, lines: int = 20000, seed: int = 0):
-    from ..measures.chords import exact_chords, voxel_chords
-    from ..measures.surface import interface_areas_with
+    """Chords of solid and pore under isotropic uniform random lines (``lines``, ``seed``),
+    one definition for every input: exact chords of prisms or a closed body
+    (``geometry``), or the same kind of lines through the voxel grid (volumes; a body in a
+    periodic box). Volumes also get the axis-row run lengths as a named extra
+    (``voxel_rows``). The Cauchy figures 4V/S come from the phase grid alone
+    (:func:`~sheetview.measures.chords.cauchy_figures`, box walls included), whatever
+    other measures run."""
+    from ..measures.chords import cauchy_figures, exact_chords, grid_chords, voxel_rows
     g = grid
-    exact = None
+    exact = lines_res = rows = None
     notes = []
     if geometry is not None:
         if isinstance(geometry, SurfaceBody) and getattr(geometry.domain, "periodic", False):
-            notes.append("closed body in a periodic box: exact chords not available")
+            notes.append("closed body in a periodic box: exact chords not available; "
+                         "isotropic random lines through the phase grid instead")
         else:
             exact = exact_chords(geometry, int(lines), seed)
-    solid = pore = None
-    codes = _pore_codes(g)
     if exact is None:
-        solid = voxel_chords(g, (SOLID,), name="solid")
-        pore = voxel_chords(g, (INTERLAYER,) + codes, name="pore")
+        lines_res = grid_chords(g, int(lines), seed)
+        if geometry is None:
+            rows = voxel_rows(g)
+    head = exact if exact is not None else lines_res
     figures = {}
-    for ph, vox in (("solid", solid), ("pore", pore)):
-        src = exact if exact is not None else vox
-        figures[f"{ph}_mean_nm"] = _finite(src.mean(ph))
-        figures[f"{ph}_mean_all_nm"] = _finite(src.mean(ph, include_cut=True))
-    figures["source"] = ("exact isotropic random lines" if exact is not None
-                         else "voxel rows (x, y, z)")
+    for ph in ("solid", "pore"):
+        figures[f"{ph}_mean_nm"] = _finite(head.mean(ph))
+        figures[f"{ph}_mean_all_nm"] = _finite(head.mean(ph, include_cut=True))
+    if exact is not None:
+        what = "prisms" if exact.method.endswith("prisms") else "closed mesh"
+        figures["source"] = f"isotropic random lines, exact {what} geometry"
+    else:
+        figures["source"] = ("voxel grid: isotropic random lines, boundary at the "
+                             "interpolated signed distance")
     # Cauchy: mean of all chords of a phase = 4 V / S, S its whole boundary (Santaló 1976)
-    counts = np.bincount(g.labels.ravel(), minlength=256)
-    v = g.voxel_volume
-    pore_all = (INTERLAYER,) + codes
-    vs = counts[SOLID] * v
-    vp = float(sum(counts[c] for c in pore_all)) * v
-    ws = interface_areas_with(g, SOLID)
-    a_sp = float(sum(ws[c] for c in pore_all))
-    a_so = float(ws[OUTSIDE])
-    a_po = 0.0
-    if not g.periodic:
-        wo = interface_areas_with(g, OUTSIDE)
-        a_po = float(sum(wo[c] for c in pore_all))
-    figures["cauchy_solid_4v_over_s_nm"] = _finite(4 * vs / (a_sp + a_so)) if a_sp + a_so else None
-    figures["cauchy_pore_4v_over_s_nm"] = _finite(4 * vp / (a_sp + a_po)) if a_sp + a_po else None
-    return Chords({"exact": exact, "voxel_solid": solid, "voxel_pore": pore}, figures, notes)
+    cauchy = cauchy_figures(g)
+    for ph in ("solid", "pore"):
+        figures[f"cauchy_{ph}_4v_over_s_nm"] = _finite(cauchy.figures[ph])
+    return Chords({"exact": exact, "voxel_lines": lines_res, "voxel_rows": rows,
+                   "cauchy": cauchy}, figures, notes)
 
 
 def relaxation(grid: PhaseGrid, *, thickness=None, interlayer_width=None):
