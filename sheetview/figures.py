@@ -120,8 +120,8 @@ def plot_pore_sizes(pores, ax=None):
 def plot_chords(ch, ax=None):
     """Chord-length densities of solid and pore (two panels)."""
     fig, axes = new_figure((9, 3.6), 2, ax)
-    src = ch.parts["exact"]
-    res = src if src is not None else ch.parts["voxel_lines"]
+    src = ch.exact
+    res = ch.main
     for a, ph_name in zip(axes, ("solid", "pore")):
         L = res.chords(ph_name) if ph_name in res.lengths else np.zeros(0)
         if L.size:

@@ -288,12 +288,8 @@ def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
 
     ch = results.get("chords")
     if ch is not None:
-        res = ch.parts["exact"] if ch.parts["exact"] is not None else ch.parts["voxel_lines"]
-        for ph_name in ("solid", "pore"):
-            if ph_name in res.lengths:
-                written.append(write_csv(out / f"chords_{ph_name}.csv", {
-                    "length_nm": res.lengths[ph_name], "cut": res.cut[ph_name].astype(np.int8),
-                    "line": res.line[ph_name], "axis": res.axis[ph_name]}))
+        for name, table in ch.tables().items():
+            written.append(write_csv(out / f"{name}.csv", table))
 
     cor = results.get("correlation")
     if cor is not None:

@@ -77,53 +77,6 @@ def pores(grid: PhaseGrid, *, thickness=None, intrusion: bool = False):
     return PoreSizes(parts, notes=notes)
 
 
-class Chords(Bundle):
-    def headline(self) -> dict:
-        f = self.figures
-        return {"chords": {k: f.get(k) for k in ("solid_mean_nm", "pore_mean_nm", "source")}}
-
-
-def chords(grid: PhaseGrid, *, geometry=None, lines: int = 20000, seed: int = 0):
-    """Chords of solid and pore under isotropic uniform random lines (``lines``, ``seed``),
-    one definition for every input: exact chords of prisms or a closed body
-    (``geometry``), or the same kind of lines through the voxel grid (volumes; a body in a
-    periodic box). Volumes also get the axis-row run lengths as a named extra
-    (``voxel_rows``). The Cauchy figures 4V/S come from the phase grid alone
-    (:func:`~sheetview.measures.chords.cauchy_figures`, box walls included), whatever
-    other measures run."""
-    from ..measures.chords import cauchy_figures, exact_chords, grid_chords, voxel_rows
-    g = grid
-    exact = lines_res = rows = None
-    notes = []
-    if geometry is not None:
-        if isinstance(geometry, SurfaceBody) and getattr(geometry.domain, "periodic", False):
-            notes.append("closed body in a periodic box: exact chords not available; "
-                         "isotropic random lines through the phase grid instead")
-        else:
-            exact = exact_chords(geometry, int(lines), seed)
-    if exact is None:
-        lines_res = grid_chords(g, int(lines), seed)
-        if geometry is None:
-            rows = voxel_rows(g)
-    head = exact if exact is not None else lines_res
-    figures = {}
-    for ph in ("solid", "pore"):
-        figures[f"{ph}_mean_nm"] = _finite(head.mean(ph))
-        figures[f"{ph}_mean_all_nm"] = _finite(head.mean(ph, include_cut=True))
-    if exact is not None:
-        what = "prisms" if exact.method.endswith("prisms") else "closed mesh"
-        figures["source"] = f"isotropic random lines, exact {what} geometry"
-    else:
-        figures["source"] = ("voxel grid: isotropic random lines, boundary at the "
-                             "interpolated signed distance")
-    # Cauchy: mean of all chords of a phase = 4 V / S, S its whole boundary (Santaló 1976)
-    cauchy = cauchy_figures(g)
-    for ph in ("solid", "pore"):
-        figures[f"cauchy_{ph}_4v_over_s_nm"] = _finite(cauchy.figures[ph])
-    return Chords({"exact": exact, "voxel_lines": lines_res, "voxel_rows": rows,
-                   "cauchy": cauchy}, figures, notes)
-
-
 def relaxation(grid: PhaseGrid, *, thickness=None, interlayer_width=None):
     """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the phase grid
     (each size class apart) with the default surface relaxivity and bulk T2."""

@@ -141,7 +141,7 @@ register("surface", f"{_M}.surface:surface_measure", "grid",
          "interface areas, S/V per pore class, specific surface, Minkowski functionals")
 register("pores", f"{_A}:pores", "grid",
          "pore sizes: local thickness and simulated intrusion, d10/d50/d90")
-register("chords", f"{_A}:chords", "grid",
+register("chords", f"{_M}.chords:chord_measure", "grid",
          "chord lengths of solid and pore on isotropic random lines, Cauchy 4V/S")
 register("correlation", f"{_M}.correlation:correlation_measure", "grid",
          "two-point correlation S2(r) of the solid and its slope at the origin")

@@ -42,6 +42,7 @@ from ..domain import Box, Sphere
 from ..errors import OptionError
 from ..grid import OUTSIDE, SOLID, PhaseGrid
 from ..structure import Structure, SurfaceBody
+from ._result import Result
 
 PHASES = ("solid", "pore")
 
@@ -1942,3 +1943,95 @@ def cauchy_figures(grid: PhaseGrid, solid=(SOLID,)) -> CauchyFigures:
     figures = {ph: 4 * volumes[ph] / surfaces[ph] if surfaces[ph] > 0 else float("nan")
                for ph in PHASES}
     return CauchyFigures(volumes, areas, surfaces, figures)
+
+
+# ------------------------------------------------------- the measure of `measure`
+def _finite(x):
+    return float(x) if x is not None and math.isfinite(x) else None
+
+
+@dataclass(repr=False)
+class ChordMeasure(Result):
+    """The ``chords`` measure: chords of solid and pore on isotropic random lines (exact
+    through prisms or a closed body, else through the voxel grid), the axis rows of a voxel
+    volume as a named extra, and the Cauchy figures 4V/S of the phase grid."""
+
+    exact: ChordResult | None
+    voxel_lines: ChordResult | None
+    voxel_rows: ChordResult | None
+    cauchy: CauchyFigures
+    source: str
+    notes: list = field(default_factory=list)
+
+    @property
+    def main(self) -> ChordResult:
+        """The chords the headline figures come from."""
+        return self.exact if self.exact is not None else self.voxel_lines
+
+    def figures(self) -> dict:
+        out = {}
+        for ph in ("solid", "pore"):
+            out[f"{ph}_mean_nm"] = _finite(self.main.mean(ph))
+            out[f"{ph}_mean_all_nm"] = _finite(self.main.mean(ph, include_cut=True))
+        out["source"] = self.source
+        for ph in ("solid", "pore"):
+            out[f"cauchy_{ph}_4v_over_s_nm"] = _finite(self.cauchy.figures[ph])
+        return out
+
+    def headline(self) -> dict:
+        f = self.figures()
+        return {"chords": {k: f.get(k) for k in ("solid_mean_nm", "pore_mean_nm", "source")}}
+
+    def to_dict(self) -> dict:
+        d = dict(self.figures())
+        for k in ("exact", "voxel_lines", "voxel_rows", "cauchy"):
+            v = getattr(self, k)
+            d[k] = None if v is None else v.to_dict()
+        if self.notes:
+            d["notes"] = list(self.notes)
+        return d
+
+    def tables(self) -> dict:
+        res = self.main
+        out = {}
+        for ph in ("solid", "pore"):
+            if ph in res.lengths:
+                out[f"chords_{ph}"] = {"length_nm": res.lengths[ph],
+                                       "cut": res.cut[ph].astype(np.int8),
+                                       "line": res.line[ph], "axis": res.axis[ph]}
+        return out
+
+    def brief(self) -> str:
+        f = self.figures()
+        s, p = f["solid_mean_nm"], f["pore_mean_nm"]
+        return (f"mean chords: solid {s if s is None else f'{s:.4g}'} nm, pore "
+                f"{p if p is None else f'{p:.4g}'} nm ({self.source})")
+
+
+def chord_measure(grid: PhaseGrid, *, geometry=None, lines: int = 20000,
+                  seed: int = 0) -> ChordMeasure:
+    """Chords of solid and pore under isotropic uniform random lines (``lines``, ``seed``),
+    one definition for every input: exact chords of prisms or a closed body
+    (``geometry``: a Structure or SurfaceBody), or the same kind of lines through the voxel
+    grid (volumes; a body in a periodic box). Volumes also get the axis-row run lengths as
+    a named extra (:func:`voxel_rows`). The Cauchy figures 4V/S come from the phase grid
+    alone (:func:`cauchy_figures`, box walls included), whatever other measures run: the
+    ``chords`` measure of ``sheetview measure``."""
+    exact = lines_res = rows = None
+    notes = []
+    if geometry is not None:
+        if isinstance(geometry, SurfaceBody) and getattr(geometry.domain, "periodic", False):
+            notes.append("closed body in a periodic box: exact chords not available; "
+                         "isotropic random lines through the phase grid instead")
+        else:
+            exact = exact_chords(geometry, int(lines), seed)
+    if exact is None:
+        lines_res = grid_chords(grid, int(lines), seed)
+        if geometry is None:
+            rows = voxel_rows(grid)
+    if exact is not None:
+        what = "prisms" if exact.method.endswith("prisms") else "closed mesh"
+        source = f"isotropic random lines, exact {what} geometry"
+    else:
+        source = "voxel grid: isotropic random lines, boundary at the interpolated signed distance"
+    return ChordMeasure(exact, lines_res, rows, cauchy_figures(grid), source, notes)
