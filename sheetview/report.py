@@ -237,75 +237,25 @@ def _move_into_place(tmp: Path, final: Path, kind: str = "report") -> None:
 
 def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
     written = [write_json(out / "summary.json", doc)]
-    prism_cols = {}
-    stk = results.get("stacking")
-    order = results.get("order")
-    if stk is not None:
-        prism_cols.update(stk.table())
-    if order is not None:
-        n = order.n_prisms
-        prism_cols.setdefault("prism", np.arange(n))
-        prism_cols.update(order.table())
-    if prism_cols:
-        written.append(write_csv(out / "prisms.csv", prism_cols))
-    if stk is not None:
-        written.append(write_csv(out / "stacks.csv", stk.stack_table()))
-        g = stk.graph
-        t = g.tilted
-        written.append(write_csv(out / "tilted_contacts.csv", {
-            "prism_a": t[:, 0], "prism_b": t[:, 1], "angle_deg": g.tilted_angle,
-            "layer_a": stk.layer[t[:, 0]] if len(t) else np.zeros(0, np.int64),
-            "layer_b": stk.layer[t[:, 1]] if len(t) else np.zeros(0, np.int64)}))
-
-    if order is not None:
-        ce, pe = order.cos_edges, order.phi_edges
-        nc, nphi = order.hist.shape
-        ci, pi = np.meshgrid(np.arange(nc), np.arange(nphi), indexing="ij")
-        written.append(write_csv(out / "orientation_distribution.csv", {
-            "cos_theta_lo": ce[ci.ravel()], "cos_theta_hi": ce[ci.ravel() + 1],
-            "phi_lo": pe[pi.ravel()], "phi_hi": pe[pi.ravel() + 1],
-            "fraction": order.hist.ravel(), "density_mud": order.hist.ravel() * nc * nphi}))
-        e = order.pole_edges
-        xi, yi = np.meshgrid(np.arange(len(e) - 1), np.arange(len(e) - 1), indexing="ij")
-        written.append(write_csv(out / "pole_figure.csv", {
-            "x": 0.5 * (e[xi.ravel()] + e[xi.ravel() + 1]),
-            "y": 0.5 * (e[yi.ravel()] + e[yi.ravel() + 1]),
-            "density_mud": order.pole.ravel()}))
-
-    ph = results.get("phases")
-    if ph is not None:
-        written.append(write_csv(out / "phase_fractions.csv", ph.table()))
-    sur = results.get("surface")
-    if sur is not None:
-        for name, table in sur.tables().items():
-            written.append(write_csv(out / f"{name}.csv", table))
-    pores = results.get("pores")
-    if pores is not None:
-        for key in ("local_thickness", "intrusion"):
-            r = pores.parts.get(key)
-            if r is not None:
-                written.append(write_csv(out / f"pore_sizes_{key}.csv", r.table()))
-
-    ch = results.get("chords")
-    if ch is not None:
-        for name, table in ch.tables().items():
-            written.append(write_csv(out / f"{name}.csv", table))
-
-    cor = results.get("correlation")
-    if cor is not None:
-        written.append(write_csv(out / "s2_solid.csv", cor.s2_solid.table()))
-
-    sc = results.get("scattering")
-    if sc is not None:
-        written.append(write_csv(out / "scattering.csv", sc.table()))
-
-    rx = results.get("relaxation")
-    if rx is not None:
-        written.append(write_csv(out / "t2_distribution.csv", rx.table()))
-
+    for name, table in collect_tables(results).items():
+        written.append(write_csv(out / f"{name}.csv", table))
     if plots:
         written.extend(_write_figures(out, results, grid))
     return [Path(p).name for p in written]
+
+
+def collect_tables(results: dict) -> dict:
+    """The CSV tables of the results (each result's ``tables()``: file stem -> columns), in
+    the order the measures ran; tables of the same name (``prisms`` from stacking and
+    order) are joined column by column, the first ``prism`` column kept."""
+    out: dict = {}
+    for res in results.values():
+        for name, cols in res.tables().items():
+            if name in out:
+                out[name].update({k: v for k, v in cols.items() if k not in out[name]})
+            else:
+                out[name] = dict(cols)
+    return out
 
 
 def _drawable(name, res) -> bool:

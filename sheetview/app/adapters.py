@@ -40,6 +40,19 @@ def _pore_codes(g):
 
 
 class PoreSizes(Bundle):
+    def tables(self) -> dict:
+        return {f"pore_sizes_{k}": v.table() for k, v in self.parts.items() if v is not None}
+
+    def basis(self) -> dict:
+        return {"pore_size": "volume-weighted quantiles of the local thickness (diameter of the "
+                             "largest ball inside the pore space that holds the point) of the "
+                             "non-interlayer pore space"}
+
+    def __repr__(self) -> str:
+        h = self.headline()["pore_size"]
+        return "PoreSizes(" + ", ".join(f"{k}={v:.4g}" if v is not None else f"{k}=None"
+                                       for k, v in h.items()) + ")"
+
     def headline(self) -> dict:
         lt = self.parts["local_thickness"]
         it = self.parts["intrusion"]

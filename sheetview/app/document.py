@@ -58,7 +58,8 @@ def file_document(path, run, *, timings: bool = True) -> dict:
 
 def headline(run) -> dict:
     """The documented headline keys: ``n_prisms``, the phase grid (``voxel_size_nm``,
-    ``grid_shape``, ``voxel_default``) and each measure's own :meth:`headline`."""
+    ``grid_shape``, ``voxel_default``), each measure's own :meth:`headline`, and ``basis``:
+    what each headline number refers to, in words (each measure's :meth:`basis`)."""
     obj = run.obj
     out = {"n_prisms": len(obj) if isinstance(obj, Structure) else None}
     if "grid" in run.__dict__:
@@ -68,10 +69,16 @@ def headline(run) -> dict:
         vd = run.base_grid.metadata.get("voxel_default")
         if vd is not None:
             out["voxel_default"] = dict(vd)
+    basis = {}
     for res in run.results.values():
         h = getattr(res, "headline", None)
         if h is not None:
             out.update(h())
+        b = getattr(res, "basis", None)
+        if b is not None:
+            basis.update(b())
+    if basis:
+        out["basis"] = basis
     return out
 
 

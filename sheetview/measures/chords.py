@@ -1982,6 +1982,11 @@ class ChordMeasure(Result):
         f = self.figures()
         return {"chords": {k: f.get(k) for k in ("solid_mean_nm", "pore_mean_nm", "source")}}
 
+    def basis(self) -> dict:
+        return {"chords": "mean length of the chords not cut by the domain wall on isotropic "
+                          "uniform random lines, solid and pore (interlayer and gel); "
+                          "chords.source says through which geometry"}
+
     def to_dict(self) -> dict:
         d = dict(self.figures())
         for k in ("exact", "voxel_lines", "voxel_rows", "cauchy"):

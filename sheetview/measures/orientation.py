@@ -23,6 +23,7 @@ import numba
 import numpy as np
 
 from ..errors import OptionError, positive
+from ._result import Result
 from .cells import cell_list
 
 DEFAULTS = {"local_radius": 5.0, "frame": "z", "n_cos": 10, "n_phi": 12, "pole_bins": 41}
@@ -286,8 +287,8 @@ def pole_figure(normals, weights, axis=(0, 0, 1), bins=41):
 
 
 # ------------------------------------------------------------------------- result
-@dataclass
-class OrderResult:
+@dataclass(repr=False)
+class OrderResult(Result):
     """Orientation order of a structure's prisms (volume-weighted)."""
 
     n_prisms: int
@@ -338,6 +339,34 @@ class OrderResult:
     def table(self) -> dict:
         """Per-prism columns: local order parameter and P2 of the angle to the wall."""
         return {"local_S": self.local_S, "wall_P2": self.wall_S_per_prism}
+
+    def tables(self) -> dict:
+        """CSV tables: per-prism columns (``prisms``, joined with the stacking table), the
+        equal-area orientation histogram and the pole figure (density in multiples of a
+        uniform distribution)."""
+        ce, pe = self.cos_edges, self.phi_edges
+        nc, nphi = self.hist.shape
+        ci, pi = np.meshgrid(np.arange(nc), np.arange(nphi), indexing="ij")
+        e = self.pole_edges
+        xi, yi = np.meshgrid(np.arange(len(e) - 1), np.arange(len(e) - 1), indexing="ij")
+        return {"prisms": {"prism": np.arange(self.n_prisms), **self.table()},
+                "orientation_distribution": {
+                    "cos_theta_lo": ce[ci.ravel()], "cos_theta_hi": ce[ci.ravel() + 1],
+                    "phi_lo": pe[pi.ravel()], "phi_hi": pe[pi.ravel() + 1],
+                    "fraction": self.hist.ravel(),
+                    "density_mud": self.hist.ravel() * nc * nphi},
+                "pole_figure": {"x": 0.5 * (e[xi.ravel()] + e[xi.ravel() + 1]),
+                                "y": 0.5 * (e[yi.ravel()] + e[yi.ravel() + 1]),
+                                "density_mud": self.pole.ravel()}}
+
+    def basis(self) -> dict:
+        return {"order.S": "largest eigenvalue of the volume-weighted nematic order tensor of "
+                           "the sheet normals (1 aligned, 0 isotropic)"}
+
+    def brief(self) -> str:
+        if self.director is None:
+            return "no prisms"
+        return f"S = {self.S:.4f}, biaxiality {self.biaxiality:.4f}, {self.n_prisms} prisms"
 
 
 def _local_hist(ls, nb=20):

@@ -26,6 +26,7 @@ import numpy as np
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, rasterize
 from ..material import Hydrate, MaterialSplit, interlayer_share
+from ._result import Result
 from .stacking import (StackingSettings, clip_polygon_buf, pair_frame, plane_basis,
                        stacking_graph)
 
@@ -225,8 +226,8 @@ def classify(structure, voxel_size=None, *, graph=None, settings: StackingSettin
     return grid
 
 
-@dataclass
-class PhaseFractions:
+@dataclass(repr=False)
+class PhaseFractions(Result):
     """Volume fractions of the phase classes, and the water they hold.
 
     Attributes
@@ -274,9 +275,15 @@ class PhaseFractions:
         """The summary's headline: fractions of the domain volume."""
         return {"volume_fractions": dict(self.fractions)}
 
-    def __repr__(self) -> str:
+    def tables(self) -> dict:
+        return {"phase_fractions": self.table()}
+
+    def basis(self) -> dict:
+        return {"volume_fractions": "fractions of the domain volume (voxels inside the domain)"}
+
+    def brief(self) -> str:
         fr = ", ".join(f"{k} {v:.4g}" for k, v in self.fractions.items())
-        return f"PhaseFractions(of the domain: {fr})"
+        return f"of the domain: {fr}"
 
 
 def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None, *,

@@ -33,6 +33,7 @@ import numpy as np
 from scipy.spatial import cKDTree
 
 from ..errors import InputError, OptionError
+from ._result import Result
 from .cells import cell_list
 
 #: Default tolerances. See docs/measures.md for the reasoning behind each.
@@ -909,8 +910,8 @@ def _hist_dict(values, weights=None, normalise=False):
     return out
 
 
-@dataclass
-class StackingResult:
+@dataclass(repr=False)
+class StackingResult(Result):
     """Layers, stacks and stacking numbers of a structure.
 
     Per-prism arrays (length ``n_prisms``): ``layer``, ``stack``, ``stacking_number``
@@ -1017,6 +1018,29 @@ class StackingResult:
         """Per-prism columns: prism (0-based row), layer, stack, stacking_number, volume."""
         return {"prism": np.arange(self.n_prisms), "layer": self.layer, "stack": self.stack,
                 "stacking_number": self.stacking_number, "volume": self.volumes}
+
+    def tables(self) -> dict:
+        """CSV tables: per prism (``prisms``), per stack (``stacks``), per tilted prism pair
+        (``tilted_contacts``)."""
+        g = self.graph
+        t = g.tilted
+        empty = np.zeros(0, np.int64)
+        return {"prisms": self.table(), "stacks": self.stack_table(),
+                "tilted_contacts": {"prism_a": t[:, 0], "prism_b": t[:, 1],
+                                    "angle_deg": g.tilted_angle,
+                                    "layer_a": self.layer[t[:, 0]] if len(t) else empty,
+                                    "layer_b": self.layer[t[:, 1]] if len(t) else empty}}
+
+    def basis(self) -> dict:
+        return {"stacking.mean": "mean stacking number (layers in the prism's stack column) "
+                                 "over prisms; mean_volume weights by prism volume, mean_stack "
+                                 "over stacks"}
+
+    def brief(self) -> str:
+        if not self.n_prisms:
+            return "no prisms"
+        return (f"{self.n_layers} layers in {self.n_stacks} stacks, mean stacking number "
+                f"{self.mean:.3f} (prisms), {self.mean_volume:.3f} (volume)")
 
     def stack_table(self) -> dict:
         """Per-stack columns (see :func:`stacking`)."""

@@ -34,6 +34,7 @@ import numpy as np
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
 from ..material import MASS_BASIS, Hydrate, MaterialSplit, interlayer_share
+from ._result import Result
 
 # cell vertex k = (bit0 -> x, bit1 -> y, bit2 -> z)
 _VERTS = np.array([[(k >> 0) & 1, (k >> 1) & 1, (k >> 2) & 1] for k in range(8)])
@@ -578,8 +579,8 @@ def surfaces(grid: PhaseGrid, hydrate: Hydrate | None = None) -> SurfaceResult:
                          grid.periodic, notes)
 
 
-@dataclass
-class SurfaceMeasure:
+@dataclass(repr=False)
+class SurfaceMeasure(Result):
     """The ``surface`` measure: the solid's interfaces and specific surfaces
     (:class:`SurfaceResult`) and the Minkowski functionals of the solid and of the pore
     space (every pore class), densities per domain volume."""
@@ -589,16 +590,22 @@ class SurfaceMeasure:
     minkowski_pore: MinkowskiResult
 
     def headline(self) -> dict:
-        """The summary's headline figures, with their basis."""
+        """The summary's headline figures."""
         sf = self.interfaces
-        h = sf.material.hydrate
         return {"specific_surface_nm-1": _finite(sf.specific_surface_per_domain_volume),
                 "specific_surface_m2_per_g": _finite(sf.specific_surface_m2_per_g),
-                "specific_surface_basis": {
-                    "nm-1": "solid area facing every pore class (interlayer and gel) per "
-                            "domain volume",
-                    "m2_per_g": f"the same area per {MASS_BASIS}: {h.formula} at "
-                                f"{h.density:g} g/cm3 ({h.source})"}}
+                "specific_surface_basis": self._basis()}
+
+    def _basis(self) -> dict:
+        h = self.interfaces.material.hydrate
+        return {"nm-1": "solid area facing every pore class (interlayer and gel) per domain "
+                        "volume (Crofton estimate on the phase grid)",
+                "m2_per_g": f"the same area per {MASS_BASIS}: {h.formula} at {h.density:g} "
+                            f"g/cm3 ({h.source})"}
+
+    def basis(self) -> dict:
+        b = self._basis()
+        return {"specific_surface_nm-1": b["nm-1"], "specific_surface_m2_per_g": b["m2_per_g"]}
 
     def to_dict(self) -> dict:
         return {"interfaces": self.interfaces.to_dict(),
@@ -613,10 +620,10 @@ class SurfaceMeasure:
                 "minkowski": {"phase": list(mk), **{k: [float(d.get(k, np.nan))
                                                         for d in mk.values()] for k in keys}}}
 
-    def __repr__(self) -> str:
+    def brief(self) -> str:
         sf = self.interfaces
-        return (f"SurfaceMeasure(S_V={sf.specific_surface_per_domain_volume:.4g} nm^-1, "
-                f"{sf.specific_surface_m2_per_g:.4g} m^2/g, {len(sf.areas) - 1} pore classes)")
+        return (f"S_V {sf.specific_surface_per_domain_volume:.4g} nm^-1, "
+                f"{sf.specific_surface_m2_per_g:.4g} m^2/g, {len(sf.areas) - 1} pore classes")
 
 
 def surface_measure(grid: PhaseGrid, *, hydrate: Hydrate | None = None) -> SurfaceMeasure:
