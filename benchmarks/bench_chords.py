@@ -29,7 +29,8 @@ import trimesh
 
 from sheetview.domain import Box, Sphere
 from sheetview.grid import OUTSIDE, SOLID, PhaseGrid
-from sheetview.measures.chords import (_domain_interval, exact_chords, grid_chords, iur_lines,
+from sheetview.measures._rays import domain_interval
+from sheetview.measures.chords import (exact_chords, grid_chords, iur_lines,
                                        signed_distance, voxel_rows)
 from sheetview.structure import Structure
 
@@ -98,7 +99,7 @@ def grid_lines(g, n_all, n_lines, seed):
     c, R = 0.5 * (lo + hi), 0.5 * float(np.linalg.norm(hi - lo))
     o, u = iur_lines(n_all, c, R * (1 + 1e-9), seed)
     o, u = o[:n_lines], u[:n_lines]
-    tlo, thi = _domain_interval(Box(tuple(lo), tuple(hi)), o, u,
+    tlo, thi = domain_interval(Box(tuple(lo), tuple(hi)), o, u,
                                 np.full(n_lines, 2 * R * (1 + 1e-9)))
     return o, u, tlo, thi
 
@@ -229,7 +230,7 @@ def main():
     exact_chords(s.subset(np.arange(100)), 100, seed=0)
     # the same lines
     o, u = iur_lines(a.n_lines, np.zeros(3), R * (1 + 1e-9), a.seed)
-    tlo, thi = _domain_interval(s.domain, o, u, np.full(a.n_lines, 2 * R * (1 + 1e-9)))
+    tlo, thi = domain_interval(s.domain, o, u, np.full(a.n_lines, 2 * R * (1 + 1e-9)))
     mesh = prism_mesh(s)
     try:
         from trimesh.ray.ray_pyembree import RayMeshIntersector

@@ -37,7 +37,9 @@ def _t(fn, *a, **k):
 
 def main(argv):
     from sheetview.grid import SOLID, rasterize
-    from sheetview.measures.sections import phase_grid_of, projection, section
+    from sheetview.app.run import phase_grid
+    from sheetview.app.settings import Settings
+    from sheetview.measures.sections import projection, section
 
     n = int(argv[0]) if argv else 400_000
     s = make_structure(n)
@@ -59,7 +61,7 @@ def main(argv):
         print(f"  pixel {p.pixel:g}: integral exact {a:.1f} nm^3, voxel {b:.1f} nm^3, "
               f"prism volume {float(s.volumes.sum()):.1f} nm^3")
         del g, ref
-    g, dt = _t(phase_grid_of, s, {"voxel": 0.25})
+    g, dt = _t(phase_grid, s, Settings(voxel=0.25))
     rows.append((f"phase grid at 0.25 nm ({'x'.join(map(str, g.shape))}), classified", dt))
     _, dt = _t(section, s, (1, 1, 1), 0.0, grid=g)
     rows.append(("section (1,1,1) through the centre, from the grid", dt))

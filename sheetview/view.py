@@ -29,8 +29,11 @@ from typing import NamedTuple
 
 import numpy as np
 
+from .app.run import phase_grid as build_phase_grid
+from .app.settings import Settings
 from .errors import InputError, OptionError, SheetviewError
 from .grid import GEL, INTERLAYER, OUTSIDE, SOLID
+from .measures.sections import Section, grid_bounds, parse_vector, plane_basis, sample_section
 from .style import (BACKGROUND, GROUP_PALETTE, NAN_COLOUR, OUTLINE_COLOUR, PHASE_COLOURS,
                     PHASE_LABELS, PHASE_OPACITY, PHASE_ORDER, SECTION_ORDER, TEXT_COLOUR,
                     phase_label, rgb8, section_rgb)
@@ -341,111 +344,6 @@ def outline_mesh(domain):
 
 
 # ============================================================================ sections
-def plane_basis(normal) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Unit normal ``n`` and in-plane axes ``u``, ``v`` with ``u x v = n``.
-
-    For axis-aligned normals the in-plane axes are the other two axes in cyclic order
-    (``z``: u = x, v = y; ``x``: u = y, v = z; ``y``: u = z, v = x), so that sections
-    read like the panels of :func:`contact_sheet` up to a swap.
-    """
-    n = np.asarray(normal, dtype=float).reshape(3)
-    norm = np.linalg.norm(n)
-    if not (np.isfinite(norm) and norm > 0):
-        raise OptionError("the plane normal must be a non-zero vector, got "
-                          f"({', '.join(f'{x:g}' for x in n)})", param="slice_normal")
-    n = n / norm
-    a = int(np.argmax(np.abs(n)))
-    if abs(abs(n[a]) - 1.0) < 1e-12:
-        u = np.zeros(3)
-        u[(a + 1) % 3] = 1.0
-        u *= 1.0  # cyclic axis order
-        v = np.cross(n, u)
-        return n, u, v
-    helper = np.zeros(3)
-    helper[int(np.argmin(np.abs(n)))] = 1.0
-    u = np.cross(helper, n)
-    u /= np.linalg.norm(u)
-    v = np.cross(n, u)
-    return n, u, v
-
-
-@dataclass
-class Section:
-    """Phase labels sampled on a plane.
-
-    ``labels[a, b]`` is the phase of the voxel containing the point
-    ``origin + (u0 + (a + 0.5) * pixel) * u + (v0 + (b + 0.5) * pixel) * v``;
-    255 marks points off the grid.
-    """
-
-    labels: np.ndarray
-    origin: np.ndarray
-    normal: np.ndarray
-    u: np.ndarray
-    v: np.ndarray
-    u0: float
-    v0: float
-    pixel: float
-
-    OFF_GRID = 255
-
-    def point(self, a, b) -> np.ndarray:
-        """World coordinates (nm) of pixel centre(s) ``(a, b)``."""
-        a = np.asarray(a, float)[..., None]
-        b = np.asarray(b, float)[..., None]
-        return (self.origin + (self.u0 + (a + 0.5) * self.pixel) * self.u
-                + (self.v0 + (b + 0.5) * self.pixel) * self.v)
-
-    def fractions(self) -> dict:
-        """Area fraction of each phase on the grid part of the section."""
-        lab = self.labels[self.labels != self.OFF_GRID]
-        if lab.size == 0:
-            return {}
-        cnt = np.bincount(lab, minlength=4)
-        return {PHASE_LABELS.get(c, str(c)): float(cnt[c] / lab.size) for c in np.flatnonzero(cnt)}
-
-
-def grid_bounds(grid) -> tuple[np.ndarray, np.ndarray]:
-    lo = np.asarray(grid.origin, float)
-    return lo, lo + np.asarray(grid.shape) * np.asarray(grid.spacing)
-
-
-def sample_section(grid, origin, normal, *, pixel: float | None = None,
-                   max_pixels: int = 800) -> Section:
-    """Phase labels of ``grid`` on the plane through ``origin`` with ``normal``.
-
-    Nearest-voxel lookup: each pixel takes the label of the voxel that contains its
-    centre. The pixel is the smallest voxel edge (enlarged if the section would exceed
-    ``max_pixels`` per side); the sampled patch is the projection of the grid's box onto
-    the plane.
-    """
-    n, u, v = plane_basis(normal)
-    o = np.asarray(origin, dtype=float).reshape(3)
-    lo, hi = grid_bounds(grid)
-    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
-                        for z in (lo[2], hi[2])]) - o
-    pu, pv_ = corners @ u, corners @ v
-    sp = np.asarray(grid.spacing, float)
-    px = float(sp.min()) if pixel is None else float(pixel)
-    span = max(pu.max() - pu.min(), pv_.max() - pv_.min())
-    if span / px > max_pixels:
-        px = span / max_pixels
-    u0, v0 = float(pu.min()), float(pv_.min())
-    nu = max(1, int(math.ceil((pu.max() - u0) / px - 1e-9)))
-    nv = max(1, int(math.ceil((pv_.max() - v0) / px - 1e-9)))
-    a = u0 + (np.arange(nu) + 0.5) * px
-    b = v0 + (np.arange(nv) + 0.5) * px
-    labels = np.full((nu, nv), Section.OFF_GRID, np.uint8)
-    for j0 in range(0, nu, 256):  # blocks keep the temporaries small
-        pts = o + a[j0:j0 + 256, None, None] * u + b[None, :, None] * v
-        idx = np.floor((pts - lo) / sp).astype(np.int64)
-        ok = np.all((idx >= 0) & (idx < np.asarray(grid.shape)), axis=-1)
-        blk = labels[j0:j0 + 256]
-        ii = idx[ok]
-        blk[ok] = grid.labels[ii[:, 0], ii[:, 1], ii[:, 2]]
-    return Section(labels, o, n, u, v, u0, v0, px)
-
-
 def section_mesh(section: Section, visible=PHASE_ORDER, lift: float = 0.0, opacity=None):
     """The visible pixels of a section as quads (one per pixel) with RGB cell colours
     (RGBA with ``opacity``, a dict phase code -> 0..1), lifted by ``lift`` nm along the
@@ -499,15 +397,13 @@ def view_voxel_size(structure) -> float:
 
 
 def phase_grid(structure, voxel_size=None, cache: dict | None = None):
-    """The phase map shown on cuts: solid, interlayer, gel pore, outside
-    (:func:`sheetview.measures.phases.classify`, the stacking graph taken from ``cache``
-    or computed and kept there), at ``voxel_size`` nm (default :func:`view_voxel_size`)."""
-    from .measures.phases import classify
-
+    """The phase map shown on cuts: the phase grid of ``measure``
+    (:func:`sheetview.app.run.phase_grid`, the stacking graph taken from ``cache`` or
+    computed and kept there), at ``voxel_size`` nm (default :func:`view_voxel_size`)."""
     if voxel_size is None:
         voxel_size = view_voxel_size(structure)
     graph = stacking_result(structure, cache).graph
-    return classify(structure, voxel_size, graph=graph)
+    return build_phase_grid(structure, Settings(voxel=voxel_size), graph=graph)
 
 
 # =============================================================================== scene
@@ -1048,23 +944,9 @@ def slice_plane(domain, *, axis=None, at=None, normal=None, origin=None):
     if at is not None:
         raise OptionError("--slice-at goes with --slice-axis; with --slice-normal give "
                           "--slice-origin", param="slice")
-    n = _vec3(normal, "--slice-normal")
-    o = centre if origin is None else _vec3(origin, "--slice-origin")
+    n = parse_vector(normal, "--slice-normal")
+    o = centre if origin is None else parse_vector(origin, "--slice-origin")
     return o, plane_basis(n)[0]
-
-
-def _vec3(v, what):
-    if isinstance(v, str):
-        parts = v.replace(" ", "").split(",")
-    else:
-        parts = list(v)
-    try:
-        out = np.array([float(x) for x in parts])
-    except ValueError:
-        raise OptionError(f"{what}: expected three numbers such as 0,0,1, got {v!r}") from None
-    if out.shape != (3,) or not np.all(np.isfinite(out)):
-        raise OptionError(f"{what}: expected three finite numbers such as 0,0,1, got {v!r}")
-    return out
 
 
 def render(structure, path=None, *, colour_by: str = "stacking", plane=None, grid=None,

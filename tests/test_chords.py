@@ -6,7 +6,8 @@ import pytest
 from sheetview.domain import Box, Sphere
 from sheetview.errors import OptionError
 from sheetview.grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
-from sheetview.measures.chords import (_domain_interval, exact_chords, iur_lines,
+from sheetview.measures._rays import domain_interval
+from sheetview.measures.chords import (exact_chords, iur_lines,
                                        merge_intervals, prism_planes, voxel_chords)
 from sheetview.structure import Structure
 
@@ -42,7 +43,7 @@ def test_exact_chords_match_brute_force():
     # recompute the same lines
     c, R = np.full(3, 5.0), 0.5 * np.linalg.norm([10, 10, 10])
     o, u = iur_lines(n, c, R * (1 + 1e-9), 3)
-    tlo, thi = _domain_interval(s.domain, o, u, np.full(n, 2 * R * (1 + 1e-9)))
+    tlo, thi = domain_interval(s.domain, o, u, np.full(n, 2 * R * (1 + 1e-9)))
     n_checked = 0
     for i in range(n):
         if not tlo[i] < thi[i]:

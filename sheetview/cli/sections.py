@@ -21,8 +21,14 @@ def _parse_phases(text):
     return tuple(names)
 
 
-def _grid_settings(voxel, max_memory):
-    return {"voxel": voxel, "max_memory": parse_size(max_memory)}
+def _grid_of(obj, voxel, max_memory, *, needed=True):
+    """The phase grid of ``obj`` with the measure settings (``sheetview.app.run.phase_grid``,
+    the one builder); None when ``needed`` is False (prisms projected exactly)."""
+    from ..app.run import phase_grid
+    from ..app.settings import Settings
+    if not needed:
+        return None
+    return phase_grid(obj, Settings(voxel=voxel, max_memory=parse_size(max_memory)))
 
 
 def _describe(mask, valid, pixel, lines, seed):
@@ -136,7 +142,7 @@ def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memo
     phases = _parse_phases(solid_phases)
     n = parse_axis_or_normal(axis, normal)
     obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
-    img = section(obj, n, offset, pixel=pixel, settings=_grid_settings(voxel, max_memory))
+    img = section(obj, n, offset, pixel=pixel, grid=_grid_of(obj, voxel, max_memory))
     doc = {"file": str(path), **img.to_dict()}
     if describe:
         mask = img.mask(phases) & img.valid
@@ -194,8 +200,9 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
 
     thr = _threshold(threshold, unit_range=True)
     obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
+    from ..structure import Structure
     img = projection(obj, axis, slab, offset=offset, pixel=pixel, mfp=mfp, resolution=resolution,
-                     settings=_grid_settings(voxel, max_memory))
+                     grid=_grid_of(obj, voxel, max_memory, needed=not isinstance(obj, Structure)))
     doc = {"file": str(path), **img.to_dict()}
     if describe:
         mask, used = segment_projection(img, thr)
@@ -278,9 +285,11 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
     mg = read_micrograph(image, pixel_size=pixel_size, threshold=thr, solid=solid_is)
     obj, moment = apply_at(load(path, **read_kw), at_progress, at_time)
     echo_moment(moment, quiet)
+    from ..structure import Structure
+    grid = _grid_of(obj, voxel, max_memory,
+                    needed=kind == "section" or not isinstance(obj, Structure))
     vis = virtual_images(obj, kind, axis=axis, count=count, pixel=mg.pixel, slab=slab,
-                         settings=_grid_settings(voxel, max_memory), mfp=mfp,
-                         resolution=resolution, solid_phases=phases)
+                         grid=grid, mfp=mfp, resolution=resolution, solid_phases=phases)
     vds = [describe(v.mask, v.pixel, valid=v.valid, seed=seed + i, n_lines=lines)
            for i, v in enumerate(vis)]
     ods = describe(mg.mask, mg.pixel, valid=mg.valid, seed=seed, n_lines=lines)

@@ -42,6 +42,7 @@ from ..domain import Box, Sphere
 from ..errors import OptionError
 from ..grid import OUTSIDE, SOLID, PhaseGrid
 from ..structure import Structure, SurfaceBody
+from ._rays import domain_interval, grow, periodic_images, prism_planes, push, regroup
 from ._result import Result
 
 PHASES = ("solid", "pore")
@@ -74,59 +75,7 @@ def iur_lines(n: int, center, radius: float, seed=None):
     return origins, u
 
 
-def _domain_interval(domain, o, u, tmax):
-    """Entry/exit parameters of lines in a convex domain (NaN-free; empty -> lo > hi)."""
-    if isinstance(domain, Sphere):
-        c = np.asarray(domain.center)
-        p = o - c
-        b = np.einsum("ij,ij->i", p, u)
-        cc = np.einsum("ij,ij->i", p, p) - domain.radius ** 2
-        disc = b * b - cc
-        s = np.sqrt(np.maximum(disc, 0.0))
-        lo, hi = -b - s, -b + s
-        lo[disc <= 0] = 1.0
-        hi[disc <= 0] = 0.0
-    else:
-        bmin, bmax = domain.bounds
-        with np.errstate(divide="ignore", invalid="ignore"):
-            t1 = (bmin - o) / u
-            t2 = (bmax - o) / u
-        tn = np.where(np.isnan(t1), -np.inf, np.minimum(t1, t2))
-        tf = np.where(np.isnan(t2), np.inf, np.maximum(t1, t2))
-        lo, hi = tn.max(axis=1), tf.min(axis=1)
-    lo = np.maximum(lo, 0.0)
-    hi = np.minimum(hi, tmax)
-    return lo, hi
-
-
 # ============================================================ prism planes
-def prism_planes(vertices, normals, thickness) -> np.ndarray:
-    """Face planes (N, 5, 4) ``[nx, ny, nz, d]`` of prisms, inside where ``n . x <= d``.
-
-    Top and bottom faces at ``+-t/2`` along the unit normal; three side faces through
-    the triangle edges, outward normals in the triangle plane.
-    """
-    v = np.asarray(vertices, float)
-    n = np.asarray(normals, float)
-    t = np.asarray(thickness, float)
-    N = len(v)
-    P = np.empty((N, 5, 4))
-    cd = np.einsum("ij,ij->i", n, v[:, 0])
-    P[:, 0, :3] = n
-    P[:, 0, 3] = cd + 0.5 * t
-    P[:, 1, :3] = -n
-    P[:, 1, 3] = -cd + 0.5 * t
-    for k in range(3):
-        a, b, c = v[:, k], v[:, (k + 1) % 3], v[:, (k + 2) % 3]
-        m = np.cross(b - a, n)
-        m /= np.linalg.norm(m, axis=1, keepdims=True)
-        flip = np.einsum("ij,ij->i", m, c - a) > 0
-        m[flip] *= -1
-        P[:, 2 + k, :3] = m
-        P[:, 2 + k, 3] = np.einsum("ij,ij->i", m, a)
-    return P
-
-
 # ============================================================ uniform grid
 #: Grid cell edge for prisms, in median prism bounding-box sizes (tuned on
 #: benchmarks/bench_chords.py: fewer prisms met per line against more cells walked)
@@ -194,15 +143,6 @@ def _count_cells(ilo, ihi, dims, cnt):
 
 
 # ================================================================ kernels
-@numba.njit(cache=True, inline="always")
-def _grow(a, n):
-    if n < a.shape[0]:
-        return a
-    b = np.empty(max(2 * a.shape[0], 16), a.dtype)
-    b[:a.shape[0]] = a
-    return b
-
-
 @numba.njit(cache=True)
 def _dda_candidates(ox, oy, oz, ux, uy, uz, t0, t1, glo, h, dims, start, items, stamp, tag,
                     cand, nc):
@@ -254,7 +194,7 @@ def _dda_candidates(ox, oy, oz, ux, uy, uz, t0, t1, glo, h, dims, start, items, 
             p = items[q]
             if stamp[p] != tag:
                 stamp[p] = tag
-                cand = _grow(cand, nc)
+                cand = grow(cand, nc)
                 cand[nc] = p
                 nc += 1
         a = 0
@@ -285,22 +225,10 @@ def _merge_append(s, e, m, eps, line, out_l, out_s, out_e, no):
             if e[k] > ce:
                 ce = e[k]
         else:
-            out_l, out_s, out_e, no = _push(out_l, out_s, out_e, no, line, cs, ce)
+            out_l, out_s, out_e, no = push(out_l, out_s, out_e, no, line, cs, ce)
             cs = s[k]
             ce = e[k]
-    return _push(out_l, out_s, out_e, no, line, cs, ce)
-
-
-@numba.njit(cache=True)
-def _push(out_l, out_s, out_e, no, line, cs, ce):
-    """Append one interval (line, start, end) to the growable outputs."""
-    out_l = _grow(out_l, no)
-    out_s = _grow(out_s, no)
-    out_e = _grow(out_e, no)
-    out_l[no] = line
-    out_s[no] = cs
-    out_e[no] = ce
-    return out_l, out_s, out_e, no + 1
+    return push(out_l, out_s, out_e, no, line, cs, ce)
 
 
 @numba.njit(cache=True)
@@ -405,8 +333,8 @@ def _prism_intervals(o, u, tlo, thi, line_ids, planes, glo, h, dims, start, item
                             ok = False
                             break
                 if ok:
-                    bs = _grow(bs, m)
-                    be = _grow(be, m)
+                    bs = grow(bs, m)
+                    be = grow(be, m)
                     bs[m] = t0
                     be[m] = t1
                     m += 1
@@ -502,7 +430,7 @@ def _mesh_intervals(o, u, tlo, thi, tseg, line_ids, tri, glo, h, dims, start, it
             t = (e2x * qx + e2y * qy + e2z * qz) * inv
             if t < 0.0 or t > tseg[i]:
                 continue
-            hits = _grow(hits, m)
+            hits = grow(hits, m)
             hits[m] = t
             m += 1
         if m % 2 == 1:
@@ -514,8 +442,8 @@ def _mesh_intervals(o, u, tlo, thi, tseg, line_ids, tri, glo, h, dims, start, it
             a0 = max(hs[q], tlo[i])
             a1 = min(hs[q + 1], thi[i])
             if a0 < a1:
-                bs = _grow(bs, k)
-                be = _grow(be, k)
+                bs = grow(bs, k)
+                be = grow(be, k)
                 bs[k] = a0
                 be[k] = a1
                 k += 1
@@ -770,28 +698,6 @@ def _periodic_pieces(box: Box, n, length, seed):
             np.concatenate(OFF))
 
 
-def _periodic_images(struct: Structure, box: Box):
-    """Prism vertices/normals/thickness plus periodic images of prisms crossing the cell."""
-    lo, hi = box.bounds
-    L = hi - lo
-    v = np.asarray(struct.vertices)
-    corners = struct.prism_corners()
-    bmin, bmax = corners.min(axis=1), corners.max(axis=1)
-    Vs, Ns, Ts = [v], [struct.normals], [struct.thickness]
-    for sx in (-1, 0, 1):
-        for sy in (-1, 0, 1):
-            for sz in (-1, 0, 1):
-                if sx == sy == sz == 0:
-                    continue
-                s = np.array([sx, sy, sz]) * L
-                sel = np.all((bmax + s > lo) & (bmin + s < hi), axis=1)
-                if sel.any():
-                    Vs.append(v[sel] + s)
-                    Ns.append(struct.normals[sel])
-                    Ts.append(struct.thickness[sel])
-    return np.concatenate(Vs), np.concatenate(Ns), np.concatenate(Ts)
-
-
 def exact_chords(body, n_lines: int = 10000, seed=None, *, volume=None, surface=None,
                  line_length=None, n_threads=None, eps: float = 1e-9) -> ChordResult:
     """Exact solid and pore chords of a Structure (prisms) or SurfaceBody under IUR lines.
@@ -838,7 +744,7 @@ def exact_chords(body, n_lines: int = 10000, seed=None, *, volume=None, surface=
             raise OptionError(f"line_length must be positive, got {line_length!r}")
         o, u, tl, li, off = _periodic_pieces(dom, int(n_lines), length, seed)
         tlo = np.zeros(len(o))
-        v, nrm, th = _periodic_images(body, dom)
+        v, nrm, th = periodic_images(body, dom)
         il, is_, ie = _prisms_run(o, u, tlo, tl, v, nrm, th, eps, n_threads)
         il, is_, ie = merge_intervals(li[il], is_ + off[il], ie + off[il], eps)
         tlo_l = np.zeros(int(n_lines))
@@ -854,7 +760,7 @@ def exact_chords(body, n_lines: int = 10000, seed=None, *, volume=None, surface=
             c, R = 0.5 * (lo + hi), 0.5 * float(np.linalg.norm(hi - lo))
         o, u = iur_lines(n_lines, c, R * (1 + 1e-9), seed)
         tseg = np.full(len(o), 2 * R * (1 + 1e-9))
-        tlo, thi = _domain_interval(dom, o, u, tseg)
+        tlo, thi = domain_interval(dom, o, u, tseg)
         if isinstance(body, Structure):
             il, is_, ie = _prisms_run(o, u, tlo, thi, body.vertices, body.normals, body.thickness,
                                       eps, n_threads)
@@ -916,7 +822,7 @@ def _prisms_run(o, u, tlo, thi, vertices, normals, thickness, eps, n_threads):
                       lambda s: (o[s], u[s], tlo_s[s], thi_s[s], ids[s], planes, g.lo, g.h,
                                  g.dims, g.start, g.items, isph, eps), n_threads)
     il, is_, ie = (np.concatenate([r[k] for r in res]) for k in range(3))
-    return _regroup(il, is_, ie, len(ids))
+    return regroup(il, is_, ie, len(ids))
 
 
 def _line_order(o, u, cen):
@@ -934,26 +840,6 @@ def _line_order(o, u, cen):
     uu = u * np.where(u[np.arange(n), big] < 0, -1.0, 1.0)[:, None]
     kd = np.floor((uu + 1.0) / 0.5).astype(np.int64)
     return np.lexsort((kd[:, 2], kd[:, 1], kd[:, 0], km[:, 2], km[:, 1], km[:, 0])).astype(np.int64)
-
-
-@numba.njit(cache=True)
-def _regroup(il, is_, ie, n):
-    """Reorder interval runs (each line's intervals contiguous, sorted by start) by line."""
-    cnt = np.zeros(n + 1, np.int64)
-    for k in range(il.shape[0]):
-        cnt[il[k] + 1] += 1
-    for k in range(n):
-        cnt[k + 1] += cnt[k]
-    ol = np.empty_like(il)
-    os_ = np.empty_like(is_)
-    oe = np.empty_like(ie)
-    for k in range(il.shape[0]):
-        q = cnt[il[k]]
-        cnt[il[k]] += 1
-        ol[q] = il[k]
-        os_[q] = is_[k]
-        oe[q] = ie[k]
-    return ol, os_, oe
 
 
 def _mesh_run(o, u, tlo, thi, tseg, body, eps, n_threads):
@@ -1162,10 +1048,10 @@ def _level_root(p0, p1, p2, p3, lev, sa, sb, ga):
 
 @numba.njit(cache=True, inline="always")
 def _push_chord(out_l, out_len, out_s, out_c, no, line, length, solid, cut):
-    out_l = _grow(out_l, no)
-    out_len = _grow(out_len, no)
-    out_s = _grow(out_s, no)
-    out_c = _grow(out_c, no)
+    out_l = grow(out_l, no)
+    out_len = grow(out_len, no)
+    out_s = grow(out_s, no)
+    out_c = grow(out_c, no)
     out_l[no] = line
     out_len[no] = length
     out_s[no] = solid
@@ -1641,9 +1527,9 @@ def grid_chords(grid: PhaseGrid, n_lines: int = 10000, seed=None, *,
                               f"non-periodic grid, got {domain!r}")
         o, u = iur_lines(n, c, R * (1 + 1e-9), seed)
         tseg = np.full(n, 2 * R * (1 + 1e-9))
-        tlo, thi = _domain_interval(Box(tuple(glo), tuple(ghi)), o, u, tseg)
+        tlo, thi = domain_interval(Box(tuple(glo), tuple(ghi)), o, u, tseg)
         if domain is not None:
-            dlo, dhi = _domain_interval(domain, o, u, tseg)
+            dlo, dhi = domain_interval(domain, o, u, tseg)
             tlo, thi = np.maximum(tlo, dlo), np.minimum(thi, dhi)
         method = "iur-voxels"
     interp = boundary == "interpolated"

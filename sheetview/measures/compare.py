@@ -92,14 +92,13 @@ class VirtualImage:
 
 
 def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 5,
-                   pixel: float, slab: float | None = None, settings: dict | None = None,
+                   pixel: float, slab: float | None = None, grid=None,
                    mfp: float = 100.0, resolution: float = 0.0, threshold=None,
                    solid_phases=("solid", "interlayer"), margin: float = 0.1) -> list[VirtualImage]:
     """``count`` virtual micrographs of ``obj`` at ``pixel`` nm: sections across ``axis``
     at evenly spaced offsets (the middle ``1 - 2 margin`` of the domain), or projections of
     ``count`` slabs of thickness ``slab`` spread the same way."""
-    from .sections import (AXES, centre_and_span, phase_grid_of, projection, section,
-                           segment_projection)
+    from .sections import AXES, centre_and_span, projection, section, segment_projection
     kind = str(kind).lower()
     if kind not in ("section", "projection"):
         raise OptionError(f"--virtual must be section or projection, got {kind!r}", param="virtual")
@@ -119,7 +118,7 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
         offs = np.linspace(-(0.5 - margin) * L, (0.5 - margin) * L, count)
     out = []
     if kind == "section":
-        g = phase_grid_of(obj, settings)
+        g = grid
         n = np.zeros(3)
         n[a] = 1.0
         codes = solid_phases
@@ -133,7 +132,7 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
             slab = L / count
         for off in offs:
             p = projection(obj, "xyz"[a], slab, offset=float(off), pixel=pixel, mfp=mfp,
-                           resolution=resolution, settings=settings)
+                           resolution=resolution, grid=grid)
             label = f"projection {'xyz'[a]} {p.slab[0]:.3g}..{p.slab[1]:.3g} nm"
             try:
                 m, _ = segment_projection(p, threshold)

@@ -656,11 +656,11 @@ def two_point_correlation(grid: PhaseGrid, phases, r_max: float | None = None,
     (``fit_range``): the model holds for solid and pore features thicker than that (the
     default voxel puts six across the thinnest); thinner ones bias the slope.
     """
-    from .surface import _codes
+    from .surface import phase_codes
 
     if not isinstance(grid, PhaseGrid):
         raise OptionError(f"expected a PhaseGrid, got {type(grid).__name__}")
-    codes = _codes(phases, "phases")
+    codes = phase_codes(phases, "phases")
     sp = np.asarray(grid.spacing, float)
     shape = np.asarray(grid.shape)
     ext = shape * sp

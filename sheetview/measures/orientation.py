@@ -410,8 +410,8 @@ def orientation(structure, *, local_radius: float = DEFAULTS["local_radius"],
     de Gennes & Prost, The Physics of Liquid Crystals, 2nd ed. (1993); Mardia & Jupp,
     Directional Statistics, Wiley (2000), for the Watson distribution used in validation.
     """
-    from .stacking import _check_structure
-    _check_structure(structure)
+    from .stacking import check_structure
+    check_structure(structure)
     local_radius = positive(local_radius, "local radius", param="local_radius")
     if frame not in ("z", "director"):
         raise OptionError(f"frame must be 'z' or 'director', got {frame!r}", param="frame")

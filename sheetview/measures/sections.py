@@ -2,7 +2,7 @@
 
 *Section*: the phase map (solid, interlayer, gel pore, outside) on the plane through
 ``centre + offset * n`` with unit normal ``n``, sampled from the phase grid by nearest
-voxel (:func:`sheetview.view.sample_section`); ``centre`` is the domain's centre.
+voxel (:func:`sample_section`); ``centre`` is the domain's centre.
 
 *Projection*: the solid thickness ``t(x, y)`` crossed by a straight path along an axis
 through a slab of the structure, and the transmitted fraction ``exp(-t / lambda)`` (the
@@ -24,7 +24,7 @@ structure could at best resolve; hold them against real micrographs with that in
 
 Images are arrays indexed ``[row, col]`` with ``row`` running down the picture: for an
 axis-aligned normal the picture's right-hand axis and up axis follow
-:func:`sheetview.view.plane_basis` (``z``: right = x, up = y; ``x``: right = y, up = z;
+``plane_basis`` (``z``: right = x, up = y; ``x``: right = y, up = z;
 ``y``: right = z, up = x).
 """
 from __future__ import annotations
@@ -38,8 +38,9 @@ import numpy as np
 from ..domain import Box
 from ..errors import OptionError, positive
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
+from ..grid import PHASE_NAMES as NAME_OF
 from ..structure import Structure, SurfaceBody
-from .chords import _push, _regroup
+from ._rays import domain_interval, periodic_images, prism_planes, push, regroup
 
 AXES = {"x": 0, "y": 1, "z": 2}
 PHASE_NAMES = {"solid": SOLID, "interlayer": INTERLAYER, "gel": GEL}
@@ -54,11 +55,10 @@ DEFAULT_MFP = 100.0
 def parse_axis_or_normal(axis=None, normal=None):
     """Unit normal from ``axis`` ('x', 'y', 'z') or ``normal`` (three numbers, or a
     string 'a,b,c'); z when neither is given."""
-    from ..view import _vec3, plane_basis
     if axis is not None and normal is not None:
         raise OptionError("give the plane by --axis or by --normal, not both", field="normal")
     if normal is not None:
-        return plane_basis(_vec3(normal, "--normal"))[0]
+        return plane_basis(parse_vector(normal, "--normal"))[0]
     a = str(axis or "z").lower()
     if a not in AXES:
         raise OptionError(f"--axis must be x, y or z, got {axis!r}", field="axis")
@@ -96,6 +96,129 @@ def _check_side(n_rows, n_cols, pixel):
     if max(n_rows, n_cols) > MAX_SIDE:
         raise OptionError(f"the image would be {n_cols} x {n_rows} pixels at {pixel:g} nm per pixel "
                           f"(largest side allowed {MAX_SIDE}); use a larger --pixel", field="pixel")
+
+
+# ================================================================ plane sampling
+def plane_basis(normal) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Unit normal ``n`` and in-plane axes ``u``, ``v`` with ``u x v = n``.
+
+    For axis-aligned normals the in-plane axes are the other two axes in cyclic order
+    (``z``: u = x, v = y; ``x``: u = y, v = z; ``y``: u = z, v = x), so that sections
+    read like the panels of :func:`contact_sheet` up to a swap.
+    """
+    n = np.asarray(normal, dtype=float).reshape(3)
+    norm = np.linalg.norm(n)
+    if not (np.isfinite(norm) and norm > 0):
+        raise OptionError("the plane normal must be a non-zero vector, got "
+                          f"({', '.join(f'{x:g}' for x in n)})", param="slice_normal")
+    n = n / norm
+    a = int(np.argmax(np.abs(n)))
+    if abs(abs(n[a]) - 1.0) < 1e-12:
+        u = np.zeros(3)
+        u[(a + 1) % 3] = 1.0
+        u *= 1.0  # cyclic axis order
+        v = np.cross(n, u)
+        return n, u, v
+    helper = np.zeros(3)
+    helper[int(np.argmin(np.abs(n)))] = 1.0
+    u = np.cross(helper, n)
+    u /= np.linalg.norm(u)
+    v = np.cross(n, u)
+    return n, u, v
+
+
+@dataclass
+class Section:
+    """Phase labels sampled on a plane.
+
+    ``labels[a, b]`` is the phase of the voxel containing the point
+    ``origin + (u0 + (a + 0.5) * pixel) * u + (v0 + (b + 0.5) * pixel) * v``;
+    255 marks points off the grid.
+    """
+
+    labels: np.ndarray
+    origin: np.ndarray
+    normal: np.ndarray
+    u: np.ndarray
+    v: np.ndarray
+    u0: float
+    v0: float
+    pixel: float
+
+    OFF_GRID = 255
+
+    def point(self, a, b) -> np.ndarray:
+        """World coordinates (nm) of pixel centre(s) ``(a, b)``."""
+        a = np.asarray(a, float)[..., None]
+        b = np.asarray(b, float)[..., None]
+        return (self.origin + (self.u0 + (a + 0.5) * self.pixel) * self.u
+                + (self.v0 + (b + 0.5) * self.pixel) * self.v)
+
+    def fractions(self) -> dict:
+        """Area fraction of each phase on the grid part of the section."""
+        lab = self.labels[self.labels != self.OFF_GRID]
+        if lab.size == 0:
+            return {}
+        cnt = np.bincount(lab, minlength=4)
+        return {NAME_OF.get(c, str(c)): float(cnt[c] / lab.size) for c in np.flatnonzero(cnt)}
+
+
+def grid_bounds(grid) -> tuple[np.ndarray, np.ndarray]:
+    lo = np.asarray(grid.origin, float)
+    return lo, lo + np.asarray(grid.shape) * np.asarray(grid.spacing)
+
+
+def sample_section(grid, origin, normal, *, pixel: float | None = None,
+                   max_pixels: int = 800) -> Section:
+    """Phase labels of ``grid`` on the plane through ``origin`` with ``normal``.
+
+    Nearest-voxel lookup: each pixel takes the label of the voxel that contains its
+    centre. The pixel is the smallest voxel edge (enlarged if the section would exceed
+    ``max_pixels`` per side); the sampled patch is the projection of the grid's box onto
+    the plane.
+    """
+    n, u, v = plane_basis(normal)
+    o = np.asarray(origin, dtype=float).reshape(3)
+    lo, hi = grid_bounds(grid)
+    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
+                        for z in (lo[2], hi[2])]) - o
+    pu, pv_ = corners @ u, corners @ v
+    sp = np.asarray(grid.spacing, float)
+    px = float(sp.min()) if pixel is None else float(pixel)
+    span = max(pu.max() - pu.min(), pv_.max() - pv_.min())
+    if span / px > max_pixels:
+        px = span / max_pixels
+    u0, v0 = float(pu.min()), float(pv_.min())
+    nu = max(1, int(math.ceil((pu.max() - u0) / px - 1e-9)))
+    nv = max(1, int(math.ceil((pv_.max() - v0) / px - 1e-9)))
+    a = u0 + (np.arange(nu) + 0.5) * px
+    b = v0 + (np.arange(nv) + 0.5) * px
+    labels = np.full((nu, nv), Section.OFF_GRID, np.uint8)
+    for j0 in range(0, nu, 256):  # blocks keep the temporaries small
+        pts = o + a[j0:j0 + 256, None, None] * u + b[None, :, None] * v
+        idx = np.floor((pts - lo) / sp).astype(np.int64)
+        ok = np.all((idx >= 0) & (idx < np.asarray(grid.shape)), axis=-1)
+        blk = labels[j0:j0 + 256]
+        ii = idx[ok]
+        blk[ok] = grid.labels[ii[:, 0], ii[:, 1], ii[:, 2]]
+    return Section(labels, o, n, u, v, u0, v0, px)
+
+
+
+def parse_vector(v, what):
+    """Three finite numbers from ``"0,0,1"`` or a sequence (``what`` names the parameter)."""
+    if isinstance(v, str):
+        parts = v.replace(" ", "").split(",")
+    else:
+        parts = list(v)
+    try:
+        out = np.array([float(x) for x in parts])
+    except ValueError:
+        raise OptionError(f"{what}: expected three numbers such as 0,0,1, got {v!r}") from None
+    if out.shape != (3,) or not np.all(np.isfinite(out)):
+        raise OptionError(f"{what}: expected three finite numbers such as 0,0,1, got {v!r}")
+    return out
+
 
 
 # ===================================================================== sections
@@ -150,30 +273,31 @@ class SectionImage:
                 "notes": list(self.notes)}
 
 
-def phase_grid_of(obj, settings: dict | None = None) -> PhaseGrid:
-    """The classified phase grid of ``obj`` with the measure settings (``voxel``,
-    ``max_memory``, stacking tolerances): the same grid ``sheetview measure`` uses."""
+def _grid_of(obj, grid):
+    """The phase grid to sample: ``grid`` when given, else ``obj`` itself if it is one."""
+    if grid is not None:
+        return grid
     if isinstance(obj, PhaseGrid):
         return obj
-    from ..app.run import phase_grid
-    from ..app.settings import Settings
-    return phase_grid(obj, Settings.of(settings))
+    raise OptionError(f"a {type(obj).__name__} needs its phase grid (grid=...): build it with "
+                      "sheetview.app.run.phase_grid, as `measure` does", param="grid")
 
 
 def section(obj, normal=(0.0, 0.0, 1.0), offset: float = 0.0, *, pixel: float | None = None,
-            settings: dict | None = None, grid: PhaseGrid | None = None) -> SectionImage:
+            grid: PhaseGrid | None = None) -> SectionImage:
     """The phase section of ``obj`` (Structure, SurfaceBody or PhaseGrid) on the plane
     with ``normal`` at signed distance ``offset`` (nm) from the domain's centre.
 
-    ``pixel`` defaults to the grid's voxel edge. The picture covers the projection of the
-    grid's box onto the plane; pixels off the grid are 255.
+    ``grid`` is the phase grid of ``obj`` (needed unless ``obj`` is one;
+    :func:`sheetview.app.run.phase_grid` builds it as ``measure`` does). ``pixel``
+    defaults to the grid's voxel edge. The picture covers the projection of the grid's box
+    onto the plane; pixels off the grid are 255.
     """
-    from ..view import plane_basis, sample_section
     pixel = _check_pixel(pixel)
     off = float(offset)
     if not math.isfinite(off):
         raise OptionError(f"--offset must be a finite length in nm, got {offset!r}", field="offset")
-    g = grid if grid is not None else phase_grid_of(obj, settings)
+    g = _grid_of(obj, grid)
     n, u, v = plane_basis(normal)
     centre, span = centre_and_span(obj, g)
     half = 0.5 * float(np.abs(span) @ np.abs(n))
@@ -249,7 +373,7 @@ def _picture_axes(a: int) -> tuple[int, int]:
 
 def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float = 0.0,
                pixel: float | None = None, mfp: float = DEFAULT_MFP, resolution: float = 0.0,
-               settings: dict | None = None) -> ProjectionImage:
+               grid: PhaseGrid | None = None) -> ProjectionImage:
     """Project ``obj`` along ``axis`` through a slab of thickness ``slab`` (nm; default the
     whole domain) centred ``offset`` nm from the domain's centre.
 
@@ -257,8 +381,8 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
     Prisms: exact column volumes, clipped to the slab and to the domain's chord through the
     pixel centre; overlaps counted once along the centre line. Closed bodies and phase
     grids: the voxel model's solid volume per column, area-weighted onto the pixels
-    (``pixel`` default: the finer in-plane voxel edge; a grid is built for a body with the
-    measure settings).
+    (``pixel`` default: the finer in-plane voxel edge; a closed body needs its phase grid,
+    ``grid``, from :func:`sheetview.app.run.phase_grid`).
     """
     a = AXES.get(str(axis).lower())
     if a is None:
@@ -280,7 +404,7 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
         g = None
         centre, span = centre_and_span(obj)
     elif isinstance(obj, (PhaseGrid, SurfaceBody)):
-        g = phase_grid_of(obj, settings)
+        g = _grid_of(obj, grid)
         centre, span = grid_centre_and_span(g)
     else:
         raise OptionError(f"cannot project a {type(obj).__name__}")
@@ -359,7 +483,6 @@ def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1):
     its intervals merged; the length counted twice on that path is subtracted (exact when
     prisms do not overlap; a point sample of the overlap otherwise).
     Returns (thickness, valid)."""
-    from .chords import _domain_interval, _periodic_images, prism_planes
     length = z1 - z0
     dom = s.domain
     rows, cols = np.mgrid[0:nr, 0:nc]
@@ -372,9 +495,9 @@ def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1):
     if isinstance(dom, Box) and dom.periodic:
         tlo = np.zeros(len(o))
         thi = np.full(len(o), length)
-        v, nrm, th = _periodic_images(s, dom)
+        v, nrm, th = periodic_images(s, dom)
     else:
-        tlo, thi = _domain_interval(dom, o, u, np.full(len(o), length))
+        tlo, thi = domain_interval(dom, o, u, np.full(len(o), length))
         v, nrm, th = s.vertices, s.normals, s.thickness
     valid = thi > tlo
     del o, u, rows, cols
@@ -709,7 +832,7 @@ def _footprint_intervals(planes, c0, c1, r0, r1, a, ra, ua, left, top, px, nc, z
                             ok = False
                             break
                 if ok:
-                    out_l, out_s, out_e, no = _push(out_l, out_s, out_e, no, line, t0, t1)
+                    out_l, out_s, out_e, no = push(out_l, out_s, out_e, no, line, t0, t1)
     return out_l[:no], out_s[:no], out_e[:no]
 
 
@@ -721,7 +844,7 @@ def _merge_lengths(il, is_, ie, total, eps):
     n = il.shape[0]
     if n == 0:
         return
-    ol, os_, oe = _regroup(il, is_, ie, total.shape[0])
+    ol, os_, oe = regroup(il, is_, ie, total.shape[0])
     k = 0
     while k < n:
         line = ol[k]

@@ -835,7 +835,7 @@ class StackingGraph:
     radius: float
 
 
-def _check_structure(structure):
+def check_structure(structure):
     from ..structure import Structure
     if not isinstance(structure, Structure):
         kind = type(structure).__name__
@@ -859,7 +859,7 @@ def stacking_graph(structure, settings: StackingSettings | None = None) -> Stack
     overlap of the triangles projected on the common plane (Sutherland-Hodgman
     clipping). Links come in a fixed order whatever the number of threads.
     """
-    _check_structure(structure)
+    check_structure(structure)
     if settings is None:
         settings = StackingSettings(spacing=structure.spacing)
     empty = np.zeros((0, 2), np.int64)
@@ -1123,7 +1123,7 @@ def stacking(structure, *, angle_tol: float = DEFAULTS["angle_tol"],
     consistently signed mean normal; it is computed exactly by dynamic programming on a
     topological order.
     """
-    _check_structure(structure)
+    check_structure(structure)
     settings = StackingSettings(angle_tol, gap_tol, overlap, tilt_limit, edge_tol,
                                 structure.spacing if spacing is None else spacing)
     n = len(structure)

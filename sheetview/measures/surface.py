@@ -367,7 +367,8 @@ def euler_characteristic(mask, connectivity: int = 26, periodic: bool = False) -
 
 
 # ----------------------------------------------------------------- interfaces
-def _codes(phases, name) -> np.ndarray:
+def phase_codes(phases, name) -> np.ndarray:
+    """Phase codes (0-255) from a code or a list of codes; ``name`` is the parameter."""
     if isinstance(phases, (int, np.integer)):
         phases = [phases]
     try:
@@ -392,7 +393,7 @@ def interface_area(grid: PhaseGrid, a, b) -> float:
     Pairs across the grid edge count only for periodic grids.
     """
     _check_grid(grid)
-    ca, cb = _codes(a, "a"), _codes(b, "b")
+    ca, cb = phase_codes(a, "a"), phase_codes(b, "b")
     if np.intersect1d(ca, cb).size:
         raise OptionError(f"label sets a={ca.tolist()} and b={cb.tolist()} overlap")
     # one pass per label of a: the areas between that label and every other label
