@@ -24,6 +24,8 @@ from .app.settings import Settings
 from .errors import OptionError
 from .grid import PhaseGrid
 from .structure import Structure, SurfaceBody
+from .figures import figure_of
+from .report import write_report
 
 
 class Measurement:
@@ -100,14 +102,12 @@ class Measurement:
     def write(self, folder, *, force: bool = False, plots: bool = True) -> list[Path]:
         """Write a report folder (summary.json, CSV tables, PNG figures); see
         :func:`sheetview.report.write_report`."""
-        from .report import write_report
         return write_report(folder, self.summary(), self._run.results, force=force,
                             plots=plots, grid=self.grid)
 
     def plot(self, name: str, ax=None):
         """The figure of measure ``name``, or ``"sections"`` (three central sections of the
         phase grid): a matplotlib Figure; nothing is written and no global state changes."""
-        from .figures import figure_of
         if name == "sections":
             if self.grid is None:
                 raise OptionError("no phase grid: no grid measure ran", param="name")

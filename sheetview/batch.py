@@ -295,8 +295,7 @@ def warm_up() -> float:
                             obj.compile(key[0])
                 except Exception:
                     continue
-        import matplotlib.backends.backend_agg  # noqa: F401  (the renderer; no backend switch)
-        import matplotlib.figure  # noqa: F401
+        import matplotlib.backends.backend_agg  # noqa: F401  # the renderer; no backend switch
     except Exception:
         pass
     return time.perf_counter() - t0

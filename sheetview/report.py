@@ -41,6 +41,7 @@ import numpy as np
 from .errors import OutputExistsError, SheetviewError
 from .figures import FIGURES, plot_sections
 from .io.output import atomic_path
+from .app.document import dumps
 
 
 def check_folder(outdir, force: bool = False) -> Path:
@@ -129,7 +130,6 @@ def _cells(c: np.ndarray, kind: str) -> list:
 
 
 def write_json(path, doc, force: bool = False) -> Path:
-    from .app.document import dumps
     with atomic_path(path, force=force) as tmp:
         Path(tmp).write_text(dumps(doc) + "\n")
     return Path(path)

@@ -35,9 +35,14 @@ from .errors import InputError, OptionError, SheetviewError
 from .grid import GEL, INTERLAYER, OUTSIDE, SOLID
 from .measures.sections import Section, grid_bounds, parse_vector, plane_basis, sample_section
 from .style import (BACKGROUND, GROUP_PALETTE, NAN_COLOUR, OUTLINE_COLOUR, PHASE_COLOURS,
-                    PHASE_LABELS, PHASE_OPACITY, PHASE_ORDER, SECTION_ORDER, TEXT_COLOUR,
-                    phase_label, rgb8, section_rgb)
+                    PHASE_LABELS, PHASE_OPACITY, PHASE_ORDER, TEXT_COLOUR, section_rgb)
 from .style import rgb as colour_rgb
+from .grid import default_voxel_size
+from .io import write
+from .io.output import atomic_path, check_writable
+from .measures.orientation import DEFAULTS, local_order, q_summary, q_tensor
+from .measures.stacking import stacking
+from .structure import Structure
 
 class ColouringInfo(NamedTuple):
     label: str
@@ -133,7 +138,6 @@ def stacking_result(structure, cache: dict | None = None):
     """The :func:`sheetview.measures.stacking.stacking` result, cached in ``cache``."""
     cache = {} if cache is None else cache
     if "stacking" not in cache:
-        from .measures.stacking import stacking
         cache["stacking"] = stacking(structure)
     return cache["stacking"]
 
@@ -142,7 +146,6 @@ def director_of(structure, cache: dict | None = None) -> np.ndarray:
     """The director: principal axis of the volume-weighted Q tensor of the normals."""
     cache = {} if cache is None else cache
     if "director" not in cache:
-        from .measures.orientation import q_summary, q_tensor
         _, d, _, _ = q_summary(q_tensor(structure.normals, structure.volumes))
         cache["director"] = np.array([0.0, 0.0, 1.0]) if d is None else np.asarray(d, float)
     return cache["director"]
@@ -182,7 +185,6 @@ def scalars_for(structure, colour_by: str, cache: dict | None = None) -> Colouri
         vals = stacking_result(structure, cache).stack
     elif colour_by == "order":
         if "order" not in cache:
-            from .measures.orientation import DEFAULTS, local_order
             cache["order"] = local_order(structure.centroids, structure.normals,
                                          structure.volumes, DEFAULTS["local_radius"],
                                          structure.domain)
@@ -385,7 +387,6 @@ def view_voxel_size(structure) -> float:
     """Default voxel edge (nm) of the viewer's grid: the rasterizer's default
     (:func:`sheetview.grid.default_voxel_size`), coarsened if needed so that the domain's
     bounding box holds at most :data:`VIEW_MAX_VOXELS` voxels (rounded up to 3 digits)."""
-    from .grid import default_voxel_size
 
     v = default_voxel_size(structure)
     lo, hi = (np.asarray(b, float) for b in structure.domain.bounds)
@@ -896,7 +897,6 @@ def write_png(img: np.ndarray, path, force: bool = False) -> Path:
     """Write an RGB(A) uint8 image as PNG through :func:`atomic_path`."""
     from matplotlib.image import imsave
 
-    from .io.output import atomic_path
 
     with atomic_path(path, force) as tmp:
         imsave(str(tmp), np.ascontiguousarray(img), format="png")
@@ -980,7 +980,6 @@ def render(structure, path=None, *, colour_by: str = "stacking", plane=None, gri
     """
     import pyvista as pv
 
-    from .io.output import check_writable
 
     if path is not None:
         check_writable(path, force)  # fail before the work
@@ -1073,7 +1072,6 @@ def contact_sheet(grid, path=None, *, axis: str = "z", count: int = 9, force: bo
     from matplotlib.figure import Figure
     from matplotlib.patches import Patch
 
-    from .io.output import atomic_path, check_writable
 
     axis = str(axis).lower()
     if axis not in PANEL_AXES:
@@ -1182,9 +1180,6 @@ def export(structure, folder, *, grid=None, voxel_size=None, stem: str | None = 
 
     Returns the paths written.
     """
-    from .io import write
-    from .io.output import check_writable
-    from .structure import Structure
 
     folder = Path(folder)
     if not folder.is_dir():

@@ -11,7 +11,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..grid import INTERLAYER, OUTSIDE, SOLID, PhaseGrid
-from ..structure import SurfaceBody
+from ..measures.pores import default_reservoir, intrusion_diameter, local_thickness, size_distribution
+from ..measures.relaxation import relaxation_spectrum
 
 
 @dataclass
@@ -63,8 +64,6 @@ class PoreSizes(Bundle):
 
 
 def pores(grid: PhaseGrid, *, thickness=None, intrusion: bool = False):
-    from ..measures.pores import (default_reservoir, intrusion_diameter, local_thickness,
-                                  size_distribution)
     g = grid
     codes = _pore_codes(g)
     names = tuple(g.names[c] for c in codes)
@@ -93,5 +92,4 @@ def pores(grid: PhaseGrid, *, thickness=None, intrusion: bool = False):
 def relaxation(grid: PhaseGrid, *, thickness=None, interlayer_width=None):
     """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the phase grid
     (each size class apart) with the default surface relaxivity and bulk T2."""
-    from ..measures.relaxation import relaxation_spectrum
     return relaxation_spectrum(grid, thickness, interlayer_width=interlayer_width)

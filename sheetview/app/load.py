@@ -13,6 +13,7 @@ from __future__ import annotations
 from ..errors import OptionError
 from ..io import family_of, read
 from ..structure import Structure
+from ..measures.kinetics import structure_at
 
 #: Reading options and the file families they apply to.
 READ_OPTIONS = {
@@ -83,7 +84,6 @@ def at_moment(obj, progress=None, time=None):
     as it stood then and the :class:`~sheetview.measures.kinetics.Moment`."""
     if progress is None and time is None:
         return obj, None
-    from ..measures.kinetics import structure_at
     if not isinstance(obj, Structure):
         raise OptionError("a moment of growth needs prisms with a 'born' column, but the input "
                           f"is a {type(obj).__name__}", path=getattr(obj, "source", None),

@@ -21,6 +21,9 @@ from ..grid import INTERLAYER, OUTSIDE, SOLID, PhaseGrid, rasterize_body
 from ..structure import Structure, SurfaceBody
 from .registry import REGISTRY, check_inputs
 from .settings import SPLIT_NAMES, Settings
+from ..measures.phases import classify, split_pores_by_size
+from ..measures.pores import local_thickness
+from ..measures.stacking import StackingSettings, stacking_graph
 
 #: Inputs a measure function may ask for by parameter name, besides the settings.
 SHARED = {
@@ -46,8 +49,6 @@ def phase_grid(obj, settings: Settings | None = None, *, graph=None,
     rasterized (solid, interlayer from the stacking graph, gel pore, outside), a closed
     body rasterized by parity casting. The one builder used by ``measure``, the viewer,
     sections and comparisons."""
-    from ..measures.phases import classify
-    from ..measures.stacking import StackingSettings, stacking_graph
     s = settings if settings is not None else Settings()
     if isinstance(obj, PhaseGrid):
         return obj
@@ -146,7 +147,6 @@ class Run:
         return g
 
     def _split_grid(self) -> PhaseGrid:
-        from ..measures.phases import split_pores_by_size
         if not self.settings.pore_split:
             return self.base_grid
         return self.stage("pore classes", split_pores_by_size, self.base_grid,
@@ -156,7 +156,6 @@ class Run:
     def thickness(self) -> np.ndarray:
         """Local thickness (nm; NaN off the pores) of the non-interlayer pore space of the
         base grid."""
-        from ..measures.pores import local_thickness
         g = self.base_grid
         mask = np.isin(g.labels, [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)])
         return self.stage("local thickness", local_thickness, mask, g.spacing,

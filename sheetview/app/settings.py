@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 
 from ..errors import OptionError
 from ..material import DEFAULT_DENSITY, DEFAULT_FORMULA, DEFAULT_WATER_DENSITY, Hydrate
+from ..measures.stacking import StackingSettings
 
 #: Names of the pore classes made by ``pore_split`` (smallest first). After Muller et al.
 #: (2013) and the review of Valori, McDonald & Scrivener, Cem. Concr. Res. 49 (2013) 65
@@ -106,7 +107,6 @@ class Settings:
                                group="correlation")
 
     def __post_init__(self):
-        from ..measures.stacking import StackingSettings
         set_ = lambda k, v: object.__setattr__(self, k, v)  # noqa: E731
         for k in ("angle_tol", "gap_tol", "overlap", "tilt_limit", "edge_tol", "local_radius",
                   "density", "water_density"):

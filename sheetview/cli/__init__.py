@@ -12,6 +12,9 @@ import click
 
 from .._version import __version__
 from ..errors import SheetviewError
+from .convert import convert
+from .info import info
+from .view import render, slices, view
 
 
 def option_names(command) -> dict:
@@ -63,9 +66,6 @@ _MODULES = ("synth", "measure", "batch", "experiment", "sections", "micrograph",
 
 
 def _register():
-    from .convert import convert
-    from .info import info
-    from .view import render, slices, view
     for cmd in (info, convert, view, render, slices):
         main.add_command(cmd)
     for modname in _MODULES:

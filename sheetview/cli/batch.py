@@ -8,6 +8,7 @@ import click
 from ..errors import OptionError
 from .common import at_options, read_kwargs, read_options
 from .measure import SETTINGS, measure_options, measure_settings
+from ..batch import run_batch, trend_plot
 
 
 @click.command("batch")
@@ -51,7 +52,6 @@ def batch(inputs, out, only, workers, threads, cluster, no_plots, no_html, quiet
     column) and the batch goes on. Exit status: 0 all measured, 1 if any input
     failed, 2 for a usage error (bad option, unwritable OUT).
     """
-    from ..batch import run_batch
     opts = {k: kw.pop(k) for k in SETTINGS}
     read_kw = read_kwargs(kw)
     settings = measure_settings(**opts, spacing=read_kw.get("spacing"))
@@ -86,7 +86,6 @@ def trend(summary, x, y, group, out, force):
     bars of one sample standard deviation. Columns are the dotted names of the
     summary header, e.g. input_metadata.synth.n_stacks or volume_fractions.solid.
     """
-    from ..batch import trend_plot
     stats = trend_plot(summary, x, y, out, group=group, force=force)
     for g, (xs, m, s, n) in stats.items():
         label = "" if group is None else f"{group} = {g}: "

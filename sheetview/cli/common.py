@@ -3,7 +3,9 @@ from __future__ import annotations
 
 import click
 
-from ..errors import OptionError
+from ..app.document import dumps as _dumps
+from ..app.load import at_moment, load as app_load
+from ..app.settings import parse_size as _parse
 
 
 def read_options(f):
@@ -52,19 +54,16 @@ def read_kwargs(kw: dict) -> dict:
 
 def load(path, **kw):
     """Read a file with the options of :func:`read_options` (only those that apply)."""
-    from ..app.load import load as app_load
     return app_load(path, **read_kwargs(kw))
 
 
 def dumps(doc) -> str:
     """JSON text for a result document; NaN and inf become null (valid JSON)."""
-    from ..app.document import dumps as _dumps
     return _dumps(doc)
 
 
 def parse_size(text):
     """'8G', '500M', '2.5GB', '123456789' -> bytes (:func:`sheetview.app.settings.parse_size`)."""
-    from ..app.settings import parse_size as _parse
     return _parse(text)
 
 
@@ -82,7 +81,6 @@ def at_options(f):
 def apply_at(obj, at_progress=None, at_time=None):
     """``(obj, None)`` when neither option is set; else the structure at that moment and
     the :class:`~sheetview.measures.kinetics.Moment` (:func:`sheetview.app.load.at_moment`)."""
-    from ..app.load import at_moment
     return at_moment(obj, at_progress, at_time)
 
 

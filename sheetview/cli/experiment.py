@@ -14,10 +14,18 @@ from ..io.curves import read_experimental
 from ..figures import plot_relaxation, plot_scattering
 from ..report import save_figure
 from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
+from ..app.run import Run
+from ..app.settings import Settings
+from ..grid import INTERLAYER, PhaseGrid, SOLID
+from ..io.output import atomic_path, check_writable
+from ..material import DEFAULT_DENSITY, DEFAULT_FORMULA, Hydrate, interlayer_share
+from ..measures.relaxation import DEFAULT_RHO2_NM_PER_US, DEFAULT_T2_BULK_S, compare_t2, relaxation_spectrum
+from ..measures.scattering import compare_curve, curve_features, describe_sheets, phase_slds, scattering_curve
+from ..sld import preset_sld
+from ..structure import Structure
 
 
 def _check_outputs(paths, force):
-    from ..io.output import check_writable
     seen = set()
     for q in paths:
         if q is None:
@@ -29,7 +37,6 @@ def _check_outputs(paths, force):
 
 
 def _write_csv(path, table: dict, force, header_note=None):
-    from ..io.output import atomic_path
     cols = list(table)
     n = len(table[cols[0]])
     with atomic_path(path, force) as tmp:
@@ -51,9 +58,6 @@ def _fmt(v):
 def _grid_of(obj, voxel, max_memory=None):
     """``(run, grid)``: the run that built the phase grid (None for a voxel volume, which
     is its own grid) and the grid."""
-    from ..app.run import Run
-    from ..app.settings import Settings
-    from ..grid import PhaseGrid
     if isinstance(obj, PhaseGrid):
         return None, obj
     run = Run(obj, Settings(voxel=voxel, max_memory=max_memory))
@@ -64,9 +68,6 @@ def _solid_sld(formula, density, probe, grid, interlayer_contrast=True):
     """SLD of the sheets from the material model: the hydrate (default or given) less the
     interlayer water the grid resolves; the whole hydrate's SLD when the interlayer is not
     contrasted (sheets and interlayer water as one particle)."""
-    from ..grid import INTERLAYER, SOLID
-    from ..material import DEFAULT_DENSITY, DEFAULT_FORMULA, Hydrate, interlayer_share
-    from ..measures.scattering import describe_sheets
     given = formula is not None or density is not None
     h = Hydrate(DEFAULT_FORMULA if formula is None else formula,
                 DEFAULT_DENSITY if density is None else density,
@@ -121,8 +122,6 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
             window, csv_out, plot_out, json_out, slopes, compare, q_unit, columns, max_memory,
             force, at_progress, at_time, **read_kw):
     """Predicted small-angle scattering curve I(q) (cm^-1) of FILE."""
-    from ..measures.scattering import compare_curve, curve_features, phase_slds, scattering_curve
-    from ..sld import preset_sld
     _check_outputs([csv_out, plot_out, json_out], force)
     ranges = [_parse_range(t) for t in slopes]
     exp = read_experimental(compare, "scattering", q_unit, columns) if compare else None
@@ -155,7 +154,6 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     _write_csv(csv_out, {"q_nm-1": res.q.tolist(), "intensity_cm-1": res.intensity.tolist()},
                force, notes)
     if json_out:
-        from ..io.output import atomic_path
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:
@@ -211,7 +209,6 @@ def _parse_range(text):
 
 
 def _solid_fraction(grid):
-    from ..grid import SOLID
     return float(np.count_nonzero(grid.labels == SOLID) / grid.labels.size)
 
 
@@ -248,9 +245,6 @@ def _solid_fraction(grid):
 def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out, json_out,
           compare, t2_unit, columns, max_memory, force, at_progress, at_time, **read_kw):
     """Predicted NMR T2 distribution of the pore water of FILE (fast exchange)."""
-    from ..measures.relaxation import (DEFAULT_RHO2_NM_PER_US, DEFAULT_T2_BULK_S, compare_t2,
-                                       relaxation_spectrum)
-    from ..structure import Structure
     _check_outputs([csv_out, plot_out, json_out], force)
     exp = read_experimental(compare, "t2", t2_unit, columns) if compare else None
     for w in (exp.warnings if exp else []):
@@ -284,7 +278,6 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
              "a model's predicted distribution, not a measurement"]
     _write_csv(csv_out, res.table(), force, notes)
     if json_out:
-        from ..io.output import atomic_path
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:

@@ -7,8 +7,9 @@ from ..app.document import file_document
 from ..app.registry import check_inputs, select
 from ..app.run import Run
 from ..app.settings import Settings, fields_info
-from ..errors import OptionError
 from .common import at_options, dumps, echo_moment, load_input, read_options
+from ..measures.stacking import StackingSettings
+from ..report import check_folder, write_report
 
 #: The settings of a measure run that ``measure`` and ``batch`` take on the command line:
 #: every field of :class:`~sheetview.app.settings.Settings`, option ``--name-with-dashes``.
@@ -57,7 +58,6 @@ def measure_settings(*, spacing=None, **opts) -> Settings:
     as the settings; ``None`` keeps a default). ``spacing`` is the interlayer repeat the gap
     tolerance is checked against before any file is read (default 1.4 nm; a file's own
     repeat is checked again when it is measured)."""
-    from ..measures.stacking import StackingSettings
     s = Settings.of(**opts)
     StackingSettings(**s.stacking_kwargs(), spacing=spacing or 1.4)
     return s
@@ -174,7 +174,6 @@ def measure(file, only, as_json, outdir, force, no_plots, quiet, at_progress, at
     opts = {k: kw.pop(k) for k in SETTINGS}
     settings = measure_settings(**opts, spacing=kw.get("spacing"))
     if outdir is not None:
-        from ..report import check_folder
         check_folder(outdir, force)
     obj, moment = load_input(file, kw, at_progress, at_time)
     echo_moment(moment, quiet)
@@ -186,7 +185,6 @@ def measure(file, only, as_json, outdir, force, no_plots, quiet, at_progress, at
     if moment is not None:
         doc["at"] = moment.to_dict()
     if outdir is not None:
-        from ..report import write_report
         if progress:
             progress("report", False)
         write_report(outdir, doc, run.results, force=force, plots=not no_plots,

@@ -8,6 +8,18 @@ import numpy as np
 
 from ..errors import OptionError
 from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
+from .. import pictures
+from ..app.run import phase_grid
+from ..app.settings import Settings
+from ..io.images import read_micrograph
+from ..io.output import atomic_path, check_writable
+from ..measures.compare import compare, virtual_images
+from ..measures.planar import describe
+from ..measures.sections import parse_axis_or_normal, projection, section, segment_projection
+from ..pictures import grey_rgb
+from ..report import write_csv
+from ..structure import Structure
+from ..style import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
 
 _PHASE_CHOICES = ("solid", "interlayer", "gel")
 
@@ -24,22 +36,17 @@ def _parse_phases(text):
 def _grid_of(obj, voxel, max_memory, *, needed=True):
     """The phase grid of ``obj`` with the measure settings (``sheetview.app.run.phase_grid``,
     the one builder); None when ``needed`` is False (prisms projected exactly)."""
-    from ..app.run import phase_grid
-    from ..app.settings import Settings
     if not needed:
         return None
     return phase_grid(obj, Settings(voxel=voxel, max_memory=parse_size(max_memory)))
 
 
 def _describe(mask, valid, pixel, lines, seed):
-    from ..measures.planar import describe
     return describe(mask, pixel, valid=valid, seed=seed, n_lines=lines)
 
 
 def _open(path, out, force, read_kw, at_progress, at_time):
     """Check the output names (before any work), read the input and take the moment."""
-    from .. import pictures
-    from ..io.output import check_writable
     if out is not None:
         for p in pictures.outputs(out).values():
             check_writable(p, force)
@@ -135,9 +142,6 @@ def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memo
                 as_json, describe, lines, seed, quiet, at_progress, at_time, **read_kw):
     """A virtual section: the phase image (solid, interlayer, gel pore) of any plane of a
     structure or volume, as PNG/TIFF with a scale bar."""
-    from .. import pictures
-    from ..measures.sections import parse_axis_or_normal, section
-    from ..style import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
 
     phases = _parse_phases(solid_phases)
     n = parse_axis_or_normal(axis, normal)
@@ -195,12 +199,9 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
                 out, force, as_json, describe, lines, seed, quiet, at_progress, at_time, **read_kw):
     """A virtual transmission micrograph: solid thickness through a slab projected along an
     axis, shown as exp(-t / lambda), as PNG/TIFF with a scale bar."""
-    from .. import pictures
-    from ..measures.sections import projection, segment_projection
 
     thr = _threshold(threshold, unit_range=True)
     obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
-    from ..structure import Structure
     img = projection(obj, axis, slab, offset=offset, pixel=pixel, mfp=mfp, resolution=resolution,
                      grid=_grid_of(obj, voxel, max_memory, needed=not isinstance(obj, Structure)))
     doc = {"file": str(path), **img.to_dict()}
@@ -268,11 +269,6 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
     """Put a structure's virtual micrographs beside a real micrograph IMAGE: the same 2D
     descriptors for both, and the Kolmogorov-Smirnov and Wasserstein distances between
     their chord and local-thickness distributions."""
-    from ..io.images import read_micrograph
-    from ..io.output import check_writable
-    from ..measures.compare import compare, virtual_images
-    from ..measures.planar import describe
-    from ..report import write_csv
 
     outs = [p for p in (csv_out, plot_out) if p]
     if len(set(map(str, outs))) != len(outs):
@@ -285,7 +281,6 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
     mg = read_micrograph(image, pixel_size=pixel_size, threshold=thr, solid=solid_is)
     obj, moment = apply_at(load(path, **read_kw), at_progress, at_time)
     echo_moment(moment, quiet)
-    from ..structure import Structure
     grid = _grid_of(obj, voxel, max_memory,
                     needed=kind == "section" or not isinstance(obj, Structure))
     vis = virtual_images(obj, kind, axis=axis, count=count, pixel=mg.pixel, slab=slab,
@@ -331,9 +326,6 @@ def _plot_compare(mg, vi, cmp_, path, force, name_v, name_o):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    from ..io.output import atomic_path
-    from ..pictures import grey_rgb
-    from ..style import BACKGROUND, section_rgb
     fig = Figure(figsize=(10, 7.0), dpi=100)
     FigureCanvasAgg(fig)
     gs = fig.add_gridspec(2, 4, height_ratios=[1.5, 1], hspace=0.45, wspace=0.35,

@@ -44,6 +44,7 @@ from ..grid import OUTSIDE, SOLID, PhaseGrid
 from ..structure import Structure, SurfaceBody
 from ._rays import domain_interval, grow, periodic_images, prism_planes, push, regroup
 from ._result import Result
+from .surface import DIRECTIONS_13, direction_weights, interface_areas_with
 
 PHASES = ("solid", "pore")
 
@@ -1703,7 +1704,6 @@ def _edge_area(grid: PhaseGrid, lut) -> float:
 def _phase_volume_surface(grid: PhaseGrid, lut) -> tuple[float, float]:
     """Volume and whole boundary (Crofton interfaces with every other label, plus the
     exact grid edge) of the labels in ``lut``."""
-    from .surface import interface_areas_with
 
     counts = np.bincount(grid.labels.ravel(), minlength=256)
     present = np.flatnonzero((counts > 0) & lut)
@@ -1803,7 +1803,6 @@ def cauchy_figures(grid: PhaseGrid, solid=(SOLID,)) -> CauchyFigures:
     plane reads 0.927 of its area); exact chords of prisms and chords of the voxel grid
     are checked against these figures in docs/validation.md.
     """
-    from .surface import DIRECTIONS_13, direction_weights
 
     if not isinstance(grid, PhaseGrid):
         raise OptionError(f"expected a PhaseGrid, got {type(grid).__name__}")

@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import OptionError
+from .sections import AXES, centre_and_span, projection, section, segment_projection
 
 #: Distributions compared (keys of PlanarDescriptors.distributions()).
 DISTRIBUTIONS = ("chord_solid", "chord_pore", "thickness_solid", "thickness_pore")
@@ -98,7 +99,6 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
     """``count`` virtual micrographs of ``obj`` at ``pixel`` nm: sections across ``axis``
     at evenly spaced offsets (the middle ``1 - 2 margin`` of the domain), or projections of
     ``count`` slabs of thickness ``slab`` spread the same way."""
-    from .sections import AXES, centre_and_span, projection, section, segment_projection
     kind = str(kind).lower()
     if kind not in ("section", "projection"):
         raise OptionError(f"--virtual must be section or projection, got {kind!r}", param="virtual")

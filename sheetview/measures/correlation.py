@@ -35,6 +35,7 @@ from ..errors import MemoryLimitError, OptionError
 from ..grid import OUTSIDE, SOLID, PhaseGrid
 from ..threads import budget
 from ._result import Result
+from .surface import phase_codes
 
 #: Default memory ceiling for the FFT work arrays (bytes).
 DEFAULT_MAX_BYTES = 4 * 1024 ** 3
@@ -656,7 +657,6 @@ def two_point_correlation(grid: PhaseGrid, phases, r_max: float | None = None,
     (``fit_range``): the model holds for solid and pore features thicker than that (the
     default voxel puts six across the thinnest); thinner ones bias the slope.
     """
-    from .surface import phase_codes
 
     if not isinstance(grid, PhaseGrid):
         raise OptionError(f"expected a PhaseGrid, got {type(grid).__name__}")

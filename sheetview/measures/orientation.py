@@ -25,6 +25,7 @@ import numpy as np
 from ..errors import OptionError, positive
 from ._result import Result
 from .cells import cell_list
+from .stacking import check_structure
 
 DEFAULTS = {"local_radius": 5.0, "frame": "z", "n_cos": 10, "n_phi": 12, "pole_bins": 41}
 
@@ -410,7 +411,6 @@ def orientation(structure, *, local_radius: float = DEFAULTS["local_radius"],
     de Gennes & Prost, The Physics of Liquid Crystals, 2nd ed. (1993); Mardia & Jupp,
     Directional Statistics, Wiley (2000), for the Watson distribution used in validation.
     """
-    from .stacking import check_structure
     check_structure(structure)
     local_radius = positive(local_radius, "local radius", param="local_radius")
     if frame not in ("z", "director"):

@@ -40,6 +40,8 @@ from ..material import Hydrate, interlayer_share
 from ..sld import preset_sld
 from ..threads import budget
 from ._result import Result
+from ..errors import MemoryLimitError
+from ..grid import _phase_code, available_memory
 
 NM_TO_CM = 1e-7
 #: 1e-6 Å⁻² in cm⁻².
@@ -292,7 +294,6 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
     names = grid.names
     sp = np.asarray(grid.spacing, dtype=float)
     codes = {}
-    from ..grid import _phase_code
     for k, v in sld_by_phase.items():
         codes[_phase_code(k, names)] = float(v)
     lut, code_counts = _sld_field(labels, codes, names)
@@ -307,11 +308,9 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
         raise OptionError(f"pad must be a whole number >= 1, got {pad!r}", field="pad")
     shape = np.asarray(labels.shape)
     shape_pad = tuple(int(n * pad) for n in shape)
-    from ..grid import available_memory
     limit = available_memory() // 2 if max_memory is None else int(max_memory)
     need = fft_bytes(shape, pad)
     if need > limit:
-        from ..errors import MemoryLimitError
         hint = (f"; --pad 1 would need {fft_bytes(shape, 1) / 2**30:.2f} GiB"
                 if pad > 1 else "")
         coarser = float(np.max(sp)) * (need / max(limit, 1)) ** (1 / 3) * 1.01

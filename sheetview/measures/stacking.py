@@ -30,11 +30,11 @@ from dataclasses import dataclass, field
 
 import numba
 import numpy as np
-from scipy.spatial import cKDTree
 
 from ..errors import InputError, OptionError
 from ._result import Result
 from .cells import cell_list
+from ..structure import Structure
 
 #: Default tolerances. See docs/measures.md for the reasoning behind each.
 DEFAULTS = {
@@ -799,6 +799,7 @@ def candidate_pairs(centroids, radius, domain):
 
 def _candidate_pairs_kdtree(centroids, radius, domain):
     """Reference search: :meth:`scipy.spatial.cKDTree.query_pairs` (ndarray output)."""
+    from scipy.spatial import cKDTree  # heavy library, imported when used (the fallback)
     c = np.asarray(centroids, dtype=np.float64)
     if len(c) < 2:
         e = np.zeros(0, np.int64)
@@ -836,7 +837,6 @@ class StackingGraph:
 
 
 def check_structure(structure):
-    from ..structure import Structure
     if not isinstance(structure, Structure):
         kind = type(structure).__name__
         raise OptionError(f"stacking and orientation measures need prisms (a Structure), "

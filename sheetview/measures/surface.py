@@ -32,7 +32,7 @@ import numba
 import numpy as np
 
 from ..errors import OptionError
-from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
+from ..grid import OUTSIDE, SOLID, PhaseGrid
 from ..material import MASS_BASIS, Hydrate, MaterialSplit, interlayer_share
 from ._result import Result
 
