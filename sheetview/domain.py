@@ -14,6 +14,12 @@ import numpy as np
 
 from .errors import InputError
 
+#: Largest magnitude (nm) accepted for a coordinate, a length or a thickness read from a
+#: file: 1 m. Nothing sheetview models comes near it, so a larger value means wrong units
+#: or a damaged file; it also keeps every derived quantity (areas, volumes, voxel indices,
+#: squared distances) far from floating-point overflow.
+MAX_LENGTH_NM = 1e9
+
 
 @dataclass(frozen=True)
 class Sphere:
@@ -174,7 +180,9 @@ def domain_from_dict(d, *, scale: float = 1.0, path=None, line=None) -> Domain:
                 bad('a sphere needs "center": [x, y, z] and "radius": r')
             if extra:
                 bad(f"unknown key(s) {sorted(extra)} for a sphere (expected center, radius)")
-            return Sphere(tuple(float(v) * scale for v in d["center"]), float(d["radius"]) * scale)
+            dom = Sphere(tuple(float(v) * scale for v in d["center"]), float(d["radius"]) * scale)
+            _check_magnitude(np.append(dom.center, dom.radius), bad)
+            return dom
         if shape == "box":
             extra = set(d) - {"shape", "min", "max", "periodic"}
             if "min" not in d or "max" not in d:
@@ -184,11 +192,22 @@ def domain_from_dict(d, *, scale: float = 1.0, path=None, line=None) -> Domain:
             periodic = d.get("periodic", False)
             if not isinstance(periodic, bool):
                 bad('"periodic" must be true or false')
-            return Box(tuple(float(v) * scale for v in d["min"]),
-                       tuple(float(v) * scale for v in d["max"]), periodic)
+            dom = Box(tuple(float(v) * scale for v in d["min"]),
+                      tuple(float(v) * scale for v in d["max"]), periodic)
+            _check_magnitude(np.append(dom.min, dom.max), bad)
+            return dom
+    except OverflowError:
+        bad(f"a number of the {shape} is too large")
     except (TypeError, ValueError) as e:
         bad(str(e) if isinstance(e, ValueError) and "must" in str(e) else f"malformed {shape}: {e}")
     bad(f'"shape" must be "sphere" or "box", not {shape!r}')
+
+
+def _check_magnitude(values, bad) -> None:
+    big = np.abs(np.asarray(values, dtype=float)).max()
+    if big > MAX_LENGTH_NM:
+        bad(f"lengths must lie within {MAX_LENGTH_NM:g} nm (1 m), found {big:.4g} nm "
+            f"(check the units)")
 
 
 def bounding_box(points: np.ndarray, pad: float) -> Box:

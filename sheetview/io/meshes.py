@@ -255,39 +255,21 @@ def _quiet_vtk():
 
 
 def _load_vtk(path: Path):
-    import pyvista as pv
+    """Points, triangles, per-face arrays and the header of a VTK file, parsed by VTK in a
+    child process after its declarations are checked (:mod:`sheetview.io.vtkfiles`)."""
+    from .vtkfiles import read_mesh_arrays
 
-    fmt = _FORMAT_NAMES[path.suffix.lower()]
-    mesh = None
-    err = None
-    with _quiet_vtk() as catcher:
-        try:
-            mesh = pv.read(str(path))
-        except Exception as e:
-            err = _short(e)
-    errors = [str(getattr(ev, "alert", ev)) for ev in getattr(catcher, "error_events", [])]
-    if mesh is None or (errors and mesh.n_points == 0):
-        why = err or (errors[0] if errors else "unknown error")
-        raise InputError(f"cannot be read as {fmt}: {_short(why)}", path=path)
-    found = _field_header(mesh)
-    if isinstance(mesh, pv.MultiBlock):
-        mesh = mesh.combine()
-    if mesh.n_cells == 0:
-        return (np.array(mesh.points, dtype=np.float64).reshape(-1, 3), np.zeros((0, 3), np.int64),
-                {}, found)
-    with _quiet_vtk():
-        if not isinstance(mesh, pv.PolyData):
-            mesh = mesh.extract_surface()
-        mesh = _polygons_only(mesh)
-        if mesh.n_cells == 0:
-            return (np.array(mesh.points, dtype=np.float64).reshape(-1, 3),
-                    np.zeros((0, 3), np.int64), {}, found)
-        surf = mesh.triangulate()
-    # copies: views into VTK memory must not outlive the dataset
-    faces = np.array(surf.regular_faces, dtype=np.int64).reshape(-1, 3)
-    arrays = {k: np.array(surf.cell_data[k]) for k in surf.cell_data.keys()
-              if np.asarray(surf.cell_data[k]).ndim == 1}
-    return np.array(surf.points, dtype=np.float64), faces, arrays, found
+    vertices, faces, arrays, raw = read_mesh_arrays(path)
+    found = None
+    if raw is not None:
+        where = f"VTK field data '{HEADER_FIELD}'"
+        remedy = (f"remove the field data array '{HEADER_FIELD}' to read the mesh with an "
+                  f"inferred domain")
+        if raw[0] == "text":
+            found = _found_json(raw[1], where, remedy)
+        else:
+            found = _Found(MESH_FORMAT_VERSION, _NOT_TEXT, where, remedy)
+    return vertices, faces, arrays, found
 
 
 # ----------------------------------------------------------------------------- header
@@ -343,22 +325,6 @@ def _found_json(value, where, remedy):
             return None
         version = int(m.group(1))
     return _Found(version, obj, where, remedy)
-
-
-def _field_header(dataset):
-    """The header in the field data of a VTK dataset, or None."""
-    fd = getattr(dataset, "field_data", None)
-    if fd is None or HEADER_FIELD not in fd.keys():
-        return None
-    where = f"VTK field data '{HEADER_FIELD}'"
-    remedy = f"remove the field data array '{HEADER_FIELD}' to read the mesh with an inferred domain"
-    try:
-        a = np.asarray(fd[HEADER_FIELD]).ravel()
-    except Exception:  # noqa: BLE001 - an array pyvista cannot hand over is as bad as garbage
-        a = None
-    if a is None or a.size != 1 or a.dtype.kind not in "USO":
-        return _Found(MESH_FORMAT_VERSION, _NOT_TEXT, where, remedy)
-    return _found_json(str(a[0]), where, remedy)
 
 
 def _find_text_header(path: Path, suffix: str):

@@ -46,6 +46,7 @@ and no second-file convention).
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 from pathlib import Path
@@ -513,60 +514,43 @@ def _load_raw(path: Path, shape, dtype, byte_order):
 
 # VTI ----------------------------------------------------------------------------------
 def _load_vti(path: Path, ufac):
-    import pyvista as pv
+    """The voxel array and geometry of a ``.vti``: the XML declarations checked first
+    (extent against the file size and the memory budget; Spacing, Origin and Direction
+    finite, spacing positive), then parsed by VTK in a child process
+    (:func:`sheetview.io.vtkfiles.read_image_arrays`)."""
+    from .vtkfiles import read_image_arrays
 
-    from .meshes import _quiet_vtk
-
-    try:
-        with open(path, "rb") as fh:
-            head = fh.read(65536).decode("latin1", errors="replace")
-    except OSError as e:
-        raise InputError(f"cannot be opened: {e.strerror}", path=path) from None
-    m = re.search(r'WholeExtent="\s*(-?\d+)\s+(-?\d+)\s+(-?\d+)\s+(-?\d+)\s+(-?\d+)\s+(-?\d+)\s*"', head)
-    if not m or "ImageData" not in head:
-        raise InputError("cannot be read as VTK ImageData (.vti): no <ImageData WholeExtent=...> "
-                         "header found", path=path)
-    ext = [int(v) for v in m.groups()]
-    npts = [ext[1] - ext[0] + 1, ext[3] - ext[2] + 1, ext[5] - ext[4] + 1]
-    # the phase array, and a float32 solid fraction where one is named in the file
-    _check_memory(npts, 8 + (4 if f'Name="{FRACTION_ARRAY}"' in head else 0), path)
-    err = None
-    grid = None
-    with _quiet_vtk() as catcher:
-        try:
-            grid = pv.read(str(path))
-        except Exception as e:
-            err = _short(e)
-    errors = [str(getattr(ev, "alert", ev)) for ev in getattr(catcher, "error_events", [])]
-    if grid is None or errors:
-        why = err or (errors[0] if errors else "unknown error")
-        raise InputError(f"cannot be read as VTK ImageData (.vti): {_short(why)}", path=path)
-    if not isinstance(grid, pv.ImageData):
-        raise InputError(f"holds a {type(grid).__name__}, expected ImageData", path=path)
-    direction = getattr(grid, "direction_matrix", None)
-    if direction is not None and not np.allclose(np.asarray(direction), np.eye(3)):
+    grid = read_image_arrays(path)
+    direction = grid.get("direction")
+    if direction is not None and not np.allclose(np.asarray(direction).reshape(3, 3), np.eye(3)):
         raise InputError("has a rotated grid (non-identity Direction); only axis-aligned "
                          "grids are read", path=path)
-    dims = np.asarray(grid.dimensions)
+    dims = np.asarray(grid["dimensions"])
     name, where = _vti_array(grid, path)
-    data = np.asarray((grid.cell_data if where == "cell" else grid.point_data)[name])
+    data = np.asarray(grid[where][name])
     if data.ndim != 1:
         raise InputError(f"array '{name}' has {data.shape[1]} components; expected one value "
                          f"per voxel", path=path, field=name)
     vshape = tuple(int(d) for d in (np.maximum(dims - 1, 1) if where == "cell" else dims))
+    if data.size != math.prod(vshape):
+        raise InputError(f"array '{name}' holds {data.size:,} values for {math.prod(vshape):,} "
+                         f"voxels", path=path, field=name)
     arr = np.ascontiguousarray(data.reshape(vshape, order="F"))
     f = ufac if ufac is not None else 1.0
-    spacing = tuple(float(s) * f for s in grid.spacing)
-    origin = np.asarray(grid.origin, dtype=float) * f
+    spacing = tuple(float(s) * f for s in grid["spacing"])
+    origin = np.asarray(grid["origin"], dtype=float) * f
+    if not (all(math.isfinite(s) and s > 0 for s in spacing) and np.all(np.isfinite(origin))):
+        raise InputError(f"Spacing {grid['spacing']} and Origin {grid['origin']} must be finite "
+                         f"(spacing positive) in nm", path=path)
     if where == "point":
         origin = origin - 0.5 * np.asarray(spacing)
     info = {"spacing": spacing, "origin": tuple(float(o) for o in origin)}
-    if "sheetview" in grid.field_data:
+    if grid.get("marker") is not None:
         try:
-            mk = json.loads(str(np.asarray(grid.field_data["sheetview"]).ravel()[0]))
+            mk = json.loads(grid["marker"])
             if isinstance(mk, dict) and mk.get("format") == MARKER:
                 info["marker"] = mk
-        except (ValueError, IndexError, TypeError):
+        except (ValueError, RecursionError):
             pass
     mk = info.get("marker")
     if mk is not None and mk.get("solid_fraction") is not None:
@@ -577,8 +561,8 @@ def _load_vti(path: Path, ufac):
 def _vti_fraction(grid, name, where, vshape, path) -> np.ndarray:
     """The solid-fraction array that the marker of a sheetview VTI names: one float per
     voxel, beside the phase array (same cell or point association), each in [0, 1]."""
-    data = grid.cell_data if where == "cell" else grid.point_data
-    if not isinstance(name, str) or name not in data.keys():
+    data = grid[where]
+    if not isinstance(name, str) or name not in data:
         raise InputError(f"its sheetview marker announces a solid-fraction array {name!r}, "
                          f"but the file holds no {where} array of that name", path=path,
                          field="solid_fraction")
@@ -597,14 +581,14 @@ def _vti_fraction(grid, name, where, vshape, path) -> np.ndarray:
 
 
 def _vti_array(grid, path):
-    cells = list(grid.cell_data.keys())
-    points = list(grid.point_data.keys())
+    cells = list(grid["cell"])
+    points = list(grid["point"])
     if "phase" in cells:
         return "phase", "cell"
     if "phase" in points:
         return "phase", "point"
-    for where, names, data in (("cell", cells, grid.cell_data), ("point", points, grid.point_data)):
-        active = getattr(data, "active_scalars_name", None)
+    for where, names in (("cell", cells), ("point", points)):
+        active = grid["active"].get(where)
         if active in names:
             return active, where
     if len(cells) + len(points) == 1:
