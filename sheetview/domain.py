@@ -199,8 +199,9 @@ def domain_from_dict(d, *, scale: float = 1.0, path=None, line=None) -> Domain:
     except OverflowError:
         bad(f"a number of the {shape} is too large")
     except (TypeError, ValueError) as e:
-        bad(str(e) if isinstance(e, ValueError) and "must" in str(e) else f"malformed {shape}: {e}")
-    bad(f'"shape" must be "sphere" or "box", not {shape!r}')
+        bad(str(e) if isinstance(e, ValueError) and "must" in str(e)
+            else f"malformed {shape}: {str(e)[:120]}")
+    bad(f'"shape" must be "sphere" or "box", not {str(shape)[:40]!r}')
 
 
 def _check_magnitude(values, bad) -> None:

@@ -55,7 +55,7 @@ _PLACEHOLDER_DOMAIN = Box((0.0, 0.0, 0.0), (1.0, 1.0, 1.0), inferred=True)
 def unit_factor(units, *, path=None, line=None) -> float:
     """Factor that converts a length in ``units`` to nm; refuses unknown units."""
     if not isinstance(units, str) or units.strip().lower() not in UNITS:
-        raise InputError(f"unknown units {units!r}; expected one of \"nm\", \"A\" "
+        raise InputError(f"unknown units {str(units)[:40]!r}; expected one of \"nm\", \"A\" "
                          f"(\"angstrom\"), \"um\"", path=path, line=line, field="units")
     return UNITS[units.strip().lower()]
 

@@ -41,8 +41,9 @@ _KINDS = {stat.S_IFIFO: "a named pipe (FIFO)", stat.S_IFSOCK: "a socket",
           stat.S_IFDIR: "a folder"}
 
 
-def check_input_file(path, what: str = "a file") -> Path:
-    """Refuse anything but a readable regular file (after following links), naming it.
+def check_input_file(path, what: str = "a file", missing: str = "no such file") -> Path:
+    """Refuse anything but a readable regular file (after following links), naming it;
+    ``missing`` is the message for a file that does not exist.
 
     Returns ``Path(path)`` unchanged (messages keep naming the file as given).
     """
@@ -53,7 +54,7 @@ def check_input_file(path, what: str = "a file") -> Path:
         if os.path.islink(path):
             raise InputError(f"is a symbolic link to {os.readlink(path)!r}, which does not exist",
                              path=path) from None
-        raise InputError("no such file", path=path) from None
+        raise InputError(missing, path=path) from None
     except OSError as e:
         if e.errno == errno.ELOOP:
             raise InputError("is a symbolic link loop (the links never reach a file)",
@@ -236,3 +237,51 @@ def read_npy_header(fh):
     except ImportError:  # pragma: no cover - older numpy
         _read_array_header = np.lib.format._read_array_header
     return _read_array_header(fh, version)
+
+
+# ------------------------------------------------------------------------------ TIFF
+#: Most each TIFF compression can expand its data (declared bytes per stored byte), by
+#: code: none, PackBits (128 bytes from 2), LZW (a 12-bit code stands for at most 4096
+#: bytes; taken as 3000), deflate (RFC 1951, about 1032). Other codings: no bound here (the
+#: memory budget still applies).
+TIFF_MAX_RATIO = {1: 1, 32773: 64, 5: 3000, 8: 1032, 32946: 1032}
+
+
+def check_tiff_pages(tif, path, pages=None) -> None:
+    """Every page's image data inside the file, and no page declaring more pixels than its
+    compression can produce from the bytes it stores: a damaged dimension tag or a
+    truncated file is refused before tifffile allocates the declared image."""
+    size = os.stat(path).st_size
+    if pages is None:
+        pages = []
+        try:
+            for k in range(len(tif.pages)):
+                pages.append(tif.pages[k])
+        except Exception as e:  # noqa: BLE001 - tifffile raises several kinds
+            text = " ".join(str(e).split())[:120]
+            raise InputError(f"page {len(pages) + 1} of the TIFF is damaged ({text}): truncated "
+                             f"or damaged file", path=path) from None
+    for k, page in enumerate(pages):
+        if page is None or not hasattr(page, "dataoffsets"):
+            continue
+        offsets = page.dataoffsets or ()
+        counts = page.databytecounts or ()
+        stored = 0
+        for o, c in zip(offsets, counts):
+            if o < 0 or c < 0 or o + c > size:
+                raise InputError(f"page {k + 1} of the TIFF: its image data ({c:,} bytes at "
+                                 f"offset {o:,}) lies beyond the end of the file ({size:,} "
+                                 f"bytes): truncated or damaged", path=path)
+            stored += c
+        try:
+            shape = tuple(int(d) for d in page.shape)
+            bits = int(getattr(page, "bitspersample", 0) or 0) or \
+                8 * (np.dtype(page.dtype).itemsize if page.dtype is not None else 1)
+        except (TypeError, ValueError):
+            continue
+        declared = (math.prod(shape) * bits + 7) // 8
+        ratio = TIFF_MAX_RATIO.get(int(page.compression))
+        if ratio is not None and declared > ratio * stored + 4096:
+            raise InputError(f"page {k + 1} of the TIFF declares a {' x '.join(map(str, shape))} "
+                             f"image ({declared:,} bytes) but stores {stored:,} bytes: a "
+                             f"damaged size tag or a truncated file", path=path)

@@ -53,10 +53,13 @@ from pathlib import Path
 
 import numpy as np
 
+from ..domain import MAX_LENGTH_NM
 from ..errors import InputError, MemoryLimitError, OptionError
 from ..grid import PHASE_ALIASES, PHASE_NAMES, PhaseGrid
 from .output import atomic_path, json_default
 from .prisms import unit_factor
+from .safety import (MEMORY_FRACTION, check_tiff_pages, finite_number, fmt, gib, json_type,
+                     load_json, read_npy_header)
 
 MARKER = "sheetview phase codes v1"
 #: Name of the VTI cell array holding ``PhaseGrid.solid_fraction``.
@@ -64,8 +67,6 @@ FRACTION_ARRAY = "solid_fraction"
 #: Largest image data written as an ImageJ (classic, 32-bit offset) TIFF; beyond it a
 #: BigTIFF with the same metadata in its JSON description.
 IMAGEJ_TIFF_LIMIT = 2**32 - 2**25
-#: Fraction of the available memory a volume may use when read.
-MEMORY_FRACTION = 0.75
 
 #: Length units found in image metadata, as factors to nm.
 IMAGE_UNITS = {
@@ -82,31 +83,20 @@ IMAGE_UNITS = {
 
 # ----------------------------------------------------------------------------- memory
 def available_memory() -> int:
-    """Bytes of memory available now: Linux ``MemAvailable``, else ``os.sysconf``'s
-    free pages, else the physical memory."""
-    try:
-        with open("/proc/meminfo") as fh:
-            for line in fh:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    except (OSError, ValueError, IndexError):
-        pass
-    try:
-        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
-    except (ValueError, OSError, AttributeError):
-        try:
-            return int(os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
-        except (ValueError, OSError, AttributeError):
-            return 1 << 62
+    """Bytes of memory available now (:func:`sheetview.grid.available_memory`)."""
+    from ..grid import available_memory as avail
+    return avail()
 
 
 def memory_budget() -> int:
-    """Bytes a volume may take when read: :data:`MEMORY_FRACTION` of the available memory."""
-    return int(MEMORY_FRACTION * available_memory())
+    """Bytes a volume may take when read: :data:`MEMORY_FRACTION` of the available memory
+    (:func:`sheetview.io.safety.memory_budget`)."""
+    from . import safety
+    return safety.memory_budget()
 
 
 def _check_memory(shape, itemsize, path):
-    n = int(np.prod(shape, dtype=np.float64))
+    n = math.prod(int(s) for s in shape)
     # the file's array, the uint8 labels and one working copy of the labels
     need = n * int(itemsize) + 2 * n
     budget = memory_budget()
@@ -119,7 +109,7 @@ def _check_memory(shape, itemsize, path):
 
 
 def _gib(n) -> str:
-    return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.1f} MiB"
+    return gib(n)
 
 
 # ----------------------------------------------------------------------------- reading
@@ -179,34 +169,56 @@ def read_volume(path, *, voxel_size=None, phases=None, shape=None, dtype=None, u
     if vs is not None:
         spacing = vs
     elif marker is not None and "spacing" in marker:  # nm by definition
-        spacing = tuple(float(v) for v in marker["spacing"])
+        spacing = _triple(marker["spacing"], "spacing", path, positive=True, where="marker")
     elif info.get("spacing") is not None:
-        spacing = info["spacing"]
+        spacing = _triple(info["spacing"], "voxel size", path, positive=True)
     else:
         why = info.get("no_spacing_reason", "the file gives no voxel size")
         raise InputError(f"{why}; pass --voxel-size <nm> (voxel_size=...)", path=path)
     if marker is not None and "origin" in marker:
-        origin = tuple(float(v) for v in marker["origin"])
+        origin = _triple(marker["origin"], "origin", path, positive=False, where="marker")
     else:
-        origin = info.get("origin", (0.0, 0.0, 0.0))
+        origin = _triple(info.get("origin", (0.0, 0.0, 0.0)), "origin", path, positive=False)
     names = dict(PHASE_NAMES)
     if marker is not None and isinstance(marker.get("names"), dict):
         try:
             names = {int(k): str(v) for k, v in marker["names"].items()}
-        except (TypeError, ValueError):
+            if any(not 0 <= k <= 255 for k in names):
+                raise ValueError
+        except (TypeError, ValueError, OverflowError):
             names = dict(PHASE_NAMES)
+    if marker is not None and not isinstance(marker.get("periodic", False), bool):
+        raise InputError(f"sheetview marker: \"periodic\" must be true or false, got "
+                         f"{json_type(marker['periodic'])}", path=path, field="periodic")
     labels = map_phases(arr, phases, marker is not None, path, names)
     meta = {}
     if marker is not None and isinstance(marker.get("metadata"), dict):
         meta.update(marker["metadata"])
     meta["source_format"] = suffix.lstrip(".")
-    periodic = bool(marker.get("periodic", False)) if marker is not None else False
+    periodic = marker.get("periodic", False) if marker is not None else False
     fraction = info.get("solid_fraction")
     try:
         return PhaseGrid(labels, spacing, origin, names, periodic, meta, str(path),
                          solid_fraction=fraction)
     except ValueError as e:
         raise InputError(f"bad voxel geometry: {e}", path=path) from None
+
+
+def _triple(value, what, path, *, positive, where=None):
+    """Three finite numbers of nm (positive for a spacing), each within
+    :data:`~sheetview.domain.MAX_LENGTH_NM`; else an :class:`InputError` naming the file."""
+    src = "sheetview marker" if where == "marker" else "the file's"
+    vals = None
+    if isinstance(value, (list, tuple, np.ndarray)) and len(value) == 3:
+        vals = [finite_number(v) for v in value]
+    if vals is None or any(v is None for v in vals) or \
+            any(abs(v) > MAX_LENGTH_NM for v in vals) or (positive and any(v <= 0 for v in vals)):
+        kind = "positive finite numbers" if positive else "finite numbers"
+        shown = json.dumps(value, default=str)[:80] if not isinstance(value, np.ndarray) \
+            else str(value.tolist())[:80]
+        raise InputError(f"{src} {what} must be three {kind} of nm (at most {MAX_LENGTH_NM:g}), "
+                         f"got {shown}", path=path, field=what)
+    return tuple(vals)
 
 
 def _check_voxel_size(voxel_size, path):
@@ -332,16 +344,31 @@ def _load_tiff(path: Path, ufac):
 
     try:
         tif = tifffile.TiffFile(str(path))
-    except Exception as e:
+    except Exception as e:  # noqa: BLE001 - tifffile raises many kinds on bad files
         raise InputError(f"cannot be read as TIFF: {_short(e)}", path=path) from None
     with tif:
         try:
+            n_pages = len(tif.pages)
             series = tif.series[0]
             shape = tuple(series.shape)
             axes = series.axes
             dtype = np.dtype(series.dtype)
-        except Exception as e:
+        except Exception as e:  # noqa: BLE001
             raise InputError(f"cannot be read as TIFF: {_short(e)}", path=path) from None
+        check_tiff_pages(tif, path)
+        nbytes = math.prod(int(d) for d in shape) * dtype.itemsize
+        offset = getattr(series, "dataoffset", None)
+        if offset is not None and offset + nbytes > path.stat().st_size:
+            raise InputError(f"declares a {' x '.join(map(str, shape))} stack ({nbytes:,} bytes "
+                             f"of contiguous data from byte {offset:,}) that runs beyond the end "
+                             f"of the file ({path.stat().st_size:,} bytes): truncated", path=path)
+        ij = tif.imagej_metadata if tif.is_imagej else None
+        declared = ij.get("images") if isinstance(ij, dict) else None
+        if isinstance(declared, int) and declared > 1 and \
+                math.prod(int(d) for d in shape[:-2]) < declared:
+            raise InputError(f"its ImageJ description declares {declared} images but only "
+                             f"{math.prod(int(d) for d in shape[:-2])} can be read: a truncated "
+                             f"or damaged stack", path=path)
         if "S" in axes and shape[axes.index("S")] > 1:
             raise InputError(f"is a colour (RGB) image stack of shape {shape} (axes {axes}); "
                              f"expected a 3D grey-level stack, one page per z slice", path=path)
@@ -353,15 +380,17 @@ def _load_tiff(path: Path, ufac):
         eff = tuple(shape[i] for i in keep) if squeeze else shape
         if len(eff) != 3:
             kind = "a single 2D image" if len(eff) == 2 else f"a {len(eff)}D image"
-            raise InputError(f"holds {kind} of shape {shape} (axes {axes}); expected a 3D stack "
-                             f"(one page per z slice, shape z, y, x)", path=path)
+            more = " (if it should hold more pages, it is truncated)" if len(eff) == 2 else ""
+            raise InputError(f"holds {kind} of shape {shape} (axes {axes}, {n_pages} page(s)); "
+                             f"expected a 3D stack (one page per z slice, shape z, y, x){more}",
+                             path=path)
         if dtype.kind not in "biuf":
             raise InputError(f"holds {dtype} values; expected integer or real voxel values",
                              path=path)
         _check_memory(eff, dtype.itemsize, path)
         try:
             data = series.asarray()
-        except Exception as e:
+        except Exception as e:  # noqa: BLE001
             raise InputError(f"cannot read the image data: {_short(e)}", path=path) from None
         info = _tiff_geometry(tif, ufac)
     data = data.reshape(eff)
@@ -426,20 +455,14 @@ def _tiff_geometry(tif, ufac) -> dict:
 
 # NPY ----------------------------------------------------------------------------------
 def _load_npy(path: Path):
+    size = path.stat().st_size
     try:
         with open(path, "rb") as fh:
-            version = np.lib.format.read_magic(fh)
-            hstart = fh.tell()
-            if version == (1, 0):
-                shape, fortran, dtype = np.lib.format.read_array_header_1_0(fh)
-            elif version == (2, 0):
-                shape, fortran, dtype = np.lib.format.read_array_header_2_0(fh)
-            else:
-                shape, fortran, dtype = np.lib.format._read_array_header(fh, version)
+            shape, fortran, dtype = read_npy_header(fh)
             hend = fh.tell()
-            fh.seek(hstart)
-            raw_header = fh.read(hend - hstart)
-    except Exception as e:
+            fh.seek(0)
+            raw_header = fh.read(hend)
+    except Exception as e:  # noqa: BLE001 - numpy raises several kinds on a bad header
         raise InputError(f"cannot be read as a NumPy .npy file: {_short(e)}", path=path) from None
     if dtype.hasobject:
         raise InputError("holds Python objects (an object array, stored with pickle); "
@@ -450,21 +473,26 @@ def _load_npy(path: Path):
                          f"volume indexed [i, j, k] = x, y, z", path=path)
     if dtype.kind not in "biuf":
         raise InputError(f"holds {dtype} values; expected integer or real voxel values", path=path)
+    nbytes = math.prod(int(d) for d in shape) * dtype.itemsize
+    if nbytes > size - hend:
+        raise InputError(f"declares a {' x '.join(str(d) for d in shape)} array of {dtype} "
+                         f"({nbytes:,} bytes) but holds {size - hend:,} bytes of data: "
+                         f"truncated or damaged", path=path)
     _check_memory(shape, dtype.itemsize, path)
     try:
         arr = np.load(path, allow_pickle=False)
-    except Exception as e:
+    except Exception as e:  # noqa: BLE001
         raise InputError(f"cannot be read as a NumPy .npy file: {_short(e)}", path=path) from None
     info: dict = {"no_spacing_reason": "a .npy file holds no voxel size"}
     text = raw_header.decode("latin1", errors="replace")
     m = re.search(r"#\s*" + re.escape(MARKER) + r"\s*(\{.*\})", text)
     if m:
         try:
-            mk = json.loads(m.group(1))
+            mk = load_json(m.group(1), path=path, what="the sheetview marker")
             if isinstance(mk, dict):
                 mk["format"] = MARKER
                 info["marker"] = mk
-        except ValueError:
+        except InputError:
             pass
     return np.ascontiguousarray(arr), info
 
@@ -574,7 +602,7 @@ def _vti_fraction(grid, name, where, vshape, path) -> np.ndarray:
     bad = ~((a >= 0) & (a <= 1))  # NaN is bad too
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise InputError(f"solid-fraction array {name!r} must lie in [0, 1]; value {a[i]!r} "
+        raise InputError(f"solid-fraction array {name!r} must lie in [0, 1]; value {fmt(a[i])} "
                          f"at voxel {i} ({int(bad.sum())} voxel(s) affected)", path=path,
                          field=name)
     return np.ascontiguousarray(a.reshape(vshape, order="F"), dtype=np.float32)
