@@ -422,6 +422,15 @@ class Runner:
 
 
 def _digest(path: Path) -> str:
+    """Content hash of a regular file; for anything else (FIFO, folder, device, broken or
+    looping link) its kind, without opening it."""
+    import stat
+    try:
+        st = os.stat(path)
+    except OSError as e:
+        return f"unstat-able: {e.errno}"
+    if not stat.S_ISREG(st.st_mode):
+        return f"special: {stat.S_IFMT(st.st_mode)}"
     return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
@@ -514,3 +523,153 @@ def tally(rows: list[dict]) -> dict:
         t.setdefault("all", {}).setdefault(r["outcome"], 0)
         t["all"][r["outcome"]] += 1
     return t
+
+
+# ----------------------------------------------------------------------- hand-made files
+def _npz_bytes(arrays: dict) -> bytes:
+    import io
+
+    import numpy as np
+    buf = io.BytesIO()
+    np.savez_compressed(buf, **arrays)
+    return buf.getvalue()
+
+
+def handmade_cases(folder: Path) -> list[tuple[Path, str]]:
+    """Small files built to hurt: each declares far more than it holds, or holds a value of
+    the wrong type, or is not a regular file. Returns ``(path, what)`` pairs; every one must
+    be refused (exit 2, one line naming the file) with a small peak memory."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    cases = []
+
+    def add(name, data, what):
+        p = folder / name
+        p.write_bytes(data if isinstance(data, bytes) else data.encode())
+        cases.append((p, what))
+
+    # legacy VTK declaring 2e8 and 2e9 points in about 126 bytes
+    for n, name in ((200_000_000, "points_2e8.vtk"), (2_000_000_000, "points_2e9.vtk")):
+        add(name, f"# vtk DataFile Version 3.0\nhuge\nBINARY\nDATASET POLYDATA\nPOINTS {n} float\n"
+                  + "\x00" * 24 + f"\nPOLYGONS 1 4\n" + "\x00" * 16, "declared points")
+        add("ascii_" + name, f"# vtk DataFile Version 3.0\nhuge\nASCII\nDATASET POLYDATA\n"
+                             f"POINTS {n} float\n0 0 0 1 0 0 0 1 0\nPOLYGONS 1 4\n3 0 1 2\n",
+            "declared points (ASCII)")
+    add("cells_huge.vtk", "# vtk DataFile Version 3.0\nx\nASCII\nDATASET POLYDATA\nPOINTS 3 float\n"
+                          "0 0 0 1 0 0 0 1 0\nPOLYGONS 1 4000000000\n3 0 1 2\n", "declared cells")
+    add("field_huge.vtk", "# vtk DataFile Version 3.0\nx\nASCII\nDATASET POLYDATA\nPOINTS 3 float\n"
+                          "0 0 0 1 0 0 0 1 0\nPOLYGONS 1 4\n3 0 1 2\nFIELD FieldData 1\n"
+                          "sheetview 1 2000000000 string\nabc\n", "declared field array")
+    add("points_xml.vtp", '<?xml version="1.0"?>\n<VTKFile type="PolyData" version="1.0" '
+                          'byte_order="LittleEndian" header_type="UInt64">\n<PolyData>\n'
+                          '<Piece NumberOfPoints="2000000000" NumberOfPolys="1">\n<Points>\n'
+                          '<DataArray type="Float32" NumberOfComponents="3" format="ascii">'
+                          '0 0 0 1 0 0 0 1 0</DataArray>\n</Points>\n</Piece>\n</PolyData>\n'
+                          '</VTKFile>\n', "declared points (XML)")
+    for sp, org, tag in (("nan 1 1", "0 0 0", "spacing_nan"), ("1 1 1", "inf 0 0", "origin_inf"),
+                         ("0 1 1", "0 0 0", "spacing_zero"), ("1 1", "0 0 0", "spacing_two")):
+        add(f"{tag}.vti", '<?xml version="1.0"?>\n<VTKFile type="ImageData" version="1.0" '
+                          'byte_order="LittleEndian" header_type="UInt64">\n'
+                          f'<ImageData WholeExtent="0 2 0 2 0 2" Origin="{org}" Spacing="{sp}">\n'
+                          '<Piece Extent="0 2 0 2 0 2">\n<CellData Scalars="phase">\n'
+                          '<DataArray type="UInt8" Name="phase" format="ascii">0 1 0 1 0 1 0 1'
+                          '</DataArray>\n</CellData>\n</Piece>\n</ImageData>\n</VTKFile>\n',
+            f"VTI {tag}")
+    add("extent_huge.vti", '<?xml version="1.0"?>\n<VTKFile type="ImageData" version="1.0" '
+                           'byte_order="LittleEndian" header_type="UInt64">\n<ImageData '
+                           'WholeExtent="0 100000 0 100000 0 100000" Origin="0 0 0" Spacing="1 1 1">'
+                           '\n<Piece Extent="0 100000 0 100000 0 100000">\n<CellData>\n'
+                           '<DataArray type="UInt8" Name="phase" format="ascii">0 1</DataArray>\n'
+                           '</CellData>\n</Piece>\n</ImageData>\n</VTKFile>\n', "declared extent")
+    # NPZ: zeros bomb, 0 rows, wrong header types, bad thickness, sheet 1e30, pickles
+    v = np.zeros((20_000_000, 3, 3))
+    hdr = np.array(json.dumps({"format": "sheetview prisms v1", "thickness": 0.7}))
+    add("zeros_bomb.npz", _npz_bytes({"vertices": v, "header": hdr}), "decompression bomb")
+    del v
+    tri = np.array([[[0, 0, 0], [1, 0, 0], [0, 1, 0]]], float)
+    add("zero_rows.npz", _npz_bytes({"vertices": np.zeros((0, 3, 3)), "header": hdr}), "0 rows")
+    for tag, h in (("list", "[1, 2]"), ("null", "null"), ("string", '"x"'), ("number", "3"),
+                   ("deep", "[" * 100000 + "]" * 100000), ("bigint", "9" * 5000),
+                   ("bigint_value", '{"thickness": ' + "1" + "0" * 400 + "}")):
+        add(f"header_{tag}.npz", _npz_bytes({"vertices": tri, "header": np.array(h)}),
+            f"NPZ header {tag}")
+    for tag, t in (("shape", np.ones((1, 2))), ("strings", np.array(["a"])),
+                   ("huge", np.array([1e19])), ("huge300", np.array([1e300]))):
+        add(f"thickness_{tag}.npz", _npz_bytes({"vertices": tri, "thickness": t, "header": hdr}),
+            f"thickness {tag}")
+    add("sheet_1e30.npz", _npz_bytes({"vertices": tri, "header": hdr,
+                                      "col_sheet": np.array([1e30])}), "sheet 1e30")
+    add("coords_1e150.npz", _npz_bytes({"vertices": tri * 1e150, "header": hdr}), "1e150")
+    add("coords_1e308.npz", _npz_bytes({"vertices": tri * 1e308, "header": hdr}), "1e308")
+    add("object.npz", _npz_bytes({"vertices": tri, "header": hdr,
+                                  "col_x": np.array([{"a": 1}], dtype=object)}), "pickle")
+    # CSV headers of the wrong type, huge numbers, deep JSON
+    row = "ax,ay,az,bx,by,bz,cx,cy,cz\n0,0,0,1,0,0,0,1,0\n"
+    for tag, line in (("thickness_list", "# thickness: [1]"), ("thickness_null", "# thickness: null"),
+                      ("thickness_str", '# thickness: "x"'), ("thickness_int", "# thickness: 1" + "0" * 400),
+                      ("thickness_digits", "# thickness: " + "9" * 5000),
+                      ("domain_deep", "# domain: " + "[" * 100000 + "]" * 100000),
+                      ("domain_list", "# thickness: 0.7\n# domain: [1, 2]"),
+                      ("domain_num", "# thickness: 0.7\n# domain: 7"),
+                      ("domain_tiny", '# thickness: 0.7\n# domain: {"shape": "box", "min": [0, 0, 0], '
+                                      '"max": [1, 1, 1e-300]}'),
+                      ("domain_huge", '# thickness: 0.7\n# domain: {"shape": "sphere", "center": '
+                                      '[0, 0, 0], "radius": 1e300}'),
+                      ("units_list", "# thickness: 0.7\n# units: [1]"),
+                      ("spacing_huge", "# thickness: 0.7\n# spacing: 1e300")):
+        add(f"header_{tag}.csv", f"# sheetview prisms v1\n{line}\n{row}", f"CSV {tag}")
+    add("thickness_1e19.csv", "# thickness: 1e19\n" + row, "thickness 1e19")
+    add("coords_1e150.csv", "# thickness: 0.7\nax,ay,az,bx,by,bz,cx,cy,cz\n"
+                            "0,0,0,1e150,0,0,0,1e150,0\n", "coordinates 1e150")
+    # Parquet: header metadata of the wrong type
+    t = pa.table({k: [float(x)] for k, x in zip("ax ay az bx by bz cx cy cz".split(),
+                                                 (0, 0, 0, 1, 0, 0, 0, 1, 0))})
+    for tag, meta in (("list", b"[1]"), ("null", b"null"), ("deep", b"[" * 100000 + b"]" * 100000)):
+        p = folder / f"meta_{tag}.parquet"
+        pq.write_table(t.replace_schema_metadata({b"sheetview": meta}), p)
+        cases.append((p, f"Parquet metadata {tag}"))
+    # a micrograph TIFF declaring a huge image in a few bytes, a truncated volume TIFF
+    import struct
+
+    import tifffile
+    p = folder / "micrograph_huge.tif"
+    tifffile.imwrite(str(p), np.zeros((64, 64), np.uint8))
+    data = bytearray(p.read_bytes())
+    with tifffile.TiffFile(str(p)) as tf:
+        tags = tf.pages[0].tags
+        for name, val in (("ImageWidth", 100_000), ("ImageLength", 100_000)):
+            tag = tags[name]
+            fmt_ = "<H" if tag.dtype == 3 else "<I"
+            data[tag.valueoffset:tag.valueoffset + struct.calcsize(fmt_)] = struct.pack(fmt_, val)
+    p.write_bytes(bytes(data))
+    cases.append((p, "micrograph declared size"))
+    src = SAMPLES / "small_volume.tif"
+    if src.exists():
+        add("truncated_volume.tif", src.read_bytes()[:5000], "truncated stack")
+    # special files
+    fifo = folder / "pipe.csv"
+    try:
+        os.mkfifo(fifo)
+        cases.append((fifo, "FIFO"))
+    except (OSError, AttributeError):
+        pass
+    loop = folder / "loop.csv"
+    try:
+        os.symlink(loop.name, loop)
+        cases.append((loop, "link loop"))
+        dangling = folder / "dangling.npz"
+        os.symlink("nowhere.npz", dangling)
+        cases.append((dangling, "dangling link"))
+        dev = folder / "zero.npy"
+        os.symlink("/dev/zero", dev)
+        cases.append((dev, "device"))
+    except OSError:
+        pass
+    d = folder / "folder.parquet"
+    d.mkdir(exist_ok=True)
+    cases.append((d, "folder"))
+    return cases

@@ -7,8 +7,8 @@ import pytest
 
 from sheetview import Box, Sphere, Structure
 from sheetview.errors import MemoryLimitError, OptionError
-from sheetview.grid import (GEL, OUTSIDE, SOLID, PhaseGrid, default_voxel_size, rasterize,
-                            rasterize_fraction)
+from sheetview.grid import (GEL, OUTSIDE, SOLID, PhaseGrid, default_voxel_size,
+                            estimate_grid_bytes, rasterize, rasterize_fraction)
 
 
 def reference_labels(structure, shape, spacing, origin, periodic=False):
@@ -102,7 +102,7 @@ def test_errors():
     with pytest.raises(MemoryLimitError, match=r"voxel size of [0-9.]+ nm would fit") as e:
         rasterize(s, 0.02, max_memory=10_000_000)
     fit = float(str(e.value).split("voxel size of ")[1].split(" nm")[0])
-    assert rasterize(s, fit, max_memory=10_000_000).labels.size * 6 <= 10_000_000
+    assert estimate_grid_bytes(rasterize(s, fit, max_memory=10_000_000).labels.size) <= 10_000_000
     with pytest.raises(OptionError, match="supersample"):
         rasterize(s, 0.1, supersample=0)
     with pytest.raises(OptionError, match="out must"):

@@ -179,9 +179,14 @@ def fmt(v) -> str:
     """A number for a message: plain Python text, never ``np.float64(...)``."""
     if isinstance(v, (np.generic,)):
         v = v.item()
+    if isinstance(v, int) and not isinstance(v, bool) and abs(v) >= 10**15:
+        try:
+            return f"{float(v):.6g}"
+        except OverflowError:
+            return f"a {len(str(abs(v)))}-digit integer"
     if isinstance(v, float):
         return f"{v:.6g}"
-    return str(v)
+    return str(v)[:80]
 
 
 # ----------------------------------------------------------------------------- memory
