@@ -134,12 +134,20 @@ def _phase_code(p, names) -> int:
 # ============================================================== rasterization
 #: Smallest voxel edge accepted (nm).
 MIN_VOXEL_NM = 0.01
-#: Bytes per voxel assumed by the memory estimate: the uint8 labels (1 byte) plus the
-#: working arrays of the grid measures that follow (a float32 distance or size map,
-#: 4 bytes, and a boolean phase mask, 1 byte).
-BYTES_PER_VOXEL = 6
-#: Bytes of the memory estimate that do not grow with the grid.
-GRID_BASE_BYTES = 0
+#: Memory estimate of a phase grid with the grid measures that follow it (the default set
+#: of ``measure``: phases, surface, pores, chords, correlation), calibrated against the peak
+#: resident memory they add, measured with benchmarks/calibrate_grid_memory.py (results in
+#: docs/reliability.md): ``GRID_BASE_BYTES + BYTES_PER_VOXEL * n +
+#: BYTES_PER_BLOCK_VOXEL * min(n, CORRELATION_BLOCK_VOXELS)`` for ``n`` voxels. The
+#: measured peak grows by about 19.5 bytes per voxel on large grids (the labels, the split
+#: grid, the float32 local-thickness map, masks); the two-point correlation adds about 95
+#: bytes per voxel of its central block (at most 160**3 voxels, the pipeline's ``s2_block``
+#: default; up to 107 measured in a spherical domain). The constants lie 10 to 20 % above
+#: those slopes; the old estimate, 6 bytes per voxel, was exceeded up to 19-fold.
+BYTES_PER_VOXEL = 22
+BYTES_PER_BLOCK_VOXEL = 128
+CORRELATION_BLOCK_VOXELS = 160 ** 3
+GRID_BASE_BYTES = 8 * 2 ** 20
 #: Extra bytes per voxel when a solid fraction is requested (the float32 array).
 BYTES_PER_VOXEL_FRACTION = 4
 #: Largest working buffer (bytes) used for the sub-point slabs of the supersampling.
@@ -276,10 +284,12 @@ def physical_memory() -> int | None:
 
 def estimate_grid_bytes(n_voxels: int, *, fraction: bool = False) -> int:
     """Peak bytes of a phase grid of ``n_voxels`` with the working arrays of the grid
-    measures that follow (:data:`GRID_BASE_BYTES` + :data:`BYTES_PER_VOXEL` per voxel, plus
-    :data:`BYTES_PER_VOXEL_FRACTION` with a solid fraction); exact integer arithmetic."""
+    measures that follow (see :data:`BYTES_PER_VOXEL`; plus
+    :data:`BYTES_PER_VOXEL_FRACTION` per voxel with a solid fraction); exact integer
+    arithmetic, so no voxel count wraps."""
+    n = int(n_voxels)
     per = BYTES_PER_VOXEL + (BYTES_PER_VOXEL_FRACTION if fraction else 0)
-    return GRID_BASE_BYTES + int(n_voxels) * per
+    return GRID_BASE_BYTES + n * per + min(n, CORRELATION_BLOCK_VOXELS) * BYTES_PER_BLOCK_VOXEL
 
 
 class MemoryLimitWarning(UserWarning):
@@ -301,8 +311,14 @@ def check_max_memory(max_memory) -> str | None:
 
 
 def _gib(n) -> str:
+    """Bytes for a message: MiB, GiB, TiB, PiB or EiB (any size, no overflow)."""
     n = int(n)
-    return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.0f} MiB"
+    if n < 2**30:
+        return f"{n / 2**20:.0f} MiB"
+    for unit, shift in (("GiB", 30), ("TiB", 40), ("PiB", 50)):
+        if n < 2 ** (shift + 10):
+            return f"{n / 2**shift:.2f} {unit}"
+    return f"{n / 2**60:.3g} EiB"
 
 
 def _prism_coefficients(structure):
@@ -692,7 +708,7 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
         sphere wall within partially covered voxels).
     max_memory : int, optional
         Bytes allowed for the grid and the working arrays of later measures
-        (:data:`BYTES_PER_VOXEL` per voxel); default half the available memory.
+        (:func:`estimate_grid_bytes`); default half the available memory.
     out : (nx, ny, nz) uint8 C-contiguous array, optional
         A buffer to fill (reusing memory already touched is much faster than a fresh
         allocation for large grids).

@@ -455,7 +455,7 @@ def test_memory_guard_exact_beyond_int64():
         rasterize(s, 0.01)
     msg = str(ei.value)
     assert "huge.csv" in msg and "--voxel" in msg and "field" not in msg
-    with pytest.raises(MemoryLimitError):
+    with pytest.raises(MemoryLimitError), pytest.warns(UserWarning, match="physical memory"):
         check_memory(s.domain, 0.01, (2**40, 2**40, 2**40), 2**60)
 
 
