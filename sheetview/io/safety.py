@@ -280,12 +280,14 @@ def check_tiff_pages(tif, path, pages=None) -> None:
             stored += c
         try:
             shape = tuple(int(d) for d in page.shape)
-            bits = int(getattr(page, "bitspersample", 0) or 0) or \
-                8 * (np.dtype(page.dtype).itemsize if page.dtype is not None else 1)
-        except (TypeError, ValueError):
-            continue
+            bits = getattr(page, "bitspersample", 0) or 0
+            bits = max(bits) if isinstance(bits, (tuple, list)) else int(bits)
+            bits = bits or 8 * (np.dtype(page.dtype).itemsize if page.dtype is not None else 1)
+            compression = int(page.compression)
+        except (TypeError, ValueError, OverflowError):
+            continue  # a damaged tag: tifffile refuses the page when it decodes it
         declared = (math.prod(shape) * bits + 7) // 8
-        ratio = TIFF_MAX_RATIO.get(int(page.compression))
+        ratio = TIFF_MAX_RATIO.get(compression)
         if ratio is not None and declared > ratio * stored + 4096:
             raise InputError(f"page {k + 1} of the TIFF declares a {' x '.join(map(str, shape))} "
                              f"image ({declared:,} bytes) but stores {stored:,} bytes: a "
