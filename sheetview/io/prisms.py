@@ -23,6 +23,7 @@ import hashlib
 import io
 import json
 import math
+import os
 import re
 import zipfile
 import zlib
@@ -498,18 +499,29 @@ CONTENT_KEY = b"sheetview.content"
 
 
 def content_hash(columns: dict, header: bytes = b"") -> str:
-    """``sha256:<hex>`` over the header text (the ``sheetview`` schema metadata, as stored)
-    and the columns in order: for each, its name, numpy type (little endian), length and
-    bytes. Written into the Parquet schema metadata and checked on reading, so that a
-    damaged data page that still decodes (a flipped bit in a number) or a damaged header
-    value is refused instead of giving other numbers."""
-    h = hashlib.sha256()
-    h.update(b"header\0" + bytes(header) + b"\0")
+    """``sha256:<hex>`` of the header text (the ``sheetview`` schema metadata, as stored) and
+    the columns in order: for each, its name, numpy type (little endian), length and the
+    SHA-256 of its bytes (the columns are hashed in parallel threads; hashlib releases the
+    GIL). Written into the Parquet schema metadata and checked on reading, so that a damaged
+    data page that still decodes (a flipped bit in a number) or a damaged header value is
+    refused instead of giving other numbers."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    cols = []
     for name, a in columns.items():
         a = np.asarray(a)
-        a = np.ascontiguousarray(a.astype(a.dtype.newbyteorder("<"), copy=False))
+        cols.append((name, np.ascontiguousarray(a.astype(a.dtype.newbyteorder("<"), copy=False))))
+
+    def digest(a):
+        return hashlib.sha256(memoryview(a).cast("B")).digest()
+
+    with ThreadPoolExecutor(max_workers=max(1, min(4, os.cpu_count() or 1))) as pool:
+        digests = list(pool.map(digest, [a for _, a in cols]))
+    h = hashlib.sha256()
+    h.update(b"header\0" + bytes(header) + b"\0")
+    for (name, a), d in zip(cols, digests):
         h.update(f"{name}\0{a.dtype.str}\0{a.shape[0]}\0".encode())
-        h.update(memoryview(a).cast("B"))
+        h.update(d)
     return "sha256:" + h.hexdigest()
 
 
