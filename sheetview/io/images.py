@@ -23,7 +23,10 @@ Rules
   the usual 72-300 dpi defaults give) is not taken as a calibration. Otherwise an
   :class:`OptionError` asks for ``--pixel-size``.
 * Refused with a message naming the file: missing, unreadable, truncated or corrupt
-  files, unknown types, multi-page TIFF, images smaller than 16 pixels on a side,
+  files, anything but a regular file (FIFO, device, folder, broken or looping link),
+  images whose declared size needs more than the memory budget or (TIFF) more pixels
+  than the stored bytes can hold, unknown types, multi-page TIFF, images smaller than 16
+  pixels on a side,
   constant images, images with no valid pixel; pixel sizes that are not positive, not
   finite, or absurd for a micrograph (above 1e6 nm or below 1e-3 nm).
 """

@@ -5,7 +5,13 @@ Readers
 * STL, PLY, OBJ, OFF, GLB/GLTF through trimesh (a scene's geometries are concatenated,
   with their transforms applied);
 * VTK files (``.vtk`` legacy, ``.vtp``, ``.vtu``) through pyvista: the outer surface is
-  extracted and its polygons are split into triangles.
+  extracted and its polygons are split into triangles. Their declared sizes are checked
+  first and VTK parses them in a child process, whose crash is a one-line error
+  (:mod:`sheetview.io.vtkfiles`, :mod:`sheetview.io.isolate`).
+
+Before parsing, the counts a file declares (PLY elements, OFF counts, binary STL
+triangles, glTF accessors and buffers) are checked against its size and the memory budget
+(:func:`_precheck_trimesh`).
 
 What becomes what
 -----------------

@@ -31,6 +31,14 @@ carries a ``sheetview`` marker) is read as is; a volume whose values are exactly
 {0, 1} is read as 0 = gel pore, 1 = solid; anything else is refused with the values
 found and a request for ``--phases``.
 
+Damaged files
+-------------
+The declared size of the volume must fit the file (NPY header against the data that
+follows, TIFF strips inside the file and within their compression's expansion, ImageJ
+stacks with all their images, VTI extent; :mod:`sheetview.io.vtkfiles`) and the memory
+budget, before anything is allocated; voxel size and origin must be finite numbers (the
+voxel size positive) whatever gives them; VTK parses ``.vti`` in a child process.
+
 Writers (:func:`write_volume`)
 ------------------------------
 ``.vti`` (ImageData, cell data ``phase``, spacing and origin, field data ``sheetview``),
