@@ -19,13 +19,10 @@ changed input or a file left behind.
 """
 from __future__ import annotations
 
-import io
 import json
 import warnings
-from pathlib import Path
 
 import numpy as np
-import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -85,6 +82,7 @@ numbers = st.one_of(st.floats(allow_nan=True, allow_infinity=True),
                     st.sampled_from([0.0, -1.0, 1e308, -1e308, 1e19, 1e150, 5e-324, 2.0**63]),
                     st.integers(-10**30, 10**30).map(float))
 ROW_OK = [0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 0.0]
+CORNERS = ["ax", "ay", "az", "bx", "by", "bz", "cx", "cy", "cz"]
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture,
@@ -96,15 +94,11 @@ def test_generated_csv_headers_and_tables(tmp_path, header, raw, rows):
     lines = [f"# {k}: {json.dumps(v)}" for k, v in header.items()]
     lines += [f"# {k}: {v}".replace("\n", " ").replace("\r", " ") for k, v in raw]
     body = [ROW_OK] + rows
-    text = "\n".join(lines + [",".join(fh_cols()) + ",thickness"]
+    text = "\n".join(lines + [",".join(CORNERS) + ",thickness"]
                      + [",".join(repr(float(x)) for x in r) + ",0.7" for r in body]) + "\n"
     p = tmp_path / "g.csv"
     p.write_text(text)
     _read_quietly(p)
-
-
-def fh_cols():
-    return ["ax", "ay", "az", "bx", "by", "bz", "cx", "cy", "cz"]
 
 
 arrays = st.one_of(
@@ -143,7 +137,7 @@ def test_generated_parquet(tmp_path, meta, rows, null):
     import pyarrow as pa
     import pyarrow.parquet as pq
     body = np.array([ROW_OK] + rows, dtype=float)
-    cols = {c: pa.array(body[:, k]) for k, c in enumerate(fh_cols())}
+    cols = {c: pa.array(body[:, k]) for k, c in enumerate(CORNERS)}
     if null:
         cols["ax"] = pa.array([None] + list(body[1:, 0]), type=pa.float64())
     cols["thickness"] = pa.array(np.full(len(body), 0.7))
@@ -151,11 +145,3 @@ def test_generated_parquet(tmp_path, meta, rows, null):
     p = tmp_path / "g.parquet"
     pq.write_table(t, p)
     _read_quietly(p)
-
-
-def test_property_readers_run_in_process_safely():
-    """The readers the property tests call in-process (CSV, NPZ, Parquet: pyarrow and numpy)
-    parse without C code that trusts declared sizes; VTK, the one that does, runs in a
-    child (tests/test_io_reliability.py)."""
-    from sheetview.io import prisms
-    assert set(prisms.READERS) == {".csv", ".txt", ".npz", ".parquet", ".pq"}

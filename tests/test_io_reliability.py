@@ -25,7 +25,7 @@ from hypothesis import strategies as st
 
 import sheetview as sv
 from sheetview.cli import main
-from sheetview.errors import InputError, MemoryLimitError, OptionError, SheetviewError
+from sheetview.errors import InputError, MemoryLimitError, SheetviewError
 from sheetview.grid import (SOLID, _mark_prisms, _prism_coefficients, check_memory,
                             estimate_grid_bytes, grid_geometry, kernel_checks, n_voxels,
                             rasterize, rasterize_body)

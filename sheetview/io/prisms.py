@@ -33,8 +33,7 @@ import numpy as np
 
 from ..domain import MAX_LENGTH_NM, Box, domain_from_dict
 from ..errors import InputError, OptionError
-from .safety import (check_declared, check_read_memory, finite_number, fmt, json_type, load_json,
-                     memory_budget, read_npy_header)
+from .safety import check_read_memory, finite_number, fmt, json_type, load_json, read_npy_header
 from ..structure import DEFAULT_SPACING_NM, KNOWN_COLUMNS, Structure, with_inferred_domain
 from .output import atomic_path
 
