@@ -218,8 +218,8 @@ def _voxel_that_fits(dom, v, need, limit, fraction):
     base = estimate_grid_bytes(1, fraction=fraction)
     if base > limit:
         raise MemoryLimitError(
-            f"the memory limit of {_gib(limit)} is below what the grid measures need at the "
-            f"least ({_gib(base)}, before any voxel); raise --max-memory", field=None)
+            f"no voxel size would fit the memory limit of {_gib(limit)}: the grid measures "
+            f"need {_gib(base)} at the least, before any voxel; raise --max-memory")
     fit = v * (need / max(limit - base + 1, 1)) ** (1.0 / 3.0) * 1.01
     fit = float(f"{fit:.3g}") if fit >= v else v
     for _ in range(10000):
@@ -314,7 +314,7 @@ def _gib(n) -> str:
     """Bytes for a message: MiB, GiB, TiB, PiB or EiB (any size, no overflow)."""
     n = int(n)
     if n < 2**30:
-        return f"{n / 2**20:.0f} MiB"
+        return f"{n / 2**20:.3g} MiB"
     for unit, shift in (("GiB", 30), ("TiB", 40), ("PiB", 50)):
         if n < 2 ** (shift + 10):
             return f"{n / 2**shift:.2f} {unit}"
