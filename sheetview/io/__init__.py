@@ -81,7 +81,10 @@ def guarded(reader, path, *args, **kwargs):
     try:
         with quiet():
             return reader(path, *args, **kwargs)
-    except SheetviewError:
+    except SheetviewError as e:
+        if "\n" in str(e) or "\r" in str(e):  # text from the file: keep the message one line
+            raise type(e)(" ".join(e.detail.split()), path=e.path, line=e.line,
+                          field=e.field) from None
         raise
     except MemoryError:
         raise MemoryLimitError("ran out of memory while reading it (the file declares more "

@@ -409,8 +409,9 @@ def _precheck_gltf(path, head, size, suffix):
         if not isinstance(a, dict):
             raise InputError(f"damaged glTF: accessor {i} is not an object", path=path)
         count = a.get("count")
-        comps = _GLTF_COMPONENTS.get(a.get("type"), 1)
-        item = _GLTF_BYTES.get(a.get("componentType"), 4)
+        kind, ctype = a.get("type"), a.get("componentType")
+        comps = _GLTF_COMPONENTS.get(kind, 1) if isinstance(kind, str) else 1
+        item = _GLTF_BYTES.get(ctype, 4) if isinstance(ctype, int) else 4
         if not isinstance(count, int) or isinstance(count, bool) or not 0 <= count <= 2**40:
             raise InputError(f"damaged glTF: accessor {i} has no valid count", path=path)
         view = a.get("bufferView")
@@ -549,7 +550,7 @@ class MeshHeader:
 class _Found:
     """A sheetview header found in a file, not yet checked."""
 
-    version: int
+    version: int | None  # None: a damaged version number
     payload: object  # JSON text, a parsed object, or _NOT_TEXT
     where: str  # how the file holds it, for messages
     remedy: str  # how to read the mesh without it
@@ -571,8 +572,13 @@ def _found_json(value, where, remedy):
         m = _FORMAT_RE.fullmatch(str(obj["format"]))
         if not m:
             return None
-        version = int(m.group(1))
+        version = _version(m.group(1))
     return _Found(version, obj, where, remedy)
+
+
+def _version(digits: str) -> int | None:
+    """A header's version number, or None when it is damaged (absurdly long)."""
+    return int(digits) if len(digits) <= 6 else None
 
 
 def _find_text_header(path: Path, suffix: str):
@@ -618,7 +624,7 @@ def _find_text_header(path: Path, suffix: str):
                 body = text[1:].strip()
             m = _COMMENT_RE.match(body)
             if m:
-                return _Found(int(m.group(1)), m.group(2) or "", f"{name} comment line",
+                return _Found(_version(m.group(1)), m.group(2) or "", f"{name} comment line",
                               "fix or delete that comment line to read the mesh with an "
                               "inferred domain", lineno)
     return None
@@ -663,6 +669,9 @@ def _interpret_header(found, path, units) -> MeshHeader | None:
         raise InputError(f"sheetview header ({found.where}): {msg}; {found.remedy}",
                          path=path, line=found.line, field=field)
 
+    if found.version is None:
+        raise InputError(f"sheetview header ({found.where}): its version number is damaged; "
+                         f"{found.remedy}", path=path, line=found.line, field=HEADER_FIELD)
     if found.version > MESH_FORMAT_VERSION:
         raise InputError(f"sheetview header ({found.where}) is version {found.version}, newer "
                          f"than this sheetview reads (v{MESH_FORMAT_VERSION}); update sheetview",

@@ -304,8 +304,8 @@ def read_image_arrays(path):
     text, finite, spacing positive) win over VTK's."""
     info = precheck(path)
     if info.get("kind") != "ImageData":
-        raise InputError(f"holds VTK {info.get('kind') or 'data'}, expected ImageData",
-                         path=path)
+        raise InputError(f"holds VTK {str(info.get('kind') or 'data')[:40]!r}, expected "
+                         f"ImageData", path=path)
     _preload()
     out = run_isolated("sheetview.io.vtkfiles:_image_child", (str(path),), path=path,
                        what="VTK", memory=memory_budget())
