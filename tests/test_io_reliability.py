@@ -303,6 +303,16 @@ def test_isolated_runaway_memory_and_time():
         isolate.run_isolated("time:sleep", (30,), path="x.vtk", what="VTK", timeout=2)
 
 
+def test_isolated_without_fork(monkeypatch):
+    """Where fork is refused (process or memory limits), a fresh interpreter does the same."""
+    def no_fork():
+        raise OSError(11, "fork refused")
+    monkeypatch.setattr(os, "fork", no_fork)
+    assert isolate.run_isolated("math:hypot", (3.0, 4.0), path="x", what="t") == 5.0
+    with pytest.raises(InputError, match="SIGSEGV"):
+        isolate.run_isolated("ctypes:string_at", (0,), path="x.vtp", what="VTK")
+
+
 def test_isolated_passes_errors_and_results():
     assert isolate.run_isolated("math:hypot", (3.0, 4.0), path="x", what="t") == 5.0
     with pytest.raises(InputError, match="cannot be read by t"):

@@ -89,16 +89,25 @@ def run_isolated(target: str, args: tuple, *, path, what: str, memory: int | Non
         except OSError:
             size = 0
         timeout = TIMEOUT_BASE_S + TIMEOUT_PER_MB_S * size / 2**20
+    status = None
     if hasattr(os, "fork") and sys.platform != "darwin":
-        status, data = _run_forked(target, args, memory, timeout)
-    else:  # pragma: no cover - no fork: a fresh interpreter
+        try:
+            status, data = _run_forked(target, args, memory, timeout)
+        except OSError:  # fork refused (process or memory limits): a fresh interpreter
+            status = None
+    if status is None:
         status, data = _run_spawned(target, args, memory, timeout)
     return _outcome(status, data, path, what, timeout)
 
 
 def _run_forked(target, args, memory, timeout):
     r, w = os.pipe()
-    pid = os.fork()
+    try:
+        pid = os.fork()
+    except OSError:
+        os.close(r)
+        os.close(w)
+        raise
     if pid == 0:  # the child: never returns
         code = 0
         try:
@@ -157,7 +166,7 @@ def _kill(pid):
         pass
 
 
-def _run_spawned(target, args, memory, timeout):  # pragma: no cover - non-POSIX path
+def _run_spawned(target, args, memory, timeout):
     code = ("import pickle, sys; from sheetview.io.isolate import _child; "
             "t, a, m = pickle.loads(sys.stdin.buffer.read()); "
             "sys.stdout.buffer.write(_child(t, a, m))")
