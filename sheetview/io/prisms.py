@@ -25,6 +25,7 @@ import json
 import math
 import os
 import re
+import tokenize
 import zipfile
 import zlib
 from pathlib import Path
@@ -392,7 +393,8 @@ def read_npz(path, *, thickness=None, spacing=None, units=None) -> Structure:
             raise InputError("holds Python objects (pickles), which sheetview never loads",
                              path=path) from None
         raise InputError(f"damaged or truncated NPZ ({_first_line(e)})", path=path) from None
-    except (zipfile.BadZipFile, EOFError, OSError, KeyError, zlib.error) as e:
+    except (zipfile.BadZipFile, EOFError, OSError, KeyError, zlib.error, SyntaxError,
+            tokenize.TokenError) as e:
         raise InputError(f"damaged or truncated NPZ ({type(e).__name__}: {_first_line(e)})",
                          path=path) from None
     header = load_json(str(data.pop("header")), path=path, field="header",
@@ -468,7 +470,7 @@ def npz_inventory(path) -> dict:
     except InputError:
         raise
     except (zipfile.BadZipFile, zipfile.LargeZipFile, EOFError, OSError, zlib.error,
-            ValueError, KeyError, NotImplementedError) as e:
+            ValueError, KeyError, NotImplementedError, SyntaxError, tokenize.TokenError) as e:
         raise InputError(f"damaged or truncated NPZ ({type(e).__name__}: {_first_line(e)})",
                          path=path) from None
     return out

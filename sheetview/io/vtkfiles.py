@@ -204,6 +204,7 @@ def _xml(text: str, size: int, path) -> dict:
     piece_points = piece_cells = 0
     declared = {"raw": 0, "ascii": 0}
     ascii_values = 0
+    pieces = []
     section = None
     for m in _TAG_RE.finditer(text):
         closing, name, body, _selfclose = m.groups()
@@ -214,7 +215,9 @@ def _xml(text: str, size: int, path) -> dict:
         a = dict(_ATTR_RE.findall(body))
         if name == "Piece":
             if kind == "ImageData" or "Extent" in a and "NumberOfPoints" not in a:
-                ext = _extent(a.get("Extent", ""), path)
+                bounds = _extent(a.get("Extent", ""), path)
+                pieces.append(bounds)
+                ext = _sizes(bounds)
                 piece_points = math.prod(e + 1 for e in ext)
                 piece_cells = math.prod(max(e, 1) for e in ext)
             else:
@@ -225,7 +228,8 @@ def _xml(text: str, size: int, path) -> dict:
             n_points += piece_points
             n_cells += piece_cells
         elif name == "ImageData":
-            info["extent"] = _extent(a.get("WholeExtent", ""), path)
+            info["whole"] = _extent(a.get("WholeExtent", ""), path)
+            info["extent"] = _sizes(info["whole"])
             if "Spacing" in a:
                 info["spacing"] = _floats(a["Spacing"], 3, "Spacing", path)
                 if min(info["spacing"]) <= 0:
@@ -256,8 +260,17 @@ def _xml(text: str, size: int, path) -> dict:
             declared["ascii" if fmt == "ascii" else "raw"] += comps * tuples * item
             if fmt == "ascii":
                 ascii_values += comps * tuples
-    if kind == "ImageData" and "extent" not in info:
-        raise InputError("damaged VTK ImageData: no WholeExtent", path=path)
+    if kind == "ImageData":
+        if "extent" not in info:
+            raise InputError("damaged VTK ImageData: no WholeExtent", path=path)
+        whole = info["whole"]
+        cells = math.prod(max(e, 1) for e in info["extent"])
+        inside = all(all(whole[2 * i] <= p[2 * i] and p[2 * i + 1] <= whole[2 * i + 1]
+                         for i in range(3)) for p in pieces)
+        if not inside or sum(math.prod(max(e, 1) for e in _sizes(p)) for p in pieces) != cells:
+            raise InputError(f"damaged VTK ImageData: its pieces ({len(pieces)}, extents "
+                             f"{'; '.join(' '.join(map(str, p)) for p in pieces)[:80]}) do not "
+                             f"make up its WholeExtent {' '.join(map(str, whole))}", path=path)
     need_stored = max(0, 2 * ascii_values - 1)  # a digit and a separator per value
     if ratio is not None:
         need_stored += declared["raw"] // ratio
@@ -276,15 +289,20 @@ def _xml(text: str, size: int, path) -> dict:
 
 
 def _extent(text: str, path) -> tuple:
+    """The six numbers ``lo hi lo hi lo hi`` of an extent attribute."""
     try:
-        e = [int(t) for t in text.split()]
+        e = [int(t) for t in text.split()] if len(text) < 200 else []
     except ValueError:
         e = []
     if len(e) != 6 or any(abs(v) > MAX_COUNT for v in e) or any(e[2 * i + 1] < e[2 * i]
                                                                     for i in range(3)):
         raise InputError(f"damaged VTK ImageData: an extent must be six whole numbers "
                          f"lo hi lo hi lo hi, got {text.strip()[:80]!r}", path=path)
-    return tuple(e[2 * i + 1] - e[2 * i] for i in range(3))
+    return tuple(e)
+
+
+def _sizes(bounds) -> tuple:
+    return tuple(bounds[2 * i + 1] - bounds[2 * i] for i in range(3))
 
 
 # ------------------------------------------------------------------------ isolated parse
