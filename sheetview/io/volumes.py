@@ -419,16 +419,19 @@ def _tiff_geometry(tif, ufac) -> dict:
         if isinstance(md, dict) and "sheetview" in md:
             try:
                 mk = md["sheetview"]
-                mk = json.loads(mk) if isinstance(mk, str) else mk
+                mk = load_json(mk) if isinstance(mk, str) else mk
                 if isinstance(mk, dict) and mk.get("format") == MARKER:
                     info["marker"] = mk
-            except (TypeError, ValueError):
+            except (TypeError, ValueError, InputError):
                 pass
     page = tif.pages[0]
     tags = page.tags
     xres = tags["XResolution"].value if "XResolution" in tags else None
     yres = tags["YResolution"].value if "YResolution" in tags else None
-    res_unit = int(tags["ResolutionUnit"].value) if "ResolutionUnit" in tags else 1
+    try:
+        res_unit = int(tags["ResolutionUnit"].value) if "ResolutionUnit" in tags else 1
+    except (TypeError, ValueError, OverflowError):
+        res_unit = 1  # a damaged tag: no unit
     unit_f = ufac
     if unit_f is None and ij and isinstance(ij.get("unit"), str):
         unit_f = IMAGE_UNITS.get(ij["unit"].strip().lower()) or IMAGE_UNITS.get(ij["unit"].strip())
@@ -440,12 +443,14 @@ def _tiff_geometry(tif, ufac) -> dict:
         return info
 
     def per_pixel(res):
-        if res is None:
+        """Pixel edge from a resolution tag (pixels per unit, a rational), None when absent
+        or damaged."""
+        try:
+            num, den = res if isinstance(res, tuple) else (res, 1)
+            v = float(den) / float(num)
+        except (TypeError, ValueError, ZeroDivisionError, OverflowError):
             return None
-        num, den = res if isinstance(res, tuple) else (res, 1)
-        if not num or not den:
-            return None
-        return float(den) / float(num)
+        return v if math.isfinite(v) and v > 0 else None
 
     dx, dy = per_pixel(xres), per_pixel(yres)
     dz = ij.get("spacing") if ij else None
