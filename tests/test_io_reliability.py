@@ -531,3 +531,77 @@ def test_convert_of_damaged_input_leaves_nothing(tmp_path):
     assert r.stderr.count("\n") == 1 and str(src) in r.stderr
     assert src.read_bytes() == before
     assert list(out.parent.iterdir()) == []
+
+
+# ------------------------------------------------------ cases the long fuzz run found
+def test_vti_pieces_must_make_up_the_whole_extent(tmp_path):
+    """A WholeExtent enlarged to 10 million voxels along y around an intact 8-voxel piece
+    made VTK allocate the whole (5 GB) and sheetview read it; it is refused before VTK."""
+    import re
+    from sheetview.grid import PhaseGrid
+    g = PhaseGrid((np.arange(9 * 8 * 7).reshape(9, 8, 7) % 4).astype(np.uint8), 0.5)
+    p = tmp_path / "g.vti"
+    sv.write(g, p)
+    text = re.sub(rb'WholeExtent="[^"]*"', b'WholeExtent="0 9 0 10000000 0 7"', p.read_bytes())
+    p.write_bytes(text)
+    with pytest.raises(InputError, match="WholeExtent") as ei:
+        sv.read(p)
+    assert str(p) in str(ei.value)
+
+
+def test_mesh_header_version_of_5000_digits(tmp_path):
+    import trimesh
+    from sheetview.io.meshes import write_body
+    from sheetview.structure import SurfaceBody
+    m = trimesh.creation.icosphere(1, 2.0)
+    p = tmp_path / "b.ply"
+    write_body(SurfaceBody(np.array(m.vertices) + 3, m.faces, sv.Box((0, 0, 0), (6, 6, 6))), p)
+    data = p.read_bytes().replace(b"sheetview mesh v1", b"sheetview mesh v" + b"9" * 5000, 1)
+    p.write_bytes(data)
+    with pytest.raises(InputError, match="version number is damaged"):
+        sv.read(p)
+
+
+def test_npz_header_the_tokenizer_cannot_read(tmp_path):
+    """An NPY header inside the archive cut in the middle of its dictionary (numpy's parser
+    raises tokenize.TokenError, which is no ValueError)."""
+    import io
+    import zipfile
+    head = b"{'descr': '<f8', 'fortran_order': False, 'shape': (1, 3,\n"
+    npy = b"\x93NUMPY\x01\x00" + len(head).to_bytes(2, "little") + head + b"\x00" * 72
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w") as z:
+        z.writestr("vertices.npy", npy)
+        z.writestr("header.npy", npy)
+    p = tmp_path / "t.npz"
+    p.write_bytes(buf.getvalue())
+    with pytest.raises(InputError, match="NPZ") as ei:
+        sv.read(p)
+    assert str(p) in str(ei.value)
+
+
+def test_gltf_accessor_type_of_the_wrong_kind(tmp_path):
+    import struct
+    import trimesh
+    scene = trimesh.Scene(trimesh.creation.box())
+    data = bytearray(scene.export(file_type="glb"))
+    length = struct.unpack("<I", data[12:16])[0]
+    doc = json.loads(bytes(data[20:20 + length]))
+    doc["accessors"][0]["type"] = ["VEC3"]
+    text = json.dumps(doc).encode()
+    text += b" " * ((-len(text)) % 4)
+    out = data[:12] + struct.pack("<II", len(text), 0x4E4F534A) + text + data[20 + length:]
+    out[8:12] = struct.pack("<I", len(out))
+    p = tmp_path / "m.glb"
+    p.write_bytes(bytes(out))
+    with pytest.raises(InputError) as ei:
+        sv.read(p)
+    assert str(p) in str(ei.value) and "unexpected" not in str(ei.value)
+
+
+def test_message_with_a_line_break_from_the_file_is_one_line(tmp_path):
+    p = tmp_path / "s.csv"
+    p.write_text('# units: "par\\nsec"\n# thickness: 1\nax,ay,az,bx,by,bz,cx,cy,cz\n0,0,0,1,0,0,0,1,0\n')
+    with pytest.raises(InputError) as ei:
+        sv.read(p)
+    assert "\n" not in str(ei.value)
