@@ -173,13 +173,17 @@ class Structure:
         src = self.source
         n = len(self)
         flat = self.vertices.reshape(n, 9)
-        bad = ~np.all(np.isfinite(flat), axis=1)
-        if bad.any():
-            i = int(np.flatnonzero(bad)[0])
-            raise InputError(f"prism row {i + 1}: corner coordinates must be finite numbers "
-                             f"(found NaN or inf; {int(bad.sum())} row(s) affected)", path=src)
-        bad = np.any(np.abs(flat) > MAX_LENGTH_NM, axis=1)
-        if bad.any():
+        with np.errstate(invalid="ignore"):
+            mag = np.abs(flat).max(axis=1) if n else np.zeros(0)  # NaN where any is NaN
+        out = ~(mag <= MAX_LENGTH_NM)  # one pass for NaN, inf and too large
+        if out.any():
+            bad = ~np.all(np.isfinite(flat), axis=1)
+            if bad.any():
+                i = int(np.flatnonzero(bad)[0])
+                raise InputError(f"prism row {i + 1}: corner coordinates must be finite numbers "
+                                 f"(found NaN or inf; {int(bad.sum())} row(s) affected)",
+                                 path=src)
+            bad = out
             i = int(np.flatnonzero(bad)[0])
             big = float(np.abs(flat[i]).max())
             raise InputError(f"prism row {i + 1}: corner coordinates must lie within "
