@@ -177,10 +177,10 @@ def test_default_voxel_is_coarsened_to_fit_the_memory_limit_and_says_so():
     s = perfect_stack(3, 6.0, repeat=1.4, thickness=0.7).structure
     g = rasterize(s)
     assert g.metadata["voxel_default"]["note"] is None
-    small = int(np.prod(g.shape) * 6 / 8)
+    small = estimate_grid_bytes(int(np.prod(g.shape) * 3 / 8))
     g2 = rasterize(s, max_memory=small)
     assert g2.metadata["voxel_size_nm"] > g.metadata["voxel_size_nm"]
-    assert np.prod(g2.shape) * 6 <= small
+    assert estimate_grid_bytes(int(np.prod(g2.shape))) <= small
     assert "memory limit" in g2.metadata["voxel_default"]["note"]
     with pytest.raises(MemoryLimitError):
         rasterize(s, g.metadata["voxel_size_nm"], max_memory=small)
