@@ -4,6 +4,11 @@ Families: ``prisms`` (native table: CSV, NPZ, Parquet), ``meshes`` (STL, PLY, OB
 GLB/GLTF through trimesh; VTK files through pyvista) and ``volumes`` (TIFF, NPY, raw,
 VTI). A reader returns a :class:`~sheetview.structure.Structure`, a
 :class:`~sheetview.structure.SurfaceBody` or a :class:`~sheetview.grid.PhaseGrid`.
+
+Bad input (docs/reliability.md): :mod:`.safety` holds what every reader does first (regular
+files only, JSON checked, declared sizes against the file and the memory budget, library
+noise off); :mod:`.vtkfiles` and :mod:`.isolate` check VTK files and parse them in a child
+process; :func:`guarded` turns anything unforeseen into one line naming the file.
 """
 from __future__ import annotations
 

@@ -115,6 +115,8 @@ def _run_forked(target, args, memory, timeout):
             null = os.open(os.devnull, os.O_RDWR)
             for fd in (0, 1, 2):
                 os.dup2(null, fd)
+            import faulthandler
+            faulthandler.disable()  # its dump (to a descriptor of its own) would be noise
             signal.signal(signal.SIGINT, signal.SIG_DFL)
             data = _child(target, args, memory)
             view = memoryview(data)
@@ -167,7 +169,8 @@ def _kill(pid):
 
 
 def _run_spawned(target, args, memory, timeout):
-    code = ("import pickle, sys; from sheetview.io.isolate import _child; "
+    code = ("import faulthandler, pickle, sys; faulthandler.disable(); "
+            "from sheetview.io.isolate import _child; "
             "t, a, m = pickle.loads(sys.stdin.buffer.read()); "
             "sys.stdout.buffer.write(_child(t, a, m))")
     try:
