@@ -56,7 +56,7 @@ import numpy as np
 from numba.cpython.unsafe.numbers import trailing_zeros as _tz
 
 from ..errors import OptionError
-from ..grid import GEL, OUTSIDE, PhaseGrid, _phase_code
+from ..grid import GEL, OUTSIDE, PhaseGrid, phase_code
 from ..threads import budget
 
 # 26-neighbour offsets
@@ -1542,7 +1542,7 @@ def pore_size_distribution(grid: PhaseGrid, phases=(GEL,), *, bins="log",
         raise OptionError(f"pore sizes need a PhaseGrid, not {type(grid).__name__}")
     if isinstance(phases, (str, int, np.integer)):
         phases = (phases,)
-    codes = [_phase_code(p, grid.names) for p in phases]
+    codes = [phase_code(p, grid.names) for p in phases]
     names = tuple(grid.names.get(c, f"phase_{c}") for c in codes)
     mask = np.isin(grid.labels, np.asarray(codes, dtype=np.uint8))
     if not mask.any():
