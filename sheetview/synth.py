@@ -426,6 +426,9 @@ class _CentroidIndex:
 #: Prisms of different stacks whose normals lie within this angle (degrees) of each other
 #: count as parallel for the stack guard of the fill mode (see :func:`_stack_guard`).
 GUARD_ANGLE = 10.0
+#: Least in-plane separation (nm) of the projections of two such prisms closer than 1.5
+#: repeats along their mean normal (above the stacking measure's default edge tolerance).
+GUARD_GAP = 0.1
 #: Failed tries at (or next to) a voxel of the free-space map before it is no longer a site.
 MAX_STRIKES = 4
 #: Default number of proposals (size and orientation drawn from their laws) per site.
@@ -442,14 +445,11 @@ PLACE_STEPS = 6
 
 
 def _stack_guard(repeat: float, edge: float) -> float:
-    """Least centroid distance between near-parallel prisms of different stacks in the fill
-    mode: ``sqrt((1.5 repeat)^2 + (2 edge / sqrt 3)^2)``.
-
-    Two prisms closer than 1.5 repeats along their mean normal must then be more than two
-    circumradii apart across it, so their projected triangles cannot overlap: no gap
-    tolerance the stacking measure accepts (below half the repeat) can take two stacks for
-    one, and no in-plane link can join them."""
-    return math.hypot(1.5 * repeat, 2.0 * edge / math.sqrt(3.0))
+    """Centroid distance beyond which two near-parallel prisms of different stacks cannot
+    look stacked (:func:`_looks_stacked`): ``sqrt((1.5 repeat)^2 + (2 edge / sqrt 3 +
+    GUARD_GAP)^2)``. Closer than 1.5 repeats along their mean normal, they are then more
+    than two circumradii plus :data:`GUARD_GAP` apart across it."""
+    return math.hypot(1.5 * repeat, 2.0 * edge / math.sqrt(3.0) + GUARD_GAP)
 
 
 @numba.njit(cache=True, inline="always")
@@ -518,6 +518,74 @@ def _separated(a, na, ha, b, nb, hb, clear, ea, eb):
 
 
 @numba.njit(cache=True)
+def _looks_stacked(a, na, b, nb, repeat, margin):
+    """Whether two near-parallel prisms (mid-plane triangles ``a``, ``b`` relative to the
+    first centroid, unit normals ``na``, ``nb``) could be linked by the stacking measure:
+    closer than 1.5 repeats along their mean normal ``m`` (any gap tolerance it accepts
+    is below half the repeat) and, projected on the plane normal to ``m``, closer than
+    ``margin`` (2D separating axes over the six edge normals), so that their projections
+    could overlap or share an edge."""
+    s = 1.0 if na[0] * nb[0] + na[1] * nb[1] + na[2] * nb[2] >= 0.0 else -1.0
+    m0 = na[0] + s * nb[0]
+    m1 = na[1] + s * nb[1]
+    m2 = na[2] + s * nb[2]
+    mn = math.sqrt(m0 * m0 + m1 * m1 + m2 * m2)
+    m0 /= mn
+    m1 /= mn
+    m2 /= mn
+    ca0 = (a[0, 0] + a[1, 0] + a[2, 0]) / 3.0
+    ca1 = (a[0, 1] + a[1, 1] + a[2, 1]) / 3.0
+    ca2 = (a[0, 2] + a[1, 2] + a[2, 2]) / 3.0
+    cb0 = (b[0, 0] + b[1, 0] + b[2, 0]) / 3.0
+    cb1 = (b[0, 1] + b[1, 1] + b[2, 1]) / 3.0
+    cb2 = (b[0, 2] + b[1, 2] + b[2, 2]) / 3.0
+    if abs((cb0 - ca0) * m0 + (cb1 - ca1) * m1 + (cb2 - ca2) * m2) >= 1.5 * repeat:
+        return False
+    # in-plane basis (u, v) of the plane normal to m
+    if abs(m0) < 0.9:
+        u0, u1, u2 = 0.0, -m2, m1
+    else:
+        u0, u1, u2 = m2, 0.0, -m0
+    un = math.sqrt(u0 * u0 + u1 * u1 + u2 * u2)
+    u0 /= un
+    u1 /= un
+    u2 /= un
+    v0 = m1 * u2 - m2 * u1
+    v1 = m2 * u0 - m0 * u2
+    v2 = m0 * u1 - m1 * u0
+    px = np.empty((2, 3))
+    py = np.empty((2, 3))
+    for q in range(3):
+        px[0, q] = a[q, 0] * u0 + a[q, 1] * u1 + a[q, 2] * u2
+        py[0, q] = a[q, 0] * v0 + a[q, 1] * v1 + a[q, 2] * v2
+        px[1, q] = b[q, 0] * u0 + b[q, 1] * u1 + b[q, 2] * u2
+        py[1, q] = b[q, 0] * v0 + b[q, 1] * v1 + b[q, 2] * v2
+    for t in range(2):
+        for q in range(3):
+            ex = px[t, (q + 1) % 3] - px[t, q]
+            ey = py[t, (q + 1) % 3] - py[t, q]
+            nx = -ey
+            ny = ex
+            nn = math.sqrt(nx * nx + ny * ny)
+            if nn < 1e-12:
+                continue
+            amin = np.inf
+            amax = -np.inf
+            bmin = np.inf
+            bmax = -np.inf
+            for r in range(3):
+                pa = px[0, r] * nx + py[0, r] * ny
+                pb = px[1, r] * nx + py[1, r] * ny
+                amin = min(amin, pa)
+                amax = max(amax, pa)
+                bmin = min(bmin, pb)
+                bmax = max(bmax, pb)
+            if max(bmin - amax, amin - bmax) / nn >= margin:
+                return False
+    return True
+
+
+@numba.njit(cache=True)
 def _cell_of(x, lo, cs, ncell, periodic):
     c = 0
     for d in range(3):
@@ -582,13 +650,14 @@ def _inside_one(V, N, P, half, sphere, dc, dr, dlo, dhi):
 
 @numba.njit(cache=True)
 def _conflict(V, N, C, P, half, SV, SN, SC, SH, nxt, head, count0, lo, cs, ncell, L,
-              periodic, clear, ball2, guard2, cos_guard, a, b, ea, eb, dv):
+              periodic, clear, ball2, guard2, cos_guard, repeat, a, b, ea, eb, dv):
     """0 when prisms 0..P-1 keep clear of every stored prism, else 1 (a conflict with a
     prism stored before index ``count0``) or 2 (only with later ones).
 
     Centroids closer than ``sqrt(ball2)`` must be separated by ``clear``
-    (:func:`_separated`); near-parallel prisms (``|n.n'| >= cos_guard``) need centroids at
-    least ``sqrt(guard2)`` apart (:func:`_stack_guard`)."""
+    (:func:`_separated`); near-parallel prisms (``|n.n'| >= cos_guard``) with centroids
+    closer than ``sqrt(guard2)`` (:func:`_stack_guard`) must not look stacked
+    (:func:`_looks_stacked`), so that the stacking measure cannot join two stacks."""
     for p in range(P):
         ci0 = int(math.floor((C[p, 0] - lo[0]) / cs[0]))
         ci1 = int(math.floor((C[p, 1] - lo[1]) / cs[1]))
@@ -631,15 +700,19 @@ def _conflict(V, N, C, P, half, SV, SN, SC, SH, nxt, head, count0, lo, cs, ncell
                                 dk -= L[d] * np.round(dk / L[d])
                             dv[d] = dk
                             d2 += dk * dk
+                        if d2 >= guard2 and d2 >= ball2:
+                            j = nxt[j]
+                            continue
+                        for q in range(3):
+                            for d in range(3):
+                                a[q, d] = V[p, q, d] - C[p, d]
+                                b[q, d] = SV[j, q, d] - SC[j, d] + dv[d]
                         bad = False
                         if d2 < guard2:
                             cn = abs(N[p, 0] * SN[j, 0] + N[p, 1] * SN[j, 1] + N[p, 2] * SN[j, 2])
-                            bad = cn >= cos_guard
+                            bad = cn >= cos_guard and _looks_stacked(a, N[p], b, SN[j], repeat,
+                                                                     GUARD_GAP)
                         if not bad and d2 < ball2:
-                            for q in range(3):
-                                for d in range(3):
-                                    a[q, d] = V[p, q, d] - C[p, d]
-                                    b[q, d] = SV[j, q, d] - SC[j, d] + dv[d]
                             bad = not _separated(a, N[p], half, b, SN[j], SH[j], clear, ea, eb)
                         if bad:
                             return 1 if j < count0 else 2
@@ -712,7 +785,7 @@ def _place_fit(centre, nrm, e1, e2, n0, lat0, tilt, s_map, keep, tpl_dist, uv, m
                 else:
                     code = _conflict(V, N, C, P, half, SV, SN, SC, SH, nxt, head, count0, lo,
                                      cs, ncell, L, periodic, clear, ball2, guard2, cos_guard,
-                                     a, b, ea, eb, dv)
+                                     repeat, a, b, ea, eb, dv)
                 if s == 0.0:
                     tested0 = True
                     code0 = code
