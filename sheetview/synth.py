@@ -452,7 +452,7 @@ def _stack_guard(repeat: float, edge: float) -> float:
     return math.hypot(1.5 * repeat, 2.0 * edge / math.sqrt(3.0) + GUARD_GAP)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True)
 def _axis_gap(a, na, ha, b, nb, hb, u0, u1, u2):
     """Gap between the projections of two prisms on the axis (u0, u1, u2) (negative when
     they overlap), in nm; -inf for a null axis."""
@@ -855,7 +855,7 @@ def _rank_table(reach: int):
     return rank, off
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True)
 def _in_patch(u, v, k, rank, off):
     """Whether the in-plane point (u, v) (units of the triangle edge, lattice vertex at the
     origin) lies in the patch of the first ``k`` template triangles."""
