@@ -569,6 +569,32 @@ def test_separating_axes_never_overstate_the_gap():
     assert far > 250 and apart > 0.9 * far
 
 
+def test_fill_tests_the_prisms_it_writes():
+    """The fill mode's exact tests build each stack in a numba kernel; the written
+    structure comes from the vectorised builder. Both must give the same prisms (random
+    stacks, tilt defects included), or the clearance would be checked on other geometry."""
+    from sheetview.synth import _build, _build_one, _patch_sizes, _perp_basis, _Stacks, _watson
+    rng = np.random.default_rng(3)
+    m = 40
+    lat = rng.uniform(0.5, 9.0, m)
+    tpl, k = _patch_sizes(lat, 1.0)
+    nrm = _watson(rng, m, 0.0, np.array([0.0, 0.0, 1.0]))
+    e1, e2 = _perp_basis(nrm)
+    st = _Stacks(rng.integers(1, 6, m), k, lat, rng.uniform(-5, 5, (m, 3)), nrm, e1, e2,
+                 rng.random(m) < 0.5)
+    tilt = math.radians(17.0)
+    verts, pn, owner, _, _ = _build(st, tpl, 1.0, 1.4, tilt)
+    V, N, C = np.empty((4000, 3, 3)), np.empty((4000, 3)), np.empty((4000, 3))
+    for i in range(m):
+        P = _build_one(V, N, C, st.centre[i], nrm[i], e1[i], e2[i], int(k[i]),
+                       int(st.n_layers[i]), bool(st.tilt[i]), tpl.uv, tpl.min_u, 1.0, 1.4,
+                       math.cos(tilt), math.sin(tilt))
+        mine = owner == i
+        assert P == mine.sum()
+        np.testing.assert_allclose(V[:P], verts[mine], rtol=0, atol=1e-12)
+        np.testing.assert_allclose(N[:P], pn[mine], rtol=0, atol=1e-12)
+
+
 def test_cli_fill_mode(tmp_path):
     out, truth = tmp_path / "d.npz", tmp_path / "t.csv"
     r = run("synth", "--box", "14,14,14", "--periodic", "--target-fraction", "0.25",
