@@ -424,8 +424,10 @@ class _CentroidIndex:
 
 # ================================================================== dense filling
 #: Prisms of different stacks whose normals lie within this angle (degrees) of each other
-#: count as parallel for the stack guard of the fill mode (see :func:`_stack_guard`).
-GUARD_ANGLE = 10.0
+#: are kept from looking stacked in the fill mode (:func:`_looks_stacked`): the stacking
+#: measure's default tilt limit, so that it finds neither stacked links nor tilted
+#: contacts between different stacks.
+GUARD_ANGLE = 25.0
 #: Least in-plane separation (nm) of the projections of two such prisms closer than 1.5
 #: repeats along their mean normal (above the stacking measure's default edge tolerance).
 GUARD_GAP = 0.1

@@ -464,7 +464,8 @@ def test_fill_fraction_matches_the_rasterized_phases(which, voxel, request):
 def test_fill_ground_truth_is_what_the_stacking_measure_finds(which, request):
     """On the dense packings, sheetview.measures.stacking at its default tolerances finds
     exactly the generated stacks: stacking numbers identical to the truth for every prism
-    (tilted defect layers 1), the same layers and the same stacks (untilted prisms)."""
+    (tilted defect layers 1), the same layers and the same stacks (untilted prisms); its
+    tilted contacts join a tilt-defect layer to the top layer of its own stack only."""
     from sheetview.measures.stacking import stacking
     g = request.getfixturevalue(which)
     r = stacking(g.structure)
@@ -473,6 +474,14 @@ def test_fill_ground_truth_is_what_the_stacking_measure_finds(which, request):
     assert _same_partition(r.stack[untilted], g.stack[untilted])
     assert _same_partition(r.layer, g.stack * 1000 + g.layer)
     assert r.stacking_number.max() >= 4
+    t = r.graph.tilted
+    assert np.array_equal(g.stack[t[:, 0]], g.stack[t[:, 1]])
+    assert np.all(g.tilted[t[:, 0]] != g.tilted[t[:, 1]])
+    top = g.stacks.n_layers[g.stack[t]] - 1
+    assert np.all(np.where(g.tilted[t], g.layer[t] == top + 1, g.layer[t] == top))
+    if g.stacks.has_tilt.any():
+        assert len(t) > 0
+        assert set(np.unique(g.stack[t[:, 0]])) == set(np.flatnonzero(g.stacks.has_tilt))
 
 
 def _same_partition(a, b):
