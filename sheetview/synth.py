@@ -1678,8 +1678,8 @@ def pack_stacks(domain, n_stacks: int | None = None, *, seeding: str = "volume",
 
     Two modes. *Sequential* (the default): ``n_stacks`` stacks drawn from the
     distributions are proposed at random places and kept if they fit, until ``n_stacks``
-    are placed or the domain is full (a few per cent of C-S-H by volume with the default
-    sizes). *Fill* (``target_fraction`` given): stacks are placed into the remaining gaps
+    are placed or the domain is full (about 15 % C-S-H by volume, 10 % solid, with the
+    default sizes). *Fill* (``target_fraction`` given): stacks are placed into the remaining gaps
     with decreasing size until the C-S-H volume (the prisms plus the gaps between the
     stacked layers of each stack) reaches ``target_fraction`` of the domain or nothing more
     fits; see :func:`_fill` for the method and ``docs/synth.md`` for what it reaches.
