@@ -78,14 +78,24 @@ DEFAULT_MAX_STEPS = 200_000
 #: Records (time points) per decade of steps.
 RECORDS_PER_DECADE = 40
 #: Bytes per walker: voxel indices and places (48), class, start class (2), weight (8),
-#: periodic images (24), generator (8), start position (24), with slack.
-BYTES_PER_WALKER = 128
+#: periodic images (24), generator (8), start position (24), clock and move counters (24),
+#: with slack.
+BYTES_PER_WALKER = 160
 #: Batches of walkers for the standard errors of a transport run.
 NBATCH = 20
-#: Walker steps of one call below which the kernel runs on one thread.
-SERIAL_BELOW = 2_000_000
-#: Bytes per voxel added by the run: the uint8 surface-area factor.
-BYTES_PER_VOXEL = 1
+#: Walkers of one call below which the kernel runs on one thread.
+SERIAL_BELOW = 2_000
+#: Bytes per voxel added by the run: the uint8 neighbour mask, surface-area factor and jump
+#: map (the last two when used).
+BYTES_PER_VOXEL = 3
+#: Bytes per (padded) voxel held while the jump map is made (labels and float32 distances).
+BYTES_PER_VOXEL_EDT = 5
+#: Smallest first-passage jump, in voxels (the smallest edge): closer to a wall or to
+#: another water class the walker takes fixed steps.
+JUMP_MIN_VOXELS = 2.0
+#: Resolution of the jump map: the distance is stored in steps of this fraction of the
+#: smallest voxel edge, as uint8 (so jumps are at most 255/4 = 63.75 voxels).
+JUMP_QUANTUM = 0.25
 
 NOTE_PREDICTION = ("predictions for the simulated structure with the stated relaxivities and "
                    "diffusivities, not measurements")
@@ -112,6 +122,14 @@ class _Engine:
     d0: float                # reference (bulk) diffusivity, nm²/us
     settings: dict
     notes: list
+    mask: np.ndarray = None  # uint8 flat: same-class neighbours (bit 2 axis + (dir > 0))
+    jmap: np.ndarray = None  # uint8 flat: jump radius bound / jq (or size-1 dummy)
+    accel: bool = False
+    jq: float = 1.0          # nm per jmap unit
+    jthr: int = 256          # jmap value from which a walker jumps
+    margin: float = 0.0      # nm taken off every jump radius
+    fpt: np.ndarray = None
+    trunc: np.ndarray = None
 
 
 def _code_of(p, names) -> int:
@@ -142,7 +160,8 @@ def _positive(v, what, param, unit, allow_zero=False):
 
 def _build(grid, *, water_phases, diffusivity_nm2_per_us, d_bulk_nm2_per_us, rho2_nm_per_us,
            rho2_outside_nm_per_us, rho2_by_interface, step_fraction, surface, relax=True,
-           n_walkers=0, extra_bytes_per_walker=0, max_memory=None) -> _Engine:
+           n_walkers=0, extra_bytes_per_walker=0, max_memory=None,
+           accelerate=True) -> _Engine:
     labels = np.ascontiguousarray(grid.labels)
     names = dict(grid.names)
     present = np.flatnonzero(np.bincount(labels.ravel(), minlength=256))
@@ -227,18 +246,30 @@ def _build(grid, *, water_phases, diffusivity_nm2_per_us, d_bulk_nm2_per_us, rho
         raise OptionError(f"surface must be 'smooth' or 'voxel', got {surface!r}",
                           param="surface")
     use_area = relax and key == "smooth" and xtab.max() > 0
+    accel = bool(accelerate)
+    periodic = bool(grid.periodic)
     nvox = labels.size
-    need = int(n_walkers) * (BYTES_PER_WALKER + int(extra_bytes_per_walker)) + \
-        (nvox * BYTES_PER_VOXEL if use_area else 0)
+    hmin = float(sp.min())
+    jq = JUMP_QUANTUM * hmin
+    hdiag = 0.5 * float(np.sqrt(np.sum(sp * sp)))
+    reach = 255 * jq + hdiag
+    pad = [int(math.ceil(reach / h)) + 1 if periodic else 0 for h in sp]
+    per_vox = 1 + (1 if use_area else 0) + (1 if accel else 0)
+    transient = (BYTES_PER_VOXEL_EDT * int(np.prod([n + 2 * q for n, q in
+                                                     zip(labels.shape, pad)]))
+                 if accel else 0)
+    fixed = nvox * per_vox + transient
+    per = BYTES_PER_WALKER + int(extra_bytes_per_walker)
+    need = int(n_walkers) * per + fixed
     limit = available_memory() // 2 if max_memory is None else int(max_memory)
     if need > limit:
-        per = BYTES_PER_WALKER + int(extra_bytes_per_walker)
-        fit = max(0, (limit - (nvox * BYTES_PER_VOXEL if use_area else 0)) // per)
+        fit = max(0, (limit - fixed) // per)
         raise MemoryLimitError(
             f"{n_walkers} walkers on a {labels.shape[0]} x {labels.shape[1]} x "
             f"{labels.shape[2]} grid need about {need / 2**30:.2f} GiB ({per} bytes per walker"
-            f"{', 1 byte per voxel' if use_area else ''}), over the limit of "
-            f"{limit / 2**30:.2f} GiB; {fit} walkers would fit", param="n_walkers")
+            f", {per_vox} bytes per voxel{' and the distance map made once' if accel else ''}"
+            f"), over the limit of {limit / 2**30:.2f} GiB; {fit} walkers would fit",
+            param="n_walkers")
     if use_area:
         ww = np.ones(256)
         ww[codes] = 0.0
@@ -247,12 +278,23 @@ def _build(grid, *, water_phases, diffusivity_nm2_per_us, d_bulk_nm2_per_us, rho
         area = area.ravel()
     else:
         area = np.full(1, 255, np.uint8)
+    mask = np.empty(labels.shape, np.uint8)
+    _walk.neighbour_mask(labels, lut, periodic, mask)
+    rmin = JUMP_MIN_VOXELS * hmin
+    margin = 1e-9 * hmin
+    jthr = int(math.ceil((rmin + hdiag + margin) / jq))
+    if accel and jthr <= 255:
+        jmap = _jump_map(labels, lut, sp, periodic, jq, hdiag, pad)
+    else:
+        accel = False
+        jmap = np.zeros(1, np.uint8)
     settings = {"water_classes": classes, "water_codes": codes,
                 "diffusivity_nm2_per_us": {n: float(d) for n, d in zip(classes, D)},
                 "d_bulk_nm2_per_us": d_bulk, "step_fraction_voxel": frac,
                 "step_nm": {n: float(d) for n, d in zip(classes, delta)},
                 "dt_us": dt, "surface": key, "periodic": bool(grid.periodic),
-                "spacing_nm": [float(v) for v in sp]}
+                "spacing_nm": [float(v) for v in sp], "accelerate": accel,
+                "jump_min_nm": rmin if accel else None}
     if relax:
         settings.update({"rho2_nm_per_us": rho, "rho2_outside_nm_per_us": rho_out,
                          "rho2_by_interface": {str(k): float(v) for k, v in
@@ -261,7 +303,46 @@ def _build(grid, *, water_phases, diffusivity_nm2_per_us, d_bulk_nm2_per_us, rho
                                       "x area factor"})
     return _Engine(labels.ravel(), np.asarray(labels.shape, np.int64), sp,
                    bool(grid.periodic), lut, classes, codes, D, dt, step, xtab, trans, scale,
-                   area, use_area, d_bulk, settings, notes)
+                   area, use_area, d_bulk, settings, notes, mask.ravel(), jmap.ravel(), accel,
+                   jq, jthr, margin, _tables()[0], _tables()[1])
+
+
+_TABLES = []
+
+
+def _tables():
+    """The first-passage tables (made once per process)."""
+    if not _TABLES:
+        _TABLES.extend([_walk.fpt_table(), _walk.trunc_table()])
+    return _TABLES
+
+
+def _jump_map(labels, lut, sp, periodic, jq, hdiag, pad) -> np.ndarray:
+    """uint8 map of ``floor((d - hdiag) / jq)``, ``d`` the distance (nm) from each water
+    voxel's centre to the nearest centre of a voxel of another class (walls, water of
+    another class, the border of a closed grid), from the exact Euclidean distance
+    transform (``edt``, with the voxel spacing; a periodic grid is wrapped by ``pad`` voxels
+    per side first). For a point ``p`` of the voxel, ``d - hdiag - |p - centre|`` is a lower
+    bound of its distance to any other class (``hdiag`` = half the voxel diagonal bounds
+    the distance from a voxel's centre to its surface). 0 on walls."""
+    import edt
+
+    from .. import threads
+    cl = (lut.astype(np.int16)[labels] + 1).astype(np.uint8)
+    if periodic:
+        cl = np.pad(cl, [(q, q) for q in pad], mode="wrap")
+    d = edt.edt(cl, anisotropy=tuple(float(v) for v in sp), black_border=not periodic,
+                parallel=threads.budget())
+    if periodic:
+        d = d[pad[0]:pad[0] + labels.shape[0], pad[1]:pad[1] + labels.shape[1],
+              pad[2]:pad[2] + labels.shape[2]]
+        cl = cl[pad[0]:pad[0] + labels.shape[0], pad[1]:pad[1] + labels.shape[1],
+                pad[2]:pad[2] + labels.shape[2]]
+    with np.errstate(invalid="ignore"):
+        q = np.floor((d - hdiag) / jq)
+    q = np.clip(np.nan_to_num(q, nan=0.0, posinf=255.0), 0, 255).astype(np.uint8)
+    q[cl == 0] = 0
+    return np.ascontiguousarray(q)
 
 
 class _Walkers:
@@ -305,19 +386,55 @@ class _Walkers:
         self.wt = np.ones(n)
         self.img = np.zeros((n, 3), np.int64)
         self.x0 = np.stack([self.ix + self.fx, self.iy + self.fy, self.iz + self.fz], axis=1)
+        self.tw = np.zeros(n)
+        self.nfix = np.zeros(n, np.int64)
+        self.njump = np.zeros(n, np.int64)
+
+    def advance_to(self, eng: _Engine, t_us: float):
+        """Advance every walker to time ``t_us`` (each walker keeps its own clock)."""
+        fn = _walk.advance_to if self.n >= SERIAL_BELOW else _walk.advance_to_serial
+        fn(eng.lab, eng.mask, eng.jmap, eng.accel, eng.jq, eng.jthr, eng.margin, eng.shape,
+           eng.periodic, eng.lut, eng.step, eng.xtab, eng.area, eng.use_area, eng.trans,
+           eng.scale, eng.spacing, eng.diffusivity, eng.dt, eng.fpt, eng.trunc, self.ix,
+           self.iy, self.iz, self.fx, self.fy, self.fz, self.cls, self.wt, self.img, self.rng,
+           self.tw, self.nfix, self.njump, float(t_us))
 
     def advance(self, eng: _Engine, nsteps: int):
+        """Advance every walker by ``nsteps`` time steps ``dt`` (from the latest clock)."""
         if nsteps > 0:
-            fn = _walk.advance if nsteps * self.n >= SERIAL_BELOW else _walk.advance_serial
-            fn(eng.lab, eng.shape, eng.periodic, eng.lut, eng.step, eng.xtab,
-                          eng.area, eng.use_area, eng.trans, eng.scale, self.ix, self.iy,
-                          self.iz, self.fx, self.fy, self.fz, self.cls, self.wt, self.img,
-                          self.rng, int(nsteps))
+            self.advance_to(eng, float(np.max(self.tw)) + nsteps * eng.dt)
+
+    @property
+    def moves(self) -> float:
+        """Mean moves per walker so far (fixed steps and jumps, each counted once)."""
+        return float(self.nfix.sum() + self.njump.sum()) / self.n
+
+    def move_counts(self) -> dict:
+        return {"fixed_steps_per_walker": float(self.nfix.mean()),
+                "jumps_per_walker": float(self.njump.mean())}
 
 
 def _record_steps(max_steps: int, per_decade: int = RECORDS_PER_DECADE) -> np.ndarray:
     n = max(2, int(math.ceil(per_decade * math.log10(max(max_steps, 10)))) + 1)
     return np.unique(np.rint(np.geomspace(1, max_steps, n)).astype(np.int64))
+
+
+def _record_times(dt, t_end=None, per_decade: int = RECORDS_PER_DECADE):
+    """Recording times (µs): whole multiples of ``dt`` spaced ``per_decade`` per decade,
+    without end or up to ``t_end`` (its multiple of dt rounded up, recorded last)."""
+    last = None if t_end is None else max(1, int(math.ceil(t_end / dt - 1e-9)))
+    prev = 0
+    k = 0
+    while True:
+        n = int(round(10.0 ** (k / per_decade)))
+        k += 1
+        if n <= prev:
+            continue
+        if last is not None and n >= last:
+            yield last * dt
+            return
+        prev = n
+        yield n * dt
 
 
 def _steps_of(eng, t_max_us, max_steps):
@@ -685,7 +802,8 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
                     invert: bool = True, alpha: float | None = None,
                     t2_range_s=(1e-6, 10.0), per_decade: int = 20,
                     compare_fast: bool = True, interlayer_width_nm: float | None = None,
-                    max_memory: int | None = None, progress=None) -> RelaxationWalkResult:
+                    accelerate: bool = True, max_memory: int | None = None,
+                    progress=None) -> RelaxationWalkResult:
     """Magnetisation decay M(t), its T2 spectrum, and the class-to-class exchange, from
     walkers in the water of ``grid`` (method and sources: module docstring).
 
@@ -742,22 +860,32 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
                  d_bulk_nm2_per_us=d_bulk_nm2_per_us, rho2_nm_per_us=rho2_nm_per_us,
                  rho2_outside_nm_per_us=rho2_outside_nm_per_us,
                  rho2_by_interface=rho2_by_interface, step_fraction=step_fraction,
-                 surface=surface, relax=True, n_walkers=n_walkers, max_memory=max_memory)
-    ms = _steps_of(eng, t_max_us, max_steps)
+                 surface=surface, relax=True, n_walkers=n_walkers, max_memory=max_memory,
+                 accelerate=accelerate)
+    ms = int(_positive(max_steps, "most moves per walker", "max_steps", "moves"))
+    t_end = None if t_max_us is None else _positive(t_max_us, "simulated time", "t_max_us",
+                                                     "µs")
+    if not eng.accel:          # fixed steps only: max_steps caps the time as before
+        t_end = ms * eng.dt if t_end is None else min(t_end, ms * eng.dt)
     rates = _face_rates(eng)
     notes = list(eng.notes)
     bulk_rate = 0.0 if t2_bulk_s is None else 1e-6 / t2_bulk_s  # 1/us
     slow = float(np.min(rates[rates > 0])) if np.any(rates > 0) else 0.0
     if slow + bulk_rate > 0:
-        need = math.log(1.0 / m_stop) / ((slow + bulk_rate) * eng.dt)
-        if need > ms:
+        need_t = math.log(1.0 / m_stop) / (slow + bulk_rate)
+        need = need_t / eng.dt
+        if not eng.accel and need > ms:
             notes.append(f"reaching M < {m_stop:g} would take about {need:.3g} steps per "
                          f"walker (fast-diffusion estimate of the slowest class), over the "
                          f"{ms} allowed: the run stops first and T2 beyond the simulated "
                          f"time are not resolved")
+        elif eng.accel and need > ms:
+            notes.append(f"reaching M < {m_stop:g} takes about {need_t:.3g} µs (fast-diffusion "
+                         f"estimate of the slowest class), {need:.3g} fixed steps; the "
+                         f"first-passage jumps cover part of it, and the run stops when the "
+                         f"walkers have made {ms} moves each on average")
     W = _Walkers(eng, n_walkers, seed)
     K = len(eng.classes)
-    rec = _record_steps(ms)
     ts, ms_tot, ms_cls, fr, se = [0.0], [1.0], [], [], [0.0]
     counts = np.zeros((K, K), np.int64)
     wsum = np.zeros((K, K))
@@ -765,11 +893,9 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
     n_start = counts.sum(axis=1).astype(float)
     ms_cls.append(wsum.sum(axis=1) / W.n)
     fr.append(counts / np.maximum(n_start[:, None], 1))
-    done = 0
-    for r in rec:
-        W.advance(eng, int(r) - done)
-        done = int(r)
-        t = done * eng.dt
+    stopped_by_work = False
+    for t in _record_times(eng.dt, t_end):
+        W.advance_to(eng, t)
         counts[:] = 0
         wsum[:] = 0
         _walk.tally(W.cls, W.start, W.wt, K, counts, wsum)
@@ -780,17 +906,23 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
         se.append(float(np.std(W.wt)) * decay / math.sqrt(W.n))
         fr.append(counts / np.maximum(n_start[:, None], 1))
         if progress is not None:
-            prog = max(done / ms, math.log(max(ms_tot[-1], 1e-300)) / math.log(m_stop))
+            prog = max(W.moves / ms, math.log(max(ms_tot[-1], 1e-300)) / math.log(m_stop),
+                       t / t_end if t_end else 0.0)
             progress(min(1.0, prog), f"relaxation walk: t = {t:.4g} µs, M = {ms_tot[-1]:.4g}")
         if ms_tot[-1] < m_stop:
+            break
+        if eng.accel and W.moves >= ms:
+            stopped_by_work = True
             break
     t_us = np.asarray(ts)
     m = np.asarray(ms_tot)
     mc = np.asarray(ms_cls)
     m_by = {c: mc[:, k] for k, c in enumerate(eng.classes)}
     if m[-1] >= m_stop:
+        why = (f" after {W.moves:.4g} moves per walker (max_steps)" if stopped_by_work
+               else "")
         notes.append(f"the run stopped at t = {t_us[-1]:.4g} µs with M = {m[-1]:.3g} "
-                     f"(above {m_stop:g})")
+                     f"(above {m_stop:g}){why}")
     exch = ExchangeResult(t_us, list(eng.classes), np.asarray(fr), n_start / W.n, W.n,
                           ["fractions of walkers, unweighted by relaxation"])
     spec = None
@@ -815,32 +947,36 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
     settings = dict(eng.settings)
     settings.update({"t2_bulk_s": t2_bulk_s, "m_stop": m_stop, "max_steps": ms,
                      "seed": int(seed), "fast_diffusion_rate_per_us": {
-                         c: float(r) for c, r in zip(eng.classes, rates)}})
-    return RelaxationWalkResult(t_us, m, np.asarray(se), m_by, spec, exch, fast, W.n, done,
-                                settings, notes)
+                         c: float(r) for c, r in zip(eng.classes, rates)},
+                     **W.move_counts()})
+    return RelaxationWalkResult(t_us, m, np.asarray(se), m_by, spec, exch, fast, W.n,
+                                int(round(W.moves)), settings, notes)
 
 
 def exchange_fractions(grid, *, t_max_us: float, n_walkers: int = DEFAULT_WALKERS,
                        seed: int = 0, diffusivity_nm2_per_us: dict | None = None,
                        d_bulk_nm2_per_us: float = D_BULK_WATER_NM2_PER_US, water_phases=None,
                        step_fraction: float = DEFAULT_STEP_FRACTION,
-                       max_steps: int | None = None, max_memory: int | None = None,
-                       progress=None) -> ExchangeResult:
+                       max_steps: int | None = None, accelerate: bool = True,
+                       max_memory: int | None = None, progress=None) -> ExchangeResult:
     """Class-to-class exchange fractions against mixing time (no relaxation): where the
     walkers that started in each class are after time t, up to ``t_max_us`` (µs).
 
-    ``max_steps`` (default: as many as ``t_max_us`` needs) caps the steps per walker.
-    Parameters otherwise as :func:`relaxation_walk`.
+    ``max_steps`` (default: no cap) caps the moves per walker (fixed steps and jumps, on
+    average; without acceleration, the steps). Parameters otherwise as
+    :func:`relaxation_walk`.
     """
     eng = _build(grid, water_phases=water_phases, diffusivity_nm2_per_us=diffusivity_nm2_per_us,
                  d_bulk_nm2_per_us=d_bulk_nm2_per_us, rho2_nm_per_us=0.0,
                  rho2_outside_nm_per_us=None, rho2_by_interface=None,
                  step_fraction=step_fraction, surface="voxel", relax=False,
-                 n_walkers=n_walkers, max_memory=max_memory)
-    t = _positive(t_max_us, "simulated time", "t_max_us", "µs")
-    ms = int(math.ceil(t / eng.dt))
+                 n_walkers=n_walkers, max_memory=max_memory, accelerate=accelerate)
+    t_end = _positive(t_max_us, "simulated time", "t_max_us", "µs")
+    cap = None
     if max_steps is not None:
-        ms = min(ms, int(_positive(max_steps, "most steps per walker", "max_steps", "steps")))
+        cap = int(_positive(max_steps, "most moves per walker", "max_steps", "moves"))
+        if not eng.accel:
+            t_end = min(t_end, cap * eng.dt)
     W = _Walkers(eng, n_walkers, seed)
     K = len(eng.classes)
     counts = np.zeros((K, K), np.int64)
@@ -848,17 +984,19 @@ def exchange_fractions(grid, *, t_max_us: float, n_walkers: int = DEFAULT_WALKER
     _walk.tally(W.cls, W.start, W.wt, K, counts, wsum)
     n_start = counts.sum(axis=1).astype(float)
     ts, fr = [0.0], [counts / np.maximum(n_start[:, None], 1)]
-    done = 0
-    for r in _record_steps(ms):
-        W.advance(eng, int(r) - done)
-        done = int(r)
+    notes = list(eng.notes) + ["fractions of walkers (no relaxation)"]
+    for t in _record_times(eng.dt, t_end):
+        W.advance_to(eng, t)
         counts[:] = 0
         _walk.tally(W.cls, W.start, W.wt, K, counts, wsum)
-        ts.append(done * eng.dt)
+        ts.append(t)
         fr.append(counts / np.maximum(n_start[:, None], 1))
         if progress is not None:
-            progress(done / ms, f"exchange walk: t = {ts[-1]:.4g} µs")
-    notes = list(eng.notes) + ["fractions of walkers (no relaxation)"]
+            progress(min(1.0, t / t_end), f"exchange walk: t = {ts[-1]:.4g} µs")
+        if cap is not None and eng.accel and W.moves >= cap and t < t_end:
+            notes.append(f"stopped at t = {t:.4g} µs after {W.moves:.4g} moves per walker "
+                         f"(max_steps)")
+            break
     return ExchangeResult(np.asarray(ts), list(eng.classes), np.asarray(fr), n_start / W.n,
                           W.n, notes)
 
@@ -955,7 +1093,8 @@ def transport_walk(grid, *, n_walkers: int = DEFAULT_TRANSPORT_WALKERS, seed: in
                    diffusivity_nm2_per_us: dict | None = None,
                    d_bulk_nm2_per_us: float = D_BULK_WATER_NM2_PER_US, water_phases=None,
                    step_fraction: float = DEFAULT_STEP_FRACTION, n_records: int = 64,
-                   max_memory: int | None = None, progress=None) -> TransportResult:
+                   accelerate: bool = True, max_memory: int | None = None,
+                   progress=None) -> TransportResult:
     """Mean-square displacement, long-time effective diffusivity tensor, tortuosity per axis
     (D0/Deff) and formation factor (D0/(φ Deff)) of the water in ``grid``, from walkers
     without relaxation (the engine of :func:`relaxation_walk`).
@@ -976,11 +1115,12 @@ def transport_walk(grid, *, n_walkers: int = DEFAULT_TRANSPORT_WALKERS, seed: in
                  d_bulk_nm2_per_us=d_bulk_nm2_per_us, rho2_nm_per_us=0.0,
                  rho2_outside_nm_per_us=None, rho2_by_interface=None,
                  step_fraction=step_fraction, surface="voxel", relax=False,
-                 n_walkers=n_walkers, max_memory=max_memory)
+                 n_walkers=n_walkers, max_memory=max_memory, accelerate=accelerate)
     ext = float(np.max(np.asarray(grid.shape) * np.asarray(grid.spacing)))
     if t_max_us is None:
         t_max_us = ext ** 2 / (2.0 * eng.d0)
-    ms = _steps_of(eng, t_max_us, max_steps)
+    cap = int(_positive(max_steps, "most moves per walker", "max_steps", "moves"))
+    ms = _steps_of(eng, t_max_us, max_steps if not eng.accel else 2 ** 62)
     nrec = max(4, int(n_records))
     rec = np.unique(np.rint(np.linspace(0, ms, nrec + 1)[1:]).astype(np.int64))
     W = _Walkers(eng, n_walkers, seed)
@@ -989,8 +1129,12 @@ def transport_walk(grid, *, n_walkers: int = DEFAULT_TRANSPORT_WALKERS, seed: in
     nx, ny, nz = (int(v) for v in eng.shape)
     ts, msd, bmsd = [0.0], [np.zeros((3, 3))], [np.zeros((nb, 3))]
     done = 0
+    capped = False
     for r in rec:
-        W.advance(eng, int(r) - done)
+        if eng.accel and W.moves >= cap:
+            capped = True
+            break
+        W.advance_to(eng, int(r) * eng.dt)
         done = int(r)
         d = np.stack([((W.ix + W.fx + W.img[:, 0] * nx) - W.x0[:, 0]) * eng.spacing[0],
                       ((W.iy + W.fy + W.img[:, 1] * ny) - W.x0[:, 1]) * eng.spacing[1],
@@ -1026,14 +1170,18 @@ def transport_walk(grid, *, n_walkers: int = DEFAULT_TRANSPORT_WALKERS, seed: in
     water = int(np.count_nonzero(eng.lut[lab] >= 0))
     phi = water / dom if dom else 0.0
     notes = list(eng.notes)
+    if capped:
+        notes.append(f"stopped at t = {t[-1]:.4g} µs after {W.moves:.4g} moves per walker "
+                     f"(max_steps)")
     free = math.sqrt(2 * eng.d0 * t[-1])
     if free < ext:
         notes.append(f"the free walk spreads over {free:.3g} nm per axis in the run, less than "
                      f"the grid ({ext:.3g} nm): the diffusivity may not be the long-time value")
     settings = dict(eng.settings)
     settings.update({"seed": int(seed), "t_max_us": float(t[-1]), "fit": "slope/2 of the "
-                     "MSD over the last half of the run"})
-    return TransportResult(t, msd, D, se, d_slope, eng.d0, phi, W.n, done, settings, notes)
+                     "MSD over the last half of the run", **W.move_counts()})
+    return TransportResult(t, msd, D, se, d_slope, eng.d0, phi, W.n, int(round(W.moves)),
+                           settings, notes)
 
 
 # ============================================================== figures
