@@ -160,17 +160,22 @@ def fpt_table(n: int = 1 << 14) -> np.ndarray:
 #: to exp(-3 π² s) ~ 1e-8).
 TRUNC_S_LO = 1e-3
 TRUNC_S_HI = 0.6
+#: The quantiles are tabulated on an even grid of ``v = sqrt(-2 ln(1 - u))`` up to this
+#: value (u = 1 - 1e-12), so the tail of the spread is interpolated as finely as its body.
+TRUNC_V_MAX = math.sqrt(2.0 * math.log(1e12))
 
 
 def trunc_table(ns: int = 64, nu: int = 513) -> np.ndarray:
     """Quantiles of ``|Y| / (r sqrt(2 s))``, ``Y`` the displacement at time ``t = s r²/D`` of
     Brownian motion started at the centre of a ball of radius r and conditioned on not
     having left it by then, for ``s`` log-spaced in [TRUNC_S_LO, TRUNC_S_HI] (rows) and
-    ``nu`` quantiles evenly spaced in [0, 1] (columns). The radial density at ``x = |Y|/r`` is
+    ``nu`` quantiles ``u = 1 - exp(-v²/2)``, ``v`` evenly spaced in [0, TRUNC_V_MAX]
+    (columns; the tail of a Gaussian spread is then about linear in v). The radial
+    density at ``x = |Y|/r`` is
     ``∝ x sum_n n sin(n π x) exp(-n² π² s)`` (the Dirichlet heat kernel of the ball from
     its centre), whose CDF is ``∝ sum_n exp(-n² π² s) (sin nπx - nπx cos nπx) / n``."""
     x = np.linspace(0.0, 1.0, 4001)
-    u = np.linspace(0.0, 1.0, nu)
+    u = -np.expm1(-0.5 * np.linspace(0.0, TRUNC_V_MAX, nu) ** 2)
     out = np.empty((ns, nu))
     nall = int(math.ceil(math.sqrt(45.0 / (math.pi ** 2 * TRUNC_S_LO)))) + 2
     m = np.arange(1, nall + 1)[:, None]
@@ -208,9 +213,9 @@ def _sample_trunc(s, u, tab):
     pos = math.log(sc / TRUNC_S_LO) / math.log(TRUNC_S_HI / TRUNC_S_LO) * (ns - 1)
     j = min(int(pos), ns - 2)
     a = pos - j
-    pu = u * (nu - 1)
+    pu = math.sqrt(-2.0 * math.log1p(-u)) * ((nu - 1) / TRUNC_V_MAX) if u < 1.0 else nu
     k = min(int(pu), nu - 2)
-    b = pu - k
+    b = min(pu - k, 1.0)
     y0 = tab[j, k] + b * (tab[j, k + 1] - tab[j, k])
     y1 = tab[j + 1, k] + b * (tab[j + 1, k + 1] - tab[j + 1, k])
     x = (y0 + a * (y1 - y0)) * math.sqrt(2.0 * sc)
