@@ -421,11 +421,6 @@ class _Walkers:
                 "jumps_per_walker": float(self.njump.mean())}
 
 
-def _record_steps(max_steps: int, per_decade: int = RECORDS_PER_DECADE) -> np.ndarray:
-    n = max(2, int(math.ceil(per_decade * math.log10(max(max_steps, 10)))) + 1)
-    return np.unique(np.rint(np.geomspace(1, max_steps, n)).astype(np.int64))
-
-
 def _record_times(dt, t_end=None, per_decade: int = RECORDS_PER_DECADE):
     """Recording times (µs): whole multiples of ``dt`` spaced ``per_decade`` per decade,
     without end or up to ``t_end`` (its multiple of dt rounded up, recorded last)."""
