@@ -161,7 +161,8 @@ def test_bin_edges_line_up_with_relax():
 
 def test_acceleration_option_and_move_counts():
     """Jumps happen only with the acceleration on and only where the walker is far from
-    walls: in a 4-voxel slit nothing can jump, in a 30-voxel pore most moves are jumps."""
+    walls: in a 4-voxel slit nothing can jump; in a 30-voxel slit the jumps cover most of
+    the time (fewer than 0.4 times the moves of the fixed-step walk)."""
     lab = np.full((8, 8, 6), SOLID, np.uint8)
     lab[:, :, 1:5] = GEL
     thin = PhaseGrid(lab, 0.2, periodic=True)
@@ -175,9 +176,9 @@ def test_acceleration_option_and_move_counts():
                             compare_fast=False)
     off = dm.relaxation_walk(big, n_walkers=500, t_max_us=0.05, invert=False,
                              compare_fast=False, accelerate=False)
-    assert on.settings["jumps_per_walker"] > 0.2 * on.steps
+    assert on.settings["jumps_per_walker"] > 100
     assert off.settings["jumps_per_walker"] == 0 and off.settings["accelerate"] is False
-    assert on.steps < off.steps
+    assert on.steps < 0.4 * off.steps          # the jumps replace most fixed steps
     np.testing.assert_allclose(on.t_us, off.t_us)
 
 
