@@ -445,9 +445,11 @@ def _advance_to(lab, mask, jmap, accel, jq, jthr, margin, shape, periodic, lut, 
                 bits = bits >> np.uint64(3)
                 nb -= 3
                 # axis 0
-                g = f0 + (st0 if (b & np.uint64(1)) else -st0)
-                k = np.int64(g >= 1.0) - np.int64(g < 0.0)
-                if (k == 0) | (((np.int64(mask[flat]) >> (0 + np.int64(k > 0))) & 1) == 1):
+                g = f0 + st0 * (np.float64((b & np.uint64(1)) != np.uint64(0)) * 2.0 - 1.0)
+                up = np.int64(g >= 1.0)
+                dn = np.int64(g < 0.0)
+                k = up - dn
+                if ((np.int64(mask[flat]) >> (0 + up)) | (1 - up - dn)) & 1:
                     g -= k
                     i0 += k
                     flat += k * sx
@@ -468,9 +470,11 @@ def _advance_to(lab, mask, jmap, accel, jq, jthr, margin, shape, periodic, lut, 
                         st1 = step[c, 1]
                         st2 = step[c, 2]
                 # axis 1
-                g = f1 + (st1 if (b & np.uint64(2)) else -st1)
-                k = np.int64(g >= 1.0) - np.int64(g < 0.0)
-                if (k == 0) | (((np.int64(mask[flat]) >> (2 + np.int64(k > 0))) & 1) == 1):
+                g = f1 + st1 * (np.float64((b & np.uint64(2)) != np.uint64(0)) * 2.0 - 1.0)
+                up = np.int64(g >= 1.0)
+                dn = np.int64(g < 0.0)
+                k = up - dn
+                if ((np.int64(mask[flat]) >> (2 + up)) | (1 - up - dn)) & 1:
                     g -= k
                     i1 += k
                     flat += k * sy
@@ -491,9 +495,11 @@ def _advance_to(lab, mask, jmap, accel, jq, jthr, margin, shape, periodic, lut, 
                         st1 = step[c, 1]
                         st2 = step[c, 2]
                 # axis 2
-                g = f2 + (st2 if (b & np.uint64(4)) else -st2)
-                k = np.int64(g >= 1.0) - np.int64(g < 0.0)
-                if (k == 0) | (((np.int64(mask[flat]) >> (4 + np.int64(k > 0))) & 1) == 1):
+                g = f2 + st2 * (np.float64((b & np.uint64(4)) != np.uint64(0)) * 2.0 - 1.0)
+                up = np.int64(g >= 1.0)
+                dn = np.int64(g < 0.0)
+                k = up - dn
+                if ((np.int64(mask[flat]) >> (4 + up)) | (1 - up - dn)) & 1:
                     g -= k
                     i2 += k
                     flat += k
