@@ -37,6 +37,23 @@ Method
   by the same ratio), from the slower always: the fluxes across the face balance at
   uniform density (the interface rule of Hoteit, Mose, Younes, Lehmann & Ackerer,
   Math. Geol. 34 (2002) 435; from memory), so water keeps a uniform density.
+* **First-passage jumps** (``accelerate=True``, the default). Where a walker is at least
+  ``JUMP_MIN_VOXELS`` (2) voxels from any voxel of another class (walls and water of
+  another diffusivity class), it jumps to a uniform point on the largest sphere around it
+  that touches no other class (a lower bound from the Euclidean distance map, ``edt`` with
+  the voxel spacing, of the distance to the nearest voxel of another class), and its
+  clock advances by the exit time of Brownian motion from that ball, drawn exactly from
+  its distribution ``1 − 2 Σ (−1)^(n+1) exp(−n²π² D t/r²)`` (mean ``r²/(6D)``) by
+  inversion of a tabulated CDF: the walk-on-spheres / first-passage method (Müller, Ann.
+  Math. Stat. 27 (1956) 569; Zheng & Chiew, J. Chem. Phys. 90 (1989) 322; Torquato & Kim,
+  Appl. Phys. Lett. 55 (1989) 1847; from memory). No wall is touched inside the ball, so
+  the weight and class do not change; near walls the fixed-step walk and its kill rule
+  apply unchanged. Walkers keep their own clocks; a jump that would end after a
+  recording time is cut there, the walker being put at its position at that time drawn
+  from the law of Brownian motion in the ball conditioned on not having left it (the
+  Dirichlet heat kernel of the ball), so M(t), the classes and the positions at every
+  recording time are exact (no truncation bias). Periodic grids: the distance map is
+  computed on the grid wrapped by the largest jump, and jumps wrap around.
 * **Bulk relaxation** is the exact factor ``exp(−t/T2,bulk)`` on every weight.
 * **Random numbers.** Each walker has its own xorshift64* stream seeded from the user's
   ``seed`` and its index (splitmix64): results do not depend on the number of threads.
@@ -831,7 +848,10 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
     surface : 'smooth' (hits weighted to the true area of oblique walls) or 'voxel'
     m_stop : stop when M(t) < m_stop (default 0.01)
     t_max_us : stop at this time (µs) at the latest
-    max_steps : stop after this many steps per walker at the latest (default 200,000)
+    max_steps : stop after this many moves per walker on average (fixed steps and jumps,
+        each counted once; default 200,000); without acceleration, after this many steps
+    accelerate : first-passage jumps far from walls (default True); False gives the
+        fixed-step walk everywhere
     invert, alpha, t2_range_s, per_decade : the T2 inversion (:func:`invert_t2`); the bins
         are those of ``relax``
     compare_fast : also compute ``relax``'s fast-diffusion spectrum on the same bins
@@ -842,7 +862,8 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
 
     Returns
     -------
-    RelaxationWalkResult
+    RelaxationWalkResult (``steps``: the mean moves per walker; the settings give the fixed
+    steps and jumps per walker)
 
     Examples
     --------
@@ -1104,8 +1125,12 @@ def transport_walk(grid, *, n_walkers: int = DEFAULT_TRANSPORT_WALKERS, seed: in
     Parameters
     ----------
     t_max_us : simulated time (µs); default the time the free walk needs to spread over
-        the longest side of the grid (``<Δx²> = 2 D0 t = L²``), capped by ``max_steps``
-    n_records : times at which the MSD is kept (evenly spaced)
+        the longest side of the grid (``<Δx²> = 2 D0 t = L²``)
+    max_steps : the run stops at the record where the walkers have made this many moves
+        each on average (with acceleration); without it, ``t_max_us`` is capped at
+        ``max_steps`` time steps
+    n_records : times at which the MSD is kept (evenly spaced; jumps in flight are cut
+        there exactly, see the module docstring)
     Others as :func:`relaxation_walk`.
 
     The effective diffusivity is ``MSD(t_end) / (2 t_end)``, the long-time value when the
