@@ -185,6 +185,13 @@ def main():
     numba.set_num_threads(nthreads)
     log(f"1 thread: {r1:.3g} steps/s; {nthreads} threads / 1 thread = {rn / r1:.2f}x; "
         f"steps per generator iteration of one core: {r1 / gr:.3g}")
+    # the first version's case: rho a / D = 1, 100,000 walkers until M < 1 %
+    t = time.perf_counter()
+    res = dm.relaxation_walk(g, n_walkers=100_000, seed=1, rho2_nm_per_us=D0 / (9 * H),
+                             t2_bulk_s=None, compare_fast=False, invert=False)
+    log(f"{n}^3 slits, rho a/D = 1, 100,000 walkers to M < 1 % (accelerated, set-up "
+        f"included): {time.perf_counter() - t:.1f} s, {res.steps} moves/walker "
+        f"({res.settings['jumps_per_walker']:.3g} jumps), M_end = {res.m[-1]:.4f}")
     # the realistic run
     log(f"\nRealistic: mixed slits 1-10 nm, {n}^3 at 0.2 nm, 100,000 walkers, D = {D0}, "
         f"rho2 = {RHO} nm/us, budget {args.budget:.0f} s of walking")

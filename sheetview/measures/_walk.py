@@ -142,17 +142,19 @@ def sphere_exit_cdf(s):
 #: The upper tail of the exit time is sampled from ``S(s) ~ 2 exp(-π² s)`` above this
 #: quantile (the next term is below 1e-7 of it there).
 FPT_U_TAIL = 0.999
+#: Below this quantile the exit time is found from the first term of the small-time form,
+#: ``u = (2 / sqrt(π s)) exp(-1/(4 s))``, by Newton's method (the next term is below
+#: exp(-2/s) ~ 1e-27 of it there); a linear table would put far too much mass at tiny s.
+FPT_U_HEAD = 1e-3
 
 
 def fpt_table(n: int = 1 << 14) -> np.ndarray:
     """Inverse CDF of the dimensionless exit time ``s = D T / r²`` on ``n`` quantiles
-    evenly spaced in [0, FPT_U_TAIL]."""
+    evenly spaced in [FPT_U_HEAD, FPT_U_TAIL]."""
     s = np.concatenate([np.linspace(1e-3, 0.05, 20001)[:-1], np.linspace(0.05, 2.0, 40001)])
     F = sphere_exit_cdf(s)
-    u = np.linspace(0.0, FPT_U_TAIL, n)
-    out = np.interp(u, F, s)
-    out[0] = 0.0
-    return out
+    u = np.linspace(FPT_U_HEAD, FPT_U_TAIL, n)
+    return np.interp(u, F, s)
 
 
 #: Range of s = D t / r² of the tabulated conditioned position (below: free Gaussian
@@ -197,7 +199,18 @@ def trunc_table(ns: int = 64, nu: int = 513) -> np.ndarray:
 def _sample_fpt(u, tab):
     if u >= FPT_U_TAIL:
         return math.log(2.0 / (1.0 - u)) / (math.pi * math.pi)
-    pos = u * ((tab.size - 1) / FPT_U_TAIL)
+    if u < FPT_U_HEAD:
+        if u <= 0.0:
+            return 0.0
+        lu = math.log(u)
+        x = 1.0 / (4.0 * (math.log(2.0 / math.sqrt(math.pi)) - lu))
+        for _ in range(8):
+            g = math.log(2.0) - 0.5 * math.log(math.pi * x) - 0.25 / x - lu
+            x -= g / (0.25 / (x * x) - 0.5 / x)
+            if x <= 0.0:
+                x = 1e-6
+        return x
+    pos = (u - FPT_U_HEAD) * ((tab.size - 1) / (FPT_U_TAIL - FPT_U_HEAD))
     k = int(pos)
     if k >= tab.size - 1:
         return tab[tab.size - 1]
@@ -354,7 +367,7 @@ def _place(x, n, periodic):
 
 
 def _advance_to(lab, mask, jmap, accel, jq, jthr, margin, shape, periodic, lut, step, xtab,
-                area, use_area, trans, scale, spacing, diff, dt, fpt, trunc,
+                area, use_area, trans, scale, spacing, diff, dt, fpt, trunc, cut,
                 ix, iy, iz, fx, fy, fz, cls, wt, img, rng, tw, nfix, njump, t_end):
     """Advance every walker to time ``t_end`` (µs), in place.
 
@@ -394,6 +407,8 @@ def _advance_to(lab, mask, jmap, accel, jq, jthr, margin, shape, periodic, lut, 
         bits = np.uint64(0)
         nb = 0
         while True:
+            if t >= t_end:
+                break
             if accel and jmap[flat] >= jthr:
                 # ---- first-passage jump
                 o0 = (f0 - 0.5) * sp0
@@ -402,10 +417,10 @@ def _advance_to(lab, mask, jmap, accel, jq, jthr, margin, shape, periodic, lut, 
                 r = jmap[flat] * jq - math.sqrt(o0 * o0 + o1 * o1 + o2 * o2) - margin
                 s, u = _uniform(s)
                 tau = _sample_fpt(u, fpt) * r * r / diff[c]
-                if t + tau <= t_end:
+                if t + tau <= t_end or not cut:
                     rr = r
                     t += tau
-                    stop = False
+                    stop = t >= t_end
                 else:
                     sdim = diff[c] * (t_end - t) / (r * r)
                     s, u = _uniform(s)

@@ -407,12 +407,16 @@ class _Walkers:
         self.nfix = np.zeros(n, np.int64)
         self.njump = np.zeros(n, np.int64)
 
-    def advance_to(self, eng: _Engine, t_us: float):
-        """Advance every walker to time ``t_us`` (each walker keeps its own clock)."""
+    def advance_to(self, eng: _Engine, t_us: float, cut: bool = True):
+        """Advance every walker to time ``t_us`` (each walker keeps its own clock). With
+        ``cut``, a jump in flight at ``t_us`` is cut there (exact positions); without, it
+        is completed (the walker's clock passes ``t_us``; its weight and class, constant
+        during a jump, are still those at ``t_us``)."""
         fn = _walk.advance_to if self.n >= SERIAL_BELOW else _walk.advance_to_serial
         fn(eng.lab, eng.mask, eng.jmap, eng.accel, eng.jq, eng.jthr, eng.margin, eng.shape,
            eng.periodic, eng.lut, eng.step, eng.xtab, eng.area, eng.use_area, eng.trans,
-           eng.scale, eng.spacing, eng.diffusivity, eng.dt, eng.fpt, eng.trunc, self.ix,
+           eng.scale, eng.spacing, eng.diffusivity, eng.dt, eng.fpt, eng.trunc, bool(cut),
+           self.ix,
            self.iy, self.iz, self.fx, self.fy, self.fz, self.cls, self.wt, self.img, self.rng,
            self.tw, self.nfix, self.njump, float(t_us))
 
@@ -918,7 +922,7 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
     fr.append(counts / np.maximum(n_start[:, None], 1))
     stopped_by_work = False
     for t in _record_times(eng.dt, t_end):
-        W.advance_to(eng, t)
+        W.advance_to(eng, t, cut=False)
         counts[:] = 0
         wsum[:] = 0
         _walk.tally(W.cls, W.start, W.wt, K, counts, wsum)
@@ -1009,7 +1013,7 @@ def exchange_fractions(grid, *, t_max_us: float, n_walkers: int = DEFAULT_WALKER
     ts, fr = [0.0], [counts / np.maximum(n_start[:, None], 1)]
     notes = list(eng.notes) + ["fractions of walkers (no relaxation)"]
     for t in _record_times(eng.dt, t_end):
-        W.advance_to(eng, t)
+        W.advance_to(eng, t, cut=False)
         counts[:] = 0
         _walk.tally(W.cls, W.start, W.wt, K, counts, wsum)
         ts.append(t)
@@ -1461,7 +1465,7 @@ def t2_t2_map(grid, *, mixing_time_us, n_walkers: int = DEFAULT_WALKERS, seed: i
     enc_t = np.sort(A - times)
     wenc = np.empty((W.n, nt))
     for k, t in enumerate(enc_t):
-        W.advance_to(eng, t)
+        W.advance_to(eng, t, cut=False)
         wenc[:, k] = W.wt
         if progress is not None:
             progress(0.3 * (k + 1) / nt, f"T2-T2 encoding: t = {t:.4g} µs")
@@ -1475,14 +1479,14 @@ def t2_t2_map(grid, *, mixing_time_us, n_walkers: int = DEFAULT_WALKERS, seed: i
     for q, tm in enumerate(tms):
         V = W.copy() if q < len(tms) - 1 else W
         if tm > 0:
-            V.advance_to(noxtab, A + tm)
+            V.advance_to(noxtab, A + tm, cut=False)
         transfer = np.zeros((K, K))
         np.add.at(transfer, (c_start, V.cls), 1.0)
         transfer /= V.n
         w0 = V.wt.copy()
         det = np.empty((V.n, nt))
         for k, t in enumerate(times):
-            V.advance_to(eng, A + tm + t)
+            V.advance_to(eng, A + tm + t, cut=False)
             det[:, k] = V.wt / w0
             if progress is not None:
                 progress(0.3 + 0.7 * (q + (k + 1) / nt) / len(tms),
