@@ -134,7 +134,7 @@ def realistic(n, walkers, budget, accelerate, log):
     marks = []
     t0 = time.perf_counter()
     for t in dm._record_times(eng.dt):
-        W.advance_to(eng, t)
+        W.advance_to(eng, t, cut=False)
         el = time.perf_counter() - t0
         marks.append((el, t, float(np.mean(W.wt)) * math.exp(-t * 1e-6 / 2.5), W.moves))
         if el > budget:
@@ -220,9 +220,9 @@ def main():
         g2 = mixed(s)
         e2 = engine(g2, nw, accelerate=True, rho=RHO)
         W2 = dm._Walkers(e2, nw, 2)
-        W2.advance_to(e2, 0.05)
+        W2.advance_to(e2, 0.05, cut=False)
         t = time.perf_counter()
-        W2.advance_to(e2, 0.15)
+        W2.advance_to(e2, 0.15, cut=False)
         log(f"| {s}^3 | {nw:,} | {0.1 / (time.perf_counter() - t):.3g} |")
 
 
