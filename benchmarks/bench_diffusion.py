@@ -164,7 +164,7 @@ def main():
     log(f"threads: {nthreads}")
     gr = generator_rate()
     log(f"bare xorshift64* loop (1 thread): {gr:.3g} iterations/s "
-        f"(an idle core of this machine: about 1e9)")
+        f"(the share of a core this process gets: compare runs by it)")
     n = 400 if not args.quick else 200
     g = slits(n)
     t = time.perf_counter()
