@@ -157,3 +157,56 @@ def test_bin_edges_line_up_with_relax():
     k = (np.log10(r.spectrum.edges_s) - np.log10(base[0])) * 20
     np.testing.assert_allclose(k, np.round(k), atol=1e-6)
     np.testing.assert_allclose(np.log10(base[1] / base[0]) * 20, 1.0, rtol=1e-9)
+
+
+def test_acceleration_option_and_move_counts():
+    """Jumps happen only with the acceleration on and only where the walker is far from
+    walls: in a 4-voxel slit nothing can jump; in a 30-voxel slit the jumps cover most of
+    the time (fewer than 0.4 times the moves of the fixed-step walk)."""
+    lab = np.full((8, 8, 6), SOLID, np.uint8)
+    lab[:, :, 1:5] = GEL
+    thin = PhaseGrid(lab, 0.2, periodic=True)
+    r = dm.relaxation_walk(thin, n_walkers=500, t_max_us=0.005, invert=False,
+                           compare_fast=False)
+    assert r.settings["accelerate"] is True and r.settings["jumps_per_walker"] == 0
+    lab = np.full((8, 8, 34), SOLID, np.uint8)
+    lab[:, :, 2:32] = GEL
+    big = PhaseGrid(lab, 0.2, periodic=True)
+    on = dm.relaxation_walk(big, n_walkers=500, t_max_us=0.05, invert=False,
+                            compare_fast=False)
+    off = dm.relaxation_walk(big, n_walkers=500, t_max_us=0.05, invert=False,
+                             compare_fast=False, accelerate=False)
+    assert on.settings["jumps_per_walker"] > 100
+    assert off.settings["jumps_per_walker"] == 0 and off.settings["accelerate"] is False
+    assert on.steps < 0.4 * off.steps          # the jumps replace most fixed steps
+    np.testing.assert_allclose(on.t_us, off.t_us)
+
+
+def test_t2_t2_map_result_forms_and_figure():
+    import matplotlib
+    from matplotlib.figure import Figure
+    backend = matplotlib.get_backend()
+    g = _two_class_grid()
+    r = dm.t2_t2_map(g, mixing_time_us=0.002, n_walkers=400, seed=2, rho2_nm_per_us=200.0,
+                     n_times=8)
+    assert isinstance(r, dm.T2T2Result)
+    assert r.signal.shape == (8, 8) and r.signal[0, 0] == pytest.approx(1.0)
+    assert r.amplitude.shape == (r.t2_s.size, r.t2_s.size)
+    np.testing.assert_allclose(r.class_transfer.sum(), 1.0)
+    d = json.loads(json.dumps(r.to_dict()))
+    assert d["mixing_time_us"] == pytest.approx(0.002)
+    assert {len(v) for v in r.table().values()} == {r.t2_s.size ** 2}
+    assert 0.0 <= r.cross_fraction(float(np.median(r.t2_s))) <= 1.0
+    fig = dm.plot_t2_t2(r)
+    assert isinstance(fig, Figure)
+    f2 = Figure()
+    ax = f2.add_subplot(1, 1, 1)
+    assert dm.plot_t2_t2(r, ax=ax) is f2
+    assert matplotlib.get_backend() == backend
+    several = dm.t2_t2_map(g, mixing_time_us=[0.0, 0.001], n_walkers=200, n_times=6,
+                           rho2_nm_per_us=200.0, invert=False)
+    assert isinstance(several, list) and len(several) == 2
+    with pytest.raises(OptionError, match="mixing_time_us"):
+        dm.t2_t2_map(g, mixing_time_us=-1.0)
+    with pytest.raises(OptionError, match="n_times"):
+        dm.t2_t2_map(g, mixing_time_us=1.0, n_times=2)
