@@ -39,7 +39,7 @@ import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .app.document import file_document, flatten
+from .app.document import file_document, file_sha256, flatten
 from .app.load import at_moment, load
 from .app.registry import check_inputs, parse_only, select
 from .app.run import Run
@@ -65,15 +65,6 @@ def canonical_json(obj) -> str:
     """Canonical JSON text of ``obj``: sorted keys, no spaces, tuples as lists."""
     return json.dumps(obj, sort_keys=True, separators=(",", ":"), default=json_default,
                       allow_nan=True)
-
-
-def file_sha256(path) -> str:
-    """SHA-256 of a file's bytes."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 22), b""):
-            h.update(block)
-    return h.hexdigest()
 
 
 def result_key(input_sha256: str, config: dict) -> str:
@@ -471,14 +462,7 @@ def prepare_out(out) -> Path:
     A folder that cannot be written is a :class:`SheetviewError` (exit status 2). The
     caller holds the folder's lock (:func:`acquire_lock`) before leftovers are cleared."""
     out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise SheetviewError("exists and is not a folder; give a folder for -o", path=out)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise SheetviewError(f"cannot create the output folder ({e.strerror})", path=out) from None
-    if not os.access(out, os.W_OK | os.X_OK):
-        raise SheetviewError("output folder is not writable", path=out)
+    _check_out_folder(out)
     try:
         for sub in ("runs", "failed"):
             (out / sub).mkdir(exist_ok=True)
