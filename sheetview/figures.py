@@ -5,6 +5,11 @@ are made with ``matplotlib.figure.Figure`` directly (never pyplot, never
 from these figures.
 
 Multi-panel figures take ``ax`` as a sequence of axes (one per panel) or None.
+
+Publication size: a new figure is drawn at the width it is printed at, a journal page
+(:data:`PAGE_WIDTH`, 183 mm) or less, text at least 6.5 pt at that size, and its legend
+outside the plotting areas (below them), so that no key covers data. On axes the caller
+gives, the legend goes where it covers least (the caller owns the layout).
 """
 from __future__ import annotations
 
@@ -16,6 +21,12 @@ import numpy as np
 from .grid import GEL, INTERLAYER, SOLID
 from .measures.diffusion import RelaxationWalkResult, T2T2Result, TransportResult
 from .style import PHASE_COLOURS, SECTION_ORDER, phase_label, section_rgb
+
+
+#: Width (inches) of a figure spanning a journal page (183 mm, two columns) and of one
+#: column (89 mm): the usual widths of journals' artwork guides (common practice).
+PAGE_WIDTH = 7.2
+COLUMN_WIDTH = 3.5
 
 
 def new_figure(figsize, ncols: int = 1, ax=None, layout=None):
@@ -32,6 +43,44 @@ def new_figure(figsize, ncols: int = 1, ax=None, layout=None):
     fig = Figure(figsize=figsize, layout=layout)
     axes = fig.subplots(1, ncols)
     return fig, (list(axes) if ncols > 1 else [axes])
+
+
+def legend_outside(fig, axes, ax=None, *, ncol: int | None = None, fontsize: float = 8):
+    """One legend for the handles of all ``axes`` (repeated labels once): on a new figure
+    below the panels (``loc="outside lower center"`` of the constrained layout), on given
+    axes (``ax`` not None) inside each panel where it covers least."""
+    if ax is not None:
+        for a in axes:
+            if a.get_legend_handles_labels()[0]:
+                a.legend(fontsize=7, loc="best", framealpha=0.85)
+        return None
+    seen, hs, ls = set(), [], []
+    for a in axes:
+        for h, lab in zip(*a.get_legend_handles_labels()):
+            if lab not in seen and not lab.startswith("_"):
+                seen.add(lab)
+                hs.append(h)
+                ls.append(lab)
+    if not hs:
+        return None
+    n = ncol or min(len(hs), 3 if max(len(x) for x in ls) < 30 else 2)
+    return fig.legend(hs, ls, loc="outside lower center", ncol=n, fontsize=fontsize,
+                      frameon=False)
+
+
+def _log_axis(a, which: str = "x", span=None):
+    """Log axis labelled in plain numbers (0.5, 1, 2, 5...) at 1, 2, 5 x 10^k when the data
+    span (lo, hi) covers at most two decades, at the decades otherwise; no minor labels (they
+    collide)."""
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+    axis = a.xaxis if which == "x" else a.yaxis
+    subs = (1.0,)
+    if span is not None and span[0] > 0 and span[1] > span[0] and \
+            math.log10(span[1] / span[0]) <= 2.0:
+        subs = (1.0, 2.0, 5.0)
+    axis.set_major_locator(LogLocator(base=10.0, subs=subs))
+    axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+    axis.set_minor_formatter(NullFormatter())
 
 
 def _wrap(notes, width=115):
@@ -72,7 +121,7 @@ def _key_below(fig, a, ax, notes):
 # ------------------------------------------------------------------ stacks and order
 def plot_stacking(res, ax=None):
     """Stacking numbers by prisms, by volume and by stack (three panels)."""
-    fig, axes = new_figure((12, 3.6), 3, ax)
+    fig, axes = new_figure((PAGE_WIDTH, 2.9), 3, ax, layout="constrained")
     for a, (h, title, ylabel) in zip(axes, (
             (res.histogram, "by prisms", "prisms"),
             (res.histogram_volume, "by volume", "volume fraction"),
@@ -81,12 +130,12 @@ def plot_stacking(res, ax=None):
         a.bar(k, list(h.values()), color="#4477aa", width=0.8)
         a.set_xlabel("stacking number (layers)")
         a.set_ylabel(ylabel)
-        a.set_title(title)
+        a.set_title(title, fontsize=9)
         if k:
             a.set_xticks(range(1, max(k) + 1, max(1, max(k) // 10)))
     if ax is None:
-        fig.suptitle(f"Stacking: mean {res.mean:.2f} (number), {res.mean_volume:.2f} (volume)")
-        fig.tight_layout()
+        fig.suptitle(f"Stacking: mean {res.mean:.2f} (number), {res.mean_volume:.2f} (volume)",
+                     fontsize=10)
     return fig
 
 
@@ -199,27 +248,28 @@ def plot_pole_figure(res, ax=None, *, smooth: bool = True):
 
 def plot_order(res, ax=None):
     """Local order histogram and the polar-angle density (two panels)."""
-    fig, axes = new_figure((9, 3.6), 2, ax)
+    fig, axes = new_figure((PAGE_WIDTH, 3.0), 2, ax, layout="constrained")
     ls = res.local_S
     axes[0].hist(ls, bins=np.linspace(-0.5, 1.0, 31), color="#4477aa")
     axes[0].set_xlabel(f"local S (radius {res.local_radius:g} nm)")
     axes[0].set_ylabel("prisms")
     ce = res.cos_edges
     dens = res.hist.sum(axis=1) * (len(ce) - 1)
-    axes[1].stairs(dens, ce, color="#aa3377")
-    axes[1].axhline(1.0, color="grey", lw=0.8, ls="--")
+    axes[1].stairs(dens, ce, color="#aa3377", label="density of |cos θ|")
+    axes[1].axhline(1.0, color="grey", lw=0.8, ls="--", label="uniform (isotropic)")
     axes[1].set_xlabel("|cos θ| to the " + ("director" if res.frame == "director" else "z axis"))
     axes[1].set_ylabel("density (multiples of uniform)")
     if ax is None:
-        fig.suptitle(f"Orientation order: S = {res.S:.3f}, biaxiality {res.biaxiality:.3f}")
-        fig.tight_layout()
+        fig.suptitle(f"Orientation order: S = {res.S:.3f}, biaxiality {res.biaxiality:.3f}",
+                     fontsize=10)
+    legend_outside(fig, axes[1:], ax)
     return fig
 
 
 # ------------------------------------------------------------------------ grid measures
 def plot_pore_sizes(pores, ax=None):
     """Pore size distribution and its cumulative curve (two panels)."""
-    fig, axes = new_figure((9, 3.6), 2, ax)
+    fig, axes = new_figure((PAGE_WIDTH, 3.2), 2, ax, layout="constrained")
     for key, label in (("local_thickness", "local thickness (continuous)"),
                        ("intrusion", "simulated intrusion")):
         r = pores.parts.get(key)
@@ -228,42 +278,47 @@ def plot_pore_sizes(pores, ax=None):
         c = r.bin_centers
         axes[0].step(c, r.volume_fraction, where="mid", label=label)
         axes[1].plot(c, r.cumulative_finer, label=label)
+    cs = [np.asarray(r.bin_centers, float) for r in pores.parts.values()
+          if r is not None and hasattr(r, "bin_centers")]
+    cs = np.concatenate(cs) if cs else np.zeros(0)
+    cs = cs[cs > 0]
+    span = (float(cs.min()), float(cs.max())) if cs.size else None
     for a in axes:
         a.set_xscale("log")
+        _log_axis(a, span=span)
         a.set_xlabel("pore diameter (nm)")
-        a.legend(fontsize=8)
     axes[0].set_ylabel("volume fraction per bin")
     axes[1].set_ylabel("cumulative volume fraction (finer)")
     if ax is None:
         fig.suptitle("Pore sizes of the gel pore space (interlayer excluded)", fontsize=10)
-        fig.tight_layout()
+    legend_outside(fig, axes, ax)
     return fig
 
 
 def plot_chords(ch, ax=None):
     """Chord-length densities of solid and pore (two panels)."""
-    fig, axes = new_figure((9, 3.6), 2, ax)
+    fig, axes = new_figure((PAGE_WIDTH, 3.0), 2, ax, layout="constrained")
     src = ch.exact
     res = ch.main
     for a, ph_name in zip(axes, ("solid", "pore")):
         L = res.chords(ph_name) if ph_name in res.lengths else np.zeros(0)
         if L.size:
             a.hist(L, bins=60, density=True, color="#0072b2" if ph_name == "solid" else "#e69f00")
-            a.axvline(L.mean(), color="k", lw=1, ls="--", label=f"mean {L.mean():.3g} nm")
-            a.legend(fontsize=8)
+            a.axvline(L.mean(), color="k", lw=1, ls="--", label="mean chord")
+            a.set_title(f"{ph_name}: mean {L.mean():.3g} nm", fontsize=9)
         a.set_xlabel(f"{ph_name} chord length (nm)")
         a.set_ylabel("probability density (nm⁻¹)")
     how = ("isotropic random lines (exact)" if src is not None
            else "isotropic random lines through the voxel grid")
     if ax is None:
         fig.suptitle(f"Chords not cut by the domain wall; {how}", fontsize=10)
-        fig.tight_layout()
+    legend_outside(fig, axes, ax)
     return fig
 
 
 def plot_s2(cor, ax=None):
     """Two-point correlation of the solid, with φ² marked."""
-    fig, (a,) = new_figure((5, 3.6), 1, ax)
+    fig, (a,) = new_figure((4.8, 3.9), 1, ax, layout="constrained")
     r = cor.s2_solid
     a.plot(r.r, r.s2, "o-", ms=2, label=f"S₂ ({cor.reference})")
     a.axhline(r.phi ** 2, color="0.5", ls=":", label="φ²")
@@ -273,9 +328,7 @@ def plot_s2(cor, ax=None):
                label=f"slope −S_V/4, S_V = {r.specific_surface:.3g} nm⁻¹")
     a.set_xlabel("r (nm)")
     a.set_ylabel("S₂(r) of the solid")
-    a.legend(fontsize=8)
-    if ax is None:
-        fig.tight_layout()
+    legend_outside(fig, [a], ax, ncol=2)
     return fig
 
 
@@ -301,7 +354,7 @@ def plot_scattering(res, ax=None, *, comparison=None, notes=(), features=None,
     its error bars when ``experiment = (q, I, sigma)`` has uncertainties) and the fitted
     model with the reduced χ². ``features``: the dict of
     :func:`sheetview.measures.scattering.curve_features`."""
-    fig, a = _panel_with_key(ax, (7.6, 7.4))
+    fig, a = _panel_with_key(ax, (PAGE_WIDTH, 7.0))
     m = res.valid()
     a.loglog(res.q[m], res.intensity[m], "-", color="C0", lw=1.4, label="model (valid q range)")
     if (~m).any():
@@ -439,7 +492,7 @@ def plot_kinetics(kin, ax=None, *, title: str | None = None):
 def plot_sections(grid, ax=None):
     """Three orthogonal central sections of the phase grid (three panels), each class
     with its colour and legend entry."""
-    fig, axes = new_figure((11, 4), 3, ax)
+    fig, axes = new_figure((PAGE_WIDTH, 3.1), 3, ax, layout="constrained")
     lab = grid.labels
     sp = grid.spacing
     n = lab.shape
@@ -459,19 +512,27 @@ def plot_sections(grid, ax=None):
     present = set(np.flatnonzero(np.bincount(lab.ravel(), minlength=256)).tolist())
     shown = [c for c in SECTION_ORDER if c in present or c in (SOLID, INTERLAYER, GEL)]
     handles = [Patch(color=PHASE_COLOURS[c], label=phase_label(c, grid.names)) for c in shown]
-    fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=8, frameon=False)
     if ax is None:
-        fig.tight_layout(rect=(0, 0.07, 1, 1))
+        fig.legend(handles=handles, loc="outside lower center", ncol=len(handles), fontsize=8,
+                   frameon=False)
+    else:
+        axes[-1].legend(handles=handles, loc="best", fontsize=7, framealpha=0.85)
     return fig
 
 
 # ------------------------------------------------------------------ random walks
-def _one_axes(ax, size=(5.0, 3.6)):
+def _one_axes(ax, size=(4.8, 3.9)):
     if ax is not None:
         return ax.figure, ax
     from matplotlib.figure import Figure
-    fig = Figure(figsize=size, dpi=110)
+    fig = Figure(figsize=size, dpi=110, layout="constrained")
+    fig._sheetview_new = True
     return fig, fig.add_subplot(1, 1, 1)
+
+
+def _finish_one(fig, ax, ncol=2):
+    """Legend of a figure of :func:`_one_axes`: below the plot on a new figure."""
+    legend_outside(fig, [ax], None if getattr(fig, "_sheetview_new", False) else ax, ncol=ncol)
 
 
 def plot_decay(result: RelaxationWalkResult, ax=None):
@@ -484,8 +545,7 @@ def plot_decay(result: RelaxationWalkResult, ax=None):
     ax.set_xlabel("t (ms)")
     ax.set_ylabel("M(t) / M(0)")
     ax.set_title("Predicted decay (random walk)", fontsize=9)
-    ax.legend(fontsize=7)
-    fig.tight_layout()
+    _finish_one(fig, ax)
     return fig
 
 
@@ -505,8 +565,7 @@ def plot_t2_spectrum(result: RelaxationWalkResult, ax=None):
     ax.set_xlabel("T2 (ms)")
     ax.set_ylabel("signal fraction per bin")
     ax.set_title("Predicted T2 spectra (not measurements)", fontsize=9)
-    ax.legend(fontsize=7)
-    fig.tight_layout()
+    _finish_one(fig, ax)
     return fig
 
 
@@ -524,8 +583,7 @@ def plot_exchange(result, ax=None):
     ax.set_ylabel("fraction of the walkers of the start class")
     ax.set_title("Exchange between pore classes", fontsize=9)
     if len(ex.classes) > 1:
-        ax.legend(fontsize=7)
-    fig.tight_layout()
+        _finish_one(fig, ax)
     return fig
 
 
@@ -539,8 +597,7 @@ def plot_msd(result: TransportResult, ax=None):
     ax.set_xlabel("t (µs)")
     ax.set_ylabel("mean-square displacement (nm²)")
     ax.set_title("Transport (random walk)", fontsize=9)
-    ax.legend(fontsize=7)
-    fig.tight_layout()
+    _finish_one(fig, ax)
     return fig
 
 
@@ -558,7 +615,6 @@ def plot_t2_t2(result: T2T2Result, ax=None):
     ax.set_ylabel("T2 during detection (ms)")
     ax.set_title(f"Predicted T2–T2 map, mixing {result.mixing_time_us:.3g} µs", fontsize=9)
     fig.colorbar(mesh, ax=ax, label="signal fraction per bin")
-    fig.tight_layout()
     return fig
 
 
