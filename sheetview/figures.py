@@ -479,7 +479,8 @@ def plot_kinetics(kin, ax=None, *, title: str | None = None):
         a2 = a.twinx()
         a2.plot(kin.bin_centres, kin.rate, color="#d08a2f", lw=1.2, label="rate (smoothed)")
         a2.set_ylabel("d alpha / dt" + (f" (per {kin.unit})" if kin.unit else ""))
-        a2.set_ylim(bottom=0)
+        top = float(np.nanmax(kin.rate)) if np.isfinite(kin.rate).any() else 0.0
+        a2.set_ylim(0, top * 1.15 if top > 0 else 1.0)  # a flat rate off the frame line
         h2, l2 = a2.get_legend_handles_labels()
         for h, lab in zip(h2, l2):
             a.plot([], [], color=h.get_color(), lw=h.get_linewidth(), label=lab)
