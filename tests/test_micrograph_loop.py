@@ -229,3 +229,27 @@ def test_two_valued_images_are_not_searched_by_default(tmp_path):
     a[90:110, 30:60] = 255
     mg = read_micrograph(_save(tmp_path / "bin.png", a), pixel_size=1.0)
     assert mg.valid.all() and mg.warnings == []
+
+
+def _one_over_f(n=256, seed=5):
+    """A grey image with a 1/f amplitude spectrum (natural-image-like) plus sensor noise."""
+    rng = np.random.default_rng(seed)
+    F = np.fft.fft2(rng.normal(size=(n, n)))
+    fy, fx = np.fft.fftfreq(n)[:, None], np.fft.fftfreq(n)[None]
+    a = np.real(np.fft.ifft2(F / np.maximum(np.hypot(fx, fy), 1.0 / n)))
+    a = (a - a.min()) / np.ptp(a) * 200 + 20
+    return np.rint(a + rng.normal(0, 3, a.shape)).clip(0, 255).astype(np.uint8)
+
+
+@pytest.mark.parametrize("factor,method", [(2, "BILINEAR"), (2, "BICUBIC"), (1.5, "LANCZOS"),
+                                           (3, "BICUBIC")])
+def test_interpolated_enlargement_is_warned_about(tmp_path, factor, method):
+    """An image enlarged by interpolation (Pillow's resize) keeps no power above the
+    original grid's Nyquist frequency (sampling theorem): warned; the original with its noise
+    is not. JPEG is not judged (its compression removes fine detail too)."""
+    base = _one_over_f()
+    assert read_micrograph(_save(tmp_path / "orig.png", base), pixel_size=1.0).warnings == []
+    n = int(round(base.shape[0] * factor))
+    big = Image.fromarray(base).resize((n, n), getattr(Image.Resampling, method))
+    mg = read_micrograph(_save(tmp_path / "big.png", np.asarray(big)), pixel_size=1.0)
+    assert any("enlarged by interpolation" in w for w in mg.warnings)
