@@ -438,12 +438,12 @@ def _sup(n: int) -> str:
 
 
 def _page_css() -> str:
-    from .style import BACKGROUND, OUTLINE_COLOUR, PHASE_COLOURS, TEXT_COLOUR
-    from .grid import GEL, SOLID
-    accent, pale = PHASE_COLOURS[SOLID], PHASE_COLOURS[GEL]
+    from .style import BACKGROUND, OUTLINE_COLOUR, PAGE_COLOURS, TEXT_COLOUR
+    c = PAGE_COLOURS
     return (
-        f":root{{--text:{TEXT_COLOUR};--line:{OUTLINE_COLOUR};--accent:{accent};"
-        f"--pale:{pale};--bg:{BACKGROUND}}}"
+        f":root{{--text:{TEXT_COLOUR};--line:{OUTLINE_COLOUR};--accent:{c['accent']};"
+        f"--link:{c['link']};--err:{c['error']};--rule:{c['rule']};--muted:{c['muted']};"
+        f"--frame:{c['frame']};--bg:{BACKGROUND}}}"
         "*{box-sizing:border-box}"
         "body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;color:var(--text);"
         "background:var(--bg);margin:0 auto;padding:1.2em 1.5em;max-width:1180px;"
@@ -452,21 +452,21 @@ def _page_css() -> str:
         "h2{font-size:1.2em;border-bottom:2px solid var(--accent);padding-bottom:.15em;"
         "margin-top:1.8em}"
         "h3{font-size:1em;margin:.8em 0 .3em}"
-        "a{color:#1d4677}nav{font-size:.92em;margin:.4em 0 1em}nav a{margin-right:1em}"
-        ".lead{margin:.2em 0 .8em}.muted{color:#555;font-size:.88em}"
+        "a{color:var(--link)}nav{font-size:.92em;margin:.4em 0 1em}nav a{margin-right:1em}"
+        ".lead{margin:.2em 0 .8em}.muted{color:var(--muted);font-size:.88em}"
         ".pair{display:grid;grid-template-columns:minmax(0,1fr) minmax(0,1.15fr);gap:1.4em;"
         "align-items:start}"
         "@media (max-width:900px){.pair{grid-template-columns:minmax(0,1fr)}}"
         "table{border-collapse:collapse;width:100%;font-size:.92em;margin:.3em 0 .8em}"
-        "th,td{border-bottom:1px solid #ccc;padding:.3em .5em;text-align:left;"
+        "th,td{border-bottom:1px solid var(--rule);padding:.3em .5em;text-align:left;"
         "vertical-align:top;overflow-wrap:anywhere}"
         "thead th{border-bottom:2px solid var(--line);font-weight:600;overflow-wrap:normal}"
         "td.num{text-align:right;white-space:nowrap;font-variant-numeric:tabular-nums}"
-        "td.basis{color:#444;font-size:.9em}"
+        "td.basis{color:var(--muted);font-size:.9em}"
         "figure{margin:0 0 1em}figure img{max-width:100%;height:auto;display:block;"
-        "border:1px solid #ddd}figcaption{font-size:.85em;color:#444;margin-top:.2em}"
+        "border:1px solid var(--frame)}figcaption{font-size:.85em;color:var(--muted);margin-top:.2em}"
         ".files{font-size:.9em}.files a{margin-right:.8em;white-space:nowrap}"
-        ".err{color:#a00}code{font-size:.9em;overflow-wrap:anywhere}"
+        ".err{color:var(--err)}code{font-size:.9em;overflow-wrap:anywhere}"
         "th.key{white-space:nowrap}th.key code{overflow-wrap:normal}"
         "table.prov th{width:11em}.wide figure{max-width:100%}"
         "@media print{body{max-width:none;padding:0;font-size:10pt}nav{display:none}"
