@@ -514,7 +514,8 @@ def structure_page(folder, *, index_href: str | None = None) -> str:
                 continue
             unit_text = "" if unit in ("", "volume fraction") else f" {unit}"
             lab = label + (" (volume fraction)" if unit == "volume fraction" else "")
-            items.append((key, lab, fmt_number(flat[key]) + unit_text,
+            shown = fmt_number(flat[key])
+            items.append((key, lab, shown + (unit_text if shown != "–" else ""),
                           _lookup_basis(basis, how)))
         if anchor == "structure":
             known = {r[0] for r in rows}

@@ -159,3 +159,15 @@ def test_pages_in_a_headless_browser(pages):
                 pg.close()
         finally:
             b.close()
+
+
+def test_an_undefined_value_shows_no_unit(tmp_path):
+    """A headline number the run did not compute (null in summary.json) reads as a dash
+    without its unit."""
+    import json
+
+    from sheetview.report import structure_page
+    (tmp_path / "summary.json").write_text(json.dumps(
+        {"file": "x.npz", "pore_size": {"d50_nm": None, "d10_nm": 2.0}, "settings": {}}))
+    page = structure_page(tmp_path)
+    assert ">–</td>" in page and "2.00 nm" in page and "– nm" not in page
