@@ -174,7 +174,7 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         t1 = time.perf_counter()
         try:
             write_report(out_folder, doc, run.results, force=False, plots=plots, protect=[path],
-                         grid=run.__dict__.get("grid"))
+                         grid=run.__dict__.get("grid"), page=False)
         except (OutputExistsError, OSError):
             # another process (a worker of a killed run) finished the same key meanwhile:
             # same content and settings, so its result stands

@@ -23,6 +23,8 @@ Folder layout (files appear only for the measures that ran)::
     chords_solid.csv, chords_pore.csv, chords.png
     s2_solid.csv, s2_solid.png   two-point correlation of the solid
     sections.png                 three orthogonal central sections of the phase grid
+    report.html                  the page of the folder (:func:`structure_page`): the headline
+                                 numbers with labels, units and basis, figures, settings
 
 The folder is assembled under a temporary name and renamed into place when complete.
 """
@@ -148,8 +150,9 @@ def save_figure(fig, path, force: bool = False) -> Path:
 
 
 def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
-                 plots: bool = True, grid=None, protect=()) -> list[Path]:
-    """Write a report folder for measure ``results`` (name -> result object).
+                 plots: bool = True, grid=None, protect=(), page: bool = True) -> list[Path]:
+    """Write a report folder for measure ``results`` (name -> result object), with
+    ``report.html`` (:func:`structure_page`) unless ``page`` is False.
 
     ``doc`` is the JSON summary (written as ``summary.json``); ``grid`` the phase grid the
     grid measures used (for the section figure). The folder is assembled under a temporary
@@ -160,6 +163,10 @@ def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
     """
     with atomic_folder(outdir, force, protect=protect) as (out, final):
         names = _write_all(out, doc, results, plots, grid)
+        if page:
+            with atomic_path(out / "report.html") as tmp:
+                Path(tmp).write_text(structure_page(out))
+            names.append("report.html")
     return [final / n for n in names]
 
 

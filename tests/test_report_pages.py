@@ -171,3 +171,18 @@ def test_an_undefined_value_shows_no_unit(tmp_path):
         {"file": "x.npz", "pore_size": {"d50_nm": None, "d10_nm": 2.0}, "settings": {}}))
     page = structure_page(tmp_path)
     assert ">–</td>" in page and "2.00 nm" in page and "– nm" not in page
+
+
+def test_measure_report_folder_has_its_page(tmp_path):
+    """`measure -o` writes report.html beside summary.json (listed in the folder's manifest);
+    its links resolve inside the folder and it has no link to a batch index."""
+    out = tmp_path / "rep"
+    r = CliRunner().invoke(main, ["measure", "sample_structures/single_stack.csv", "-o", str(out),
+                                  "--only", "stacking,order,phases", "--voxel", "0.3", "-q"])
+    assert r.exit_code == 0, r.output
+    page = out / "report.html"
+    assert page.is_file() and "report.html" in (out / ".sheetview-files").read_text()
+    p = _parse(page)
+    assert "../../index.html" not in p.hrefs and "summary.json" in p.hrefs
+    for href, target in _local_targets(page, p.hrefs):
+        assert target.is_file(), href
