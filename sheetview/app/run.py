@@ -66,14 +66,18 @@ class Run:
     """One measure run: the input, the settings, shared intermediate results.
 
     ``progress(stage, done, seconds=None)`` is told when each stage starts and ends.
+    ``options``: measure name -> keyword arguments of its function beyond the settings
+    (``{"water_walk": {"rho2_nm_per_us": 5e-3}}``), given after the settings and shared
+    inputs (a command with parameters of its own, such as ``waterwalk``).
     """
 
-    def __init__(self, obj, settings: Settings | None = None, progress=None):
+    def __init__(self, obj, settings: Settings | None = None, progress=None, options=None):
         self.obj = obj
         self.settings = settings if settings is not None else Settings()
         self.results: dict = {}
         self.timings: dict = {}
         self.progress = progress or _noop
+        self.options = {k: dict(v) for k, v in (options or {}).items()}
 
     def stage(self, name, fn, /, *args, **kw):
         """Run ``fn`` as a named stage, timing it and telling the progress callback."""
@@ -179,6 +183,7 @@ class Run:
             subject = self.structure if spec.needs == "structure" else self.grid
             kw = {p: self.input(p) for p in spec.parameters() if self.provides(p)}
             kw = {k: v for k, v in kw.items() if v is not None}  # None: the function's default
+            kw.update(self.options.get(name, {}))
             if spec.needs == "structure" and "spacing" in inspect.signature(fn).parameters:
                 kw.setdefault("spacing", subject.spacing)
             self.results[name] = self.stage(name, fn, subject, **kw)
