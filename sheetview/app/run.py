@@ -11,6 +11,8 @@ science is in the measure's own function.
 from __future__ import annotations
 
 import inspect
+import os
+import sys
 import time
 from functools import cached_property
 
@@ -41,6 +43,34 @@ SHARED = {
 
 def _noop(stage: str, done: bool, seconds: float | None = None) -> None:
     pass
+
+
+#: The stage told (not timed) before a run whose kernels are not compiled yet.
+COMPILING = "compiling kernels (first run only)"
+
+
+def kernels_cold() -> bool:
+    """True when numba's on-disk cache holds none of sheetview's compiled kernels (a first
+    run after installing or after a change of the code): the run then spends most of its
+    first minute compiling. Unknown (a numba without these internals): False."""
+    try:
+        from numba.core.registry import CPUDispatcher
+    except ImportError:  # pragma: no cover
+        return False
+    seen = False
+    for name, mod in list(sys.modules.items()):
+        if not name.startswith("sheetview.") or mod is None:
+            continue
+        for v in list(vars(mod).values()):
+            if isinstance(v, CPUDispatcher):
+                try:
+                    index = v._cache._cache_file._index_path
+                except AttributeError:
+                    continue
+                seen = True
+                if os.path.exists(index):
+                    return False
+    return seen
 
 
 def phase_grid(obj, settings: Settings | None = None, *, graph=None,
@@ -191,6 +221,8 @@ class Run:
 
     def run(self, selected) -> "Run":
         check_inputs(selected, self.obj, getattr(self.obj, "source", None))
+        if self.progress is not _noop and kernels_cold():
+            self.progress(COMPILING, False)
         for name in selected:
             self.result(name)
         return self
