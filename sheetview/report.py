@@ -49,6 +49,8 @@ from .errors import OutputExistsError, SheetviewError
 from .figures import FIGURES, plot_sections
 from .io.output import atomic_path
 from .app.document import dumps
+from .app.sidebyside import CURVES
+from .overlay import plot_side_by_side
 
 
 def check_folder(outdir, force: bool = False) -> Path:
@@ -736,3 +738,34 @@ def index_page(out, records, *, extra_links=()) -> str:
               "the basis of every number.</p>"
             + f"<table><thead><tr><th>input</th><th>status</th>{head}</tr></thead><tbody>"
             + "".join(rows) + "</tbody></table></body></html>\n")
+
+
+def write_comparison(outdir, cmp, *, force: bool = False, plots: bool = True,
+                     protect=()) -> list[Path]:
+    """Write a comparison folder (:class:`sheetview.app.sidebyside.SideBySide`):
+    ``comparison.json``, ``headline.csv``, ``curve_NAME.csv`` (structure, x, y) per curve
+    drawn, ``side_by_side.png``. Assembled beside ``outdir``, renamed into place when
+    complete; ``protect``: inputs never replaced or removed (an input report folder may not
+    be the output folder)."""
+    final = Path(outdir).resolve()
+    for p in protect:
+        if p and Path(p).exists() and Path(p).resolve() == final:
+            raise SheetviewError("the output folder is one of the inputs; choose another "
+                                 "folder for -o", path=outdir)
+    doc = cmp.to_dict()
+    doc["curves"] = {name: {"title": t, "x": xl, "y": yl, "file": f"curve_{name}.csv"}
+                     for name, (t, xl, yl, _, _) in CURVES.items() if cmp.curves.get(name)}
+    names = []
+    with atomic_folder(outdir, force, kind="comparison", protect=protect) as (out, final):
+        write_json(out / "comparison.json", doc)
+        names.append("comparison.json")
+        write_csv(out / "headline.csv", cmp.table_columns())
+        names.append("headline.csv")
+        for name in CURVES:
+            if cmp.curves.get(name):
+                write_csv(out / f"curve_{name}.csv", cmp.curve_columns(name))
+                names.append(f"curve_{name}.csv")
+        if plots:
+            save_figure(plot_side_by_side(cmp), out / "side_by_side.png")
+            names.append("side_by_side.png")
+    return [final / n for n in names]

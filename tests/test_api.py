@@ -4,6 +4,7 @@ ValueErrors naming the parameter, and no global state changes."""
 from __future__ import annotations
 
 import json
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -126,3 +127,22 @@ def test_progress_reaches_the_python_api():
                progress=lambda stage, done, seconds=None: seen.append((stage, done)))
     assert ("stacking", False) in seen and ("stacking", True) in seen
     assert ("phases", True) in seen
+
+
+def test_first_run_says_it_compiles(tmp_path):
+    """With an empty kernel cache the run tells its progress callback that it compiles the
+    kernels (first run only); once a kernel is cached it does not."""
+    code = ("from sheetview.app.run import kernels_cold; import sheetview.measures.phases; "
+            "print(kernels_cold())")
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True)
+    assert out.stdout.strip() == "True", out.stderr
+    from sheetview.app.run import COMPILING, kernels_cold
+    told = []
+    sv.measure("sample_structures/single_stack.csv", only="stacking",
+               progress=lambda stage, done, seconds=None: told.append(stage))
+    assert not kernels_cold()
+    told.clear()
+    sv.measure("sample_structures/single_stack.csv", only="stacking",
+               progress=lambda stage, done, seconds=None: told.append(stage))
+    assert COMPILING not in told and "stacking" in told

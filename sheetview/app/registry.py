@@ -149,7 +149,7 @@ register("scattering", f"{_M}.scattering:scattering_measure", "grid",
          "predicted SANS curve I(q) (neutrons, C-S-H in H2O): slopes, Porod, Guinier, "
          "invariant, Bragg peaks (opt-in; `sheetview scatter` for other contrasts)",
          default=False)
-register("relaxation", f"{_A}:relaxation", "grid",
+register("relaxation", f"{_M}.relaxation:relaxation_measure", "grid",
          "predicted NMR T2 distribution per pore class, fast exchange (opt-in; "
          "`sheetview relax` for other parameters)", default=False)
 register("water_walk", f"{_M}.diffusion:relaxation_walk", "grid",

@@ -11,6 +11,8 @@ science is in the measure's own function.
 from __future__ import annotations
 
 import inspect
+import os
+import sys
 import time
 from functools import cached_property
 
@@ -43,6 +45,34 @@ def _noop(stage: str, done: bool, seconds: float | None = None) -> None:
     pass
 
 
+#: The stage told (not timed) before a run whose kernels are not compiled yet.
+COMPILING = "compiling kernels (first run only)"
+
+
+def kernels_cold() -> bool:
+    """True when numba's on-disk cache holds none of sheetview's compiled kernels (a first
+    run after installing or after a change of the code): the run then spends most of its
+    first minute compiling. Unknown (a numba without these internals): False."""
+    try:
+        from numba.core.registry import CPUDispatcher
+    except ImportError:  # pragma: no cover
+        return False
+    seen = False
+    for name, mod in list(sys.modules.items()):
+        if not name.startswith("sheetview.") or mod is None:
+            continue
+        for v in list(vars(mod).values()):
+            if isinstance(v, CPUDispatcher):
+                try:
+                    index = v._cache._cache_file._index_path
+                except AttributeError:
+                    continue
+                seen = True
+                if os.path.exists(index):
+                    return False
+    return seen
+
+
 def phase_grid(obj, settings: Settings | None = None, *, graph=None,
                progress=None) -> PhaseGrid:
     """The classified phase grid of ``obj``: the input itself for a PhaseGrid, prisms
@@ -66,14 +96,18 @@ class Run:
     """One measure run: the input, the settings, shared intermediate results.
 
     ``progress(stage, done, seconds=None)`` is told when each stage starts and ends.
+    ``options``: measure name -> keyword arguments of its function beyond the settings
+    (``{"water_walk": {"rho2_nm_per_us": 5e-3}}``), given after the settings and shared
+    inputs (a command with parameters of its own, such as ``waterwalk``).
     """
 
-    def __init__(self, obj, settings: Settings | None = None, progress=None):
+    def __init__(self, obj, settings: Settings | None = None, progress=None, options=None):
         self.obj = obj
         self.settings = settings if settings is not None else Settings()
         self.results: dict = {}
         self.timings: dict = {}
         self.progress = progress or _noop
+        self.options = {k: dict(v) for k, v in (options or {}).items()}
 
     def stage(self, name, fn, /, *args, **kw):
         """Run ``fn`` as a named stage, timing it and telling the progress callback."""
@@ -179,6 +213,7 @@ class Run:
             subject = self.structure if spec.needs == "structure" else self.grid
             kw = {p: self.input(p) for p in spec.parameters() if self.provides(p)}
             kw = {k: v for k, v in kw.items() if v is not None}  # None: the function's default
+            kw.update(self.options.get(name, {}))
             if spec.needs == "structure" and "spacing" in inspect.signature(fn).parameters:
                 kw.setdefault("spacing", subject.spacing)
             self.results[name] = self.stage(name, fn, subject, **kw)
@@ -186,6 +221,8 @@ class Run:
 
     def run(self, selected) -> "Run":
         check_inputs(selected, self.obj, getattr(self.obj, "source", None))
+        if self.progress is not _noop and kernels_cold():
+            self.progress(COMPILING, False)
         for name in selected:
             self.result(name)
         return self
