@@ -32,6 +32,29 @@ def _drawn_figures(m):
     return out
 
 
+@pytest.fixture(scope="module")
+def more_figures():
+    """The figures outside the report's measures: kinetics of a grown structure, the random
+    walks (decay, T2 spectrum, exchange, MSD) and the T2-T2 map."""
+    from sheetview import Sphere
+    from sheetview.grid import GEL, SOLID, PhaseGrid
+    from sheetview.measures import diffusion as dm
+    from sheetview.measures.kinetics import progress
+    from sheetview.synth import pack_stacks
+
+    res = pack_stacks(Sphere((0, 0, 0), 9.0), 25, seeding="wall", orientation="wall",
+                      lateral_size="fixed:4", layers="fixed:3", born=True, seed=1)
+    out = [("kinetics", figures.plot_kinetics(progress(res.structure), title="grown"))]
+    lab = np.full((24, 24, 24), GEL, np.uint8)
+    lab[:, :, 10:14] = SOLID
+    g = PhaseGrid(lab, spacing=0.5, periodic=True)
+    m = sv.measure(g, only="water_walk,transport", n_walkers=600)
+    for name in ("water_walk", "transport"):
+        for stem, draw in figures.FIGURES[name]:
+            out.append((stem, draw(m[name])))
+    return out
+
+
 def _boxes_overlap(a, b, tol=1.0):
     return (min(a.x1, b.x1) - max(a.x0, b.x0) > tol) and (min(a.y1, b.y1) - max(a.y0, b.y0) > tol)
 
@@ -55,11 +78,11 @@ def _has_data(ax):
                 [p for p in ax.patches if p.get_visible()])
 
 
-def test_every_report_figure_is_fit_to_publish(measured):
+def test_every_report_figure_is_fit_to_publish(measured, more_figures):
     from matplotlib.text import Text
 
-    figs = _drawn_figures(measured)
-    assert len(figs) >= 8
+    figs = _drawn_figures(measured) + list(more_figures)
+    assert len(figs) >= 13
     for stem, fig in figs:
         w, h = fig.get_size_inches()
         assert w <= figures.PAGE_WIDTH + 1e-6, (stem, w)
