@@ -79,49 +79,55 @@ def _has_data(ax):
 
 
 def test_every_report_figure_is_fit_to_publish(measured, more_figures):
-    from matplotlib.text import Text
-
     figs = _drawn_figures(measured) + list(more_figures)
     assert len(figs) >= 13
     for stem, fig in figs:
-        w, h = fig.get_size_inches()
-        assert w <= figures.PAGE_WIDTH + 1e-6, (stem, w)
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        canvas_agg = FigureCanvasAgg(fig)
-        canvas_agg.draw()
-        r = canvas_agg.get_renderer()
-        canvas = fig.bbox
-        drawn = {id(t) for a in fig.axes if a.axison
-                 for axis in (a.xaxis, a.yaxis) for t in _drawn_ticklabels(axis)}
-        hidden = {id(t) for a in fig.axes for axis in (a.xaxis, a.yaxis)
-                  for t in axis.get_ticklabels(which="both") if id(t) not in drawn}
-        hidden |= {id(t) for a in fig.axes if not a.axison
-                   for t in (a.xaxis.label, a.yaxis.label, a.xaxis.offsetText,
-                             a.yaxis.offsetText)}
-        texts = [t for t in fig.findobj(Text) if t.get_visible() and t.get_text().strip()
-                 and id(t) not in hidden and t.get_window_extent(r).width > 0]
-        for t in texts:
-            assert t.get_fontsize() >= MIN_PT, (stem, t.get_text(), t.get_fontsize())
-            bb = t.get_window_extent(r)
-            assert bb.x0 >= canvas.x0 - 1 and bb.x1 <= canvas.x1 + 1 and \
-                bb.y0 >= canvas.y0 - 1 and bb.y1 <= canvas.y1 + 1, (stem, t.get_text(), bb)
-        data_axes = [a for a in fig.axes if _has_data(a)]
-        legends = [lg for a in fig.axes for lg in ([a.get_legend()] if a.get_legend() else [])]
-        legends += list(fig.legends)
-        for lg in legends:
-            lb = lg.get_window_extent(r)
-            for a in data_axes:
-                assert not _boxes_overlap(lb, a.get_window_extent(r)), (stem, "legend over data")
-        for a in fig.axes:
-            if not a.axison:
-                continue
-            for axis in (a.xaxis, a.yaxis):
-                labs = _drawn_ticklabels(axis)
-                bbs = [t.get_window_extent(r) for t in labs]
-                for i in range(len(bbs)):
-                    for j in range(i + 1, len(bbs)):
-                        assert not _boxes_overlap(bbs[i], bbs[j], tol=0.5), \
-                            (stem, labs[i].get_text(), labs[j].get_text())
+        check_fit_to_publish(stem, fig)
+
+
+def check_fit_to_publish(stem, fig):
+    """The checks of the module docstring on one drawn figure (also used by the tests of
+    other figures, such as the side-by-side comparison)."""
+    from matplotlib.text import Text
+
+    w, h = fig.get_size_inches()
+    assert w <= figures.PAGE_WIDTH + 1e-6, (stem, w)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    canvas_agg = FigureCanvasAgg(fig)
+    canvas_agg.draw()
+    r = canvas_agg.get_renderer()
+    canvas = fig.bbox
+    drawn = {id(t) for a in fig.axes if a.axison
+             for axis in (a.xaxis, a.yaxis) for t in _drawn_ticklabels(axis)}
+    hidden = {id(t) for a in fig.axes for axis in (a.xaxis, a.yaxis)
+              for t in axis.get_ticklabels(which="both") if id(t) not in drawn}
+    hidden |= {id(t) for a in fig.axes if not a.axison
+               for t in (a.xaxis.label, a.yaxis.label, a.xaxis.offsetText,
+                         a.yaxis.offsetText)}
+    texts = [t for t in fig.findobj(Text) if t.get_visible() and t.get_text().strip()
+             and id(t) not in hidden and t.get_window_extent(r).width > 0]
+    for t in texts:
+        assert t.get_fontsize() >= MIN_PT, (stem, t.get_text(), t.get_fontsize())
+        bb = t.get_window_extent(r)
+        assert bb.x0 >= canvas.x0 - 1 and bb.x1 <= canvas.x1 + 1 and \
+            bb.y0 >= canvas.y0 - 1 and bb.y1 <= canvas.y1 + 1, (stem, t.get_text(), bb)
+    data_axes = [a for a in fig.axes if _has_data(a)]
+    legends = [lg for a in fig.axes for lg in ([a.get_legend()] if a.get_legend() else [])]
+    legends += list(fig.legends)
+    for lg in legends:
+        lb = lg.get_window_extent(r)
+        for a in data_axes:
+            assert not _boxes_overlap(lb, a.get_window_extent(r)), (stem, "legend over data")
+    for a in fig.axes:
+        if not a.axison:
+            continue
+        for axis in (a.xaxis, a.yaxis):
+            labs = _drawn_ticklabels(axis)
+            bbs = [t.get_window_extent(r) for t in labs]
+            for i in range(len(bbs)):
+                for j in range(i + 1, len(bbs)):
+                    assert not _boxes_overlap(bbs[i], bbs[j], tol=0.5), \
+                        (stem, labs[i].get_text(), labs[j].get_text())
 
 
 def test_figures_on_given_axes_keep_the_callers_layout(measured):

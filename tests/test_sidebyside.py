@@ -4,7 +4,8 @@ Ground truth by construction: a stack of N layers of a triangulated rhombus patc
 8 sqrt(3) nm^2, 0.7 nm sheets at the 1.4 nm repeat of 14 A tobermorite, Bonaccorsi,
 Merlino & Kampf, J. Am. Ceram. Soc. 88 (2005) 505) has stacking number N, solid volume
 N A t and interlayer volume (N - 1) A (1.4 - t) (derived); the stacks are placed at random
-offsets and orientations. A measured curve that is an exact affine image of a model curve
+offsets and orientations. The figure passes the checks of tests/test_figures_layout.py
+(a journal page wide, text of 6.5 pt or more, nothing clipped or covered). A measured curve that is an exact affine image of a model curve
 is fitted back exactly by linear least squares (derived).
 """
 import json
@@ -18,6 +19,7 @@ import sheetview as sv
 from sheetview import Box, OptionError, Structure
 from sheetview.cli import main
 from sheetview.synth import rhombus_patch
+from tests.test_figures_layout import check_fit_to_publish
 
 REPEAT, T, L = 1.4, 0.7, 12.0
 AREA = 8 * np.sqrt(3)  # 4 x 4 rhombus of unit edge: 32 equilateral triangles
@@ -82,6 +84,7 @@ def test_curves_on_shared_axes(cmp35):
     assert cmp35.curves["scattering"] == {}  # not asked for
     fig = cmp35.figure()
     assert len(fig.axes) == 8
+    check_fit_to_publish("side_by_side", fig)
 
 
 def test_report_folder_reads_as_measured(pair, tmp_path, cmp35):
@@ -115,6 +118,7 @@ def test_measured_scattering_fit_recovers_affine_image(pair, tmp_path):
     assert fit["a"]["background_cm-1"] == pytest.approx(0.01, rel=1e-4)
     assert fit["a"]["chi2_reduced"] < 1e-10
     assert fit["b"]["chi2_reduced"] > 1e-4
+    check_fit_to_publish("side_by_side with a measured curve", c.figure())
 
 
 def test_bad_calls(pair, tmp_path):

@@ -72,7 +72,7 @@ CURVES = {
     "stacking": ("Stacking numbers", "stacking number (layers)", "fraction of prisms",
                  "linear", "linear"),
     "pore_sizes": ("Pore sizes (local thickness)", "pore diameter d (nm)",
-                   "dV/dlog10(d) (fraction of pore volume)", "log", "linear"),
+                   "dV/dlog10 d (pore volume)", "log", "linear"),
     "chords_solid": ("Solid chords", "chord length (nm)", "probability density (nm^-1)",
                      "linear", "linear"),
     "chords_pore": ("Pore chords", "chord length (nm)", "probability density (nm^-1)",
