@@ -146,3 +146,25 @@ def test_first_run_says_it_compiles(tmp_path):
     sv.measure("sample_structures/single_stack.csv", only="stacking",
                progress=lambda stage, done, seconds=None: told.append(stage))
     assert COMPILING not in told and "stacking" in told
+
+
+def test_progress_within_long_stages():
+    """A progress callback that takes ``fraction`` hears the progress within a long stage
+    (the random walk) between its start and end; one without it hears only the stages."""
+    from sheetview.grid import GEL, SOLID, PhaseGrid
+    lab = np.full((16, 16, 16), GEL, np.uint8)
+    lab[:, :, 6:8] = SOLID
+    g = PhaseGrid(lab, 0.3, periodic=True)
+    heard = []
+    sv.measure(g, only="water_walk", n_walkers=200,
+               progress=lambda stage, done, seconds=None, fraction=None:
+               heard.append((stage, done, fraction)))
+    walk = [h for h in heard if h[0] == "water_walk"]
+    assert walk[0] == ("water_walk", False, None) and walk[-1][1] is True
+    inner = [f for _, d, f in walk if not d and f is not None]
+    assert len(inner) >= 2 and all(0.0 <= f <= 1.0 for f in inner) and inner[-1] == 1.0
+    plain = []
+    sv.measure(g, only="water_walk", n_walkers=200,
+               progress=lambda stage, done, seconds=None: plain.append((stage, done)))
+    assert ("water_walk", False) in plain and ("water_walk", True) in plain
+    assert len([p for p in plain if p[0] == "water_walk"]) == 2

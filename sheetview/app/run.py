@@ -45,6 +45,16 @@ def _noop(stage: str, done: bool, seconds: float | None = None) -> None:
     pass
 
 
+def _takes_fraction(callback) -> bool:
+    if callback is None:
+        return False
+    try:
+        params = inspect.signature(callback).parameters.values()
+    except (TypeError, ValueError):
+        return False
+    return any(p.name == "fraction" or p.kind == p.VAR_KEYWORD for p in params)
+
+
 #: The stage told (not timed) before a run whose kernels are not compiled yet.
 COMPILING = "compiling kernels (first run only)"
 
@@ -95,7 +105,10 @@ def phase_grid(obj, settings: Settings | None = None, *, graph=None,
 class Run:
     """One measure run: the input, the settings, shared intermediate results.
 
-    ``progress(stage, done, seconds=None)`` is told when each stage starts and ends.
+    ``progress(stage, done, seconds=None)`` is told when each stage starts and ends; a
+    callback that also takes ``fraction`` (``progress(stage, done, seconds=None,
+    fraction=None)``) is told the progress within long stages as well (``done`` False,
+    ``fraction`` in [0, 1]), by the measures that report it (a ``progress`` parameter).
     ``options``: measure name -> keyword arguments of its function beyond the settings
     (``{"water_walk": {"rho2_nm_per_us": 5e-3}}``), given after the settings and shared
     inputs (a command with parameters of its own, such as ``waterwalk``).
@@ -107,7 +120,18 @@ class Run:
         self.results: dict = {}
         self.timings: dict = {}
         self.progress = progress or _noop
+        self._fractions = _takes_fraction(progress)
         self.options = {k: dict(v) for k, v in (options or {}).items()}
+
+    def within(self, stage: str):
+        """``tell(fraction, message="")`` reporting progress within ``stage`` to the
+        callback, or None when the callback does not take fractions."""
+        if not self._fractions:
+            return None
+
+        def tell(fraction, message=""):
+            self.progress(stage, False, None, fraction=float(min(1.0, max(0.0, fraction))))
+        return tell
 
     def stage(self, name, fn, /, *args, **kw):
         """Run ``fn`` as a named stage, timing it and telling the progress callback."""
@@ -192,8 +216,12 @@ class Run:
         base grid."""
         g = self.base_grid
         mask = np.isin(g.labels, [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)])
+        kw = {}
+        tell = self.within("local thickness")
+        if tell is not None and "progress" in inspect.signature(local_thickness).parameters:
+            kw["progress"] = tell
         return self.stage("local thickness", local_thickness, mask, g.spacing,
-                          periodic=g.periodic)
+                          periodic=g.periodic, **kw)
 
     def provides(self, name: str) -> bool:
         return name in SHARED or name in Settings.__dataclass_fields__
@@ -214,6 +242,10 @@ class Run:
             kw = {p: self.input(p) for p in spec.parameters() if self.provides(p)}
             kw = {k: v for k, v in kw.items() if v is not None}  # None: the function's default
             kw.update(self.options.get(name, {}))
+            if "progress" in spec.parameters() and kw.get("progress") is None:
+                tell = self.within(name)
+                if tell is not None:
+                    kw["progress"] = tell
             if spec.needs == "structure" and "spacing" in inspect.signature(fn).parameters:
                 kw.setdefault("spacing", subject.spacing)
             self.results[name] = self.stage(name, fn, subject, **kw)
