@@ -18,8 +18,9 @@ from .domain import Box, Sphere
 from .errors import InputError, OptionError, SheetviewError
 from .grid import PhaseGrid
 from .io import read, write
+from .particles import ParticleSet
 from .structure import Structure, SurfaceBody
 
-__all__ = ["Box", "Sphere", "Structure", "SurfaceBody", "PhaseGrid", "read", "write", "measure",
+__all__ = ["Box", "Sphere", "Structure", "SurfaceBody", "ParticleSet", "PhaseGrid", "read", "write", "measure",
            "Measurement", "Settings", "SheetviewError", "InputError", "OptionError",
            "__version__"]

@@ -23,6 +23,7 @@ from .app.run import Run
 from .app.settings import Settings
 from .errors import OptionError
 from .grid import PhaseGrid
+from .particles import ParticleSet
 from .structure import Structure, SurfaceBody
 from .figures import figure_of
 from .report import write_report
@@ -180,7 +181,7 @@ def measure(obj, only=None, settings=None, *, progress=None, at_progress=None, a
     if isinstance(obj, (str, Path)):
         source = str(obj)
         obj = load(obj, **(read_options or {}))
-    elif not isinstance(obj, (Structure, SurfaceBody, PhaseGrid)):
+    elif not isinstance(obj, (Structure, SurfaceBody, ParticleSet, PhaseGrid)):
         raise OptionError(f"expected a path, Structure, SurfaceBody or PhaseGrid, got "
                           f"{type(obj).__name__}", param="obj")
     else:

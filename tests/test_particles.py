@@ -1,0 +1,163 @@
+"""Particle tables (sheetview.io.particles) and the ParticleSet core type
+(sheetview.particles): round trips, bad input named by file, row and column, mixed tables
+refused, the measure path (grid measures run, stacking and order refused as not applicable)."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import sheetview as sv
+from sheetview.domain import Box, Sphere
+from sheetview.errors import InputError, OptionError
+from sheetview.io.particles import is_particle_table, write_table
+from sheetview.particles import ParticleSet, random_quaternions
+
+
+def _ellipsoids(n=20, seed=0, periodic=True):
+    rng = np.random.default_rng(seed)
+    return ParticleSet(rng.uniform(2, 18, (n, 3)), rng.uniform(0.5, 1.5, (n, 3)),
+                       random_quaternions(n, seed), Box((0, 0, 0), (20, 20, 20), periodic),
+                       columns={"tag": np.arange(n)})
+
+
+def _spheres(n=20, seed=0):
+    rng = np.random.default_rng(seed)
+    return ParticleSet(rng.uniform(2, 18, (n, 3)), rng.uniform(0.5, 1.5, n), [1.0, 0, 0, 0],
+                       Sphere((10, 10, 10), 12), kind="spheres")
+
+
+@pytest.mark.parametrize("suffix", [".csv", ".npz", ".parquet"])
+@pytest.mark.parametrize("make", [_ellipsoids, _spheres])
+def test_round_trip(tmp_path, suffix, make):
+    ps = make()
+    path = tmp_path / f"p{suffix}"
+    sv.write(ps, path)
+    assert is_particle_table(path)
+    back = sv.read(path)
+    assert isinstance(back, ParticleSet) and back.kind == ps.kind
+    assert np.array_equal(back.centers, ps.centers)
+    assert np.array_equal(back.semi_axes, ps.semi_axes)
+    assert np.allclose(back.matrices, ps.matrices, atol=1e-15)
+    assert back.domain == ps.domain
+    assert set(back.columns) == set(ps.columns)
+    with pytest.raises(Exception, match="exists"):
+        sv.write(ps, path)
+
+
+def test_arrays_are_read_only_and_prism_tables_are_not_particle_tables():
+    ps = _ellipsoids()
+    for a in (ps.centers, ps.semi_axes, ps.rotations, ps.volumes, ps.surfaces):
+        assert not a.flags.writeable
+    assert not is_particle_table("sample_structures/single_stack.csv")
+
+
+def _csv(tmp_path, text, name="t.csv"):
+    p = tmp_path / name
+    p.write_text(text)
+    return p
+
+
+@pytest.mark.parametrize("body, words", [
+    ("x,y,z,radius\n0,0,0,1\n1,1,1,nan\n", ["line 3", "'radius'", "finite"]),
+    ("x,y,z,radius\n0,0,0,1\n1,1,1,-2\n", ["line 3", "'radius'", "positive"]),
+    ("x,y,z,radius\n0,0,0,1\n1,1,1,0\n", ["line 3", "'radius'", "positive"]),
+    ("x,y,z,a,b,c\n0,0,0,1,1,0\n", ["line 2", "'c'", "positive"]),
+    ("x,y,z,a,b,c,qw,qx,qy,qz\n0,0,0,1,1,1,2,0,0,0\n", ["line 2", "unit quaternion"]),
+    ("x,y,z,a,b,c,qw\n0,0,0,1,1,1,1\n", ["all four quaternion"]),
+    ("x,y,z\n0,0,0\n", ["missing column"]),
+    ("x,y,z,Radius\n0,0,0,1\n", ["did you mean 'radius'"]),
+    ("x,y,z,radius\n0,0,0,abc\n", ["'radius'", "not a number"]),
+    ("x,y,z,radius,ax,ay,az,bx,by,bz,cx,cy,cz\n" + "0," * 12 + "0\n",
+     ["mixes particle columns", "prism columns"]),
+    ("x,y,z,radius,a\n0,0,0,1,1\n", ["spheres"]),
+    ("x,y,z,a,layers\n0,0,0,3,0\n", ["'layers'", "whole number"]),
+    ("x,y,z,a,layers\n0,0,0,3,2.5\n", ["'layers'", "whole number"]),
+    ("# thickness: 1.5\nx,y,z,a,layers\n0,0,0,3,2\n", ["thickness", "less than the repeat"]),
+    ('# domain: {"shape": "cube"}\nx,y,z,radius\n0,0,0,1\n', ["domain"]),
+])
+def test_bad_csv_names_file_and_problem(tmp_path, body, words):
+    p = _csv(tmp_path, body)
+    with pytest.raises(InputError) as e:
+        sv.read(p)
+    msg = str(e.value)
+    assert str(p) in msg
+    for w in words:
+        assert w in msg, msg
+
+
+def test_mixed_parquet_and_npz_refused(tmp_path):
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    cols = {n: np.zeros(2) for n in ["x", "y", "z", "radius", "ax", "ay", "az", "bx", "by",
+                                     "bz", "cx", "cy", "cz"]}
+    pq.write_table(pa.table(cols), tmp_path / "m.parquet")
+    with pytest.raises(InputError, match="mixes particle columns"):
+        sv.read(tmp_path / "m.parquet")
+    np.savez(tmp_path / "m.npz", header=np.array("{}"), vertices=np.zeros((2, 3, 3)),
+             x=np.zeros(2), y=np.zeros(2), z=np.zeros(2), radius=np.ones(2))
+    with pytest.raises(InputError, match="mixes particle columns"):
+        sv.read(tmp_path / "m.npz")
+
+
+def test_npz_pickle_refused(tmp_path):
+    np.savez(tmp_path / "p.npz", header=np.array("{}"), x=np.array([object()], dtype=object),
+             y=np.zeros(1), z=np.zeros(1), radius=np.ones(1))
+    with pytest.raises(InputError, match="pickle|objects"):
+        sv.read(tmp_path / "p.npz")
+
+
+def test_units_and_inferred_domain(tmp_path):
+    p = _csv(tmp_path, '# units: "A"\nx,y,z,radius\n0,0,0,10\n30,0,0,5\n')
+    ps = sv.read(p)
+    assert ps.semi_axes[0, 0] == pytest.approx(1.0) and ps.centers[1, 0] == pytest.approx(3.0)
+    assert ps.domain.inferred
+    lo, hi = ps.domain.bounds
+    assert lo[0] == pytest.approx(-1.0 - 1.4) and hi[0] == pytest.approx(3.5 + 1.4)
+
+
+def test_exact_bounds_of_a_rotated_ellipsoid():
+    """Bounds against a dense sampling of the surface (points x = c + R diag(s) n)."""
+    ps = ParticleSet([[1.0, 2.0, 3.0]], [[3.0, 1.0, 0.5]], random_quaternions(1, 4),
+                     Box((-10, -10, -10), (10, 10, 10)))
+    rng = np.random.default_rng(1)
+    n = rng.normal(size=(200000, 3))
+    n /= np.linalg.norm(n, axis=1, keepdims=True)
+    pts = ps.centers[0] + (ps.matrices[0] @ (n * ps.semi_axes[0]).T).T
+    lo, hi = ps.bounds()
+    assert np.all(pts.min(axis=0) >= lo - 1e-12) and np.allclose(pts.min(axis=0), lo, atol=2e-3)
+    assert np.allclose(pts.max(axis=0), hi, atol=2e-3)
+
+
+def test_layered_table_reads_as_prisms(tmp_path):
+    p = tmp_path / "l.csv"
+    write_table({"x": [0.0, 20.0], "y": [0.0, 0.0], "z": [0.0, 0.0], "a": [3.0, 2.0],
+                 "b": [3.0, 4.0], "layers": [5, 3]}, {"spacing": 1.4, "thickness": 0.7}, p)
+    s = sv.read(p)
+    assert isinstance(s, sv.Structure) and s.spacing == 1.4
+    assert np.all(s.thickness == 0.7)
+    assert set(s.columns) >= {"particle", "layer", "sheet"}
+    assert len(np.unique(s.columns["sheet"])) == 8
+    # each layer's polygon has the ellipse's area exactly
+    per = np.bincount(s.columns["sheet"], weights=s.areas)
+    assert np.allclose(per[:5], np.pi * 9) and np.allclose(per[5:], np.pi * 8)
+    s2 = sv.read(p, spacing=2.0, thickness=1.0)
+    assert s2.spacing == 2.0 and s2.thickness[0] == 1.0
+
+
+def test_measure_path_and_not_applicable(tmp_path):
+    ps = _ellipsoids(periodic=False)
+    p = tmp_path / "e.parquet"
+    sv.write(ps, p)
+    m = sv.measure(p, voxel=0.2, lines=2000)
+    assert "stacking" not in m.results and "order" not in m.results
+    assert m.results["chords"].exact.method == "iur-particles"
+    with pytest.raises(OptionError, match="solid particles"):
+        sv.measure(p, only="order")
+
+
+def test_rasterize_refuses_bad_voxel():
+    ps = _ellipsoids()
+    with pytest.raises(OptionError, match="voxel"):
+        ps.rasterize(0.001)
+    with pytest.raises(OptionError, match="voxel"):
+        ps.rasterize(50.0)
