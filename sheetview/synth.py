@@ -2349,7 +2349,8 @@ class ParticlePacking:
     def write(self, path, *, force: bool = False):
         """Write the particle table (spheres, or layered particles with their layers)."""
         from .io.particles import write_table
-        return write_table(self.table, self.header, path, force=force)
+        truth = {k: v for k, v in self.to_dict().items() if k not in ("settings", "elapsed_s")}
+        return write_table(self.table, dict(self.header, truth=truth), path, force=force)
 
 
 def pack_particles(domain, target_fraction: float = 0.55, *, kind: str = "spheres",
