@@ -209,6 +209,50 @@ class ParticleSet:
         non-overlapping particles wholly inside the domain or in a periodic box)."""
         return self.volume / float(self.domain.volume)
 
+    def separated(self) -> bool | None:
+        """Whether no two particles overlap and every particle lies wholly inside the domain
+        (a periodic box has no outside): exact for spheres (a k-d tree, periodic minimum
+        image); for ellipsoids True when their bounding spheres (largest semi-axis) are
+        apart, else None (not decided)."""
+        from scipy.spatial import cKDTree
+        dom = self.domain
+        periodic = bool(getattr(dom, "periodic", False))
+        r = self.semi_axes.max(axis=1)
+        if not periodic:
+            if isinstance(dom, Sphere):
+                inside = np.linalg.norm(self.centers - np.asarray(dom.center), axis=1) + r <= dom.radius
+            else:
+                lo, hi = dom.bounds
+                inside = np.all((self.centers - self.half_extents >= lo)
+                                & (self.centers + self.half_extents <= hi), axis=1)
+            if not inside.all():
+                return False if self.kind == "spheres" or isinstance(dom, Box) else None
+        if len(self) < 2:
+            return True
+        if periodic:
+            if np.any(2 * r >= dom.lengths.min()):
+                return None
+            lo = np.asarray(dom.min)
+            tree = cKDTree(dom.wrap(self.centers) - lo, boxsize=dom.lengths * (1 + 1e-12))
+        else:
+            tree = cKDTree(self.centers)
+        pairs = tree.query_pairs(2 * float(r.max()), output_type="ndarray")
+        if len(pairs) == 0:
+            return True
+        d = self.centers[pairs[:, 1]] - self.centers[pairs[:, 0]]
+        if periodic:
+            d = dom.minimum_image(d)
+        apart = np.linalg.norm(d, axis=1) >= r[pairs[:, 0]] + r[pairs[:, 1]]
+        if apart.all():
+            return True
+        return False if self.kind == "spheres" else None
+
+    def exact_surface(self) -> float | None:
+        """The exact surface of the solid (nm^2), the sum of the particle surfaces, when
+        :meth:`separated` is True; else None (overlaps or wall cuts change the union's
+        surface, which is not computed)."""
+        return self.area if self.separated() else None
+
     def subset(self, mask) -> "ParticleSet":
         idx = np.asarray(mask)
         return ParticleSet(self.centers[idx], self.semi_axes[idx], self.rotations[idx],

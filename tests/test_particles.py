@@ -161,3 +161,47 @@ def test_rasterize_refuses_bad_voxel():
         ps.rasterize(0.001)
     with pytest.raises(OptionError, match="voxel"):
         ps.rasterize(50.0)
+
+
+def test_exact_surface_only_when_separated():
+    box = Box((0, 0, 0), (10, 10, 10), periodic=True)
+    apart = ParticleSet([[1, 1, 1], [5, 5, 5]], [1.0, 1.5], [1.0, 0, 0, 0], box, kind="spheres")
+    assert apart.separated() is True
+    assert apart.exact_surface() == pytest.approx(4 * np.pi * (1 + 2.25))
+    # overlapping across the periodic face
+    over = ParticleSet([[0.2, 1, 1], [9.5, 1, 1]], [1.0, 1.0], [1.0, 0, 0, 0], box,
+                       kind="spheres")
+    assert over.separated() is False and over.exact_surface() is None
+    m = sv.measure(over, only="surface", voxel=0.2)
+    assert m.results["surface"].exact["solid_surface_nm2"] is None
+
+
+def test_synth_cli_particles(tmp_path):
+    from click.testing import CliRunner
+    from sheetview.cli import main
+    out = tmp_path / "p.csv"
+    r = CliRunner().invoke(main, ["synth", "--box", "10,10,10", "--periodic", "--particles",
+                                  "spheres", "--radius", "fixed:1", "--target-fraction", "0.5",
+                                  "--seed", "2", "-o", str(out)])
+    assert r.exit_code == 0, r.output
+    ps = sv.read(out)
+    assert isinstance(ps, ParticleSet) and ps.separated()
+    assert ps.volume_fraction() == pytest.approx(0.5, rel=0.01)
+    out2 = tmp_path / "l.npz"
+    r = CliRunner().invoke(main, ["synth", "--box", "20,20,20", "--periodic", "--particles",
+                                  "layered", "--layers", "fixed:3", "--lateral", "fixed:4",
+                                  "--seed", "2", "-o", str(out2)])
+    assert r.exit_code == 0, r.output
+    s = sv.read(out2)
+    assert isinstance(s, sv.Structure) and len(np.unique(s.columns["particle"])) > 5
+
+
+def test_pack_particles_is_seeded_and_refuses_bad_targets():
+    from sheetview.synth import pack_particles
+    box = Box((0, 0, 0), (10, 10, 10), periodic=True)
+    a = pack_particles(box, 0.4, radius="fixed:1", seed=1)
+    b = pack_particles(box, 0.4, radius="fixed:1", seed=1)
+    assert np.array_equal(a.particles.centers, b.particles.centers)
+    for bad in (0.0, 0.7, float("nan")):
+        with pytest.raises(OptionError, match="target fraction"):
+            pack_particles(box, bad)
