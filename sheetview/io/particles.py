@@ -97,8 +97,11 @@ def table_columns(path) -> list[str] | None:
 
 def is_particle_table(path) -> bool:
     """Whether a table file is a particle table: the CSV magic line ``# sheetview particles
-    v1``, or a particle column (``x, y, z, radius, layers``) among its columns."""
+    v1``, or a particle column (``x, y, z, radius, layers``) among its columns (an NPZ also
+    needs its ``header`` array)."""
     names = table_columns(path)
+    if names and Path(path).suffix.lower() == ".npz" and "header" not in names:
+        return False  # not a sheetview table at all: the prism reader says what it needs
     return bool(names) and ("#particles" in names or bool(MARKERS & set(names)))
 
 

@@ -732,8 +732,8 @@ def exact_chords(body, n_lines: int = 10000, seed=None, *, volume=None, surface=
     """
     _check_lines(n_lines, seed)
     if not isinstance(body, (Structure, SurfaceBody, ParticleSet)):
-        raise OptionError(f"exact chords need a Structure, a SurfaceBody or a ParticleSet, got "
-                          f"{type(body).__name__}")
+        raise OptionError(f"exact chords need a Structure or a SurfaceBody (or a ParticleSet), "
+                          f"got {type(body).__name__}")
     dom = body.domain
     periodic = isinstance(dom, Box) and dom.periodic
     if periodic and isinstance(body, SurfaceBody):
