@@ -460,8 +460,12 @@ def periodic_images(particles: ParticleSet) -> tuple[np.ndarray, np.ndarray, np.
     h = particles.half_extents
     L = dom.lengths
     lo, hi = dom.bounds
+    if np.any(h > L):
+        raise OptionError("a particle is wider than twice the periodic box along some axis: "
+                          "its periodic images are not supported; use a larger box",
+                          path=particles.source)
     out_c, out_m, out_i = [cen], [M], [np.arange(len(cen))]
-    # shifts -1, 0, +1 per axis (particles larger than the box need more: refused upstream)
+    # shifts -1, 0, +1 per axis reach every part of a particle no wider than 2 L
     for sx in (-1, 0, 1):
         for sy in (-1, 0, 1):
             for sz in (-1, 0, 1):

@@ -240,3 +240,18 @@ def test_damaged_samples_are_refused_in_one_line(tmp_path, sample):
             except SheetviewError as e:
                 assert str(p) in str(e) and "\n" not in str(e)
                 assert UNEXPECTED not in str(e), str(e)
+
+
+def test_projection_and_huge_periodic_particle():
+    from sheetview.app.run import phase_grid
+    from sheetview.measures.chords import exact_chords
+    from sheetview.measures.sections import projection
+    ps = _ellipsoids()
+    img = projection(ps, grid=phase_grid(ps, None))
+    # mean solid thickness through the periodic box = volume fraction x box height
+    assert img.thickness[img.valid].mean() == pytest.approx(
+        np.count_nonzero(phase_grid(ps).labels == 1) / phase_grid(ps).labels.size * 20, rel=1e-6)
+    big = ParticleSet([[5, 5, 5]], [[25.0, 1, 1]], [1.0, 0, 0, 0],
+                      Box((0, 0, 0), (20, 20, 20), periodic=True))
+    with pytest.raises(OptionError, match="wider than twice the periodic box"):
+        exact_chords(big, 100, seed=0)
