@@ -2120,7 +2120,7 @@ PACK_START_FRACTION = 0.25
 #: Growth stages from the start fraction to the target (radii grow by equal volume steps).
 PACK_STAGES = 40
 #: Relaxation sweeps allowed per growth stage, and after the last one.
-PACK_SWEEPS = 400
+PACK_SWEEPS = 2000
 #: Largest overlap (relative to r_i + r_j) at which a stage counts as relaxed.
 PACK_TOL = 1e-3
 #: Particle kinds of :func:`pack_particles`.
@@ -2417,8 +2417,9 @@ def pack_particles(domain, target_fraction: float = 0.55, *, kind: str = "sphere
             raise OptionError(f"the sheet thickness ({thickness:g} nm) must be less than the "
                               f"repeat ({repeat:g} nm)", param="thickness")
         rs = np.random.default_rng(12345)
-        mean_v = 4 / 3 * math.pi * float(np.mean(_bounding_radius(
-            ldist.sample(rs, 20000), ddist.sample(rs, 20000), repeat, outline) ** 3))
+        mean_v = 4 / 3 * math.pi * float(np.mean(layered_extent(
+            0.5 * ddist.sample(rs, 20000), ldist.sample(rs, 20000), repeat, thickness,
+            outline) ** 3))
     n = int(round(target * V / mean_v)) if n_particles is None else int(n_particles)
     n_draw = n if n_particles is not None else int(1.5 * n + 20)
     if n < 1:
@@ -2433,7 +2434,7 @@ def pack_particles(domain, target_fraction: float = 0.55, *, kind: str = "sphere
     else:
         nl = ldist.sample(rng, n_draw)
         dd = ddist.sample(rng, n_draw)
-        r_full = _bounding_radius(nl, dd, repeat, outline)
+        r_full = layered_extent(0.5 * dd, nl, repeat, thickness, outline) * (1 + 1e-6)
     if n_particles is None:  # as many as fill the target (the last one within it or past it)
         cum = np.cumsum(4 / 3 * math.pi * r_full ** 3)
         n = min(int(np.searchsorted(cum, target * V)) + 1, n_draw)
@@ -2445,7 +2446,7 @@ def pack_particles(domain, target_fraction: float = 0.55, *, kind: str = "sphere
         r_full = r_full * scale  # exact target for the drawn count
     elif n_particles is not None:
         dd = dd * scale
-        r_full = _bounding_radius(nl, dd, repeat, outline)
+        r_full = layered_extent(0.5 * dd, nl, repeat, thickness, outline) * (1 + 1e-6)
     if float(r_full.max()) * 2 + clearance >= float(L.min()) / (1 if not periodic else 2):
         raise OptionError(f"the largest particle ({2 * r_full.max():.4g} nm across) does not fit "
                           f"the domain ({float(L.min()):.4g} nm)", param="radius")
@@ -2460,34 +2461,35 @@ def pack_particles(domain, target_fraction: float = 0.55, *, kind: str = "sphere
     f0 = min(PACK_START_FRACTION, target)
     worst, sweeps = 0.0, 0
     stages = max(1, PACK_STAGES if target > f0 else 1)
+    good_x, good_frac, stopped = x.copy(), 0.0, "target"
     for k in range(1, stages + 1):
         frac = f0 + (target - f0) * k / stages
         r = r_full * (frac / target) ** (1 / 3)
         worst, s = _relax_overlaps(x, r, lo, L, periodic, sc, sr, float(clearance),
                                    int(max_sweeps), PACK_TOL)
         sweeps += s
-    worst, s = _relax_overlaps(x, r_full, lo, L, periodic, sc, sr, float(clearance),
+        if worst > PACK_TOL:  # jammed: back to the last relaxed stage
+            x, stopped = good_x, "jammed"
+            break
+        good_x, good_frac = x.copy(), frac
+    reached = target if stopped == "target" else max(good_frac, f0)
+    r_stage = r_full * (reached / target) ** (1 / 3)
+    worst, s = _relax_overlaps(x, r_stage, lo, L, periodic, sc, sr, float(clearance),
                                int(max_sweeps) * 5, 1e-9)
     sweeps += s
     if periodic:
         x = domain.wrap(x)
-    # a packing jammed short of the target (walls): drop the particles still overlapping
-    keep = _drop_overlapping(x, r_full, domain, float(clearance), PACK_TOL)
-    dropped = int(len(x) - keep.sum())
-    x, r_full = x[keep], r_full[keep]
-    if nl is not None:
-        nl, dd = nl[keep], dd[keep]
-    n = len(x)
     # one factor that removes the last overlap exactly: d >= f (r_i + r_j + c) for all pairs
-    ratio, wall = _min_gap_ratio(x, r_full, domain, float(clearance))
+    ratio, wall = _min_gap_ratio(x, r_stage, domain, float(clearance))
     f = min(1.0, ratio, wall) * (1 - 1e-12)
-    r = r_full * f
+    r = r_stage * f
     ratio2, wall2 = _min_gap_ratio(x, r, domain, float(clearance) * f)
     assert ratio2 >= 1.0 and wall2 >= 1.0  # the construction: no overlap, inside the walls
     dom_header = domain.to_dict()
     settings = {"kind": kind, "target_fraction": target, "seed": seed, "clearance": clearance,
-                "sweeps": int(sweeps), "final_overlap_before_scaling": float(worst),
-                "radius_scale": float(f), "dropped": dropped, "note": PARTICLE_NOTE}
+                "stopped": stopped, "sweeps": int(sweeps),
+                "final_overlap_before_scaling": float(worst),
+                "radius_scale": float(f * (reached / target) ** (1 / 3)), "note": PARTICLE_NOTE}
     if kind == "spheres":
         ps = ParticleSet(x, r, [1.0, 0.0, 0.0, 0.0], domain, "spheres",
                          metadata={"generator": dict(settings)})
@@ -2495,9 +2497,13 @@ def pack_particles(domain, target_fraction: float = 0.55, *, kind: str = "sphere
         header = {"units": "nm", "domain": dom_header, "generator": settings}
         return ParticlePacking("spheres", ps, None, table, header, settings,
                                time.perf_counter() - t0)
-    dd = dd * f
+    # each layered particle inside its final sphere: unchanged when the target was reached
+    # (the spheres were packed 1e-6 larger than the particles), else shrunk to fit
+    a_fit, nl_fit = fit_layered(0.5 * dd, nl, r, repeat, thickness, outline)
+    settings["reshaped"] = int(np.count_nonzero((a_fit < 0.5 * dd * (1 - 1e-6)) | (nl_fit < nl)))
+    nl = nl_fit
     q = random_quaternions(n, rng.integers(2**63))
-    ab = np.repeat((0.5 * dd)[:, None], 2, axis=1)
+    ab = np.repeat(a_fit[:, None], 2, axis=1)
     s = layered_structure(x, ab, nl, q, domain, spacing=repeat, thickness=thickness,
                           outline=outline, metadata={"generator": dict(settings)})
     ps = ParticleSet(x, r, [1.0, 0.0, 0.0, 0.0], domain, "spheres")
@@ -2509,41 +2515,51 @@ def pack_particles(domain, target_fraction: float = 0.55, *, kind: str = "sphere
     return ParticlePacking("layered", ps, s, table, header, settings, time.perf_counter() - t0)
 
 
-def _drop_overlapping(x, r, domain, clear, tol):
-    """Keep-mask without the particles that still overlap another by more than ``tol``
-    (relative) or cross a wall: greedily, the smaller of each such pair, worst first."""
-    periodic = isinstance(domain, Box) and domain.periodic
-    keep = np.ones(len(x), bool)
-    if not periodic:
-        keep &= domain.wall_distance(x) >= r * (1 - tol)
-    lo = np.asarray(domain.bounds[0])
-    tree = cKDTree(x - lo, boxsize=domain.lengths) if periodic else cKDTree(x)
-    pairs = tree.query_pairs(2 * float(r.max()) + clear, output_type="ndarray")
-    if len(pairs):
-        d = x[pairs[:, 1]] - x[pairs[:, 0]]
-        if periodic:
-            d = domain.minimum_image(d)
-        want = r[pairs[:, 0]] + r[pairs[:, 1]] + clear
-        ov = (want - np.linalg.norm(d, axis=1)) / want
-        bad = ov > tol
-        for k in np.flatnonzero(bad)[np.argsort(-ov[bad])]:
-            i, j = pairs[k]
-            if keep[i] and keep[j]:
-                keep[i if r[i] < r[j] else j] = False
-    return keep
-
-
 PARTICLE_NOTE = ("invented demonstration structure: random dense packing of particles "
                  "(sheetview.synth.pack_particles), not a simulation of any material")
 
 
-def _bounding_radius(n_layers, diameter, repeat, outline):
-    """Radius of the sphere about a layered particle's centre that contains it: a stack of
-    discs of diameter D and N layers spans ``N repeat`` along its axis (half a repeat beyond
-    the outer mid-planes holds the sheets, thinner than the repeat); the spheroid outline
-    lies within the larger of its semi-axes."""
-    a = 0.5 * np.asarray(diameter, float)
-    h = 0.5 * np.asarray(n_layers, float) * repeat
-    if outline == "disc":
-        return np.sqrt(a ** 2 + h ** 2)
-    return np.maximum(a, h)
+def layered_extent(a, n_layers, repeat, thickness, outline="ellipsoid",
+                   segments=None) -> np.ndarray:
+    """Exact radius of the smallest sphere about a layered particle's centre that holds
+    its prisms (as built by :func:`sheetview.particles.layered_structure`): the largest
+    distance of a prism corner, ``max_k sqrt((a g f_k)^2 + (|z_k| + t/2)^2)`` with ``g`` the
+    polygon's area scaling and ``f_k`` the layer's outline factor."""
+    from .particles import DEFAULT_SEGMENTS
+    m = DEFAULT_SEGMENTS if segments is None else int(segments)
+    g = math.sqrt(2 * math.pi / (m * math.sin(2 * math.pi / m)))
+    a = np.asarray(a, float)
+    n = np.asarray(n_layers).astype(np.int64)
+    k = np.arange(int(n.max()) if n.size else 1)
+    z = (k[None, :] - 0.5 * (n[:, None] - 1)) * repeat
+    f = np.ones_like(z)
+    if outline == "ellipsoid":
+        f = np.sqrt(np.clip(1 - (z / (0.5 * n[:, None] * repeat)) ** 2, 0, None))
+    ext = np.sqrt((a[:, None] * g * f) ** 2 + (np.abs(z) + 0.5 * thickness) ** 2)
+    return np.where(k[None, :] < n[:, None], ext, 0.0).max(axis=1)
+
+
+def fit_layered(a, n_layers, radius, repeat, thickness, outline="ellipsoid"):
+    """The largest semi-axis ``a' <= a`` and layer count ``n' <= n`` (fewer only when even
+    a' = 0 would not fit) whose particle lies within ``radius`` (:func:`layered_extent`)."""
+    a = np.asarray(a, float).copy()
+    n = np.asarray(n_layers).astype(np.int64).copy()
+    r = np.asarray(radius, float)
+    while True:
+        axial = 0.5 * ((n - 1) * repeat + thickness)
+        tall = (axial > r) & (n > 1)
+        if not tall.any():
+            break
+        n[tall] -= 1
+    ext = layered_extent(a, n, repeat, thickness, outline)
+    over = ext > r
+    if over.any():
+        lo = np.zeros(over.sum())
+        hi = a[over]
+        for _ in range(60):  # bisection: the extent grows with a
+            mid = 0.5 * (lo + hi)
+            ok = layered_extent(mid, n[over], repeat, thickness, outline) <= r[over]
+            lo = np.where(ok, mid, lo)
+            hi = np.where(ok, hi, mid)
+        a[over] = lo
+    return a, n

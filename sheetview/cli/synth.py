@@ -193,7 +193,9 @@ def _particles(kind, dom, output, target_fraction, radius, layers, lateral, repe
     extra = ("" if res.structure is None else
              f", solid {res.solid_fraction:.4f}, interlayer "
              f"{res.interlayer_volume / dom.volume:.4f} of the domain, {len(res.structure)} prisms")
-    click.echo(f"sheetview synth: {res.n_particles} {kind} particles, spheres "
+    what = "spheres" if kind == "spheres" else "layered particles in spheres"
+    click.echo(f"sheetview synth: {res.n_particles} {what}, spheres "
                f"{res.sphere_fraction:.4f} of the domain (target "
-               f"{res.settings['target_fraction']:g}; {res.settings['dropped']} dropped as "
-               f"jammed){extra}, {time.perf_counter() - t0:.2f} s -> {output}", err=True)
+               f"{res.settings['target_fraction']:g}"
+               f"{'' if res.settings['stopped'] == 'target' else ': jammed before it'})"
+               f"{extra}, {time.perf_counter() - t0:.2f} s -> {output}", err=True)
