@@ -438,6 +438,9 @@ def rasterize_particles(particles: ParticleSet, voxel_size=None, *, max_memory=N
         raise OptionError("the domain contains no voxel centre at this voxel size; use a finer "
                           "--voxel", path=src)
     periodic = bool(getattr(dom, "periodic", False))
+    if periodic and np.any(particles.half_extents > dom.lengths):
+        raise OptionError("a particle is wider than twice the periodic box along some axis: "
+                          "its periodic images are not supported; use a larger box", path=src)
     cen = np.ascontiguousarray(dom.wrap(particles.centers) if periodic else particles.centers)
     _mark_ellipsoids(cen, np.ascontiguousarray(particles.shape_matrices),
                      np.ascontiguousarray(particles.half_extents),
