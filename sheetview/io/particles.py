@@ -287,6 +287,10 @@ def _assemble(arrays: dict, header: dict, where: dict, path, *, thickness=None, 
             raise InputError(f"{e.detail} (prisms made from the layered particles)", path=path,
                              field=e.field) from None
         return s
+    given = [k for k, v in (("thickness", thickness), ("spacing", spacing)) if v is not None]
+    if given:
+        raise OptionError(f"{', '.join(given)} appl(ies) to prism tables and layered particles, "
+                          f"not to a table of {kind}", path=path, param=given[0])
     if kind == "spheres":
         semi = np.repeat(col("radius")[:, None], 3, axis=1) * f
     else:
