@@ -2128,28 +2128,37 @@ PARTICLE_KINDS = ("spheres", "layered")
 
 
 @numba.njit(cache=True)
+def _cell_index(v, lo, L, nc):
+    k = int((v - lo) / L * nc)
+    return min(max(k, 0), nc - 1)
+
+
+@numba.njit(cache=True)
 def _relax_overlaps(x, r, lo, L, periodic, sphere_c, sphere_r, clear, sweeps, tol):
     """Push overlapping spheres apart (and inside the walls) until no pair overlaps by more
     than ``tol`` (r_i + r_j + clear) or ``sweeps`` have run; returns (largest relative
     overlap, sweeps run). Each sweep moves every overlapping pair apart along the line of
-    centres by half the overlap each, weighted by volume (Jacobi sum over a cell list);
-    walls: a centre too close to a wall is moved in (a relaxation of the overlap energy
-    sum(max(0, r_i + r_j - d)^2); the growth between calls is a Lubachevsky-Stillinger-like
-    compression without dynamics)."""
+    centres by its overlap (times 1.05), shared by volume (Jacobi sum over a cell list of
+    cells at least 2 r_max + clear wide); walls: a centre too close to a wall is moved in (a
+    relaxation of the overlap energy sum(max(0, r_i + r_j - d)^2); the growth between calls
+    is a Lubachevsky-Stillinger-like compression without dynamics)."""
     n = x.shape[0]
     rmax = 0.0
     for i in range(n):
         rmax = max(rmax, r[i])
     cs = 2.0 * rmax + clear
-    nc = np.empty(3, np.int64)
-    for a in range(3):
-        nc[a] = max(1, int(L[a] / cs))
-        if periodic and nc[a] < 3:
-            nc[a] = 1
-    ncell = nc[0] * nc[1] * nc[2]
-    head = np.empty(ncell, np.int64)
+    n0 = max(1, int(L[0] / cs))
+    n1 = max(1, int(L[1] / cs))
+    n2 = max(1, int(L[2] / cs))
+    if periodic:  # fewer than 3 cells: one cell (a neighbour would be met twice)
+        n0 = n0 if n0 >= 3 else 1
+        n1 = n1 if n1 >= 3 else 1
+        n2 = n2 if n2 >= 3 else 1
+    head = np.empty(n0 * n1 * n2, np.int64)
     nxt = np.empty(n, np.int64)
+    cell = np.empty((n, 3), np.int64)
     dx = np.zeros((n, 3))
+    w3 = r ** 3
     worst = 0.0
     s = 0
     for s in range(sweeps):
@@ -2158,48 +2167,37 @@ def _relax_overlaps(x, r, lo, L, periodic, sphere_c, sphere_r, clear, sweeps, to
             if periodic:
                 for a in range(3):
                     x[i, a] = lo[a] + (x[i, a] - lo[a]) % L[a]
-            c = 0
-            for a in range(3):
-                k = int((x[i, a] - lo[a]) / L[a] * nc[a])
-                k = min(max(k, 0), nc[a] - 1)
-                c = c * nc[a] + k
+            c0 = _cell_index(x[i, 0], lo[0], L[0], n0)
+            c1 = _cell_index(x[i, 1], lo[1], L[1], n1)
+            c2 = _cell_index(x[i, 2], lo[2], L[2], n2)
+            cell[i, 0] = c0
+            cell[i, 1] = c1
+            cell[i, 2] = c2
+            c = (c0 * n1 + c1) * n2 + c2
             nxt[i] = head[c]
             head[c] = i
         dx[:] = 0.0
         worst = 0.0
         for i in range(n):
-            ci = np.empty(3, np.int64)
-            for a in range(3):
-                k = int((x[i, a] - lo[a]) / L[a] * nc[a])
-                ci[a] = min(max(k, 0), nc[a] - 1)
-            for oa in range(-1, 2):
-                for ob in range(-1, 2):
-                    for oc in range(-1, 2):
-                        cc = np.array([ci[0] + oa, ci[1] + ob, ci[2] + oc])
-                        skip = False
-                        for a in range(3):
-                            if cc[a] < 0 or cc[a] >= nc[a]:
-                                if periodic:
-                                    cc[a] = cc[a] % nc[a]
-                                else:
-                                    skip = True
-                        if skip:
+            for oa in range(-1 if n0 > 1 else 0, 2 if n0 > 1 else 1):
+                a0 = cell[i, 0] + oa
+                if a0 < 0 or a0 >= n0:
+                    if not periodic:
+                        continue
+                    a0 %= n0
+                for ob in range(-1 if n1 > 1 else 0, 2 if n1 > 1 else 1):
+                    a1 = cell[i, 1] + ob
+                    if a1 < 0 or a1 >= n1:
+                        if not periodic:
                             continue
-                        # each neighbour cell once (small grids repeat cells)
-                        dup = False
-                        if periodic:
-                            for pa in range(-1, 2):
-                                for pb in range(-1, 2):
-                                    for pc in range(-1, 2):
-                                        if (pa, pb, pc) >= (oa, ob, oc):
-                                            continue
-                                        if ((ci[0] + pa) % nc[0] == cc[0]
-                                                and (ci[1] + pb) % nc[1] == cc[1]
-                                                and (ci[2] + pc) % nc[2] == cc[2]):
-                                            dup = True
-                        if dup:
-                            continue
-                        j = head[(cc[0] * nc[1] + cc[1]) * nc[2] + cc[2]]
+                        a1 %= n1
+                    for oc in range(-1 if n2 > 1 else 0, 2 if n2 > 1 else 1):
+                        a2 = cell[i, 2] + oc
+                        if a2 < 0 or a2 >= n2:
+                            if not periodic:
+                                continue
+                            a2 %= n2
+                        j = head[(a0 * n1 + a1) * n2 + a2]
                         while j >= 0:
                             if j > i:
                                 d0 = x[j, 0] - x[i, 0]
@@ -2209,21 +2207,22 @@ def _relax_overlaps(x, r, lo, L, periodic, sphere_c, sphere_r, clear, sweeps, to
                                     d0 -= L[0] * round(d0 / L[0])
                                     d1 -= L[1] * round(d1 / L[1])
                                     d2 -= L[2] * round(d2 / L[2])
-                                d = math.sqrt(d0 * d0 + d1 * d1 + d2 * d2)
                                 want = r[i] + r[j] + clear
-                                ov = want - d
-                                if ov > 0.0:
+                                dd = d0 * d0 + d1 * d1 + d2 * d2
+                                if dd < want * want:
+                                    d = math.sqrt(dd)
+                                    ov = want - d
                                     worst = max(worst, ov / want)
                                     if d < 1e-12:
                                         d0, d1, d2, d = 1.0, 0.0, 0.0, 1.0
-                                    wi = r[j] ** 3 / (r[i] ** 3 + r[j] ** 3)
-                                    f = 0.5 * ov * 1.05 / d
-                                    dx[i, 0] -= 2 * wi * f * d0
-                                    dx[i, 1] -= 2 * wi * f * d1
-                                    dx[i, 2] -= 2 * wi * f * d2
-                                    dx[j, 0] += 2 * (1 - wi) * f * d0
-                                    dx[j, 1] += 2 * (1 - wi) * f * d1
-                                    dx[j, 2] += 2 * (1 - wi) * f * d2
+                                    wi = w3[j] / (w3[i] + w3[j])
+                                    f = 1.05 * ov / d
+                                    dx[i, 0] -= wi * f * d0
+                                    dx[i, 1] -= wi * f * d1
+                                    dx[i, 2] -= wi * f * d2
+                                    dx[j, 0] += (1 - wi) * f * d0
+                                    dx[j, 1] += (1 - wi) * f * d1
+                                    dx[j, 2] += (1 - wi) * f * d2
                             j = nxt[j]
         for i in range(n):
             for a in range(3):
@@ -2461,18 +2460,23 @@ def pack_particles(domain, target_fraction: float = 0.55, *, kind: str = "sphere
     f0 = min(PACK_START_FRACTION, target)
     worst, sweeps = 0.0, 0
     stages = max(1, PACK_STAGES if target > f0 else 1)
-    good_x, good_frac, stopped = x.copy(), 0.0, "target"
+    good_x, good_frac = None, 0.0
     for k in range(1, stages + 1):
         frac = f0 + (target - f0) * k / stages
         r = r_full * (frac / target) ** (1 / 3)
         worst, s = _relax_overlaps(x, r, lo, L, periodic, sc, sr, float(clearance),
                                    int(max_sweeps), PACK_TOL)
         sweeps += s
-        if worst > PACK_TOL:  # jammed: back to the last relaxed stage
-            x, stopped = good_x, "jammed"
-            break
-        good_x, good_frac = x.copy(), frac
-    reached = target if stopped == "target" else max(good_frac, f0)
+        if worst <= PACK_TOL:
+            good_x, good_frac = x.copy(), frac
+    worst, s = _relax_overlaps(x, r_full, lo, L, periodic, sc, sr, float(clearance),
+                               int(max_sweeps) * 5, PACK_TOL)
+    sweeps += s
+    stopped, reached = "target", target
+    if worst > PACK_TOL and good_x is not None:  # jammed: back to the last relaxed stage
+        x, stopped, reached = good_x, "jammed", good_frac
+    elif worst > PACK_TOL:
+        stopped = "jammed"
     r_stage = r_full * (reached / target) ** (1 / 3)
     worst, s = _relax_overlaps(x, r_stage, lo, L, periodic, sc, sr, float(clearance),
                                int(max_sweeps) * 5, 1e-9)
