@@ -20,6 +20,7 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import INTERLAYER, OUTSIDE, SOLID, PhaseGrid, rasterize_body
+from ..particles import ParticleSet, rasterize_particles
 from ..structure import Structure, SurfaceBody
 from .registry import REGISTRY, check_inputs
 from .settings import SPLIT_NAMES, Settings
@@ -29,7 +30,8 @@ from ..measures.stacking import StackingSettings, stacking_graph
 
 #: Inputs a measure function may ask for by parameter name, besides the settings.
 SHARED = {
-    "geometry": "the exact geometry: the Structure or SurfaceBody (None for a voxel volume)",
+    "geometry": "the exact geometry: the Structure, SurfaceBody or ParticleSet (None for a voxel "
+                "volume)",
     "structure": "the Structure (None for other inputs)",
     "grid": "the phase grid the grid measures use (size classes split when pore_split is set)",
     "base_grid": "the phase grid before any split of the gel pores",
@@ -99,6 +101,8 @@ def phase_grid(obj, settings: Settings | None = None, *, graph=None,
         return classify(obj, s.voxel, graph=graph, max_memory=s.max_memory)
     if isinstance(obj, SurfaceBody):
         return rasterize_body(obj, s.voxel, max_memory=s.max_memory)
+    if isinstance(obj, ParticleSet):
+        return rasterize_particles(obj, s.voxel, max_memory=s.max_memory)
     raise OptionError(f"cannot build a phase grid of a {type(obj).__name__}")
 
 
@@ -150,7 +154,7 @@ class Run:
 
     @property
     def geometry(self):
-        return self.obj if isinstance(self.obj, (Structure, SurfaceBody)) else None
+        return self.obj if isinstance(self.obj, (Structure, SurfaceBody, ParticleSet)) else None
 
     @property
     def domain(self):
