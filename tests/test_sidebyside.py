@@ -160,3 +160,22 @@ def test_cli_beside(pair, tmp_path):
                                   "--force"])
     assert r.exit_code == 2 and "one of the inputs" in r.output
     assert sorted(p.name for p in (tmp_path / "rep").iterdir()) == before
+
+
+def test_particle_packings_side_by_side():
+    """Two random sphere packings (our generator, periodic 8 nm boxes, 0.30 and 0.45 of the
+    volume): the solid fractions of the comparison equal the packings' exact volume fractions
+    (sum of 4/3 pi r^3 over the box, non-overlapping spheres: derived) within 1 % at the
+    default voxel, their ratio within 2 %; stacking and order do not apply to particles and
+    their rows stay empty."""
+    from sheetview.synth import pack_particles
+    box = Box((0, 0, 0), (8, 8, 8), periodic=True)
+    a = pack_particles(box, 0.30, radius="lognormal:1.0,0.2", seed=3).particles
+    b = pack_particles(box, 0.45, radius="lognormal:1.0,0.2", seed=4).particles
+    c = sv.compare_structures([a, b], labels=["loose", "dense"], only="phases,surface")
+    s = row(c, "volume_fractions.solid")
+    fa, fb = a.volume_fraction(), b.volume_fraction()
+    assert s["loose"] == pytest.approx(fa, rel=0.01)
+    assert s["dense"] == pytest.approx(fb, rel=0.01)
+    assert s["dense / loose"] == pytest.approx(fb / fa, rel=0.02)
+    assert "stacking.mean" not in c.table.index
