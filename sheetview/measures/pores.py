@@ -58,6 +58,8 @@ from numba.cpython.unsafe.numbers import trailing_zeros as _tz
 from ..errors import OptionError
 from ..grid import GEL, OUTSIDE, PhaseGrid, _phase_code
 from ..threads import budget
+from ._walls import NONE as _WNONE
+from ._walls import feature_transform
 
 # 26-neighbour offsets
 _OFFS = np.array([(a, b, c) for a in (-1, 0, 1) for b in (-1, 0, 1) for c in (-1, 0, 1)
@@ -829,45 +831,480 @@ def _paint_balls(shape, flat_idx, r2, values, rel, periodic, r_map, out, mask):
     return out, int(sel.size)
 
 
+# ====================================================== sub-voxel balls (kernels)
+@numba.njit(cache=True)
+def _lp_maxmin(Nn, c, k, r, T, rhs, obj, basis, nonb, out):
+    """Largest ``t`` with ``Nn[i] . z + t <= c[i]`` for the ``k`` planes and
+    ``|z_j| <= r[j]``: the centre of the largest ball about which every half-space
+    holds (a linear programme in ``(z, t)``). Primal simplex on a Tucker tableau from
+    the box corner ``z = -r`` (shifted variables, all constraints ``<=`` with
+    non-negative right-hand sides, so the slack basis is feasible), Bland's rule (no
+    cycling). Writes ``z`` to ``out[:3]`` and returns ``t``. Scratch arrays: ``T``
+    (k + 3, 4), ``rhs`` (k + 3), ``obj`` (4), ``basis`` (k + 3), ``nonb`` (4)."""
+    m = k + 3
+    t0 = np.inf
+    for i in range(k):
+        cp = c[i] + Nn[i, 0] * r[0] + Nn[i, 1] * r[1] + Nn[i, 2] * r[2]
+        rhs[i] = cp
+        if cp < t0:
+            t0 = cp
+    for i in range(k):
+        T[i, 0] = Nn[i, 0]
+        T[i, 1] = Nn[i, 1]
+        T[i, 2] = Nn[i, 2]
+        T[i, 3] = 1.0
+        rhs[i] -= t0
+        basis[i] = 4 + i
+    for j in range(3):
+        row = k + j
+        for q in range(4):
+            T[row, q] = 0.0
+        T[row, j] = 1.0
+        rhs[row] = 2.0 * r[j]
+        basis[row] = 4 + row
+    for j in range(4):
+        obj[j] = 0.0
+        nonb[j] = j
+    obj[3] = 1.0
+    for _ in range(500):
+        col = -1
+        cid = 1 << 30
+        for j in range(4):
+            if obj[j] > 1e-12 and nonb[j] < cid:
+                col = j
+                cid = nonb[j]
+        if col < 0:
+            break
+        row = -1
+        best = np.inf
+        bid = 1 << 30
+        for i in range(m):
+            a = T[i, col]
+            if a > 1e-12:
+                q = rhs[i] / a
+                if q < best - 1e-13 or (q <= best + 1e-13 and basis[i] < bid):
+                    best = q
+                    row = i
+                    bid = basis[i]
+        if row < 0:
+            break
+        p = T[row, col]
+        for j in range(4):
+            if j != col:
+                T[row, j] /= p
+        T[row, col] = 1.0 / p
+        rhs[row] /= p
+        for i in range(m):
+            if i == row:
+                continue
+            f = T[i, col]
+            if f == 0.0:
+                continue
+            for j in range(4):
+                if j != col:
+                    T[i, j] -= f * T[row, j]
+            T[i, col] = -f / p
+            rhs[i] -= f * rhs[row]
+            if rhs[i] < 0.0:
+                rhs[i] = 0.0
+        f = obj[col]
+        for j in range(4):
+            if j != col:
+                obj[j] -= f * T[row, j]
+        obj[col] = -f / p
+        tmp = basis[row]
+        basis[row] = nonb[col]
+        nonb[col] = tmp
+    for j in range(4):
+        out[j] = 0.0
+    for i in range(m):
+        if basis[i] < 4:
+            out[basis[i]] = rhs[i]
+    for j in range(3):
+        out[j] -= r[j]
+    return out[3] + t0
+
+
+@numba.njit(cache=True, inline="always")
+def _phase_at(mask, i, j, k, periodic):
+    n0, n1, n2 = mask.shape
+    if periodic:
+        return mask[i % n0, j % n1, k % n2]
+    if i < 0 or j < 0 or k < 0 or i >= n0 or j >= n1 or k >= n2:
+        return False
+    return mask[i, j, k]
+
+
+@numba.njit(cache=True)
+def _gap(mask, bi, bj, bk, nx, ny, nz, rel, periodic):
+    """Gap along the unit normal ``n`` (from the phase towards the wall) between the
+    non-phase centre ``b`` and the phase centre among its 26 neighbours that lies
+    furthest along ``n``: ``min n . (b - a)`` (internal units), at least 0; 0 when ``b``
+    has no phase neighbour."""
+    g = np.inf
+    for a in range(-1, 2):
+        for b in range(-1, 2):
+            for e in range(-1, 2):
+                if a == 0 and b == 0 and e == 0:
+                    continue
+                if _phase_at(mask, bi + a, bj + b, bk + e, periodic):
+                    v = -(nx * a * rel[0] + ny * b * rel[1] + nz * e * rel[2])
+                    if v < g:
+                        g = v
+    if g == np.inf or g < 0.0:
+        return 0.0
+    return g
+
+
+@numba.njit(cache=True, parallel=True)
+def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, zc, rho2, A, Dx, nchunk,
+                  thin=-1.0):
+    """Sub-voxel ball of each candidate centre (the voxel path of :func:`local_thickness`,
+    definitions in its docstring). Per candidate ``x`` (flat index): the wall planes seen
+    from its 27-neighbourhood, the linear programme for the largest ball about which all
+    of them hold within ``box`` voxels of ``x``, then the bracket estimate of the wall
+    distance at that centre and at ``x``. Writes the centre offset ``zc`` (internal
+    units), the squared coverage radius ``rho2``, and the estimated radii ``A`` (refined
+    ball) and ``Dx`` (ball at ``x``)."""
+    n0, n1, n2 = mask.shape
+    nc = cand.size
+    r = np.empty(3)
+    for a in range(3):
+        r[a] = box * rel[a]
+    for ch in numba.prange(nchunk):
+        Nn = np.empty((27, 3))
+        Bp = np.empty((27, 3))
+        Bi = np.empty((27, 3), np.int64)
+        c = np.empty(27)
+        gap = np.empty(27)
+        ov = np.empty(27)
+        srt = np.empty(27, np.int64)
+        T = np.empty((30, 4))
+        rhs = np.empty(30)
+        obj = np.empty(4)
+        basis = np.empty(30, np.int64)
+        nonb = np.empty(4, np.int64)
+        sol = np.empty(4)
+        for t in range(ch * nc // nchunk, (ch + 1) * nc // nchunk):
+            f = cand[t]
+            i = f // (n1 * n2)
+            j = (f // n2) % n1
+            k = f % n2
+            npl = 0
+            for a in range(-1, 2):
+                for b in range(-1, 2):
+                    for e in range(-1, 2):
+                        ii = i + a
+                        jj = j + b
+                        kk = k + e
+                        if periodic:
+                            ii %= n0
+                            jj %= n1
+                            kk %= n2
+                        elif ii < 0 or jj < 0 or kk < 0 or ii >= n0 or jj >= n1 or kk >= n2:
+                            continue
+                        if not mask[ii, jj, kk]:
+                            continue
+                        f0 = F[ii, jj, kk, 0]
+                        if f0 == _WNONE:
+                            continue
+                        f1 = F[ii, jj, kk, 1]
+                        f2 = F[ii, jj, kk, 2]
+                        v0 = f0 * rel[0]
+                        v1 = f1 * rel[1]
+                        v2 = f2 * rel[2]
+                        L = math.sqrt(v0 * v0 + v1 * v1 + v2 * v2)
+                        Nn[npl, 0] = v0 / L
+                        Nn[npl, 1] = v1 / L
+                        Nn[npl, 2] = v2 / L
+                        Bi[npl, 0] = i + a + f0
+                        Bi[npl, 1] = j + b + f1
+                        Bi[npl, 2] = k + e + f2
+                        Bp[npl, 0] = (a + f0) * rel[0]
+                        Bp[npl, 1] = (b + f1) * rel[1]
+                        Bp[npl, 2] = (e + f2) * rel[2]
+                        c[npl] = Nn[npl, 0] * Bp[npl, 0] + Nn[npl, 1] * Bp[npl, 1] \
+                            + Nn[npl, 2] * Bp[npl, 2]
+                        gap[npl] = -1.0
+                        npl += 1
+            refine = True
+            if thin >= 0.0:
+                dx_ = math.sqrt(d2[i, j, k])
+                for a in range(-1, 2):
+                    for b in range(-1, 2):
+                        for e in range(-1, 2):
+                            if a == 0 and b == 0 and e == 0:
+                                continue
+                            ii = i + a
+                            jj = j + b
+                            kk = k + e
+                            if periodic:
+                                ii %= n0
+                                jj %= n1
+                                kk %= n2
+                            elif ii < 0 or jj < 0 or kk < 0 or ii >= n0 or jj >= n1 or kk >= n2:
+                                continue
+                            if math.sqrt(d2[ii, jj, kk]) - math.sqrt(
+                                    (a * rel[0]) ** 2 + (b * rel[1]) ** 2 + (e * rel[2]) ** 2) \
+                                    >= dx_ - thin:
+                                refine = False
+            if refine:
+                # only planes that can bind somewhere in the box go to the programme
+                # (moved to the front; the bracket below uses them all)
+                thi = np.inf
+                for q in range(npl):
+                    ext = abs(Nn[q, 0]) * r[0] + abs(Nn[q, 1]) * r[1] + abs(Nn[q, 2]) * r[2]
+                    ov[q] = ext
+                    if c[q] + ext < thi:
+                        thi = c[q] + ext
+                nk = 0
+                for q in range(npl):
+                    if c[q] - ov[q] <= thi:
+                        if q != nk:
+                            for a in range(3):
+                                Nn[nk, a], Nn[q, a] = Nn[q, a], Nn[nk, a]
+                                Bp[nk, a], Bp[q, a] = Bp[q, a], Bp[nk, a]
+                                Bi[nk, a], Bi[q, a] = Bi[q, a], Bi[nk, a]
+                            c[nk], c[q] = c[q], c[nk]
+                        nk += 1
+                aout = _lp_maxmin(Nn, c, nk, r, T, rhs, obj, basis, nonb, sol)
+                z0, z1, z2 = sol[0], sol[1], sol[2]
+            else:
+                z0, z1, z2 = 0.0, 0.0, 0.0
+            best = np.inf
+            for q in range(npl):
+                d0 = Bp[q, 0] - z0
+                d1 = Bp[q, 1] - z1
+                d2_ = Bp[q, 2] - z2
+                dd = d0 * d0 + d1 * d1 + d2_ * d2_
+                if dd < best:
+                    best = dd
+            rho2[t] = best if refine else 0.0
+            zc[t, 0] = z0
+            zc[t, 1] = z1
+            zc[t, 2] = z2
+            # bracket at the refined centre (pass 0, refined candidates only) and at x
+            for pass_ in range(2):
+                if pass_ == 0 and not refine:
+                    A[t] = 0.0
+                    continue
+                lo = np.inf
+                for q in range(npl):
+                    o = c[q] if pass_ == 1 else c[q] - (Nn[q, 0] * z0 + Nn[q, 1] * z1
+                                                        + Nn[q, 2] * z2)
+                    ov[q] = o
+                    if o < lo:
+                        lo = o
+                # planes by decreasing offset: the first ones with a small gap set ``hi``
+                for q in range(npl):
+                    srt[q] = q
+                for q in range(1, npl):
+                    u = srt[q]
+                    w = q - 1
+                    while w >= 0 and ov[srt[w]] < ov[u]:
+                        srt[w + 1] = srt[w]
+                        w -= 1
+                    srt[w + 1] = u
+                hi = -np.inf
+                for w in range(npl):
+                    q = srt[w]
+                    o = ov[q]
+                    if o <= hi:
+                        break
+                    if o > lo + tau:
+                        continue
+                    if gap[q] < 0.0:
+                        gap[q] = _gap(mask, Bi[q, 0], Bi[q, 1], Bi[q, 2], Nn[q, 0], Nn[q, 1],
+                                      Nn[q, 2], rel, periodic)
+                    if o - gap[q] > hi:
+                        hi = o - gap[q]
+                if pass_ == 0:
+                    A[t] = 0.5 * (lo + hi)
+                else:
+                    Dx[t] = 0.5 * (lo + hi)
+
+
+@numba.njit(cache=True, inline="always")
+def _span(c, rem, step):
+    """Integers ``q`` with ``(step (q - c))^2 < rem`` (``rem > 0``): ``(lo, hi)``, empty
+    when ``lo > hi``."""
+    s = math.sqrt(rem) / step
+    lo = int(math.ceil(c - s))
+    hi = int(math.floor(c + s))
+    while lo <= hi and (step * (lo - c)) ** 2 >= rem:
+        lo += 1
+    while hi >= lo and (step * (hi - c)) ** 2 >= rem:
+        hi -= 1
+    while (step * (lo - 1 - c)) ** 2 < rem:
+        lo -= 1
+    while (step * (hi + 1 - c)) ** 2 < rem:
+        hi += 1
+    return lo, hi
+
+
+@numba.njit(cache=True, inline="always")
+def _fold_span(lo, hi, n, periodic):
+    """The index range ``[lo, hi]`` on an axis of ``n`` voxels, clipped (non-periodic) or
+    folded onto ``[0, n)`` (periodic) as at most two ranges ``(a0, b0, a1, b1)``."""
+    if not periodic:
+        return max(lo, 0), min(hi, n - 1), 0, -1
+    if hi < lo:
+        return 0, -1, 0, -1
+    if hi - lo + 1 >= n:
+        return 0, n - 1, 0, -1
+    a = lo % n
+    b = a + (hi - lo)
+    if b < n:
+        return a, b, 0, -1
+    return a, n - 1, 0, b - n
+
+
+@numba.njit(cache=True, inline="always")
+def _paint_row_f(U, S, out, i, j, rem, cz, v, rel2, periodic):
+    if rem <= 0.0:
+        return
+    klo, khi = _span(cz, rem, rel2)
+    if klo > khi:
+        return
+    a0, b0, a1, b1 = _fold_span(klo, khi, out.shape[2], periodic)
+    _take_span(U, S, out, i, j, a0, b0, v)
+    _take_span(U, S, out, i, j, a1, b1, v)
+
+
+@numba.njit(cache=True, inline="always")
+def _paint_plane_f(U, S, out, i, dx2, rr, cy, cz, v, rel, periodic):
+    """First-cover painting of the disc ``dx2 + rel1^2 (j - cy)^2 + rel2^2 (k - cz)^2 <
+    rr`` of plane ``i`` (a float centre); rows without an unpainted voxel in the disc's
+    bounding box are skipped by the summary ``S``."""
+    n1 = out.shape[1]
+    n2 = out.shape[2]
+    rem = rr - dx2
+    if rem <= 0.0:
+        return
+    # bounding rows and columns (a superset: rows outside the disc paint nothing)
+    s1 = math.sqrt(rem) / rel[1]
+    jlo = int(math.floor(cy - s1))
+    jhi = int(math.ceil(cy + s1))
+    if periodic and jhi - jlo + 1 >= n1:
+        for ju in range(jlo, jhi + 1):
+            _paint_row_f(U, S, out, i, ju % n1, rem - (rel[1] * (ju - cy)) ** 2, cz, v,
+                         rel[2], periodic)
+        return
+    s2 = math.sqrt(rem) / rel[2]
+    ka, kb, kc, kd = _fold_span(int(math.floor(cz - s2)), int(math.ceil(cz + s2)), n2,
+                                periodic)
+    ja, jb, jc, jd = _fold_span(jlo, jhi, n1, periodic)
+    for part in range(2):
+        j0 = ja if part == 0 else jc
+        j1 = jb if part == 0 else jd
+        if j0 > j1:
+            continue
+        for jw in range(j0 >> 6, (j1 >> 6) + 1):
+            bits = _rows_touched(S, i, j0, j1, jw, ka, kb, kc, kd)
+            while bits != 0:
+                j = (jw << 6) + _tz(bits)
+                bits &= bits - _ONE
+                ju = j
+                if periodic:
+                    ju = jlo + (j - jlo) % n1
+                _paint_row_f(U, S, out, i, j, rem - (rel[1] * (ju - cy)) ** 2, cz, v,
+                             rel[2], periodic)
+
+
+@numba.njit(cache=True, inline="always")
+def _ball_of(b, nc, cand, zc, rr_ref, rr_lat, vals, rel, shape):
+    """Ball ``b`` of the sorted list: ``b < nc`` the refined ball of candidate ``b``,
+    else the lattice ball of candidate ``b - nc``: centre (index units), squared radius
+    (internal units), value."""
+    n1 = shape[1]
+    n2 = shape[2]
+    q = b if b < nc else b - nc
+    f = cand[q]
+    ci = np.float64(f // (n1 * n2))
+    cj = np.float64((f // n2) % n1)
+    ck = np.float64(f % n2)
+    if b < nc:
+        return (ci + zc[q, 0] / rel[0], cj + zc[q, 1] / rel[1], ck + zc[q, 2] / rel[2],
+                np.float64(rr_ref[q]), vals[b])
+    return ci, cj, ck, np.float64(rr_lat[q]), vals[b]
+
+
+@numba.njit(cache=True, parallel=True)
+def _sorted_balls(order, cand, zc, rr_ref, rr_lat, vals, rel, shape):
+    """The balls ``order`` (ids as in :func:`_ball_of`) as contiguous arrays in that
+    order: centres (index units), squared radii, values and the range of x planes."""
+    nb = order.size
+    nc = cand.size
+    cx = np.empty(nb)
+    cy = np.empty(nb)
+    cz = np.empty(nb)
+    r2 = np.empty(nb)
+    v = np.empty(nb, np.float32)
+    lo = np.empty(nb, np.int64)
+    hi = np.empty(nb, np.int64)
+    for t in numba.prange(nb):
+        a, b, c, rr, vv = _ball_of(order[t], nc, cand, zc, rr_ref, rr_lat, vals, rel, shape)
+        cx[t] = a
+        cy[t] = b
+        cz[t] = c
+        r2[t] = rr
+        v[t] = vv
+        if rr > 0.0:
+            lo[t], hi[t] = _span(a, rr, rel[0])
+        else:
+            lo[t] = 1
+            hi[t] = 0
+    return cx, cy, cz, r2, v, lo, hi
+
+
+@numba.njit(cache=True, parallel=True)
+def _paint_first_f(cx, cy, cz, rr, val, ilo, ihi, rel, out, U, S, periodic, nslabs):
+    """First-cover painting of balls with float centres (:func:`_sorted_balls`, in order
+    of decreasing value): each phase voxel (unpainted bit in ``U``) takes the value of
+    the first ball holding it, i.e. the largest. The x axis is split into ``nslabs``
+    slabs, one thread each (no two threads write one voxel)."""
+    n0 = out.shape[0]
+    nb = cx.size
+    for s in numba.prange(nslabs):
+        x0 = (s * n0) // nslabs
+        x1 = ((s + 1) * n0) // nslabs
+        for t in range(nb):
+            a = ilo[t]
+            b = ihi[t]
+            if a > b:
+                continue
+            if periodic:
+                qa = -((x1 - 1 - a) // n0)
+                qb = (b - x0) // n0
+            else:
+                if b < x0 or a >= x1:
+                    continue
+                qa = 0
+                qb = 0
+            for q in range(qa, qb + 1):
+                lo = max(a, x0 + q * n0)
+                hi = min(b, x1 - 1 + q * n0)
+                for iu in range(lo, hi + 1):
+                    _paint_plane_f(U, S, out, iu - q * n0, (rel[0] * (iu - cx[t])) ** 2,
+                                   rr[t], cy[t], cz[t], val[t], rel, periodic)
+
+
 # ============================================================ local thickness
-def local_thickness(mask, spacing, *, periodic: bool = False, out=None) -> np.ndarray:
-    """Local thickness (nm) of a phase (Hildebrand & Rüegsegger 1997).
+#: Methods of :func:`local_thickness`.
+LT_METHODS = ("subvoxel", "centres")
+#: Half-width (voxels, per axis) of the box about a candidate centre in which its
+#: refined centre is sought.
+REFINE_BOX = 1.0
+#: Candidates whose ball lies within this distance (voxel edges) of a neighbour's ball
+#: keep their lattice ball only (no refined ball); negative: refine every candidate.
+REFINE_THIN = 0.3
 
-    .. math:: \\tau(p) = 2 \\max\\{ r : p \\in B(x, r) \\subseteq X \\}
 
-    on a voxel grid, with the conventions of the module docstring: balls centred on
-    voxel centres with the exact radius ``d(x)`` (distance to the nearest non-phase voxel
-    centre), a diameter of ``2 d(x) - h``.
-
-    Parameters
-    ----------
-    mask : (nx, ny, nz) bool array
-        The phase (True). Voxels outside it (other phases, outside the domain) are walls;
-        on a non-periodic grid so is the grid border.
-    spacing : float or three floats
-        Voxel edges (nm).
-    periodic : bool
-        Wrap around the grid faces (a periodic box).
-    out : (nx, ny, nz) float32 array, optional
-        Buffer to write into.
-
-    Returns
-    -------
-    (nx, ny, nz) float32 array
-        Local thickness in nm; NaN outside the phase.
-
-    References
-    ----------
-    T. Hildebrand, P. Rüegsegger, "A new method for the model-independent assessment of
-    thickness in three-dimensional images", J. Microsc. 185 (1997) 67-75.
-    """
-    m, sp = _check_mask(mask, spacing)
+def _centres_local_thickness(m, sp, periodic, out):
+    """``method="centres"``: balls centred on voxel centres, radius ``d(x)`` to the
+    nearest non-phase centre, diameter ``2 d(x) - h`` (module docstring)."""
     unit, rel, hc = _units(sp)
     d2 = squared_distance(m, rel, periodic=periodic)
-    if out is not None and (out.shape != m.shape or out.dtype != np.float32
-                            or not out.flags.c_contiguous):
-        raise OptionError(f"out must be a C-contiguous float32 array of shape {m.shape}",
-                          field="out")
     nch = max(1, min(m.shape[0], 16 * numba.get_num_threads()))
     top = _int_max(d2, nch) if np.all(rel == 1.0) else -1
     if top >= 0:
@@ -895,6 +1332,115 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None) -> np.nd
         res, _ = _paint_balls(m.shape, idx, r2, vals, rel, periodic, flat, out, m)
     res[~m] = np.nan
     return res
+
+
+
+
+def _candidates(d2, rel, periodic):
+    """Flat indices of the candidate centres: phase voxels whose ball ``{q : |q - x| <
+    d(x)}`` lies in no 26-neighbour's ball (exact lattice test on unit voxels with whole
+    squared distances, else ``d(y) >= d(x) + |x - y|``)."""
+    n0 = d2.shape[0]
+    nch = max(1, min(n0, 16 * numba.get_num_threads()))
+    top = _int_max(d2, nch) if np.all(rel == 1.0) else -1
+    if top >= 0:
+        kmax = int(min(max(top, 1), DISCRETE_TABLE_MAX_K))
+        MT = np.ascontiguousarray(_containment_table(kmax, _TYPES).T)
+        flag, _ = _ridge_grid(d2, MT, _offset_types(), bool(periodic), nch)
+        return np.flatnonzero(flag)
+    flat = d2.reshape(-1)
+    idx = np.flatnonzero(flat > 0)
+    r = np.sqrt(flat, dtype=np.float32)
+    keep = _ridge(idx, r, np.asarray(rel, dtype=np.float64), np.asarray(d2.shape, np.int64),
+                  bool(periodic))
+    return idx[keep]
+
+
+def _paint_refined(m, cand, zc, rr_ref, rr_lat, v_ref, v_lat, rel, periodic, out):
+    """Zero ``out`` and paint, in order of decreasing value, each candidate's refined
+    ball (centre ``cand + zc``, squared radius ``rr_ref``, value ``v_ref``) and lattice
+    ball (centre ``cand``, ``rr_lat``, ``v_lat``); first cover wins, so every phase
+    voxel gets the largest value of the balls holding it (0 if none)."""
+    vals = np.concatenate([v_ref, v_lat]).astype(np.float32)
+    ok = np.flatnonzero(vals > 0)
+    order = ok[_argsort_desc(vals[ok].view(np.uint32))]
+    rel = np.asarray(rel, np.float64)
+    balls = _sorted_balls(order, cand, zc, rr_ref, rr_lat, vals, rel, out.shape)
+    del order, vals
+    U, S = _unpainted_bits(m)
+    out.fill(0)
+    n0 = out.shape[0]
+    nslabs = max(1, min(n0, 16 * numba.get_num_threads()))
+    with numba.parallel_chunksize(1):
+        _paint_first_f(*balls, rel, out, U, S, bool(periodic), nslabs)
+
+
+def _subvoxel_local_thickness(m, sp, periodic, out):
+    """``method="subvoxel"`` (definitions in :func:`local_thickness`)."""
+    unit, rel, _ = _units(sp)
+    if periodic and m.all():
+        raise OptionError("the phase fills the whole periodic grid: it has no wall, so its "
+                          "pore sizes are undefined", field="phases")
+    F, d2 = feature_transform(m, rel, periodic=periodic)
+    cand = _candidates(d2, rel, periodic)
+    nc = cand.size
+    zc = np.empty((nc, 3), np.float32)
+    rho2 = np.empty(nc, np.float32)
+    A = np.empty(nc, np.float32)
+    Dx = np.empty(nc, np.float32)
+    _refine_voxel(m, F, d2, cand, np.asarray(rel, np.float64), bool(periodic), REFINE_BOX,
+                  float(np.max(rel)), zc, rho2, A, Dx,
+                  max(1, min(nc, 64 * numba.get_num_threads())), REFINE_THIN)
+    del F
+    rr_lat = d2.reshape(-1)[cand]
+    if out is None:
+        out = d2
+    _paint_refined(m, cand, zc, rho2, rr_lat, 2.0 * unit * A, 2.0 * unit * Dx, rel,
+                   periodic, out)
+    out[~m] = np.nan
+    return out
+
+
+def local_thickness(mask, spacing, *, periodic: bool = False, out=None,
+                    method: str = "subvoxel") -> np.ndarray:
+    """Local thickness (nm) of a phase (Hildebrand & Rüegsegger 1997).
+
+    .. math:: \\tau(p) = 2 \\max\\{ r : p \\in B(x, r) \\subseteq X \\}
+
+    Parameters
+    ----------
+    mask : (nx, ny, nz) bool array
+        The phase (True). Voxels outside it (other phases, outside the domain) are walls;
+        on a non-periodic grid so is the grid border.
+    spacing : float or three floats
+        Voxel edges (nm).
+    periodic : bool
+        Wrap around the grid faces (a periodic box).
+    out : (nx, ny, nz) float32 array, optional
+        Buffer to write into.
+    method : "subvoxel" (default) or "centres"
+        See the module docstring.
+
+    Returns
+    -------
+    (nx, ny, nz) float32 array
+        Local thickness in nm; NaN outside the phase.
+
+    References
+    ----------
+    T. Hildebrand, P. Rüegsegger, "A new method for the model-independent assessment of
+    thickness in three-dimensional images", J. Microsc. 185 (1997) 67-75.
+    """
+    m, sp = _check_mask(mask, spacing)
+    if method not in LT_METHODS:
+        raise OptionError(f"method must be one of {LT_METHODS}, not {method!r}", field="method")
+    if out is not None and (not isinstance(out, np.ndarray) or out.shape != m.shape
+                            or out.dtype != np.float32 or not out.flags.c_contiguous):
+        raise OptionError(f"out must be a C-contiguous float32 array of shape {m.shape}",
+                          field="out")
+    if method == "centres":
+        return _centres_local_thickness(m, sp, periodic, out)
+    return _subvoxel_local_thickness(m, sp, periodic, out)
 
 
 # ================================================================== intrusion
