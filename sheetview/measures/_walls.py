@@ -244,3 +244,251 @@ def feature_transform(mask, rel, *, periodic=False):
     d2 = np.empty(m.shape, dtype=np.float32)
     _ft_axis0(F, w, bool(periodic), d2, 16)
     return F, d2
+
+
+# ============================================================ exact distances
+@numba.njit(cache=True, inline="always")
+def closest_on_triangle(px, py, pz, a, b, c):
+    """Closest point of the triangle ``a, b, c`` (each (3,)) to the point ``p``, by
+    region classification (Ericson, *Real-Time Collision Detection*, 2005, 5.1.5)."""
+    abx, aby, abz = b[0] - a[0], b[1] - a[1], b[2] - a[2]
+    acx, acy, acz = c[0] - a[0], c[1] - a[1], c[2] - a[2]
+    apx, apy, apz = px - a[0], py - a[1], pz - a[2]
+    d1 = abx * apx + aby * apy + abz * apz
+    d2 = acx * apx + acy * apy + acz * apz
+    if d1 <= 0.0 and d2 <= 0.0:
+        return a[0], a[1], a[2]
+    bpx, bpy, bpz = px - b[0], py - b[1], pz - b[2]
+    d3 = abx * bpx + aby * bpy + abz * bpz
+    d4 = acx * bpx + acy * bpy + acz * bpz
+    if d3 >= 0.0 and d4 <= d3:
+        return b[0], b[1], b[2]
+    vc = d1 * d4 - d3 * d2
+    if vc <= 0.0 and d1 >= 0.0 and d3 <= 0.0:
+        v = d1 / (d1 - d3)
+        return a[0] + v * abx, a[1] + v * aby, a[2] + v * abz
+    cpx, cpy, cpz = px - c[0], py - c[1], pz - c[2]
+    d5 = abx * cpx + aby * cpy + abz * cpz
+    d6 = acx * cpx + acy * cpy + acz * cpz
+    if d6 >= 0.0 and d5 <= d6:
+        return c[0], c[1], c[2]
+    vb = d5 * d2 - d1 * d6
+    if vb <= 0.0 and d2 >= 0.0 and d6 <= 0.0:
+        w = d2 / (d2 - d6)
+        return a[0] + w * acx, a[1] + w * acy, a[2] + w * acz
+    va = d3 * d6 - d5 * d4
+    if va <= 0.0 and (d4 - d3) >= 0.0 and (d5 - d6) >= 0.0:
+        w = (d4 - d3) / ((d4 - d3) + (d5 - d6))
+        return (b[0] + w * (c[0] - b[0]), b[1] + w * (c[1] - b[1]),
+                b[2] + w * (c[2] - b[2]))
+    denom = 1.0 / (va + vb + vc)
+    v = vb * denom
+    w = vc * denom
+    return (a[0] + abx * v + acx * w, a[1] + aby * v + acy * w,
+            a[2] + abz * v + acz * w)
+
+
+@numba.njit(cache=True, inline="always")
+def closest_on_prism(px, py, pz, tri, nrm, half):
+    """Closest point of the triangular prism ``tri`` (3, 3) (mid-plane triangle) times
+    ``[-half, half]`` along the unit normal ``nrm`` to ``p``: the prism is the product of
+    the triangle and an interval along a direction normal to it, so the closest point is
+    the closest point of the triangle to the projection of ``p`` on its plane, shifted
+    along the normal by the offset of ``p`` clamped to the interval."""
+    s = (nrm[0] * (px - tri[0, 0]) + nrm[1] * (py - tri[0, 1])
+         + nrm[2] * (pz - tri[0, 2]))
+    qx = px - s * nrm[0]
+    qy = py - s * nrm[1]
+    qz = pz - s * nrm[2]
+    fx, fy, fz = closest_on_triangle(qx, qy, qz, tri[0], tri[1], tri[2])
+    if s > half:
+        s = half
+    elif s < -half:
+        s = -half
+    return fx + s * nrm[0], fy + s * nrm[1], fz + s * nrm[2]
+
+
+@numba.njit(cache=True)
+def _fill_cells(lo_c, hi_c, dims, start, items):
+    fill = start[:-1].copy()
+    for p in range(lo_c.shape[0]):
+        for i in range(lo_c[p, 0], hi_c[p, 0] + 1):
+            for j in range(lo_c[p, 1], hi_c[p, 1] + 1):
+                for k in range(lo_c[p, 2], hi_c[p, 2] + 1):
+                    c = (i * dims[1] + j) * dims[2] + k
+                    items[fill[c]] = p
+                    fill[c] += 1
+
+
+@numba.njit(cache=True)
+def _count_cells(lo_c, hi_c, dims, cnt):
+    for p in range(lo_c.shape[0]):
+        for i in range(lo_c[p, 0], hi_c[p, 0] + 1):
+            for j in range(lo_c[p, 1], hi_c[p, 1] + 1):
+                for k in range(lo_c[p, 2], hi_c[p, 2] + 1):
+                    cnt[(i * dims[1] + j) * dims[2] + k] += 1
+
+
+def cell_lists(bmin, bmax, lo, size, dims):
+    """Primitives listed per cell of a uniform grid (origin ``lo``, edges ``size``,
+    ``dims`` cells per axis): every primitive whose box ``[bmin, bmax]`` meets the cell
+    (boxes are clipped to the grid). Returns CSR arrays ``start`` (ncells + 1) and
+    ``items``."""
+    dims = np.asarray(dims, np.int64)
+    lo_c = np.clip(np.floor((bmin - lo) / size).astype(np.int64), 0, dims - 1)
+    hi_c = np.clip(np.floor((bmax - lo) / size).astype(np.int64), 0, dims - 1)
+    cnt = np.zeros(int(np.prod(dims)), np.int64)
+    _count_cells(lo_c, hi_c, dims, cnt)
+    start = np.zeros(cnt.size + 1, np.int64)
+    np.cumsum(cnt, out=start[1:])
+    items = np.empty(int(start[-1]), np.int64)
+    _fill_cells(lo_c, hi_c, dims, start, items)
+    return start, items
+
+
+# ============================================================ voxel wall estimate
+#: Window half-width (voxels) and Gaussian width (voxel edges) of the wall normals.
+NORMAL_RADIUS = 3
+NORMAL_SIGMA = 1.5
+_NQ = 32767.0
+
+
+@numba.njit(cache=True, inline="always")
+def _in_phase(mask, i, j, k, periodic):
+    n0, n1, n2 = mask.shape
+    if periodic:
+        return mask[i % n0, j % n1, k % n2]
+    if i < 0 or j < 0 or k < 0 or i >= n0 or j >= n1 or k >= n2:
+        return False
+    return mask[i, j, k]
+
+
+@numba.njit(cache=True, inline="always")
+def gap_along(mask, bi, bj, bk, nx, ny, nz, rel, periodic):
+    """Gap along the unit normal ``n`` (pointing from the phase to the wall) between the
+    non-phase centre ``b`` and the phase centre among its 26 neighbours that lies
+    furthest along ``n``: ``min n . (b - a)`` (units of ``rel``), at least 0; 0 when
+    ``b`` has no phase neighbour."""
+    g = np.inf
+    for a in range(-1, 2):
+        for b in range(-1, 2):
+            for e in range(-1, 2):
+                if a == 0 and b == 0 and e == 0:
+                    continue
+                if _in_phase(mask, bi + a, bj + b, bk + e, periodic):
+                    v = -(nx * a * rel[0] + ny * b * rel[1] + nz * e * rel[2])
+                    if v < g:
+                        g = v
+    if g == np.inf or g < 0.0:
+        return 0.0
+    return g
+
+
+@numba.njit(cache=True, parallel=True)
+def _wall_normals(mask, F, rel, periodic, R, sigma, gscale):
+    n0, n1, n2 = mask.shape
+    inv = 1.0 / (2.0 * sigma * sigma)
+    for i in numba.prange(n0):
+        for j in range(n1):
+            for k in range(n2):
+                if mask[i, j, k]:
+                    continue
+                if not (_in_phase(mask, i - 1, j, k, periodic)
+                        or _in_phase(mask, i + 1, j, k, periodic)
+                        or _in_phase(mask, i, j - 1, k, periodic)
+                        or _in_phase(mask, i, j + 1, k, periodic)
+                        or _in_phase(mask, i, j, k - 1, periodic)
+                        or _in_phase(mask, i, j, k + 1, periodic)):
+                    F[i, j, k, 0] = 0
+                    F[i, j, k, 1] = 0
+                    F[i, j, k, 2] = 0
+                    continue
+                sx = 0.0
+                sy = 0.0
+                sz = 0.0
+                for a in range(-R, R + 1):
+                    oa = a * rel[0]
+                    for b in range(-R, R + 1):
+                        ob = b * rel[1]
+                        for e in range(-R, R + 1):
+                            if not _in_phase(mask, i + a, j + b, k + e, periodic):
+                                continue
+                            oe = e * rel[2]
+                            w = math.exp(-(oa * oa + ob * ob + oe * oe) * inv)
+                            sx -= w * oa
+                            sy -= w * ob
+                            sz -= w * oe
+                L = math.sqrt(sx * sx + sy * sy + sz * sz)
+                if L == 0.0:  # symmetric surroundings: any phase face neighbour
+                    sx, sy, sz = 0.0, 0.0, 0.0
+                    if _in_phase(mask, i - 1, j, k, periodic):
+                        sx = 1.0
+                    elif _in_phase(mask, i + 1, j, k, periodic):
+                        sx = -1.0
+                    elif _in_phase(mask, i, j - 1, k, periodic):
+                        sy = 1.0
+                    elif _in_phase(mask, i, j + 1, k, periodic):
+                        sy = -1.0
+                    elif _in_phase(mask, i, j, k - 1, periodic):
+                        sz = 1.0
+                    else:
+                        sz = -1.0
+                    L = 1.0
+                nx = sx / L
+                ny = sy / L
+                nz = sz / L
+                g = gap_along(mask, i, j, k, nx, ny, nz, rel, periodic)
+                F[i, j, k, 0] = np.int16(round(nx * _NQ))
+                F[i, j, k, 1] = np.int16(round(ny * _NQ))
+                q = min(int(round(g / gscale)), 32000) + 1
+                F[i, j, k, 2] = np.int16(q if nz >= 0.0 else -q)
+
+
+def wall_normals(mask, F, rel, *, periodic=False):
+    """Write the voxel estimate of the wall into ``F`` (from :func:`feature_transform`) at
+    every non-phase voxel with a phase face neighbour: the unit normal (from the phase
+    towards the wall) is minus the Gaussian-weighted mean offset of the phase centres in
+    the ``(2 R + 1)^3`` window (``R`` = :data:`NORMAL_RADIUS`, width
+    :data:`NORMAL_SIGMA` voxel edges; the gradient of the smoothed phase indicator), and
+    the gap is :func:`gap_along` that normal. Read back with :func:`wall_at`."""
+    rel = np.asarray(rel, np.float64)
+    hc = float(np.prod(rel) ** (1.0 / 3.0))
+    _wall_normals(np.ascontiguousarray(mask, dtype=np.bool_), F, rel, bool(periodic),
+                  NORMAL_RADIUS, NORMAL_SIGMA * hc, gap_scale(rel))
+
+
+def gap_scale(rel):
+    return float(np.sqrt(np.sum(np.asarray(rel, float) ** 2))) / 32000.0
+
+
+@numba.njit(cache=True, inline="always")
+def wall_at(F, bi, bj, bk, rel, periodic, gscale):
+    """The wall estimate at the non-phase centre ``b`` (unwrapped indices): unit normal
+    and gap (:func:`wall_normals`); a centre beyond a face of a non-periodic grid (the
+    border wall) has the face's normal and a gap of one voxel edge."""
+    n0, n1, n2 = F.shape[0], F.shape[1], F.shape[2]
+    if periodic:
+        bi %= n0
+        bj %= n1
+        bk %= n2
+    else:
+        if bi < 0:
+            return -1.0, 0.0, 0.0, rel[0]
+        if bi >= n0:
+            return 1.0, 0.0, 0.0, rel[0]
+        if bj < 0:
+            return 0.0, -1.0, 0.0, rel[1]
+        if bj >= n1:
+            return 0.0, 1.0, 0.0, rel[1]
+        if bk < 0:
+            return 0.0, 0.0, -1.0, rel[2]
+        if bk >= n2:
+            return 0.0, 0.0, 1.0, rel[2]
+    nx = F[bi, bj, bk, 0] / _NQ
+    ny = F[bi, bj, bk, 1] / _NQ
+    q = np.int64(F[bi, bj, bk, 2])
+    nz = math.sqrt(max(0.0, 1.0 - nx * nx - ny * ny))
+    if q < 0:
+        nz = -nz
+        q = -q
+    return nx, ny, nz, (q - 1) * gscale

@@ -56,10 +56,11 @@ import numpy as np
 from numba.cpython.unsafe.numbers import trailing_zeros as _tz
 
 from ..errors import OptionError
-from ..grid import GEL, OUTSIDE, PhaseGrid, _phase_code
+from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, _phase_code
+from ..structure import Structure, SurfaceBody
 from ..threads import budget
-from ._walls import NONE as _WNONE
-from ._walls import feature_transform
+from ._walls import (NONE, cell_lists, closest_on_prism, closest_on_triangle, feature_transform,
+                     gap_scale, wall_at, wall_normals)
 
 # 26-neighbour offsets
 _OFFS = np.array([(a, b, c) for a in (-1, 0, 1) for b in (-1, 0, 1) for c in (-1, 0, 1)
@@ -925,47 +926,17 @@ def _lp_maxmin(Nn, c, k, r, T, rhs, obj, basis, nonb, out):
     return out[3] + t0
 
 
-@numba.njit(cache=True, inline="always")
-def _phase_at(mask, i, j, k, periodic):
-    n0, n1, n2 = mask.shape
-    if periodic:
-        return mask[i % n0, j % n1, k % n2]
-    if i < 0 or j < 0 or k < 0 or i >= n0 or j >= n1 or k >= n2:
-        return False
-    return mask[i, j, k]
-
-
-@numba.njit(cache=True)
-def _gap(mask, bi, bj, bk, nx, ny, nz, rel, periodic):
-    """Gap along the unit normal ``n`` (from the phase towards the wall) between the
-    non-phase centre ``b`` and the phase centre among its 26 neighbours that lies
-    furthest along ``n``: ``min n . (b - a)`` (internal units), at least 0; 0 when ``b``
-    has no phase neighbour."""
-    g = np.inf
-    for a in range(-1, 2):
-        for b in range(-1, 2):
-            for e in range(-1, 2):
-                if a == 0 and b == 0 and e == 0:
-                    continue
-                if _phase_at(mask, bi + a, bj + b, bk + e, periodic):
-                    v = -(nx * a * rel[0] + ny * b * rel[1] + nz * e * rel[2])
-                    if v < g:
-                        g = v
-    if g == np.inf or g < 0.0:
-        return 0.0
-    return g
-
-
 @numba.njit(cache=True, parallel=True)
-def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, zc, rho2, A, Dx, nchunk,
-                  thin=-1.0):
+def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, zc, rho2, A, Dx,
+                  nchunk):
     """Sub-voxel ball of each candidate centre (the voxel path of :func:`local_thickness`,
-    definitions in its docstring). Per candidate ``x`` (flat index): the wall planes seen
-    from its 27-neighbourhood, the linear programme for the largest ball about which all
-    of them hold within ``box`` voxels of ``x``, then the bracket estimate of the wall
-    distance at that centre and at ``x``. Writes the centre offset ``zc`` (internal
-    units), the squared coverage radius ``rho2``, and the estimated radii ``A`` (refined
-    ball) and ``Dx`` (ball at ``x``)."""
+    definitions in the module docstring). Per candidate ``x`` (flat index): the wall
+    planes at the features of its 27-neighbourhood (:func:`wall_at`), the linear
+    programme for the largest ball about which all of them hold within ``box`` voxels
+    of ``x``, then the bracket estimate of the wall distance at that centre and at
+    ``x``. Writes the centre offset ``zc`` (internal units), the squared coverage
+    radius ``rho2`` (0: no refined ball, for candidates thinned out by ``thin``), and the
+    estimated radii ``A`` (refined ball) and ``Dx`` (ball at ``x``)."""
     n0, n1, n2 = mask.shape
     nc = cand.size
     r = np.empty(3)
@@ -978,7 +949,6 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, zc, rho2, A, Dx, n
         c = np.empty(27)
         gap = np.empty(27)
         ov = np.empty(27)
-        srt = np.empty(27, np.int64)
         T = np.empty((30, 4))
         rhs = np.empty(30)
         obj = np.empty(4)
@@ -990,6 +960,8 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, zc, rho2, A, Dx, n
             i = f // (n1 * n2)
             j = (f // n2) % n1
             k = f % n2
+            dx_ = math.sqrt(d2[i, j, k])
+            refine = True
             npl = 0
             for a in range(-1, 2):
                 for b in range(-1, 2):
@@ -1006,48 +978,39 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, zc, rho2, A, Dx, n
                         if not mask[ii, jj, kk]:
                             continue
                         f0 = F[ii, jj, kk, 0]
-                        if f0 == _WNONE:
+                        if f0 == NONE:
                             continue
-                        f1 = F[ii, jj, kk, 1]
-                        f2 = F[ii, jj, kk, 2]
-                        v0 = f0 * rel[0]
-                        v1 = f1 * rel[1]
-                        v2 = f2 * rel[2]
-                        L = math.sqrt(v0 * v0 + v1 * v1 + v2 * v2)
-                        Nn[npl, 0] = v0 / L
-                        Nn[npl, 1] = v1 / L
-                        Nn[npl, 2] = v2 / L
-                        Bi[npl, 0] = i + a + f0
-                        Bi[npl, 1] = j + b + f1
-                        Bi[npl, 2] = k + e + f2
-                        Bp[npl, 0] = (a + f0) * rel[0]
-                        Bp[npl, 1] = (b + f1) * rel[1]
-                        Bp[npl, 2] = (e + f2) * rel[2]
-                        c[npl] = Nn[npl, 0] * Bp[npl, 0] + Nn[npl, 1] * Bp[npl, 1] \
-                            + Nn[npl, 2] * Bp[npl, 2]
-                        gap[npl] = -1.0
-                        npl += 1
-            refine = True
-            if thin >= 0.0:
-                dx_ = math.sqrt(d2[i, j, k])
-                for a in range(-1, 2):
-                    for b in range(-1, 2):
-                        for e in range(-1, 2):
-                            if a == 0 and b == 0 and e == 0:
-                                continue
-                            ii = i + a
-                            jj = j + b
-                            kk = k + e
-                            if periodic:
-                                ii %= n0
-                                jj %= n1
-                                kk %= n2
-                            elif ii < 0 or jj < 0 or kk < 0 or ii >= n0 or jj >= n1 or kk >= n2:
-                                continue
+                        if thin >= 0.0 and (a != 0 or b != 0 or e != 0):
                             if math.sqrt(d2[ii, jj, kk]) - math.sqrt(
                                     (a * rel[0]) ** 2 + (b * rel[1]) ** 2 + (e * rel[2]) ** 2) \
                                     >= dx_ - thin:
                                 refine = False
+                        bi = i + a + f0
+                        bj = j + b + F[ii, jj, kk, 1]
+                        bk = k + e + F[ii, jj, kk, 2]
+                        dup = False
+                        for q in range(npl):
+                            if Bi[q, 0] == bi and Bi[q, 1] == bj and Bi[q, 2] == bk:
+                                dup = True
+                                break
+                        if dup:
+                            continue
+                        nx, ny, nz, g = wall_at(F, bi, bj, bk, rel, periodic, gscale)
+                        Nn[npl, 0] = nx
+                        Nn[npl, 1] = ny
+                        Nn[npl, 2] = nz
+                        gap[npl] = g
+                        Bi[npl, 0] = bi
+                        Bi[npl, 1] = bj
+                        Bi[npl, 2] = bk
+                        Bp[npl, 0] = (bi - i) * rel[0]
+                        Bp[npl, 1] = (bj - j) * rel[1]
+                        Bp[npl, 2] = (bk - k) * rel[2]
+                        c[npl] = nx * Bp[npl, 0] + ny * Bp[npl, 1] + nz * Bp[npl, 2]
+                        npl += 1
+            z0 = 0.0
+            z1 = 0.0
+            z2 = 0.0
             if refine:
                 # only planes that can bind somewhere in the box go to the programme
                 # (moved to the front; the bracket below uses them all)
@@ -1066,24 +1029,27 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, zc, rho2, A, Dx, n
                                 Bp[nk, a], Bp[q, a] = Bp[q, a], Bp[nk, a]
                                 Bi[nk, a], Bi[q, a] = Bi[q, a], Bi[nk, a]
                             c[nk], c[q] = c[q], c[nk]
+                            gap[nk], gap[q] = gap[q], gap[nk]
                         nk += 1
-                aout = _lp_maxmin(Nn, c, nk, r, T, rhs, obj, basis, nonb, sol)
+                _lp_maxmin(Nn, c, nk, r, T, rhs, obj, basis, nonb, sol)
                 z0, z1, z2 = sol[0], sol[1], sol[2]
+                best = np.inf
+                for q in range(npl):
+                    d0 = Bp[q, 0] - z0
+                    d1 = Bp[q, 1] - z1
+                    d2_ = Bp[q, 2] - z2
+                    dd = d0 * d0 + d1 * d1 + d2_ * d2_
+                    if dd < best:
+                        best = dd
+                rho2[t] = best
             else:
-                z0, z1, z2 = 0.0, 0.0, 0.0
-            best = np.inf
-            for q in range(npl):
-                d0 = Bp[q, 0] - z0
-                d1 = Bp[q, 1] - z1
-                d2_ = Bp[q, 2] - z2
-                dd = d0 * d0 + d1 * d1 + d2_ * d2_
-                if dd < best:
-                    best = dd
-            rho2[t] = best if refine else 0.0
+                rho2[t] = 0.0
             zc[t, 0] = z0
             zc[t, 1] = z1
             zc[t, 2] = z2
-            # bracket at the refined centre (pass 0, refined candidates only) and at x
+            # bracket at the refined centre (pass 0) and at x (pass 1): the wall lies
+            # between the nearest wall plane through a non-phase centre and the furthest
+            # phase centre next to those planes, measured along each plane's normal
             for pass_ in range(2):
                 if pass_ == 0 and not refine:
                     A[t] = 0.0
@@ -1095,33 +1061,254 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, zc, rho2, A, Dx, n
                     ov[q] = o
                     if o < lo:
                         lo = o
-                # planes by decreasing offset: the first ones with a small gap set ``hi``
-                for q in range(npl):
-                    srt[q] = q
-                for q in range(1, npl):
-                    u = srt[q]
-                    w = q - 1
-                    while w >= 0 and ov[srt[w]] < ov[u]:
-                        srt[w + 1] = srt[w]
-                        w -= 1
-                    srt[w + 1] = u
                 hi = -np.inf
-                for w in range(npl):
-                    q = srt[w]
-                    o = ov[q]
-                    if o <= hi:
-                        break
-                    if o > lo + tau:
-                        continue
-                    if gap[q] < 0.0:
-                        gap[q] = _gap(mask, Bi[q, 0], Bi[q, 1], Bi[q, 2], Nn[q, 0], Nn[q, 1],
-                                      Nn[q, 2], rel, periodic)
-                    if o - gap[q] > hi:
-                        hi = o - gap[q]
+                for q in range(npl):
+                    if ov[q] <= lo + tau and ov[q] - gap[q] > hi:
+                        hi = ov[q] - gap[q]
+                if hi > lo:
+                    hi = lo
                 if pass_ == 0:
                     A[t] = 0.5 * (lo + hi)
                 else:
                     Dx[t] = 0.5 * (lo + hi)
+
+
+#: Most wall primitives (prisms, triangles) gathered about one candidate centre.
+_MAXPRIM = 192
+#: Most half-spaces in one linear programme of the exact path.
+_MAXPL = 40
+
+
+@numba.njit(cache=True, inline="always")
+def _prim_foot(kind, tri, nrm, half, p, px, py, pz):
+    if kind == 0:
+        return closest_on_prism(px, py, pz, tri[p], nrm[p], half[p])
+    return closest_on_triangle(px, py, pz, tri[p, 0], tri[p, 1], tri[p, 2])
+
+
+@numba.njit(cache=True)
+def _exact_walls(kind, tri, nrm, half, prim, shf, npr, dom, dpar, vpl, nvp, xc, z0, z1, z2,
+                 Nn, c, dist, cap):
+    """Wall distance at ``xc + z`` (nm) over the gathered walls (primitives ``prim`` with
+    image shifts ``shf``, the domain, the voxel planes ``vpl``), and, when ``cap > 0``,
+    the linearised walls as half-spaces ``Nn . z' + t <= c`` (at most ``cap``, nearest
+    first). Returns (distance, number of half-spaces)."""
+    px = xc[0] + z0
+    py = xc[1] + z1
+    pz = xc[2] + z2
+    nw = 0
+    best = np.inf
+    for q in range(npr):
+        p = prim[q]
+        sx = px - shf[q, 0]
+        sy = py - shf[q, 1]
+        sz = pz - shf[q, 2]
+        fx, fy, fz = _prim_foot(kind, tri, nrm, half, p, sx, sy, sz)
+        ux, uy, uz = sx - fx, sy - fy, sz - fz
+        d = math.sqrt(ux * ux + uy * uy + uz * uz)
+        if d < best:
+            best = d
+        if cap > 0 and d > 0.0:
+            dist[nw] = d
+            Nn[nw, 0] = -ux / d
+            Nn[nw, 1] = -uy / d
+            Nn[nw, 2] = -uz / d
+            # D(z') ~ u . (xc + z' - f - shift) = d + u . (z' - z)
+            c[nw] = d - (ux * z0 + uy * z1 + uz * z2) / d
+            nw += 1
+    if dom == 1:  # sphere: D = R - |p - C|
+        ux, uy, uz = px - dpar[0], py - dpar[1], pz - dpar[2]
+        L = math.sqrt(ux * ux + uy * uy + uz * uz)
+        d = dpar[3] - L
+        if d < best:
+            best = d
+        if cap > 0 and L > 0.0:
+            dist[nw] = d
+            Nn[nw, 0] = ux / L
+            Nn[nw, 1] = uy / L
+            Nn[nw, 2] = uz / L
+            c[nw] = d + (ux * z0 + uy * z1 + uz * z2) / L
+            nw += 1
+    elif dom == 2:  # box faces
+        for a in range(3):
+            pa = px if a == 0 else (py if a == 1 else pz)
+            za = z0 if a == 0 else (z1 if a == 1 else z2)
+            for side in range(2):
+                d = pa - dpar[a] if side == 0 else dpar[3 + a] - pa
+                if d < best:
+                    best = d
+                if cap > 0:
+                    dist[nw] = d
+                    for b in range(3):
+                        Nn[nw, b] = 0.0
+                    Nn[nw, a] = -1.0 if side == 0 else 1.0
+                    c[nw] = d - za if side == 0 else d + za
+                    nw += 1
+    for q in range(nvp):  # voxel planes: D = n . (w - z')
+        d = vpl[q, 3] - (vpl[q, 0] * z0 + vpl[q, 1] * z1 + vpl[q, 2] * z2)
+        if d < best:
+            best = d
+        if cap > 0:
+            dist[nw] = d
+            Nn[nw, 0] = vpl[q, 0]
+            Nn[nw, 1] = vpl[q, 1]
+            Nn[nw, 2] = vpl[q, 2]
+            c[nw] = vpl[q, 3]
+            nw += 1
+    if cap > 0 and nw > cap:  # keep the nearest ``cap`` (partial selection)
+        for a in range(cap):
+            mi = a
+            for b in range(a + 1, nw):
+                if dist[b] < dist[mi]:
+                    mi = b
+            if mi != a:
+                dist[a], dist[mi] = dist[mi], dist[a]
+                c[a], c[mi] = c[mi], c[a]
+                for e in range(3):
+                    Nn[a, e], Nn[mi, e] = Nn[mi, e], Nn[a, e]
+        nw = cap
+    return best, nw
+
+
+@numba.njit(cache=True, parallel=True)
+def _refine_exact(mask, labels, solid, F, cand, sp, org, periodic, box, kind, tri, nrm, half,
+                  cstart, citems, clo, csize, cdims, dom, dpar, zc, A, Dx, nchunk, niter,
+                  overflow, rel, unit, gscale):
+    """Exact path of :func:`exact_local_thickness`: per candidate centre ``x``, the
+    walls near the features of its 27-neighbourhood (prisms or triangles from the cell
+    lists, the domain wall, voxel planes for non-pore voxels that are neither solid nor
+    outside), the refined centre by linear programmes on the walls linearised at the
+    current centre (``niter`` rounds within ``box`` voxels of ``x``), the exact wall
+    distance there (``A``) and at ``x`` (``Dx``), nm. ``zc`` gets the centre offset
+    (nm)."""
+    n0, n1, n2 = mask.shape
+    nc = cand.size
+    r = np.empty(3)
+    for a in range(3):
+        r[a] = box * sp[a]
+    for ch in numba.prange(nchunk):
+        prim = np.empty(_MAXPRIM, np.int64)
+        shf = np.empty((_MAXPRIM, 3))
+        vpl = np.empty((27, 4))
+        Nn = np.empty((_MAXPRIM + 34, 3))
+        c = np.empty(_MAXPRIM + 34)
+        dist = np.empty(_MAXPRIM + 34)
+        T = np.empty((_MAXPL + 3, 4))
+        rhs = np.empty(_MAXPL + 3)
+        obj = np.empty(4)
+        basis = np.empty(_MAXPL + 3, np.int64)
+        nonb = np.empty(4, np.int64)
+        sol = np.empty(4)
+        xc = np.empty(3)
+        for t in range(ch * nc // nchunk, (ch + 1) * nc // nchunk):
+            f = cand[t]
+            i = f // (n1 * n2)
+            j = (f // n2) % n1
+            k = f % n2
+            xc[0] = org[0] + (i + 0.5) * sp[0]
+            xc[1] = org[1] + (j + 0.5) * sp[1]
+            xc[2] = org[2] + (k + 0.5) * sp[2]
+            npr = 0
+            nvp = 0
+            for a in range(-1, 2):
+                for b in range(-1, 2):
+                    for e in range(-1, 2):
+                        ii = i + a
+                        jj = j + b
+                        kk = k + e
+                        if periodic:
+                            ii %= n0
+                            jj %= n1
+                            kk %= n2
+                        elif ii < 0 or jj < 0 or kk < 0 or ii >= n0 or jj >= n1 or kk >= n2:
+                            continue
+                        if not mask[ii, jj, kk]:
+                            continue
+                        f0 = F[ii, jj, kk, 0]
+                        if f0 == NONE:
+                            continue
+                        f1 = F[ii, jj, kk, 1]
+                        f2 = F[ii, jj, kk, 2]
+                        bi = i + a + f0
+                        bj = j + b + f1
+                        bk = k + e + f2
+                        inside = True
+                        if periodic:
+                            wi, wj, wk = bi % n0, bj % n1, bk % n2
+                        else:
+                            wi, wj, wk = bi, bj, bk
+                            inside = 0 <= bi < n0 and 0 <= bj < n1 and 0 <= bk < n2
+                        if inside and labels[wi, wj, wk] == solid:
+                            # primitives listed in the cell of the feature's centre
+                            bx = org[0] + (wi + 0.5) * sp[0]
+                            by = org[1] + (wj + 0.5) * sp[1]
+                            bz = org[2] + (wk + 0.5) * sp[2]
+                            ci_ = min(max(int((bx - clo[0]) / csize), 0), cdims[0] - 1)
+                            cj_ = min(max(int((by - clo[1]) / csize), 0), cdims[1] - 1)
+                            ck_ = min(max(int((bz - clo[2]) / csize), 0), cdims[2] - 1)
+                            cell = (ci_ * cdims[1] + cj_) * cdims[2] + ck_
+                            s0 = (bi - wi) * sp[0]
+                            s1 = (bj - wj) * sp[1]
+                            s2 = (bk - wk) * sp[2]
+                            for u in range(cstart[cell], cstart[cell + 1]):
+                                p = citems[u]
+                                seen = False
+                                for q in range(npr):
+                                    if prim[q] == p and shf[q, 0] == s0 and shf[q, 1] == s1 \
+                                            and shf[q, 2] == s2:
+                                        seen = True
+                                        break
+                                if seen:
+                                    continue
+                                if npr == _MAXPRIM:
+                                    overflow[ch] += 1
+                                    continue
+                                prim[npr] = p
+                                shf[npr, 0] = s0
+                                shf[npr, 1] = s1
+                                shf[npr, 2] = s2
+                                npr += 1
+                        elif inside and labels[wi, wj, wk] != 0:
+                            # a wall the geometry does not give (e.g. interlayer): the
+                            # voxel estimate, a plane midway between the feature and the
+                            # phase centre nearest the wall along the normal
+                            nx, ny, nz, g = wall_at(F, bi, bj, bk, rel, periodic, gscale)
+                            g *= unit
+                            wx = (a + f0) * sp[0] - 0.5 * g * nx
+                            wy = (b + f1) * sp[1] - 0.5 * g * ny
+                            wz = (e + f2) * sp[2] - 0.5 * g * nz
+                            vpl[nvp, 0] = nx
+                            vpl[nvp, 1] = ny
+                            vpl[nvp, 2] = nz
+                            vpl[nvp, 3] = nx * wx + ny * wy + nz * wz
+                            nvp += 1
+            z0 = 0.0
+            z1 = 0.0
+            z2 = 0.0
+            d0, _ = _exact_walls(kind, tri, nrm, half, prim, shf, npr, dom, dpar, vpl, nvp,
+                                 xc, 0.0, 0.0, 0.0, Nn, c, dist, 0)
+            for _ in range(niter):
+                _, nw = _exact_walls(kind, tri, nrm, half, prim, shf, npr, dom, dpar, vpl,
+                                     nvp, xc, z0, z1, z2, Nn, c, dist, _MAXPL)
+                if nw == 0:
+                    break
+                _lp_maxmin(Nn, c, nw, r, T, rhs, obj, basis, nonb, sol)
+                step = abs(sol[0] - z0) + abs(sol[1] - z1) + abs(sol[2] - z2)
+                z0, z1, z2 = sol[0], sol[1], sol[2]
+                if step < 1e-7 * (sp[0] + sp[1] + sp[2]):
+                    break
+            da, _ = _exact_walls(kind, tri, nrm, half, prim, shf, npr, dom, dpar, vpl, nvp,
+                                 xc, z0, z1, z2, Nn, c, dist, 0)
+            if not da > d0:
+                da = d0
+                z0 = 0.0
+                z1 = 0.0
+                z2 = 0.0
+            zc[t, 0] = z0
+            zc[t, 1] = z1
+            zc[t, 2] = z2
+            A[t] = da
+            Dx[t] = d0
 
 
 @numba.njit(cache=True, inline="always")
@@ -1388,9 +1575,10 @@ def _subvoxel_local_thickness(m, sp, periodic, out):
     rho2 = np.empty(nc, np.float32)
     A = np.empty(nc, np.float32)
     Dx = np.empty(nc, np.float32)
+    wall_normals(m, F, rel, periodic=periodic)
     _refine_voxel(m, F, d2, cand, np.asarray(rel, np.float64), bool(periodic), REFINE_BOX,
-                  float(np.max(rel)), zc, rho2, A, Dx,
-                  max(1, min(nc, 64 * numba.get_num_threads())), REFINE_THIN)
+                  float(np.max(rel)), gap_scale(rel), REFINE_THIN, zc, rho2, A, Dx,
+                  max(1, min(nc, 64 * numba.get_num_threads())))
     del F
     rr_lat = d2.reshape(-1)[cand]
     if out is None:
@@ -1441,6 +1629,143 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None,
     if method == "centres":
         return _centres_local_thickness(m, sp, periodic, out)
     return _subvoxel_local_thickness(m, sp, periodic, out)
+
+
+#: Rounds of linearised programmes per candidate on the exact path.
+EXACT_ROUNDS = 4
+
+
+def _wall_primitives(body, periodic_box, margin):
+    """Primitive arrays of a body (prisms of a Structure, triangles of a SurfaceBody),
+    with periodic images of those whose box, grown by ``margin``, crosses a face of a
+    periodic box. Returns ``kind`` (0 prisms, 1 triangles), ``tri`` (N, 3, 3), ``nrm``
+    (N, 3), ``half`` (N,), and the boxes ``bmin``, ``bmax`` (N, 3)."""
+    if isinstance(body, Structure):
+        tri = np.asarray(body.vertices, np.float64)
+        nrm = np.asarray(body.normals, np.float64)
+        half = 0.5 * np.asarray(body.thickness, np.float64)
+        ok = np.all(np.isfinite(nrm), axis=1) & np.isfinite(half) & (half > 0)
+        tri, nrm, half = tri[ok], nrm[ok], half[ok]
+        corners = np.concatenate([tri - half[:, None, None] * nrm[:, None, :],
+                                  tri + half[:, None, None] * nrm[:, None, :]], axis=1)
+        kind = 0
+    else:
+        tri = np.asarray(body.vertices, np.float64)[np.asarray(body.faces)]
+        nrm = np.zeros((len(tri), 3))
+        half = np.zeros(len(tri))
+        corners = tri
+        kind = 1
+    bmin = corners.min(axis=1) - margin
+    bmax = corners.max(axis=1) + margin
+    if periodic_box is not None:
+        lo, hi = (np.asarray(b, float) for b in periodic_box.bounds)
+        Lb = hi - lo
+        T, Nm, H, B0, B1 = [tri], [nrm], [half], [bmin], [bmax]
+        for sx in (-1, 0, 1):
+            for sy in (-1, 0, 1):
+                for sz in (-1, 0, 1):
+                    if sx == sy == sz == 0:
+                        continue
+                    sh = np.array([sx, sy, sz]) * Lb
+                    sel = np.all((bmax + sh > lo) & (bmin + sh < hi), axis=1)
+                    if sel.any():
+                        T.append(tri[sel] + sh)
+                        Nm.append(nrm[sel])
+                        H.append(half[sel])
+                        B0.append(bmin[sel] + sh)
+                        B1.append(bmax[sel] + sh)
+        tri, nrm, half = np.concatenate(T), np.concatenate(Nm), np.concatenate(H)
+        bmin, bmax = np.concatenate(B0), np.concatenate(B1)
+    return (kind, np.ascontiguousarray(tri), np.ascontiguousarray(nrm),
+            np.ascontiguousarray(half), bmin, bmax)
+
+
+def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np.ndarray:
+    """Local thickness (nm) of the pore space of a grid rasterized from prisms or a closed
+    mesh, from exact distances to the geometry.
+
+    Parameters
+    ----------
+    grid : PhaseGrid
+        Made from ``body`` (:func:`sheetview.measures.phases.classify`,
+        :func:`sheetview.grid.rasterize` or :func:`sheetview.grid.rasterize_body`):
+        SOLID voxels are inside the body, OUTSIDE voxels outside its domain.
+    body : Structure or SurfaceBody
+    phases : phase codes or names, optional
+        The pore space; default every phase but outside, solid and interlayer (the gel
+        pores and any size classes).
+    out : float32 array of the grid's shape, optional
+
+    Returns
+    -------
+    float32 array, NaN off the phases.
+
+    The method is that of :func:`local_thickness` (``method="subvoxel"``) with the wall
+    distances taken from the geometry (module docstring, "Exact geometry").
+    """
+    if not isinstance(grid, PhaseGrid):
+        raise OptionError(f"exact local thickness needs a PhaseGrid, not {type(grid).__name__}",
+                          field="grid")
+    if not isinstance(body, (Structure, SurfaceBody)):
+        raise OptionError(f"exact local thickness needs a Structure or a SurfaceBody, not "
+                          f"{type(body).__name__}", field="body")
+    if phases is None:
+        codes = [c for c in grid.names if c not in (OUTSIDE, SOLID, INTERLAYER)]
+    else:
+        if isinstance(phases, (str, int, np.integer)):
+            phases = (phases,)
+        codes = [_phase_code(p, grid.names) for p in phases]
+    if SOLID in codes or OUTSIDE in codes:
+        raise OptionError("the pore phases cannot include solid or outside voxels",
+                          field="phases")
+    labels = np.ascontiguousarray(grid.labels)
+    m = np.isin(labels, np.asarray(codes, dtype=np.uint8))
+    m, sp = _check_mask(m, grid.spacing)
+    if out is not None and (not isinstance(out, np.ndarray) or out.shape != m.shape
+                            or out.dtype != np.float32 or not out.flags.c_contiguous):
+        raise OptionError(f"out must be a C-contiguous float32 array of shape {m.shape}",
+                          field="out")
+    periodic = bool(grid.periodic)
+    unit, rel, _ = _units(sp)
+    if periodic and m.all():
+        raise OptionError("the phase fills the whole periodic grid: it has no wall, so its "
+                          "pore sizes are undefined", field="phases")
+    dom = body.domain
+    org = np.asarray(grid.origin, np.float64)
+    hmax = float(sp.max())
+    kind, tri, nrm, half, bmin, bmax = _wall_primitives(
+        body, dom if periodic else None, 2.0 * hmax)
+    ext = np.asarray(m.shape) * sp
+    csize = max(2.5 * hmax, float(np.prod(ext) / 4e6) ** (1 / 3))
+    cdims = np.maximum(np.ceil(ext / csize).astype(np.int64), 1)
+    cstart, citems = cell_lists(bmin, bmax, org, csize, cdims)
+    if periodic or dom is None:
+        dkind, dpar = 0, np.zeros(6)
+    elif getattr(dom, "shape", None) == "sphere":
+        dkind, dpar = 1, np.array([*dom.center, dom.radius, 0.0, 0.0])
+    else:
+        dkind, dpar = 2, np.array([*dom.min, *dom.max], dtype=np.float64)
+    F, d2 = feature_transform(m, rel, periodic=periodic)
+    wall_normals(m, F, rel, periodic=periodic)
+    cand = _candidates(d2, rel, periodic)
+    nc = cand.size
+    zc = np.empty((nc, 3), np.float64)
+    A = np.empty(nc, np.float64)
+    Dx = np.empty(nc, np.float64)
+    nchunk = max(1, min(nc, 64 * numba.get_num_threads()))
+    overflow = np.zeros(nchunk, np.int64)
+    _refine_exact(m, labels, np.uint8(SOLID), F, cand, sp, org, periodic, REFINE_BOX, kind,
+                  tri, nrm, half, cstart, citems, org, csize, cdims, dkind, dpar, zc, A,
+                  Dx, nchunk, EXACT_ROUNDS, overflow, np.asarray(rel, np.float64), unit,
+                  gap_scale(rel))
+    del F
+    rr_lat = d2.reshape(-1)[cand]
+    if out is None:
+        out = d2
+    _paint_refined(m, cand, (zc / unit).astype(np.float32), ((A / unit) ** 2).astype(np.float32),
+                   rr_lat, 2.0 * A, 2.0 * Dx, rel, periodic, out)
+    out[~m] = np.nan
+    return out
 
 
 # ================================================================== intrusion
