@@ -143,10 +143,16 @@ class Context:
 
     @cached_property
     def pore_thickness(self) -> np.ndarray:
-        """Local thickness (nm; NaN off the pores) of the gel pore space of the base grid."""
-        from .measures.pores import local_thickness
+        """Local thickness (nm; NaN off the pores) of the gel pore space of the base grid:
+        from exact distances to the prisms or mesh and the domain wall when the input is
+        a Structure or SurfaceBody (:func:`~sheetview.measures.pores.exact_local_thickness`),
+        else from the voxels (:func:`~sheetview.measures.pores.local_thickness`)."""
+        from .measures.pores import exact_local_thickness, local_thickness
         g = self.base_grid
-        mask = np.isin(g.labels, [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)])
+        codes = [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)]
+        if isinstance(self.obj, (Structure, SurfaceBody)):
+            return self.stage("local thickness", exact_local_thickness, g, self.obj, codes)
+        mask = np.isin(g.labels, codes)
         return self.stage("local thickness", local_thickness, mask, g.spacing,
                           periodic=g.periodic)
 

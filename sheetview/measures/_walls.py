@@ -348,7 +348,7 @@ def cell_lists(bmin, bmax, lo, size, dims):
 
 # ============================================================ voxel wall estimate
 #: Window half-width (voxels) and Gaussian width (voxel edges) of the wall normals.
-NORMAL_RADIUS = 3
+NORMAL_RADIUS = 4
 NORMAL_SIGMA = 1.5
 _NQ = 32767.0
 
@@ -388,6 +388,17 @@ def gap_along(mask, bi, bj, bk, nx, ny, nz, rel, periodic):
 def _wall_normals(mask, F, rel, periodic, R, sigma, gscale):
     n0, n1, n2 = mask.shape
     inv = 1.0 / (2.0 * sigma * sigma)
+    W = np.empty((2 * R + 1, 2 * R + 1, 2 * R + 1, 3))  # weight times offset
+    for a in range(-R, R + 1):
+        for b in range(-R, R + 1):
+            for e in range(-R, R + 1):
+                oa = a * rel[0]
+                ob = b * rel[1]
+                oe = e * rel[2]
+                w = math.exp(-(oa * oa + ob * ob + oe * oe) * inv)
+                W[a + R, b + R, e + R, 0] = w * oa
+                W[a + R, b + R, e + R, 1] = w * ob
+                W[a + R, b + R, e + R, 2] = w * oe
     for i in numba.prange(n0):
         for j in range(n1):
             for k in range(n2):
@@ -406,18 +417,18 @@ def _wall_normals(mask, F, rel, periodic, R, sigma, gscale):
                 sx = 0.0
                 sy = 0.0
                 sz = 0.0
+                inner = R <= i < n0 - R and R <= j < n1 - R and R <= k < n2 - R
                 for a in range(-R, R + 1):
-                    oa = a * rel[0]
                     for b in range(-R, R + 1):
-                        ob = b * rel[1]
                         for e in range(-R, R + 1):
-                            if not _in_phase(mask, i + a, j + b, k + e, periodic):
+                            if inner:
+                                if not mask[i + a, j + b, k + e]:
+                                    continue
+                            elif not _in_phase(mask, i + a, j + b, k + e, periodic):
                                 continue
-                            oe = e * rel[2]
-                            w = math.exp(-(oa * oa + ob * ob + oe * oe) * inv)
-                            sx -= w * oa
-                            sy -= w * ob
-                            sz -= w * oe
+                            sx -= W[a + R, b + R, e + R, 0]
+                            sy -= W[a + R, b + R, e + R, 1]
+                            sz -= W[a + R, b + R, e + R, 2]
                 L = math.sqrt(sx * sx + sy * sy + sz * sz)
                 if L == 0.0:  # symmetric surroundings: any phase face neighbour
                     sx, sy, sz = 0.0, 0.0, 0.0

@@ -60,7 +60,7 @@ from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, _phase_code
 from ..structure import Structure, SurfaceBody
 from ..threads import budget
 from ._walls import (NONE, cell_lists, closest_on_prism, closest_on_triangle, feature_transform,
-                     gap_scale, wall_at, wall_normals)
+                     gap_along, gap_scale, wall_at, wall_normals)
 
 # 26-neighbour offsets
 _OFFS = np.array([(a, b, c) for a in (-1, 0, 1) for b in (-1, 0, 1) for c in (-1, 0, 1)
@@ -927,8 +927,8 @@ def _lp_maxmin(Nn, c, k, r, T, rhs, obj, basis, nonb, out):
 
 
 @numba.njit(cache=True, parallel=True)
-def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, zc, rho2, A, Dx,
-                  nchunk):
+def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, hview, cone, zc,
+                  rho2, A, Dx, nchunk):
     """Sub-voxel ball of each candidate centre (the voxel path of :func:`local_thickness`,
     definitions in the module docstring). Per candidate ``x`` (flat index): the wall
     planes at the features of its 27-neighbourhood (:func:`wall_at`), the linear
@@ -985,17 +985,42 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, zc, 
                                     (a * rel[0]) ** 2 + (b * rel[1]) ** 2 + (e * rel[2]) ** 2) \
                                     >= dx_ - thin:
                                 refine = False
+                        f1 = F[ii, jj, kk, 1]
+                        f2 = F[ii, jj, kk, 2]
                         bi = i + a + f0
-                        bj = j + b + F[ii, jj, kk, 1]
-                        bk = k + e + F[ii, jj, kk, 2]
+                        bj = j + b + f1
+                        bk = k + e + f2
+                        nx, ny, nz, g = wall_at(F, bi, bj, bk, rel, periodic, gscale)
+                        # the viewing direction (y to its feature) and the wall normal at
+                        # the feature: the normal if within the angle one voxel edge of
+                        # lateral offset of the feature allows, else the direction that
+                        # far from the viewing direction towards the normal
+                        v0 = f0 * rel[0]
+                        v1 = f1 * rel[1]
+                        v2 = f2 * rel[2]
+                        Lv = math.sqrt(v0 * v0 + v1 * v1 + v2 * v2)
+                        v0 /= Lv
+                        v1 /= Lv
+                        v2 /= Lv
+                        cth = min(1.0, max(-1.0, v0 * nx + v1 * ny + v2 * nz))
+                        th = math.acos(cth)
+                        thmax = math.atan(hview / Lv)
+                        if th > thmax:
+                            st = math.sin(th)
+                            wa = math.sin(th - thmax) / st
+                            wb = math.sin(thmax) / st
+                            nx = wa * v0 + wb * nx
+                            ny = wa * v1 + wb * ny
+                            nz = wa * v2 + wb * nz
+                            g = -1.0  # measured along this direction when needed
                         dup = False
                         for q in range(npl):
-                            if Bi[q, 0] == bi and Bi[q, 1] == bj and Bi[q, 2] == bk:
+                            if Bi[q, 0] == bi and Bi[q, 1] == bj and Bi[q, 2] == bk \
+                                    and Nn[q, 0] == nx and Nn[q, 1] == ny and Nn[q, 2] == nz:
                                 dup = True
                                 break
                         if dup:
                             continue
-                        nx, ny, nz, g = wall_at(F, bi, bj, bk, rel, periodic, gscale)
                         Nn[npl, 0] = nx
                         Nn[npl, 1] = ny
                         Nn[npl, 2] = nz
@@ -1047,9 +1072,11 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, zc, 
             zc[t, 0] = z0
             zc[t, 1] = z1
             zc[t, 2] = z2
-            # bracket at the refined centre (pass 0) and at x (pass 1): the wall lies
-            # between the nearest wall plane through a non-phase centre and the furthest
-            # phase centre next to those planes, measured along each plane's normal
+            # bracket at the refined centre (pass 0) and at x (pass 1): for each wall
+            # direction (the planes whose normals lie within ``cone`` of one plane's), the
+            # wall lies between the nearest plane through a non-phase centre and the
+            # furthest phase centre next to those planes, both measured along each
+            # plane's normal; the estimate is the least of the brackets' midpoints
             for pass_ in range(2):
                 if pass_ == 0 and not refine:
                     A[t] = 0.0
@@ -1061,16 +1088,36 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, zc, 
                     ov[q] = o
                     if o < lo:
                         lo = o
-                hi = -np.inf
+                est = np.inf
                 for q in range(npl):
-                    if ov[q] <= lo + tau and ov[q] - gap[q] > hi:
-                        hi = ov[q] - gap[q]
-                if hi > lo:
-                    hi = lo
+                    if ov[q] > lo + tau:
+                        continue
+                    lq = np.inf
+                    for u in range(npl):
+                        if ov[u] < lq and (Nn[q, 0] * Nn[u, 0] + Nn[q, 1] * Nn[u, 1]
+                                           + Nn[q, 2] * Nn[u, 2]) >= cone:
+                            lq = ov[u]
+                    hq = -np.inf
+                    for u in range(npl):
+                        if ov[u] > lq + tau or ov[u] <= hq:
+                            continue
+                        if (Nn[q, 0] * Nn[u, 0] + Nn[q, 1] * Nn[u, 1]
+                                + Nn[q, 2] * Nn[u, 2]) < cone:
+                            continue
+                        if gap[u] < 0.0:
+                            gap[u] = gap_along(mask, Bi[u, 0], Bi[u, 1], Bi[u, 2], Nn[u, 0],
+                                               Nn[u, 1], Nn[u, 2], rel, periodic)
+                        if ov[u] - gap[u] > hq:
+                            hq = ov[u] - gap[u]
+                    if hq > lq:
+                        hq = lq
+                    mid = 0.5 * (lq + hq)
+                    if mid < est:
+                        est = mid
                 if pass_ == 0:
-                    A[t] = 0.5 * (lo + hi)
+                    A[t] = est
                 else:
-                    Dx[t] = 0.5 * (lo + hi)
+                    Dx[t] = est
 
 
 #: Most wall primitives (prisms, triangles) gathered about one candidate centre.
@@ -1238,8 +1285,9 @@ def _refine_exact(mask, labels, solid, F, cand, sp, org, periodic, box, kind, tr
                         else:
                             wi, wj, wk = bi, bj, bk
                             inside = 0 <= bi < n0 and 0 <= bj < n1 and 0 <= bk < n2
-                        if inside and labels[wi, wj, wk] == solid:
-                            # primitives listed in the cell of the feature's centre
+                        if inside:
+                            # primitives listed in the cell of the feature's centre (also
+                            # next to other walls: a prism may be nearer than they are)
                             bx = org[0] + (wi + 0.5) * sp[0]
                             by = org[1] + (wj + 0.5) * sp[1]
                             bz = org[2] + (wk + 0.5) * sp[2]
@@ -1268,7 +1316,7 @@ def _refine_exact(mask, labels, solid, F, cand, sp, org, periodic, box, kind, tr
                                 shf[npr, 1] = s1
                                 shf[npr, 2] = s2
                                 npr += 1
-                        elif inside and labels[wi, wj, wk] != 0:
+                        if inside and labels[wi, wj, wk] != solid and labels[wi, wj, wk] != 0:
                             # a wall the geometry does not give (e.g. interlayer): the
                             # voxel estimate, a plane midway between the feature and the
                             # phase centre nearest the wall along the normal
@@ -1318,13 +1366,14 @@ def _span(c, rem, step):
     s = math.sqrt(rem) / step
     lo = int(math.ceil(c - s))
     hi = int(math.floor(c + s))
-    while lo <= hi and (step * (lo - c)) ** 2 >= rem:
+    # one rounding step either way at most
+    if (step * (lo - c)) ** 2 >= rem:
         lo += 1
-    while hi >= lo and (step * (hi - c)) ** 2 >= rem:
-        hi -= 1
-    while (step * (lo - 1 - c)) ** 2 < rem:
+    elif (step * (lo - 1 - c)) ** 2 < rem:
         lo -= 1
-    while (step * (hi + 1 - c)) ** 2 < rem:
+    if (step * (hi - c)) ** 2 >= rem:
+        hi -= 1
+    elif (step * (hi + 1 - c)) ** 2 < rem:
         hi += 1
     return lo, hi
 
@@ -1485,6 +1534,11 @@ REFINE_BOX = 1.0
 #: Candidates whose ball lies within this distance (voxel edges) of a neighbour's ball
 #: keep their lattice ball only (no refined ball); negative: refine every candidate.
 REFINE_THIN = 0.3
+#: Lateral offset (voxel edges) allowed between a non-phase centre and the foot of the wall
+#: seen through it: bounds the angle between the viewing direction and the wall normal.
+VIEW_SLACK = 2.0
+#: Half-angle (degrees) of the cone of normals taken as one wall in the bracket.
+WALL_CONE = 85.0
 
 
 def _centres_local_thickness(m, sp, periodic, out):
@@ -1577,7 +1631,9 @@ def _subvoxel_local_thickness(m, sp, periodic, out):
     Dx = np.empty(nc, np.float32)
     wall_normals(m, F, rel, periodic=periodic)
     _refine_voxel(m, F, d2, cand, np.asarray(rel, np.float64), bool(periodic), REFINE_BOX,
-                  float(np.max(rel)), gap_scale(rel), REFINE_THIN, zc, rho2, A, Dx,
+                  float(np.max(rel)), gap_scale(rel), REFINE_THIN, VIEW_SLACK * float(np.max(rel)),
+                  math.cos(math.radians(WALL_CONE)), zc,
+                  rho2, A, Dx,
                   max(1, min(nc, 64 * numba.get_num_threads())))
     del F
     rr_lat = d2.reshape(-1)[cand]
