@@ -1,13 +1,21 @@
-"""Exact IUR chords through prisms: sheetview's kernel against trimesh ray casting.
+"""Chords: exact IUR chords through prisms against trimesh ray casting, and IUR chords
+through a voxel grid against numpy sampling and the axis rows.
 
-Same lines, same prisms. trimesh (with the embree backend when embreex is installed)
-casts each line as a ray with ``multiple_hits=True`` against a mesh of all prism faces
-(8 triangles per prism); its hits are turned into solid intervals by a depth counter
+Part 1 (exact). Same lines, same prisms. trimesh (with the embree backend when embreex is
+installed) casts each line as a ray with ``multiple_hits=True`` against a mesh of all prism
+faces (8 triangles per prism); its hits are turned into solid intervals by a depth counter
 (entering +1, leaving -1, faces oriented outward), clipped to the domain, and compared
 line by line with sheetview's solid chords (tolerance ``--tol`` nm).
 
+Part 2 (voxel grid). The same structure rasterized on a ``--grid``^3 grid; ``grid_chords``
+with ``--grid-lines`` lines (default interpolated boundary, and ``boundary="faces"``),
+against (a) a plain numpy reference that samples the voxel label every quarter voxel along
+each line (nearest voxel: the faces model up to the sampling step; run on a tenth of the
+lines and scaled) and (b) the axis rows of the same grid (``voxel_rows``, the previous
+definition for volumes).
+
 Usage: .venv/bin/python benchmarks/bench_chords.py [--n-prisms 100000] [--n-lines 100000]
-       [--repeat 2]
+       [--repeat 2] [--grid 400] [--grid-lines 100000] [--part exact|grid|both]
 Each method runs ``--repeat`` times, alternating, and its best time is reported (the
 machine may be shared). Writes nothing; prints a table.
 """
@@ -19,8 +27,11 @@ import time
 import numpy as np
 import trimesh
 
-from sheetview.domain import Sphere
-from sheetview.measures.chords import _domain_interval, exact_chords, iur_lines
+from sheetview.domain import Box, Sphere
+from sheetview.grid import OUTSIDE, SOLID, PhaseGrid
+from sheetview.measures._rays import domain_interval
+from sheetview.measures.chords import (exact_chords, grid_chords, iur_lines,
+                                       signed_distance, voxel_rows)
 from sheetview.structure import Structure
 
 
@@ -79,6 +90,125 @@ def trimesh_intervals(mesh, o, u, tlo, thi, engine):
     return out, dt
 
 
+def grid_lines(g, n_all, n_lines, seed):
+    """The first ``n_lines`` of the ``n_all`` lines of ``grid_chords`` (grid circumsphere,
+    same seed): origins, directions, parameter interval in the grid."""
+    sp = np.asarray(g.spacing)
+    lo = np.asarray(g.origin)
+    hi = lo + np.asarray(g.shape) * sp
+    c, R = 0.5 * (lo + hi), 0.5 * float(np.linalg.norm(hi - lo))
+    o, u = iur_lines(n_all, c, R * (1 + 1e-9), seed)
+    o, u = o[:n_lines], u[:n_lines]
+    tlo, thi = domain_interval(Box(tuple(lo), tuple(hi)), o, u,
+                                np.full(n_lines, 2 * R * (1 + 1e-9)))
+    return o, u, tlo, thi
+
+
+def numpy_sampling(g, n_all, n_lines, seed, step=0.25):
+    """Reference: the voxel label sampled every ``step`` voxels along each of the first
+    ``n_lines`` lines, runs of solid samples counted. Returns (solid runs, seconds)."""
+    sp = np.asarray(g.spacing)
+    lo = np.asarray(g.origin)
+    o, u, tlo, thi = grid_lines(g, n_all, n_lines, seed)
+    lab = g.labels
+    n = np.asarray(g.shape)
+    dt = step * float(sp.min())
+    t0 = time.perf_counter()
+    count = 0
+    for i in range(n_lines):
+        if not tlo[i] < thi[i]:
+            continue
+        t = np.arange(tlo[i] + dt / 2, thi[i], dt)
+        idx = np.clip(np.floor((o[i] + t[:, None] * u[i] - lo) / sp).astype(np.int64), 0, n - 1)
+        L = lab[idx[:, 0], idx[:, 1], idx[:, 2]]
+        solid = np.concatenate([[False], L == SOLID, [False]])
+        count += int(np.count_nonzero(solid[1:] & ~solid[:-1]))
+        _ = L == OUTSIDE
+    return count, time.perf_counter() - t0
+
+
+def random_grid(n, seed=0, corr=3.0):
+    """Invented two-phase grid: Gaussian-filtered noise (correlation about ``corr``
+    voxels) thresholded at porosity 0.5, OUTSIDE beyond the inscribed sphere (a spherical
+    pore, as prisms in a sphere domain give), voxels of 0.25 nm."""
+    from scipy import ndimage as ndi
+    rng = np.random.default_rng(seed)
+    f = ndi.gaussian_filter(rng.standard_normal((n, n, n), dtype=np.float32), corr)
+    lab = np.where(f > 0, SOLID, 3).astype(np.uint8)
+    del f
+    x = np.arange(n) - (n - 1) / 2
+    r2 = x[:, None] ** 2 + x[None, :] ** 2
+    for i in range(n):
+        lab[i][r2 + x[i] ** 2 > (n / 2) ** 2] = OUTSIDE
+    return PhaseGrid(lab, spacing=0.25)
+
+
+def scipy_trilinear_sampling(g, F, n_all, n_lines, seed, step=0.25):
+    """Reference for the interpolated boundary: the first ``n_lines`` lines, the signed
+    distance interpolated by ``scipy.ndimage.map_coordinates`` (order 1) every ``step``
+    voxels, sign changes counted. Returns (sign changes, seconds)."""
+    from scipy.ndimage import map_coordinates
+    sp = np.asarray(g.spacing)
+    lo = np.asarray(g.origin)
+    o, u, tlo, thi = grid_lines(g, n_all, n_lines, seed)
+    dt = step * float(sp.min())
+    t0 = time.perf_counter()
+    count = 0
+    for i in range(n_lines):
+        if not tlo[i] < thi[i]:
+            continue
+        t = np.arange(tlo[i] + dt / 2, thi[i], dt)
+        q = (o[i] + t[:, None] * u[i] - lo) / sp - 0.5
+        v = map_coordinates(F, q.T, order=1, mode="nearest")
+        count += int(np.count_nonzero((v[1:] > 0) != (v[:-1] > 0)))
+    return count, time.perf_counter() - t0
+
+
+def grid_part(a):
+    g = random_grid(a.grid)
+    print(f"\nvoxel grid {g.shape[0]}^3 (Gaussian random field, porosity 0.5, OUTSIDE beyond "
+          f"the inscribed sphere), {a.grid_lines} IUR lines")
+    grid_chords(g.__class__(g.labels[:40, :40, :40], g.spacing), 100, seed=0)  # warm up
+    grid_chords(g.__class__(g.labels[:40, :40, :40], g.spacing), 100, seed=0, boundary="faces")
+    best = {}
+    for _ in range(max(1, a.repeat)):
+        for name, fn in (
+                ("signed distance (separable, capped)", lambda: signed_distance(g)),
+                ("grid_chords, interpolated (whole)", lambda: grid_chords(g, a.grid_lines, seed=a.seed)),
+                ("grid_chords, faces", lambda: grid_chords(g, a.grid_lines, seed=a.seed,
+                                                            boundary="faces")),
+                ("axis rows (voxel_rows)", lambda: voxel_rows(g))):
+            t0 = time.perf_counter()
+            out = fn()
+            dt = time.perf_counter() - t0
+            if dt < best.get(name, (np.inf,))[0]:
+                best[name] = (dt, out)
+    n_ref = max(1, a.grid_lines // 10)
+    cnt, t_ref = numpy_sampling(g, a.grid_lines, n_ref, a.seed)
+    t_ref_all = t_ref * a.grid_lines / n_ref
+    faces = best["grid_chords, faces"][1]
+    n_faces = int(np.count_nonzero(faces.line["solid"] < n_ref))
+    print(f"{'method':44s} {'time (s)':>10s} {'chords':>10s}")
+    for name, (dt, out) in best.items():
+        n = (len(out.lengths["solid"]) + len(out.lengths["pore"])) if hasattr(out, "lengths") else ""
+        print(f"{name:44s} {dt:10.2f} {n!s:>10s}")
+    print(f"{'numpy sampling every 1/4 voxel (scaled)':44s} {t_ref_all:10.2f} "
+          f"{'(' + str(n_ref) + ' lines run)':>10s}")
+    n_ref2 = max(1, a.grid_lines // 100)
+    _, t_ref2 = scipy_trilinear_sampling(g, best["signed distance (separable, capped)"][1],
+                                         a.grid_lines, n_ref2, a.seed)
+    t_ref2_all = t_ref2 * a.grid_lines / n_ref2
+    print(f"{'scipy map_coordinates(order=1), 1/4 voxel (scaled)':44s} {t_ref2_all:10.2f} "
+          f"{'(' + str(n_ref2) + ' lines run)':>10s}")
+    t_int = best["grid_chords, interpolated (whole)"][0]
+    t_fac = best["grid_chords, faces"][0]
+    print(f"solid runs on the first {n_ref} lines: numpy sampling {cnt}, faces kernel {n_faces}")
+    print(f"speed-up: faces over numpy label sampling {t_ref_all / t_fac:.1f}x; interpolated "
+          f"(whole) over scipy trilinear sampling {t_ref2_all / t_int:.1f}x, over numpy label "
+          f"sampling {t_ref_all / t_int:.1f}x; axis rows / interpolated lines: "
+          f"{best['axis rows (voxel_rows)'][0] / t_int:.2f}")
+
+
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--n-prisms", type=int, default=100_000)
@@ -86,14 +216,21 @@ def main():
     ap.add_argument("--tol", type=float, default=1e-4)
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--repeat", type=int, default=2)
+    ap.add_argument("--grid", type=int, default=400)
+    ap.add_argument("--grid-lines", type=int, default=100_000)
+    ap.add_argument("--part", choices=("exact", "grid", "both"), default="both")
     a = ap.parse_args()
+    if a.part != "exact":
+        grid_part(a)
+    if a.part == "grid":
+        return
     s = make_structure(a.n_prisms)
     R = s.domain.radius
     # warm the numba cache
     exact_chords(s.subset(np.arange(100)), 100, seed=0)
     # the same lines
     o, u = iur_lines(a.n_lines, np.zeros(3), R * (1 + 1e-9), a.seed)
-    tlo, thi = _domain_interval(s.domain, o, u, np.full(a.n_lines, 2 * R * (1 + 1e-9)))
+    tlo, thi = domain_interval(s.domain, o, u, np.full(a.n_lines, 2 * R * (1 + 1e-9)))
     mesh = prism_mesh(s)
     try:
         from trimesh.ray.ray_pyembree import RayMeshIntersector

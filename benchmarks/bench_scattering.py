@@ -2,7 +2,8 @@
 
 Target (issue: experiment): I(q) of a 512^3 field in <= 3 s and <= 3 GB on 2 cores.
 Rows: the bare float32 real FFT (scipy.fft.rfftn, workers=2) of the same field, the whole
-``scattering_curve`` (SLD lookup, FFT, radial binning in slabs), and a naive numpy
+``scattering_curve`` (SLD lookup, FFT, radial binning in slabs), ``curve_features`` on that
+curve alone (slopes, Porod range, Guinier, invariant, peaks), and a naive numpy
 reference of the binning (float64 |F|^2 and searchsorted over the whole array at once).
 Input: a periodic Boolean model of balls (invented data), built on a 128^3 grid and
 tiled 4x per axis (the structure repeats, which does not matter for timing).
@@ -52,6 +53,11 @@ def row(kind, n=N):
     elif kind == "curve":
         from sheetview.measures.scattering import scattering_curve
         scattering_curve(g, {0: -0.56, 1: 2.55}, workers=2)
+    elif kind == "features":
+        from sheetview.measures.scattering import curve_features, scattering_curve
+        res = scattering_curve(g, {0: -0.56, 1: 2.55}, workers=2)
+        t0 = time.perf_counter()
+        curve_features(res, float(g.labels.mean()))
     elif kind == "naive":
         f = g.labels.astype(np.float64)
         F = np.fft.rfftn(f)
@@ -73,7 +79,7 @@ def main():
         print(json.dumps(row(sys.argv[2], int(sys.argv[3]))))
         return
     n = int(sys.argv[sys.argv.index("--n") + 1]) if "--n" in sys.argv else N
-    kinds = ["fft", "curve", "naive"] if n <= 512 else ["fft", "curve"]
+    kinds = ["fft", "curve", "features", "naive"] if n <= 512 else ["fft", "curve", "features"]
     out = []
     for k in kinds:
         r = subprocess.run([sys.executable, __file__, "--row", k, str(n)], capture_output=True,

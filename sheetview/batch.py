@@ -1,9 +1,9 @@
 """Batch morphometry: the ``measure`` job over many structures, resumable.
 
-Every input is measured with the same settings (built by
-:func:`sheetview.cli.measure.measure_settings`, as for ``sheetview measure``) by
-:func:`measure_one` (read -> :func:`sheetview.measures.run` ->
-:func:`sheetview.cli.measure.summary_document` -> :func:`sheetview.report.write_report`),
+Every input is measured with the same settings (a
+:class:`~sheetview.app.settings.Settings`, as for ``sheetview measure``) by
+:func:`measure_one` (read -> :class:`sheetview.app.run.Run` ->
+:func:`sheetview.app.document.file_document` -> :func:`sheetview.report.write_report`),
 in the calling process and local worker processes beside it, or on a Dask distributed
 cluster. Each result lives under ``OUT/runs/<stem>-<key>/`` where ``key``
 is a hash of the input's bytes (SHA-256) and of the settings (canonical JSON), so a
@@ -39,8 +39,16 @@ import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from .app.document import file_document, flatten
+from .app.load import at_moment, load
+from .app.registry import check_inputs, parse_only, select
+from .app.run import Run
+from .app.settings import Settings
 from .errors import OptionError, OutputExistsError, SheetviewError
-from .io.output import atomic_path
+from .io.output import atomic_path, json_default
+from .measures.kinetics import check_moment
+from .figures import new_figure
+from .report import write_json, write_report
 
 #: Scalar headline keys shown first in the HTML pages.
 HEADLINE = ("n_prisms", "voxel_size_nm", "volume_fractions.solid", "volume_fractions.interlayer",
@@ -54,7 +62,6 @@ HEADLINE = ("n_prisms", "voxel_size_nm", "volume_fractions.solid", "volume_fract
 # ------------------------------------------------------------------ keys and inputs
 def canonical_json(obj) -> str:
     """Canonical JSON text of ``obj``: sorted keys, no spaces, tuples as lists."""
-    from .cli.common import json_default
     return json.dumps(obj, sort_keys=True, separators=(",", ":"), default=json_default,
                       allow_nan=True)
 
@@ -75,22 +82,12 @@ def result_key(input_sha256: str, config: dict) -> str:
     return hashlib.sha256(text.encode()).hexdigest()[:16]
 
 
-def key_settings(settings: dict) -> dict:
+def key_settings(settings) -> dict:
     """The settings a result key hashes: every setting of the measure run as it will be
-    used (:data:`sheetview.pipeline.DEFAULTS` completed by ``settings``; ``None`` means
-    the default, as in :class:`sheetview.pipeline.Context`), less those that change no
-    number (:data:`sheetview.cli.measure.NO_NUMBER_SETTINGS`: ``max_memory``).
-
-    An unknown setting name is an :class:`OptionError` (it would be ignored by the
-    measures but change the key)."""
-    from .cli.measure import NO_NUMBER_SETTINGS
-    from .pipeline import DEFAULTS
-    unknown = sorted(set(settings) - set(DEFAULTS))
-    if unknown:
-        raise OptionError(f"unknown measure setting(s) {unknown}; known: {sorted(DEFAULTS)}")
-    s = dict(DEFAULTS)
-    s.update({k: v for k, v in settings.items() if v is not None})
-    return {k: v for k, v in s.items() if k not in NO_NUMBER_SETTINGS}
+    used (a :class:`~sheetview.app.settings.Settings`, or a dict completed with the
+    defaults), less those that change no number (``max_memory``):
+    :meth:`Settings.key`. An unknown setting name is an :class:`OptionError`."""
+    return Settings.of(settings).key()
 
 
 def expand_inputs(patterns) -> list[Path]:
@@ -168,15 +165,11 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
     if numba_threads:
         _set_threads(numba_threads)
     try:
-        from . import measures
-        from .cli.common import apply_at, load
-        from .cli.measure import summary_document
-        from .report import write_report
-        obj, moment = apply_at(load(path, **read_kw), *_moment_args(at))
-        selected = measures.select(only or None, obj)
-        measures.check_inputs(selected, obj, path)
-        ctx = measures.run(selected, obj, settings)
-        doc = summary_document(path, obj, ctx, settings)
+        obj, moment = at_moment(load(path, **read_kw), *_moment_args(at))
+        selected = select(only or None, obj)
+        check_inputs(selected, obj, path)
+        run = Run(obj, Settings.of(settings)).run(selected)
+        doc = file_document(path, run)
         if moment is not None:
             doc["at"] = moment.to_dict()
         doc["input_metadata"] = dict(getattr(obj, "metadata", {}) or {})
@@ -184,8 +177,8 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
             doc["read_options"] = dict(read_kw)
         t1 = time.perf_counter()
         try:
-            write_report(out_folder, doc, ctx.results, force=False, plots=plots,
-                         grid=ctx.__dict__.get("grid"))
+            write_report(out_folder, doc, run.results, force=False, plots=plots,
+                         grid=run.__dict__.get("grid"))
         except (OutputExistsError, OSError):
             # another process (a worker of a killed run) finished the same key meanwhile:
             # same content and settings, so its result stands
@@ -193,13 +186,10 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
                 raise
         t2 = time.perf_counter()
         return {"status": "ok", "error": None, "seconds": t1 - t0, "write_seconds": t2 - t1}
-    except OptionError as e:
-        from .cli.measure import _as_cli_error
-        msg = str(_as_cli_error(e, e.path or path))
     except SheetviewError as e:
-        msg = str(e)
+        msg = str(e) if e.path else f"{path}: {e}"
     except MemoryError:
-        msg = f"{path}: out of memory; use a coarser --voxel or a lower --max-memory"
+        msg = f"{path}: out of memory; use a coarser voxel or a lower max_memory"
     except Exception as e:  # a bug: record it and let the batch go on
         msg = (f"{path}: internal error {type(e).__name__}: {e}\n"
                + "".join(traceback.format_exception(e)[-3:]))
@@ -283,7 +273,7 @@ def warm_up() -> float:
     t0 = time.perf_counter()
     try:
         from numba.core.registry import CPUDispatcher
-        from . import __path__ as pkg_path
+        pkg_path = [os.path.dirname(os.path.abspath(__file__))]
         mods = []
         for info in pkgutil.walk_packages(pkg_path, __package__ + "."):
             if info.name.startswith((f"{__package__}.cli", f"{__package__}.view",
@@ -305,9 +295,7 @@ def warm_up() -> float:
                             obj.compile(key[0])
                 except Exception:
                     continue
-        import matplotlib
-        matplotlib.use("Agg")
-        import matplotlib.pyplot  # noqa: F401  (fonts and the Agg renderer)
+        import matplotlib.backends.backend_agg  # noqa: F401  # the renderer; no backend switch
     except Exception:
         pass
     return time.perf_counter() - t0
@@ -445,7 +433,7 @@ def prepare_out(out) -> Path:
     return out
 
 
-def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, only=None,
+def run_batch(patterns, out, settings, read_kw: dict | None = None, *, only=None,
               plots: bool = True, workers: int = 1, cluster=None, html_pages: bool = True,
               quiet: bool = False, echo=None, dask_options: dict | None = None,
               threads: int | None = None, fork_warm: bool = False,
@@ -458,13 +446,11 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
         Paths or glob patterns.
     out : path
         Batch folder (created; see the module docstring for its layout).
-    settings : dict
-        Measure settings (:data:`sheetview.pipeline.DEFAULTS` keys), the same for all;
-        from the command line they are built by
-        :func:`sheetview.cli.measure.measure_settings`, as for ``sheetview measure``. The
-        result key hashes :func:`key_settings` of them.
+    settings : Settings or dict
+        Measure settings (:class:`~sheetview.app.settings.Settings`), the same for all,
+        as for ``sheetview measure``. The result key hashes :func:`key_settings` of them.
     read_kw : dict
-        Reading options of :func:`sheetview.cli.common.load`.
+        Reading options of :func:`sheetview.app.load.load`.
     only : str, optional
         Comma-separated measure names (default: all that apply to each input).
     workers : int
@@ -492,15 +478,14 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
         Records in input order; ``status`` is ``ok``, ``skipped`` (finished before) or
         ``failed`` (with ``error``). Tables and pages are written at the end.
     """
+    settings = Settings.of(settings)
     read_kw = {k: v for k, v in (read_kw or {}).items() if v is not None and v != "auto"}
     if only:
-        from . import measures
-        only = ",".join(measures.parse_only(only))
+        only = ",".join(parse_only(only))
     if workers < 1:
         raise OptionError(f"--workers: must be at least 1, got {workers}")
     at = {k: v for k, v in (at or {}).items() if v is not None}
     if at:
-        from .measures.kinetics import check_moment
         if set(at) - {"progress", "time"}:
             raise OptionError(f"at: expected 'progress' or 'time', got {sorted(at)}")
         try:
@@ -543,7 +528,7 @@ def run_batch(patterns, out, settings: dict, read_kw: dict | None = None, *, onl
         f"{len(todo)} to measure" + (f" on {cluster}" if cluster else
                                       f" with {min(workers, max(1, len(todo)))} worker(s)"))
     log(f"settings {canonical_json(config)}"
-        + (f"; max_memory {settings['max_memory']}" if settings.get("max_memory") else ""),
+        + (f"; max_memory {settings.max_memory}" if settings.max_memory else ""),
         console=False)
 
     t_start = time.perf_counter()
@@ -751,38 +736,12 @@ def _run_dask(todo, args, finished, cluster, workers, dask_options):
 
 
 def _write_failure(out: Path, job: Job, rec: dict) -> None:
-    from .report import write_json
     write_json(out / "failed" / f"{job.name}.json",
                {"path": str(job.path), "sha256": job.sha256, "key": job.key,
                 "error": rec["error"]}, force=True)
 
 
 # ------------------------------------------------------------------ tables
-def flatten(doc, prefix: str = "") -> dict:
-    """Scalars of a nested dict with dotted names (``volume_fractions.solid``).
-
-    Lists of up to 3 scalars become ``name.0``, ``name.1``...; longer lists (histogram
-    bins, notes) are left out; ``None`` is kept (an undefined value)."""
-    out = {}
-    for k, v in doc.items():
-        name = f"{prefix}{k}"
-        if isinstance(v, dict):
-            out.update(flatten(v, name + "."))
-        elif isinstance(v, (list, tuple)):
-            if 0 < len(v) <= 3 and all(_scalar(x) for x in v):
-                for i, x in enumerate(v):
-                    out[f"{name}.{i}"] = x
-            elif len(v) == 0 and k in ("pore_split",):
-                out[name] = ""
-        elif _scalar(v):
-            out[name] = v
-    return out
-
-
-def _scalar(v) -> bool:
-    return v is None or isinstance(v, (bool, int, float, str))
-
-
 def row_of(rec: dict, doc: dict | None) -> dict:
     """One summary row: input path, status, error, then the flattened summary document
     (``input_metadata.*`` holds the file's header metadata, ``settings.*`` the settings,
@@ -1033,10 +992,7 @@ def trend_plot(summary_path, x: str, y: str, out_png, group: str | None = None,
     stats = group_stats(cols[x], yv, cols[group] if group else None)
     if not stats:
         raise OptionError(f"--y: column {y!r} has no values", path=summary_path)
-    import matplotlib
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
-    fig, ax = plt.subplots(figsize=(6, 4.2))
+    fig, (ax,) = new_figure((6, 4.2))
     cats = sorted({v for xs, *_ in stats.values() for v in xs if isinstance(v, str)})
     for gi, (xs, m, s, n) in stats.items():
         pos = [cats.index(v) if isinstance(v, str) else v for v in xs]
@@ -1054,5 +1010,4 @@ def trend_plot(summary_path, x: str, y: str, out_png, group: str | None = None,
     fig.tight_layout()
     with atomic_path(out_png, force=force) as tmp:
         fig.savefig(tmp, dpi=120, format="png")
-    plt.close(fig)
     return stats

@@ -162,6 +162,65 @@ def default_voxel_size(structure) -> float:
     return max(v, MIN_VOXEL_NM)
 
 
+#: Voxels across the mean chord (4V/S) of the thinner of solid and pore space in the
+#: default voxel of a closed body: 12 across a slab's mean chord 2t puts 6 across its
+#: thickness t, as :func:`default_voxel_size` does for prisms.
+VOXELS_PER_MEAN_CHORD = 12
+
+
+def default_body_voxel_size(body) -> tuple[float, str]:
+    """Default voxel edge (nm) of a closed body and the rule that gave it:
+    ``min(4 V/S, 4 V_pore/S) / 12`` with V the body's volume, S its area and V_pore the
+    domain volume outside it (Cauchy's mean chords, Santaló 1976: a slab of thickness t has
+    mean chord 2t, so this puts 6 voxels across the thinner of the body and the pore space,
+    as for prisms), never below 0.01 nm."""
+    v, a = float(body.volume), float(body.area)
+    if not (a > 0 and v > 0):
+        raise OptionError("the closed surface encloses no volume: cannot choose a voxel size",
+                          path=body.source, field="voxel_size")
+    chords = {"solid": 4.0 * v / a}
+    vp = float(body.domain.volume) - v
+    if vp > 0:
+        chords["pore"] = 4.0 * vp / a
+    which = min(chords, key=chords.get)
+    vox = max(chords[which] / VOXELS_PER_MEAN_CHORD, MIN_VOXEL_NM)
+    return vox, (f"{which} mean chord 4V/S = {chords[which]:.4g} nm / "
+                 f"{VOXELS_PER_MEAN_CHORD}")
+
+
+#: A default voxel is coarsened at most this much to fit the memory limit (half the
+#: voxels across the thinnest feature: 3 instead of 6); beyond, the run stops and names
+#: the voxel that would fit.
+MAX_DEFAULT_COARSENING = 2.0
+
+
+def fit_default_voxel(dom, v: float, max_memory=None, *, fraction=False) -> tuple[float, str | None]:
+    """The default voxel ``v``, or the finest coarser voxel (at most
+    :data:`MAX_DEFAULT_COARSENING` times ``v``) whose grid fits in ``max_memory`` (default
+    half the available memory), with a note saying so; :class:`MemoryLimitError` when even
+    that does not fit."""
+    shape = grid_geometry(dom, v)[0]
+    need = estimate_grid_bytes(int(np.prod(shape, dtype=np.int64)), fraction=fraction)
+    limit = available_memory() // 2 if max_memory is None else int(max_memory)
+    if need <= limit:
+        return v, None
+    fit = _voxel_that_fits(dom, v, need, limit, fraction)
+    if fit > MAX_DEFAULT_COARSENING * v:
+        check_memory(dom, v, shape, max_memory, fraction=fraction)  # raises, naming the fit
+    return fit, (f"the default voxel {v:.4g} nm would need {need / 2**30:.2f} GiB, over the "
+                 f"memory limit of {limit / 2**30:.2f} GiB: {fit:.4g} nm used instead (give "
+                 f"--voxel or --max-memory to choose)")
+
+
+def _voxel_that_fits(dom, v, need, limit, fraction):
+    fit = v * (need / max(limit, 1)) ** (1.0 / 3.0) * 1.01
+    fit = float(f"{fit:.3g}") if fit >= v else v
+    while estimate_grid_bytes(int(np.prod(grid_geometry(dom, fit)[0], dtype=np.int64)),
+                              fraction=fraction) > limit:
+        fit = float(f"{fit * 1.05:.3g}")
+    return fit
+
+
 def grid_geometry(domain, voxel_size: float) -> tuple[tuple, tuple, tuple]:
     """Shape, spacing and origin of the grid covering ``domain`` at ``voxel_size`` nm.
 
@@ -371,11 +430,7 @@ def check_memory(dom, v, shape, max_memory=None, *, fraction=False) -> None:
     need = estimate_grid_bytes(nvox, fraction=fraction)
     limit = available_memory() // 2 if max_memory is None else int(max_memory)
     if need > limit:
-        fit = v * (need / max(limit, 1)) ** (1.0 / 3.0) * 1.01
-        fit = float(f"{fit:.3g}") if fit >= v else v
-        while estimate_grid_bytes(int(np.prod(grid_geometry(dom, fit)[0], dtype=np.int64)),
-                                  fraction=fraction) > limit:
-            fit = float(f"{fit * 1.05:.3g}")
+        fit = _voxel_that_fits(dom, v, need, limit, fraction)
         raise MemoryLimitError(
             f"a grid of {shape[0]} x {shape[1]} x {shape[2]} voxels at {v:g} nm needs about "
             f"{need / 2**30:.2f} GiB ({BYTES_PER_VOXEL} bytes per voxel with working arrays), "
@@ -384,8 +439,6 @@ def check_memory(dom, v, shape, max_memory=None, *, fraction=False) -> None:
 
 
 def _check_voxel_size(structure, voxel_size):
-    if voxel_size is None:
-        return default_voxel_size(structure)
     try:
         v = float(voxel_size)
     except (TypeError, ValueError):
@@ -452,7 +505,6 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
     if len(structure) == 0:
         raise OptionError("the structure has no prisms: nothing to rasterize",
                           path=structure.source)
-    v = _check_voxel_size(structure, voxel_size)
     try:
         s = int(supersample)
     except (TypeError, ValueError):
@@ -462,6 +514,13 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
         raise OptionError(f"supersample must be a positive integer, not {supersample!r}",
                           field="supersample")
     dom = structure.domain
+    rule = note = None
+    if voxel_size is None:
+        v0 = default_voxel_size(structure)
+        rule = f"min(thickness, repeat - thickness) / 6 = {v0:.4g} nm"
+        v, note = fit_default_voxel(dom, v0, max_memory, fraction=s > 1)
+    else:
+        v = _check_voxel_size(structure, voxel_size)
     shape, spacing, origin = grid_geometry(dom, v)
     check_memory(dom, v, shape, max_memory, fraction=s > 1)
     if out is None:
@@ -489,6 +548,8 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
                                periodic)
     meta = {"voxel_size_nm": v, "supersample": s, "n_prisms": int(len(structure)),
             "skipped_prisms": int(len(structure) - keep.size)}
+    if rule is not None:
+        meta["voxel_default"] = {"rule": rule, "note": note}
     return PhaseGrid(labels, spacing, origin, periodic=periodic, metadata=meta,
                      source=structure.source, solid_fraction=frac)
 
@@ -596,13 +657,17 @@ def rasterize_body(body, voxel_size=None, *, max_memory=None) -> PhaseGrid:
     ray casting along z columns (a point is inside a closed surface iff a ray from it
     crosses the surface an odd number of times; Jordan-Brouwer separation theorem,
     common practice in voxelization). Columns are shifted by a negligible irrational
-    fraction of a voxel so that they miss vertices and edges. Default voxel size: the
-    domain's smallest extent / 128.
+    fraction of a voxel so that they miss vertices and edges. Default voxel size:
+    :func:`default_body_voxel_size` (from the body's own mean chords), coarsened to fit the
+    memory limit if need be (said in the grid's metadata, ``voxel_default``).
     """
     dom = body.domain
     lo, hi = (np.asarray(b, dtype=float) for b in dom.bounds)
+    default = None
     if voxel_size is None:
-        v = max(float(np.min(hi - lo)) / 128.0, MIN_VOXEL_NM)
+        v0, rule = default_body_voxel_size(body)
+        v, note = fit_default_voxel(dom, min(v0, float(np.min(hi - lo))), max_memory)
+        default = {"rule": rule, "note": note}
     else:
         v = float(voxel_size)
         if not math.isfinite(v) or v < MIN_VOXEL_NM or v > float(np.min(hi - lo)):
@@ -626,4 +691,6 @@ def rasterize_body(body, voxel_size=None, *, max_memory=None) -> PhaseGrid:
     _column_hits(tri, org, sp, nx, ny, False, np.concatenate([fill, start[-1:]]), zs)
     _fill_columns(labels, start, zs, org[2], sp[2], np.uint8(SOLID), np.uint8(GEL))
     meta = {"voxel_size_nm": v, "n_faces": int(body.n_faces)}
+    if default is not None:
+        meta["voxel_default"] = default
     return PhaseGrid(labels, spacing, origin, periodic=False, metadata=meta, source=body.source)

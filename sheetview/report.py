@@ -15,8 +15,10 @@ Folder layout (files appear only for the measures that ran)::
     pole_figure.csv              Lambert equal-area grid: density in multiples of uniform
     pole_figure.png, order.png   pole figure; local-order and polar-angle histograms
     phase_fractions.csv          volume fraction and volume of each phase class
-    interfaces.csv               interface areas (solid-interlayer, solid-gel, solid-outside)
-    minkowski.csv                Minkowski functionals of the solid and of the gel pores
+    interfaces.csv               solid interface areas per pore class, with the domain wall, and
+                                 their total over the pore classes
+    minkowski.csv                Minkowski functionals of the solid and of the pore space,
+                                 densities per domain volume
     pore_sizes_local_thickness.csv, pore_sizes_intrusion.csv, pore_sizes.png
     chords_solid.csv, chords_pore.csv, chords.png
     s2_solid.csv, s2_solid.png   two-point correlation of the solid
@@ -37,7 +39,9 @@ from pathlib import Path
 import numpy as np
 
 from .errors import OutputExistsError, SheetviewError
+from .figures import FIGURES, plot_sections
 from .io.output import atomic_path
+from .app.document import dumps
 
 
 def check_folder(outdir, force: bool = False) -> Path:
@@ -126,79 +130,15 @@ def _cells(c: np.ndarray, kind: str) -> list:
 
 
 def write_json(path, doc, force: bool = False) -> Path:
-    from .cli.common import dumps
     with atomic_path(path, force=force) as tmp:
         Path(tmp).write_text(dumps(doc) + "\n")
     return Path(path)
 
 
-def _savefig(fig, path, force):
-    import matplotlib.pyplot as plt
+def save_figure(fig, path, force: bool = False) -> Path:
+    """Write a matplotlib Figure as PNG through :func:`atomic_path` (no pyplot state)."""
     with atomic_path(path, force=force) as tmp:
         fig.savefig(tmp, dpi=120, format="png")
-    plt.close(fig)
-
-
-def _pyplot():
-    import matplotlib
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
-    return plt
-
-
-def plot_stacking(res, path, force=False):
-    plt = _pyplot()
-    fig, axes = plt.subplots(1, 3, figsize=(12, 3.6))
-    for ax, (h, title, ylabel) in zip(axes, (
-            (res.histogram, "by prisms", "prisms"),
-            (res.histogram_volume, "by volume", "volume fraction"),
-            (res.histogram_stacks, "by stack (largest column)", "stacks"))):
-        k = [int(x) for x in h]
-        ax.bar(k, list(h.values()), color="#4477aa", width=0.8)
-        ax.set_xlabel("stacking number (layers)")
-        ax.set_ylabel(ylabel)
-        ax.set_title(title)
-        if k:
-            ax.set_xticks(range(1, max(k) + 1, max(1, max(k) // 10)))
-    fig.suptitle(f"Stacking: mean {res.mean:.2f} (number), {res.mean_volume:.2f} (volume)")
-    fig.tight_layout()
-    _savefig(fig, path, force)
-    return Path(path)
-
-
-def plot_pole_figure(res, path, force=False):
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(5.2, 4.6))
-    e = res.pole_edges
-    im = ax.pcolormesh(e, e, res.pole.T, cmap="viridis", shading="flat")
-    t = np.linspace(0, 2 * np.pi, 361)
-    ax.plot(math.sqrt(2) * np.cos(t), math.sqrt(2) * np.sin(t), "k-", lw=0.8)
-    ax.set_aspect("equal")
-    ax.set_axis_off()
-    fig.colorbar(im, ax=ax, label="density (multiples of uniform)")
-    ref = "director" if res.frame == "director" else "z axis"
-    ax.set_title(f"Sheet normals, Lambert equal-area about the {ref}\nS = {res.S:.3f}")
-    fig.tight_layout()
-    _savefig(fig, path, force)
-    return Path(path)
-
-
-def plot_order(res, path, force=False):
-    plt = _pyplot()
-    fig, axes = plt.subplots(1, 2, figsize=(9, 3.6))
-    ls = res.local_S
-    axes[0].hist(ls, bins=np.linspace(-0.5, 1.0, 31), color="#4477aa")
-    axes[0].set_xlabel(f"local S (radius {res.local_radius:g} nm)")
-    axes[0].set_ylabel("prisms")
-    ce = res.cos_edges
-    dens = res.hist.sum(axis=1) * (len(ce) - 1)
-    axes[1].stairs(dens, ce, color="#aa3377")
-    axes[1].axhline(1.0, color="grey", lw=0.8, ls="--")
-    axes[1].set_xlabel("|cos theta| to the " + ("director" if res.frame == "director" else "z axis"))
-    axes[1].set_ylabel("density (multiples of uniform)")
-    fig.suptitle(f"Orientation order: S = {res.S:.3f}, biaxiality {res.biaxiality:.3f}")
-    fig.tight_layout()
-    _savefig(fig, path, force)
     return Path(path)
 
 
@@ -297,243 +237,43 @@ def _move_into_place(tmp: Path, final: Path, kind: str = "report") -> None:
 
 def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
     written = [write_json(out / "summary.json", doc)]
-    prism_cols = {}
-    stk = results.get("stacking")
-    order = results.get("order")
-    if stk is not None:
-        prism_cols.update(stk.table())
-    if order is not None:
-        n = order.n_prisms
-        prism_cols.setdefault("prism", np.arange(n))
-        prism_cols.update(order.table())
-    if prism_cols:
-        written.append(write_csv(out / "prisms.csv", prism_cols))
-    if stk is not None:
-        written.append(write_csv(out / "stacks.csv", stk.stack_table()))
-        g = stk.graph
-        t = g.tilted
-        written.append(write_csv(out / "tilted_contacts.csv", {
-            "prism_a": t[:, 0], "prism_b": t[:, 1], "angle_deg": g.tilted_angle,
-            "layer_a": stk.layer[t[:, 0]] if len(t) else np.zeros(0, np.int64),
-            "layer_b": stk.layer[t[:, 1]] if len(t) else np.zeros(0, np.int64)}))
-        if plots and stk.n_prisms:
-            written.append(plot_stacking(stk, out / "stacking_histogram.png"))
-    if order is not None:
-        ce, pe = order.cos_edges, order.phi_edges
-        nc, nphi = order.hist.shape
-        ci, pi = np.meshgrid(np.arange(nc), np.arange(nphi), indexing="ij")
-        written.append(write_csv(out / "orientation_distribution.csv", {
-            "cos_theta_lo": ce[ci.ravel()], "cos_theta_hi": ce[ci.ravel() + 1],
-            "phi_lo": pe[pi.ravel()], "phi_hi": pe[pi.ravel() + 1],
-            "fraction": order.hist.ravel(), "density_mud": order.hist.ravel() * nc * nphi}))
-        e = order.pole_edges
-        xi, yi = np.meshgrid(np.arange(len(e) - 1), np.arange(len(e) - 1), indexing="ij")
-        written.append(write_csv(out / "pole_figure.csv", {
-            "x": 0.5 * (e[xi.ravel()] + e[xi.ravel() + 1]),
-            "y": 0.5 * (e[yi.ravel()] + e[yi.ravel() + 1]),
-            "density_mud": order.pole.ravel()}))
-        if plots and order.n_prisms:
-            written.append(plot_pole_figure(order, out / "pole_figure.png"))
-            written.append(plot_order(order, out / "order.png"))
-    ph = results.get("phases")
-    if ph is not None:
-        written.append(write_csv(out / "phase_fractions.csv", ph.table()))
-    sur = results.get("surface")
-    if sur is not None:
-        itf = sur.parts["interfaces"]
-        written.append(write_csv(out / "interfaces.csv", {
-            "interface": list(itf.areas), "area_nm2": list(itf.areas.values())}))
-        mk = {k: v.to_dict() for k, v in sur.parts.items() if k.startswith("minkowski")}
-        keys = sorted({kk for d in mk.values() for kk, vv in d.items()
-                       if isinstance(vv, (int, float)) and not isinstance(vv, bool)})
-        written.append(write_csv(out / "minkowski.csv", dict(
-            {"phase": [k.replace("minkowski_", "") for k in mk]},
-            **{k: [float(d.get(k, np.nan)) for d in mk.values()] for k in keys})))
-    pores = results.get("pores")
-    if pores is not None:
-        for key in ("local_thickness", "intrusion"):
-            r = pores.parts.get(key)
-            if r is not None:
-                written.append(write_csv(out / f"pore_sizes_{key}.csv", r.table()))
-        if plots and pores.parts.get("local_thickness") is not None:
-            written.append(plot_pore_sizes(pores, out / "pore_sizes.png"))
-    ch = results.get("chords")
-    if ch is not None:
-        src = ch.parts["exact"]
-        for ph_name in ("solid", "pore"):
-            res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
-            if ph_name in res.lengths:
-                written.append(write_csv(out / f"chords_{ph_name}.csv", {
-                    "length_nm": res.lengths[ph_name], "cut": res.cut[ph_name].astype(np.int8),
-                    "line": res.line[ph_name], "axis": res.axis[ph_name]}))
-        if plots:
-            written.append(plot_chords(ch, out / "chords.png"))
-    cor = results.get("correlation")
-    if cor is not None:
-        written.append(write_csv(out / "s2_solid.csv", cor.parts["s2_solid"].table()))
-        if plots:
-            written.append(plot_s2(cor, out / "s2_solid.png"))
-    sc = results.get("scattering")
-    if sc is not None:
-        written.append(write_csv(out / "scattering.csv", sc.table()))
-        if plots:
-            written.append(plot_scattering(sc.curve, out / "scattering.png", notes=[
-                f"predicted curve, {sc.probe}s: {sc.solid} in {sc.fluid}; a model's prediction, "
-                "not a measurement"]))
-    rx = results.get("relaxation")
-    if rx is not None:
-        written.append(write_csv(out / "t2_distribution.csv", rx.table()))
-        if plots:
-            written.append(plot_relaxation(rx, out / "t2_distribution.png", notes=[
-                "predicted T2 distribution (fast exchange); a model's prediction, not a "
-                "measurement"]))
-    if plots and grid is not None:
-        written.append(plot_sections(grid, out / "sections.png"))
+    for name, table in collect_tables(results).items():
+        written.append(write_csv(out / f"{name}.csv", table))
+    if plots:
+        written.extend(_write_figures(out, results, grid))
     return [Path(p).name for p in written]
 
 
-def _wrap(notes, width=115):
-    import textwrap
-    return "\n".join(textwrap.fill(n, width) for n in notes)
+def collect_tables(results: dict) -> dict:
+    """The CSV tables of the results (each result's ``tables()``: file stem -> columns), in
+    the order the measures ran; tables of the same name (``prisms`` from stacking and
+    order) are joined column by column, the first ``prism`` column kept."""
+    out: dict = {}
+    for res in results.values():
+        for name, cols in res.tables().items():
+            if name in out:
+                out[name].update({k: v for k, v in cols.items() if k not in out[name]})
+            else:
+                out[name] = dict(cols)
+    return out
 
 
-def plot_scattering(res, path, cmp_=None, notes=(), force=False):
-    """Log-log plot of a predicted curve (valid q range marked), with an experimental
-    curve and its fit when ``cmp_`` is given."""
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(7, 5.2))
-    m = res.valid()
-    ax.loglog(res.q[m], res.intensity[m], "-", color="C0", label="model (valid q range)")
-    if (~m).any():
-        pos = ~m & (res.intensity > 0)
-        ax.loglog(res.q[pos], res.intensity[pos], ".", color="C0", alpha=0.3,
-                  label="model outside valid range")
-    if cmp_ is not None:
-        ax.loglog(cmp_.q, cmp_.experiment, "o", ms=3, color="C3", label="experiment")
-        ax.loglog(cmp_.q, cmp_.model_fitted, "-", color="k", lw=1,
-                  label=f"scale {cmp_.scale:.3g} x model + {cmp_.background:.3g}")
-    from matplotlib.ticker import NullFormatter
-    ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.set_xlabel("q (nm⁻¹)")
-    ax.set_ylabel("I(q) (cm⁻¹)")
-    ax.legend(fontsize=8)
-    fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
-    fig.subplots_adjust(bottom=0.25)
-    _savefig(fig, path, force)
-    return Path(path)
+def _drawable(name, res) -> bool:
+    """Whether a result has anything to draw (an empty structure has no histograms)."""
+    if name in ("stacking", "order"):
+        return bool(res.n_prisms)
+    if name == "pores":
+        return res.parts.get("local_thickness") is not None
+    return True
 
 
-def plot_relaxation(res, path, cmp_=None, notes=(), force=False):
-    """Stacked T2 distribution per pore class, with an experimental one when given."""
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(7, 5))
-    t_ms = res.t2 * 1e3
-    dl = np.diff(np.log(res.edges))
-    bottom = np.zeros_like(t_ms)
-    for i, (k, v) in enumerate(res.fraction.items()):
-        ax.fill_between(t_ms, bottom, bottom + v / dl, step="mid", alpha=0.6, label=k,
-                        color=f"C{i}")
-        bottom = bottom + v / dl
-    if cmp_ is not None:
-        ax.plot(cmp_.t2 * 1e3, cmp_.experiment, "o-", ms=3, color="k", label="experiment "
-                "(normalised)")
-    ax.set_xscale("log")
-    ax.set_xlabel("T2 (ms)")
-    ax.set_ylabel("signal density per ln T2")
-    ax.legend(fontsize=8)
-    nz = np.flatnonzero(bottom > 0)
-    if nz.size:
-        lo, hi = t_ms[nz[0]], t_ms[nz[-1]]
-        if cmp_ is not None:
-            lo, hi = min(lo, cmp_.t2.min() * 1e3), max(hi, cmp_.t2.max() * 1e3)
-        ax.set_xlim(lo / 10, hi * 10)
-    fig.text(0.01, 0.01, _wrap(notes), fontsize=6.5, va="bottom")
-    fig.subplots_adjust(bottom=0.2)
-    _savefig(fig, path, force)
-    return Path(path)
-
-
-def plot_pore_sizes(pores, path, force=False):
-    plt = _pyplot()
-    fig, ax = plt.subplots(1, 2, figsize=(9, 3.6))
-    for key, label in (("local_thickness", "local thickness (continuous)"),
-                       ("intrusion", "simulated intrusion")):
-        r = pores.parts.get(key)
-        if r is None:
+def _write_figures(out: Path, results: dict, grid) -> list[Path]:
+    written = []
+    for name, res in results.items():
+        if not _drawable(name, res):
             continue
-        c = r.bin_centers
-        ax[0].step(c, r.volume_fraction, where="mid", label=label)
-        ax[1].plot(c, r.cumulative_finer, label=label)
-    for a in ax:
-        a.set_xscale("log")
-        a.set_xlabel("pore diameter (nm)")
-        a.legend(fontsize=8)
-    ax[0].set_ylabel("volume fraction per bin")
-    ax[1].set_ylabel("cumulative volume fraction (finer)")
-    fig.suptitle("Pore sizes of the gel pore space (interlayer excluded)", fontsize=10)
-    fig.tight_layout()
-    _savefig(fig, path, force)
-    return Path(path)
-
-
-def plot_chords(ch, path, force=False):
-    plt = _pyplot()
-    fig, ax = plt.subplots(1, 2, figsize=(9, 3.6))
-    src = ch.parts["exact"]
-    for a, ph_name in zip(ax, ("solid", "pore")):
-        res = src if src is not None else ch.parts[f"voxel_{ph_name}"]
-        L = res.chords(ph_name) if ph_name in res.lengths else np.zeros(0)
-        if L.size:
-            a.hist(L, bins=60, density=True, color="#0072b2" if ph_name == "solid" else "#e69f00")
-            a.axvline(L.mean(), color="k", lw=1, ls="--", label=f"mean {L.mean():.3g} nm")
-            a.legend(fontsize=8)
-        a.set_xlabel(f"{ph_name} chord length (nm)")
-        a.set_ylabel("probability density (nm⁻¹)")
-    how = "isotropic random lines (exact)" if src is not None else "voxel rows along x, y, z"
-    fig.suptitle(f"Chords not cut by the domain wall; {how}", fontsize=10)
-    fig.tight_layout()
-    _savefig(fig, path, force)
-    return Path(path)
-
-
-def plot_s2(cor, path, force=False):
-    plt = _pyplot()
-    r = cor.parts["s2_solid"]
-    fig, ax = plt.subplots(figsize=(5, 3.6))
-    ax.plot(r.r, r.s2, "o-", ms=2)
-    ax.axhline(r.phi ** 2, color="0.5", ls=":", label="φ²")
-    ax.set_xlabel("r (nm)")
-    ax.set_ylabel("S₂(r) of the solid")
-    ax.legend(fontsize=8)
-    fig.tight_layout()
-    _savefig(fig, path, force)
-    return Path(path)
-
-
-def plot_sections(grid, path, force=False):
-    """Three orthogonal central sections of the phase grid, with a scale bar."""
-    from .view import PHASE_COLOURS, PHASE_LABELS, section_rgb
-    plt = _pyplot()
-    lab = grid.labels
-    sp = grid.spacing
-    n = lab.shape
-    o = grid.origin
-    fig, axes = plt.subplots(1, 3, figsize=(11, 4))
-    for a, ax_i in zip(axes, (2, 1, 0)):
-        sl = [slice(None)] * 3
-        sl[ax_i] = n[ax_i] // 2
-        img = lab[tuple(sl)]
-        u, v = [k for k in range(3) if k != ax_i]
-        rgb = section_rgb(img.T)
-        a.imshow(rgb, origin="lower", interpolation="nearest",
-                 extent=(o[u], o[u] + n[u] * sp[u], o[v], o[v] + n[v] * sp[v]))
-        at = o[ax_i] + (n[ax_i] // 2 + 0.5) * sp[ax_i]
-        a.set_title(f"{'xyz'[u]}{'xyz'[v]} section at {'xyz'[ax_i]} = {at:.3g} nm", fontsize=9)
-        a.set_xlabel("xyz"[u] + " (nm)")
-        a.set_ylabel("xyz"[v] + " (nm)")
-    from matplotlib.patches import Patch
-    handles = [Patch(color=PHASE_COLOURS[c], label=PHASE_LABELS[c]) for c in PHASE_COLOURS]
-    fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=8, frameon=False)
-    fig.tight_layout(rect=(0, 0.07, 1, 1))
-    _savefig(fig, path, force)
-    return Path(path)
+        for stem, draw in FIGURES.get(name, []):
+            written.append(save_figure(draw(res), out / f"{stem}.png"))
+    if grid is not None:
+        written.append(save_figure(plot_sections(grid), out / "sections.png"))
+    return written

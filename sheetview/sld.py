@@ -77,7 +77,7 @@ def parse_formula(formula: str) -> dict:
         Unknown element, unbalanced parentheses or a stray character.
     """
     if not isinstance(formula, str) or not formula.strip():
-        raise OptionError("empty chemical formula", field="formula")
+        raise OptionError("empty chemical formula", param="formula")
     s = formula.strip()
     stack: list[dict] = [{}]
     pos = 0
@@ -86,13 +86,13 @@ def parse_formula(formula: str) -> dict:
         m = _TOKEN.match(s, pos)
         if m is None or m.end() == pos:
             raise OptionError(f"chemical formula {formula!r}: unexpected character "
-                              f"{s[pos]!r} at position {pos + 1}", field="formula")
+                              f"{s[pos]!r} at position {pos + 1}", param="formula")
         pos = m.end()
         el, op, cl, num = m.groups()
         if el is not None:
             if el not in ATOMIC_MASS:
                 raise OptionError(f"chemical formula {formula!r}: unknown element {el!r} "
-                                  f"(known: {', '.join(sorted(ATOMIC_MASS))})", field="formula")
+                                  f"(known: {', '.join(sorted(ATOMIC_MASS))})", param="formula")
             last = {el: 1.0}
             stack[-1][el] = stack[-1].get(el, 0.0) + 1.0
         elif op is not None:
@@ -101,7 +101,7 @@ def parse_formula(formula: str) -> dict:
         elif cl is not None:
             if len(stack) == 1:
                 raise OptionError(f"chemical formula {formula!r}: unbalanced ')'",
-                                  field="formula")
+                                  param="formula")
             group = stack.pop()
             for k, v in group.items():
                 stack[-1][k] = stack[-1].get(k, 0.0) + v
@@ -109,16 +109,16 @@ def parse_formula(formula: str) -> dict:
         else:
             if last is None:
                 raise OptionError(f"chemical formula {formula!r}: number {num!r} does not "
-                                  f"follow an element or ')'", field="formula")
+                                  f"follow an element or ')'", param="formula")
             f = float(num)
             for k, v in last.items():
                 stack[-1][k] += v * (f - 1.0)
             last = None
     if len(stack) != 1:
-        raise OptionError(f"chemical formula {formula!r}: unbalanced '('", field="formula")
+        raise OptionError(f"chemical formula {formula!r}: unbalanced '('", param="formula")
     out = {k: v for k, v in stack[0].items() if v != 0}
     if not out:
-        raise OptionError(f"chemical formula {formula!r} has no atoms", field="formula")
+        raise OptionError(f"chemical formula {formula!r} has no atoms", param="formula")
     return out
 
 
@@ -132,7 +132,7 @@ def _number_density(formula: str, density: float) -> float:
     density = float(density)
     if not density > 0:
         raise OptionError(f"mass density must be positive (g/cm3), got {density!r}",
-                          field="density")
+                          param="density")
     return AVOGADRO * density / molar_mass(formula) * 1e-24  # cm^-3 -> Å^-3
 
 
@@ -141,7 +141,7 @@ def neutron_sld(formula: str, density: float) -> float:
     atoms = parse_formula(formula)
     missing = [k for k in atoms if k not in SCATTERING_LENGTH_FM]
     if missing:
-        raise OptionError(f"no neutron scattering length for {missing}", field="formula")
+        raise OptionError(f"no neutron scattering length for {missing}", param="formula")
     b = sum(SCATTERING_LENGTH_FM[k] * n for k, n in atoms.items()) * 1e-5  # fm -> Å
     return _number_density(formula, density) * b * 1e6
 
@@ -160,7 +160,7 @@ def sld(formula: str, density: float, probe: str = "neutron") -> float:
         return neutron_sld(formula, density)
     if p in ("xray", "x"):
         return xray_sld(formula, density)
-    raise OptionError(f"probe must be 'neutron' or 'xray', got {probe!r}", field="probe")
+    raise OptionError(f"probe must be 'neutron' or 'xray', got {probe!r}", param="probe")
 
 
 def water_sld(d2o_fraction: float = 0.0, probe: str = "neutron") -> float:
@@ -172,7 +172,7 @@ def water_sld(d2o_fraction: float = 0.0, probe: str = "neutron") -> float:
     x = float(d2o_fraction)
     if not 0.0 <= x <= 1.0:
         raise OptionError(f"D2O volume fraction must lie in [0, 1], got {d2o_fraction!r}",
-                          field="fluid")
+                          param="fluid")
     h = sld(*PRESETS["h2o"], probe=probe)
     d = sld(*PRESETS["d2o"], probe=probe)
     return (1.0 - x) * h + x * d
@@ -188,7 +188,7 @@ def preset_sld(name: str, probe: str = "neutron") -> float:
         x = float(key[:-1]) / 100.0 if key.endswith("%") else float(key)
     except ValueError:
         raise OptionError(f"fluid must be h2o, d2o or a D2O volume fraction (0-1 or a "
-                          f"percentage), got {name!r}", field="fluid") from None
+                          f"percentage), got {name!r}", param="fluid") from None
     return water_sld(x, probe)
 
 

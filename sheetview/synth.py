@@ -252,7 +252,7 @@ def watson_sample(n: int, kappa: float, mu=(0.0, 0.0, 1.0), seed=0) -> np.ndarra
     ----------
     Watson, G. S., Equatorial distributions on a sphere, Biometrika 52 (1965) 193,
     doi:10.1093/biomet/52.1-2.193. Mardia, K. V. & Jupp, P. E., Directional Statistics,
-    Wiley (2000), section 9.4.2.
+    Wiley (2000), section 9.4.2 (section number from memory).
     """
     if not (isinstance(n, (int, np.integer)) and n >= 0):
         raise OptionError(f"n must be a non-negative whole number, got {n!r}")

@@ -29,38 +29,20 @@ from typing import NamedTuple
 
 import numpy as np
 
+from .app.run import phase_grid as build_phase_grid
+from .app.settings import Settings
 from .errors import InputError, OptionError, SheetviewError
 from .grid import GEL, INTERLAYER, OUTSIDE, SOLID
-
-# ============================================================================ the look
-#: Phase colours of sections (chosen for sheetview): solid a dark umber, interlayer a
-#: warm amber, gel pore a pale sky blue, outside the domain a light neutral grey. They
-#: differ in lightness as well as hue, so they stay apart for colour-blind readers and
-#: in greyscale print.
-PHASE_COLOURS = {
-    SOLID: "#7a4e2d",
-    INTERLAYER: "#a58fd0",  # lavender: apart from the orange of the stack palette
-    GEL: "#9fd3f0",
-    OUTSIDE: "#d9d9d9",
-}
-PHASE_LABELS = {SOLID: "solid", INTERLAYER: "interlayer", GEL: "gel pore",
-                OUTSIDE: "outside the domain"}
-#: Drawing order of phases in legends and their toggle keys.
-PHASE_ORDER = (SOLID, INTERLAYER, GEL, OUTSIDE)
-
-#: Qualitative palette for stacks and tags: the colour-blind-safe set of Okabe & Ito
-#: (Color Universal Design, 2008) without its black, cycled when there are more groups.
-GROUP_PALETTE = ("#e69f00", "#56b4e9", "#009e73", "#f0e442", "#0072b2", "#d55e00", "#cc79a7")
-
-#: Opacity of each phase on the cut plane of the 3D scene: the pore phases are see-through
-#: so that the prisms behind the cut stay visible.
-PHASE_OPACITY = {SOLID: 1.0, INTERLAYER: 1.0, GEL: 0.45, OUTSIDE: 0.25}
-
-BACKGROUND = "#ffffff"
-OUTLINE_COLOUR = "#404040"
-NAN_COLOUR = "#b0b0b0"
-TEXT_COLOUR = "#202020"
-
+from .measures.sections import Section, grid_bounds, parse_vector, plane_basis, sample_section
+from .style import (BACKGROUND, GROUP_PALETTE, NAN_COLOUR, OUTLINE_COLOUR, PHASE_COLOURS,
+                    PHASE_LABELS, PHASE_OPACITY, PHASE_ORDER, TEXT_COLOUR, section_rgb)
+from .style import rgb as colour_rgb
+from .grid import default_voxel_size
+from .io import write
+from .io.output import atomic_path, check_writable
+from .measures.orientation import DEFAULTS, local_order, q_summary, q_tensor
+from .measures.stacking import stacking
+from .structure import Structure
 
 class ColouringInfo(NamedTuple):
     label: str
@@ -87,15 +69,6 @@ FIXED_RANGES = {"order": (0.0, 1.0), "director": (0.0, 90.0), "wall": (0.0, 90.0
 CELLS_PER_PRISM = 5
 _TRIS = np.array([[0, 2, 1], [3, 4, 5]], dtype=np.int64)            # outward wound
 _QUADS = np.array([[0, 1, 4, 3], [1, 2, 5, 4], [2, 0, 3, 5]], dtype=np.int64)
-
-
-def _rgb(colour) -> np.ndarray:
-    from matplotlib.colors import to_rgb
-    return np.asarray(to_rgb(colour))
-
-
-def _rgb8(colour) -> np.ndarray:
-    return np.round(_rgb(colour) * 255).astype(np.uint8)
 
 
 def _square_actor(x, y, w, h, rgb):
@@ -165,7 +138,6 @@ def stacking_result(structure, cache: dict | None = None):
     """The :func:`sheetview.measures.stacking.stacking` result, cached in ``cache``."""
     cache = {} if cache is None else cache
     if "stacking" not in cache:
-        from .measures.stacking import stacking
         cache["stacking"] = stacking(structure)
     return cache["stacking"]
 
@@ -174,7 +146,6 @@ def director_of(structure, cache: dict | None = None) -> np.ndarray:
     """The director: principal axis of the volume-weighted Q tensor of the normals."""
     cache = {} if cache is None else cache
     if "director" not in cache:
-        from .measures.orientation import q_summary, q_tensor
         _, d, _, _ = q_summary(q_tensor(structure.normals, structure.volumes))
         cache["director"] = np.array([0.0, 0.0, 1.0]) if d is None else np.asarray(d, float)
     return cache["director"]
@@ -204,7 +175,7 @@ def scalars_for(structure, colour_by: str, cache: dict | None = None) -> Colouri
     """
     if colour_by not in COLOURINGS:
         raise OptionError(f"unknown colouring {colour_by!r}; choose one of "
-                          f"{', '.join(COLOURINGS)}", field="colour_by")
+                          f"{', '.join(COLOURINGS)}", param="colour_by")
     cache = {} if cache is None else cache
     info = COLOURINGS[colour_by]
     n = len(structure)
@@ -214,7 +185,6 @@ def scalars_for(structure, colour_by: str, cache: dict | None = None) -> Colouri
         vals = stacking_result(structure, cache).stack
     elif colour_by == "order":
         if "order" not in cache:
-            from .measures.orientation import DEFAULTS, local_order
             cache["order"] = local_order(structure.centroids, structure.normals,
                                          structure.volumes, DEFAULTS["local_radius"],
                                          structure.domain)
@@ -227,7 +197,7 @@ def scalars_for(structure, colour_by: str, cache: dict | None = None) -> Colouri
         dom = structure.domain
         if getattr(dom, "periodic", False):
             raise OptionError("a periodic box has no walls: the angle to the wall is undefined",
-                              field="colour_by", path=structure.source)
+                              param="colour_by", path=structure.source)
         w = np.asarray(dom.inward_normal(structure.centroids), dtype=float).reshape(n, 3)
         with np.errstate(invalid="ignore"):
             c = np.abs(np.einsum("ij,ij->i", structure.normals, w))
@@ -236,7 +206,7 @@ def scalars_for(structure, colour_by: str, cache: dict | None = None) -> Colouri
         if colour_by not in structure.columns:
             have = ", ".join(sorted(structure.columns)) or "none"
             raise OptionError(f"colouring by {colour_by!r} needs a '{colour_by}' column in "
-                              f"the prisms (columns present: {have})", field="colour_by",
+                              f"the prisms (columns present: {have})", param="colour_by",
                               path=structure.source)
         vals = structure.columns[colour_by]
     unit = info.unit
@@ -300,7 +270,7 @@ def display_of(colouring: Colouring, key: str | None = None) -> Display:
         colours = cmap(np.linspace(0.0, 1.0, 256))[:, :3]
         return Display(vals.astype(np.float32), colours, clim, title, [], 5, "%.3g")
     # groups
-    pal = np.array([_rgb(c) for c in GROUP_PALETTE])
+    pal = np.array([colour_rgb(c) for c in GROUP_PALETTE])
     uniq, inv = np.unique(vals, return_inverse=True)
     inv = inv.reshape(-1)
     k = len(pal)
@@ -376,119 +346,6 @@ def outline_mesh(domain):
 
 
 # ============================================================================ sections
-def plane_basis(normal) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Unit normal ``n`` and in-plane axes ``u``, ``v`` with ``u x v = n``.
-
-    For axis-aligned normals the in-plane axes are the other two axes in cyclic order
-    (``z``: u = x, v = y; ``x``: u = y, v = z; ``y``: u = z, v = x), so that sections
-    read like the panels of :func:`contact_sheet` up to a swap.
-    """
-    n = np.asarray(normal, dtype=float).reshape(3)
-    norm = np.linalg.norm(n)
-    if not (np.isfinite(norm) and norm > 0):
-        raise OptionError("the plane normal must be a non-zero vector, got "
-                          f"({', '.join(f'{x:g}' for x in n)})", field="slice_normal")
-    n = n / norm
-    a = int(np.argmax(np.abs(n)))
-    if abs(abs(n[a]) - 1.0) < 1e-12:
-        u = np.zeros(3)
-        u[(a + 1) % 3] = 1.0
-        u *= 1.0  # cyclic axis order
-        v = np.cross(n, u)
-        return n, u, v
-    helper = np.zeros(3)
-    helper[int(np.argmin(np.abs(n)))] = 1.0
-    u = np.cross(helper, n)
-    u /= np.linalg.norm(u)
-    v = np.cross(n, u)
-    return n, u, v
-
-
-@dataclass
-class Section:
-    """Phase labels sampled on a plane.
-
-    ``labels[a, b]`` is the phase of the voxel containing the point
-    ``origin + (u0 + (a + 0.5) * pixel) * u + (v0 + (b + 0.5) * pixel) * v``;
-    255 marks points off the grid.
-    """
-
-    labels: np.ndarray
-    origin: np.ndarray
-    normal: np.ndarray
-    u: np.ndarray
-    v: np.ndarray
-    u0: float
-    v0: float
-    pixel: float
-
-    OFF_GRID = 255
-
-    def point(self, a, b) -> np.ndarray:
-        """World coordinates (nm) of pixel centre(s) ``(a, b)``."""
-        a = np.asarray(a, float)[..., None]
-        b = np.asarray(b, float)[..., None]
-        return (self.origin + (self.u0 + (a + 0.5) * self.pixel) * self.u
-                + (self.v0 + (b + 0.5) * self.pixel) * self.v)
-
-    def fractions(self) -> dict:
-        """Area fraction of each phase on the grid part of the section."""
-        lab = self.labels[self.labels != self.OFF_GRID]
-        if lab.size == 0:
-            return {}
-        cnt = np.bincount(lab, minlength=4)
-        return {PHASE_LABELS.get(c, str(c)): float(cnt[c] / lab.size) for c in np.flatnonzero(cnt)}
-
-
-def grid_bounds(grid) -> tuple[np.ndarray, np.ndarray]:
-    lo = np.asarray(grid.origin, float)
-    return lo, lo + np.asarray(grid.shape) * np.asarray(grid.spacing)
-
-
-def sample_section(grid, origin, normal, *, pixel: float | None = None,
-                   max_pixels: int = 800) -> Section:
-    """Phase labels of ``grid`` on the plane through ``origin`` with ``normal``.
-
-    Nearest-voxel lookup: each pixel takes the label of the voxel that contains its
-    centre. The pixel is the smallest voxel edge (enlarged if the section would exceed
-    ``max_pixels`` per side); the sampled patch is the projection of the grid's box onto
-    the plane.
-    """
-    n, u, v = plane_basis(normal)
-    o = np.asarray(origin, dtype=float).reshape(3)
-    lo, hi = grid_bounds(grid)
-    corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
-                        for z in (lo[2], hi[2])]) - o
-    pu, pv_ = corners @ u, corners @ v
-    sp = np.asarray(grid.spacing, float)
-    px = float(sp.min()) if pixel is None else float(pixel)
-    span = max(pu.max() - pu.min(), pv_.max() - pv_.min())
-    if span / px > max_pixels:
-        px = span / max_pixels
-    u0, v0 = float(pu.min()), float(pv_.min())
-    nu = max(1, int(math.ceil((pu.max() - u0) / px - 1e-9)))
-    nv = max(1, int(math.ceil((pv_.max() - v0) / px - 1e-9)))
-    a = u0 + (np.arange(nu) + 0.5) * px
-    b = v0 + (np.arange(nv) + 0.5) * px
-    labels = np.full((nu, nv), Section.OFF_GRID, np.uint8)
-    for j0 in range(0, nu, 256):  # blocks keep the temporaries small
-        pts = o + a[j0:j0 + 256, None, None] * u + b[None, :, None] * v
-        idx = np.floor((pts - lo) / sp).astype(np.int64)
-        ok = np.all((idx >= 0) & (idx < np.asarray(grid.shape)), axis=-1)
-        blk = labels[j0:j0 + 256]
-        ii = idx[ok]
-        blk[ok] = grid.labels[ii[:, 0], ii[:, 1], ii[:, 2]]
-    return Section(labels, o, n, u, v, u0, v0, px)
-
-
-def section_rgb(labels: np.ndarray, visible=PHASE_ORDER, background=BACKGROUND) -> np.ndarray:
-    """RGB uint8 image of a label array (hidden phases and off-grid in ``background``)."""
-    lut = np.tile(_rgb8(background), (256, 1))
-    for code in visible:
-        lut[code] = _rgb8(PHASE_COLOURS[code])
-    return lut[labels]
-
-
 def section_mesh(section: Section, visible=PHASE_ORDER, lift: float = 0.0, opacity=None):
     """The visible pixels of a section as quads (one per pixel) with RGB cell colours
     (RGBA with ``opacity``, a dict phase code -> 0..1), lifted by ``lift`` nm along the
@@ -530,7 +387,6 @@ def view_voxel_size(structure) -> float:
     """Default voxel edge (nm) of the viewer's grid: the rasterizer's default
     (:func:`sheetview.grid.default_voxel_size`), coarsened if needed so that the domain's
     bounding box holds at most :data:`VIEW_MAX_VOXELS` voxels (rounded up to 3 digits)."""
-    from .grid import default_voxel_size
 
     v = default_voxel_size(structure)
     lo, hi = (np.asarray(b, float) for b in structure.domain.bounds)
@@ -542,15 +398,13 @@ def view_voxel_size(structure) -> float:
 
 
 def phase_grid(structure, voxel_size=None, cache: dict | None = None):
-    """The phase map shown on cuts: solid, interlayer, gel pore, outside
-    (:func:`sheetview.measures.phases.classify`, the stacking graph taken from ``cache``
-    or computed and kept there), at ``voxel_size`` nm (default :func:`view_voxel_size`)."""
-    from .measures.phases import classify
-
+    """The phase map shown on cuts: the phase grid of ``measure``
+    (:func:`sheetview.app.run.phase_grid`, the stacking graph taken from ``cache`` or
+    computed and kept there), at ``voxel_size`` nm (default :func:`view_voxel_size`)."""
     if voxel_size is None:
         voxel_size = view_voxel_size(structure)
     graph = stacking_result(structure, cache).graph
-    return classify(structure, voxel_size, graph=graph)
+    return build_phase_grid(structure, Settings(voxel=voxel_size), graph=graph)
 
 
 # =============================================================================== scene
@@ -623,7 +477,7 @@ class Scene:
         self.colour_keys = available_colourings(structure)
         if colour_by not in COLOURINGS:
             raise OptionError(f"unknown colouring {colour_by!r}; choose one of "
-                              f"{', '.join(COLOURINGS)}", field="colour_by")
+                              f"{', '.join(COLOURINGS)}", param="colour_by")
         self.colour_by = colour_by
         self.colouring = scalars_for(structure, colour_by, self.cache)
         self.display = display_of(self.colouring, colour_by)
@@ -641,7 +495,7 @@ class Scene:
         self.step = float(structure.spacing if step is None else step)
         if not (math.isfinite(self.step) and self.step > 0):
             raise OptionError(f"the plane step must be a positive number of nm, got {step!r}",
-                              field="step")
+                              param="step")
         self.section_on = bool(section)
         self.visible_phases = set(PHASE_ORDER)
         self.outline_on = True
@@ -716,7 +570,7 @@ class Scene:
         """Show or hide one phase in the section; returns whether it is now shown."""
         code = int(code)
         if code not in PHASE_COLOURS:
-            raise OptionError(f"unknown phase code {code}", field="phase")
+            raise OptionError(f"unknown phase code {code}", param="phase")
         if code in self.visible_phases:
             self.visible_phases.discard(code)
         else:
@@ -749,7 +603,7 @@ class Scene:
         s = self.structure
         prism = int(prism)
         if not 0 <= prism < len(s):
-            raise OptionError(f"prism {prism} out of range 0..{len(s) - 1}", field="prism")
+            raise OptionError(f"prism {prism} out of range 0..{len(s) - 1}", param="prism")
         res = stacking_result(s, self.cache)
         k = int(res.stack[prism])
         st = res.stacks
@@ -915,7 +769,7 @@ class Scene:
             for code in PHASE_ORDER:
                 if code in present or code == SOLID:
                     word = PHASE_LABELS[code] + ("" if code in self.visible_phases else " (hidden)")
-                    entries.append((word, _rgb(PHASE_COLOURS[code])))
+                    entries.append((word, colour_rgb(PHASE_COLOURS[code])))
         for label, colour in self.display.legend:
             entries.append((label, np.asarray(colour, float)))
         for name in [k for k in p.actors if k.startswith("legend_")]:
@@ -1029,7 +883,7 @@ def camera_direction(view: str, plane_normal=(0.0, 0.0, 1.0)):
         d["xyz".index(view[1])] = 1.0 if view[0] == "+" else -1.0
     else:
         raise OptionError(f"unknown camera {view!r}; choose one of {', '.join(CAMERA_VIEWS)}",
-                          field="camera")
+                          param="camera")
     d = d / np.linalg.norm(d)
     up = np.array([0.0, 0.0, 1.0])
     if abs(d @ up) > 0.95:
@@ -1043,7 +897,6 @@ def write_png(img: np.ndarray, path, force: bool = False) -> Path:
     """Write an RGB(A) uint8 image as PNG through :func:`atomic_path`."""
     from matplotlib.image import imsave
 
-    from .io.output import atomic_path
 
     with atomic_path(path, force) as tmp:
         imsave(str(tmp), np.ascontiguousarray(img), format="png")
@@ -1056,10 +909,10 @@ def parse_size(text) -> tuple[int, int]:
         w, h = (int(v) for v in str(text).lower().replace(",", "x").split("x"))
     except ValueError:
         raise OptionError(f"--size: expected WIDTHxHEIGHT in pixels such as 800x600, got {text!r}",
-                          field="size") from None
+                          param="size") from None
     if not (16 <= w <= 8192 and 16 <= h <= 8192):
         raise OptionError(f"--size: width and height must be 16 to 8192 pixels, got {text!r}",
-                          field="size")
+                          param="size")
     return w, h
 
 
@@ -1071,16 +924,16 @@ def slice_plane(domain, *, axis=None, at=None, normal=None, origin=None):
     centre = 0.5 * (lo + hi)
     if axis is not None and normal is not None:
         raise OptionError("give the plane either by --slice-axis/--slice-at or by "
-                          "--slice-normal/--slice-origin, not both", field="slice")
+                          "--slice-normal/--slice-origin, not both", param="slice")
     if axis is None and normal is None:
         if at is not None or origin is not None:
             raise OptionError("--slice-at needs --slice-axis and --slice-origin needs "
-                              "--slice-normal", field="slice")
+                              "--slice-normal", param="slice")
         return None
     if axis is not None:
         if origin is not None:
             raise OptionError("--slice-origin goes with --slice-normal; with --slice-axis "
-                              "give the position by --slice-at", field="slice")
+                              "give the position by --slice-at", param="slice")
         a = "xyz".index(str(axis).lower())
         n = np.zeros(3)
         n[a] = 1.0
@@ -1090,24 +943,10 @@ def slice_plane(domain, *, axis=None, at=None, normal=None, origin=None):
         return o, n
     if at is not None:
         raise OptionError("--slice-at goes with --slice-axis; with --slice-normal give "
-                          "--slice-origin", field="slice")
-    n = _vec3(normal, "--slice-normal")
-    o = centre if origin is None else _vec3(origin, "--slice-origin")
+                          "--slice-origin", param="slice")
+    n = parse_vector(normal, "--slice-normal")
+    o = centre if origin is None else parse_vector(origin, "--slice-origin")
     return o, plane_basis(n)[0]
-
-
-def _vec3(v, what):
-    if isinstance(v, str):
-        parts = v.replace(" ", "").split(",")
-    else:
-        parts = list(v)
-    try:
-        out = np.array([float(x) for x in parts])
-    except ValueError:
-        raise OptionError(f"{what}: expected three numbers such as 0,0,1, got {v!r}") from None
-    if out.shape != (3,) or not np.all(np.isfinite(out)):
-        raise OptionError(f"{what}: expected three finite numbers such as 0,0,1, got {v!r}")
-    return out
 
 
 def render(structure, path=None, *, colour_by: str = "stacking", plane=None, grid=None,
@@ -1141,7 +980,6 @@ def render(structure, path=None, *, colour_by: str = "stacking", plane=None, gri
     """
     import pyvista as pv
 
-    from .io.output import check_writable
 
     if path is not None:
         check_writable(path, force)  # fail before the work
@@ -1152,8 +990,7 @@ def render(structure, path=None, *, colour_by: str = "stacking", plane=None, gri
                       decorations=decorations, cache=cache)
     view = camera or ("cut" if scene.section_on else "iso")
     camera_direction(view, scene.plane_normal)  # validate before opening a window
-    pv.OFF_SCREEN = True
-    p = pv.Plotter(off_screen=True, window_size=(int(w), int(h)))
+    p = pv.Plotter(off_screen=True, window_size=(int(w), int(h)))  # no global flag set
     try:
         p.disable_anti_aliasing()
         scene.attach(p)
@@ -1235,20 +1072,19 @@ def contact_sheet(grid, path=None, *, axis: str = "z", count: int = 9, force: bo
     from matplotlib.figure import Figure
     from matplotlib.patches import Patch
 
-    from .io.output import atomic_path, check_writable
 
     axis = str(axis).lower()
     if axis not in PANEL_AXES:
-        raise OptionError(f"--axis must be x, y or z, got {axis!r}", field="axis")
+        raise OptionError(f"--axis must be x, y or z, got {axis!r}", param="axis")
     try:
         count = int(count)
     except (TypeError, ValueError):
-        raise OptionError(f"--count must be a whole number, got {count!r}", field="count") from None
+        raise OptionError(f"--count must be a whole number, got {count!r}", param="count") from None
     a = "xyz".index(axis)
     if not 1 <= count <= min(100, grid.shape[a]):
         raise OptionError(f"--count must be between 1 and {min(100, grid.shape[a])} (the grid "
                           f"has {grid.shape[a]} voxel layers along {axis}), got {count}",
-                          field="count")
+                          param="count")
     if path is not None:
         check_writable(path, force)
     idx, pos = section_positions(grid, axis, count)
@@ -1344,13 +1180,10 @@ def export(structure, folder, *, grid=None, voxel_size=None, stem: str | None = 
 
     Returns the paths written.
     """
-    from .io import write
-    from .io.output import check_writable
-    from .structure import Structure
 
     folder = Path(folder)
     if not folder.is_dir():
-        raise OptionError(f"export folder {str(folder)!r} does not exist", field="export")
+        raise OptionError(f"export folder {str(folder)!r} does not exist", param="export")
     if stem is None:
         stem = Path(structure.source).stem if structure.source else "structure"
     cache = {} if cache is None else cache

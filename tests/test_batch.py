@@ -375,7 +375,7 @@ def test_key_hashes_exactly_the_number_settings():
     """The result key changes with every setting that changes a number and not with
     --max-memory (which only decides whether a grid may be built); defaults given
     explicitly give the key of defaults left out (derived: canonical JSON of the settings
-    completed with pipeline.DEFAULTS)."""
+    completed with the Settings defaults)."""
     from sheetview.batch import key_settings
     from sheetview.cli.measure import NO_NUMBER_SETTINGS, SETTINGS, measure_settings
     sha = "ab" * 32
@@ -385,13 +385,15 @@ def test_key_hashes_exactly_the_number_settings():
     k0 = key()
     assert k0 == result_key(sha, {"settings": key_settings({})})
     other = {"voxel": 0.3, "angle_tol": 6.0, "gap_tol": 0.3, "overlap": 0.2, "tilt_limit": 30.0,
-             "local_radius": 4.0, "frame": "director", "density": 2.6, "pore_split": "5,20",
+             "local_radius": 4.0, "frame": "director", "density": 2.6,
+             "composition": "(CaO)1.5(SiO2)(H2O)2", "water_density": 1.0, "pore_split": "5,20",
+             "edge_tol": 0.04, "s2_block": 100, "s2_rmax": 3.0,
              "intrusion": True, "lines": 1000, "seed": 1}
     assert set(other) == set(SETTINGS) - set(NO_NUMBER_SETTINGS)
     keys = {name: key(**{name: v}) for name, v in other.items()}
     assert k0 not in keys.values() and len(set(keys.values())) == len(other)
     assert key(max_memory="4G") == k0
-    with pytest.raises(sv.OptionError, match="unknown measure setting"):
+    with pytest.raises(sv.OptionError, match="unknown setting"):
         key_settings({"angle_tolerance": 3})
 
 

@@ -119,25 +119,26 @@ def test_volume_input_refused(tmp_path):
 
 def test_measure_settings_builder():
     """The one settings builder of ``measure`` and ``batch``: without options it gives
-    the defaults of the pipeline (pipeline.DEFAULTS, derived) for every key it builds;
-    option texts are parsed (sizes in binary units, common practice: 1G = 2^30 bytes);
-    bad values are refused naming the option."""
+    the defaults of Settings (derived) for every setting; option texts are parsed (sizes in
+    binary units, common practice: 1G = 2^30 bytes); bad values are refused naming the
+    parameter, which the command line shows as its option."""
+    from sheetview.app.settings import Settings
     from sheetview.cli.measure import SETTINGS, measure_settings
-    from sheetview.pipeline import DEFAULTS
     s = measure_settings()
-    assert tuple(s) == SETTINGS
-    assert s == {k: DEFAULTS[k] for k in SETTINGS}
+    assert tuple(s.to_dict()) == SETTINGS
+    assert s == Settings()
     s = measure_settings(max_memory="1.5G", pore_split="5,20", lines=300)
-    assert s["max_memory"] == 3 * 2 ** 29 and s["pore_split"] == (5.0, 20.0)
-    assert measure_settings(pore_split=[5, 20])["pore_split"] == (5.0, 20.0)
-    for kw, opt in (({"pore_split": "20,5"}, "--pore-split"), ({"pore_split": "1,2,3,4"},
-                    "--pore-split"), ({"lines": 0}, "--lines"), ({"voxel": 0.001}, "--voxel"),
-                    ({"density": 0}, "--density"), ({"frame": "x"}, "--frame"),
-                    ({"gap_tol": 0.8}, "--gap-tol")):
-        with pytest.raises(sv.OptionError, match=opt):
+    assert s.max_memory == 3 * 2 ** 29 and s.pore_split == (5.0, 20.0)
+    assert measure_settings(pore_split=[5, 20]).pore_split == (5.0, 20.0)
+    for kw, param in (({"pore_split": "20,5"}, "pore_split"), ({"pore_split": "1,2,3,4"},
+                      "pore_split"), ({"lines": 0}, "lines"), ({"voxel": 0.001}, "voxel"),
+                      ({"density": 0}, "density"), ({"frame": "x"}, "frame"),
+                      ({"gap_tol": 0.8}, "gap_tol"), ({"seed": -1}, "seed")):
+        with pytest.raises(sv.OptionError, match=param) as e:
             measure_settings(**kw)
+        assert e.value.param == param and isinstance(e.value, ValueError)
     # the gap tolerance is checked against the repeat given for reading
-    assert measure_settings(gap_tol=0.8, spacing=1.9)["gap_tol"] == 0.8
+    assert measure_settings(gap_tol=0.8, spacing=1.9).gap_tol == 0.8
 
 
 @pytest.mark.parametrize("args,msg", [

@@ -96,3 +96,119 @@ def test_unbounded_r_max_is_the_whole_grid():
         np.testing.assert_array_equal(r.s2, ref.s2)
     with pytest.raises(OptionError, match="reach"):
         s2_map(np.ones((3, 3, 3), bool), reach=(1, 2))
+
+
+def test_crossing_counts_match_direct_counts():
+    """The counts C_IW(k) = #{x in phase : x + k inside the domain} at the slope's lags
+    (block-skipping kernel) equal direct numpy counts, with OUTSIDE voxels, a grid face
+    and periodic wrap (independent numpy path)."""
+    from sheetview.measures.correlation import _cross_counts
+    rng = np.random.default_rng(7)
+    one = rng.choice([SOLID, GEL], size=(23, 19, 21)).astype(np.uint8)
+    one[rng.random(one.shape) < 0.05] = OUTSIDE
+    one[15:, 10:, :] = OUTSIDE
+    two = rng.choice([SOLID, GEL], size=(25, 26, 22)).astype(np.uint8)
+    two[-1] = OUTSIDE  # reached only across the periodic wrap from the first layers
+    inphase = np.zeros(256, bool)
+    inphase[SOLID] = True
+    lags = np.array([[1, 0, 0], [-2, 1, 0], [2, 2, -2], [0, -1, 2], [-1, -1, -1]])
+    for lab, periodic in ((one, False), (one, True), (two, False), (two, True)):
+        m = lab == SOLID
+        w = lab != OUTSIDE
+        got = _cross_counts(lab, inphase, lags, periodic, int(m.sum()))
+        for k, g in zip(lags, got):
+            if periodic:
+                ref = (m & np.roll(w, tuple(-k), axis=(0, 1, 2))).sum()
+            else:
+                sa = tuple(slice(max(0, -c), n - max(0, c)) for c, n in zip(k, m.shape))
+                sb = tuple(slice(max(0, c), n - max(0, -c)) for c, n in zip(k, m.shape))
+                ref = (m[sa] & w[sb]).sum()
+            assert g == ref, (periodic, k)
+
+
+def test_single_precision_path_matches_direct_counts(monkeypatch):
+    """Past DOUBLE_PRECISION_POINTS the transforms run in single precision: S2 still
+    equals direct pair counts (independent numpy path) to 1e-6."""
+    import sheetview.measures.correlation as cm
+    monkeypatch.setattr(cm, "DOUBLE_PRECISION_POINTS", 0)
+    rng = np.random.default_rng(8)
+    m = rng.random((20, 18, 16)) < 0.3
+    w = rng.random(m.shape) < 0.9
+    s2, _ = s2_map(m, w, False, reach=(5, 4, 3))
+    for d in [(0, 0, 0), (5, -4, 3), (-1, 2, 0), (3, 0, -3)]:
+        assert s2[d] == pytest.approx(_direct(m, w, d, False), abs=1e-6)
+
+
+@pytest.mark.parametrize("spacing", [(1.0, 1.0, 1.0), (1.0, 1.0, 2.5), (0.7, 1.0, 1.3)])
+def test_direction_quadrature_averages_planar_slopes(spacing):
+    """The slope quadrature averages |u . n| over directions u to its exact sphere mean
+    1/2 (closed form: the mean of |cos| over the sphere) within its stated error, for
+    2,000 random normals n (not those it was fitted on); weights positive, summing to 1.
+    On a cubic grid the error is at most 1.4 % (37 directions)."""
+    from sheetview.measures.correlation import _quadrature
+    d, u, w, err = _quadrature(spacing, 6)
+    assert len(d) == 37 and np.all(w >= 0) and w.sum() == pytest.approx(1.0)
+    n = np.random.default_rng(0).normal(size=(2000, 3))
+    n /= np.linalg.norm(n, axis=1)[:, None]
+    avg = np.abs(u @ n.T).T @ w
+    assert np.max(np.abs(2 * avg - 1)) <= err + 3e-3  # fitted on other normals
+    if spacing == (1.0, 1.0, 1.0):
+        assert err < 0.014
+
+
+def test_small_grid_has_no_slope():
+    """A grid too small for the slope's lags reports NaN (JSON null) and says why."""
+    g = PhaseGrid(np.where(np.arange(64).reshape(4, 4, 4) % 3 == 0, SOLID, GEL).astype(np.uint8), 0.5)
+    r = two_point_correlation(g, SOLID)
+    assert np.isnan(r.slope0) and r.to_dict()["slope0_per_nm"] is None
+    assert "too small" in r.notes[0]
+
+
+def _measure(**settings):
+    import sheetview as sv
+    from sheetview.domain import Sphere
+    from sheetview.synth import pack_stacks
+    s = pack_stacks(Sphere((0, 0, 0), 5.0), 8, lateral_size="fixed:3", layers="fixed:2",
+                    seed=3).structure
+    return sv.measure(s, only="phases,correlation", voxel=0.2, **settings)
+
+
+def test_measure_uses_the_whole_domain():
+    """`measure`'s S2 is over the domain: phi is the solid fraction `phases` reports and
+    the reference is named; with s2_block, or when max_memory cannot hold the domain's
+    transform, a central block is used, named as the reference, and a note says so."""
+    m = _measure()
+    b = m.correlation
+    res = b.s2_solid
+    assert res.phi == m.phases.fractions["solid"]
+    assert b.reference == "domain" and res.reference == "domain" and not b.notes
+    b = _measure(s2_block=20).correlation
+    assert b.reference == "central block" == b.s2_solid.reference
+    assert b.block_voxels == [20, 20, 20] and "s2_block" in b.notes[0]
+    d = b.to_dict()
+    assert d["s2_solid"]["reference"] == "central block" and d["notes"]
+    b = _measure(max_memory=3_000_000).correlation
+    assert b.reference == "central block" and "max_memory" in b.notes[0]
+
+
+@pytest.mark.parametrize("shape", [(21, 20, 17), (16, 17, 18)])
+def test_symmetric_window_transform_matches_direct_counts(shape):
+    """A window mirror-symmetric along each axis (an ellipsoid; odd and even sizes) is
+    detected as such (and one voxel off breaks it), and its octant transform gives the
+    window pair counts of direct numpy counting at the kept lags (naive reference)."""
+    from sheetview.measures.correlation import (_reach, _symmetric_autocorrelation,
+                                                _window_mirror_symmetric, padded_shape)
+    c = [(np.arange(n) + 0.5 - n / 2) for n in shape]
+    w = (c[0][:, None, None] ** 2 / 1.1 + c[1][None, :, None] ** 2
+         + c[2][None, None, :] ** 2 / 0.9) <= (min(shape) / 2) ** 2
+    lab = np.where(w, GEL, OUTSIDE).astype(np.uint8)
+    assert _window_mirror_symmetric(lab)
+    lab[0, 0, 0] = GEL
+    assert not _window_mirror_symmetric(lab)
+    rch = _reach(shape, (5, 7, 4))
+    cw = _symmetric_autocorrelation(w, padded_shape(shape, rch), rch, 1)
+    assert cw.shape == (11, 15, 9)
+    for d in [(0, 0, 0), (5, -7, 4), (-3, 2, 0), (1, 1, -1), (0, 7, -4), (-5, -1, -2)]:
+        sa = tuple(slice(max(0, -k), n - max(0, k)) for k, n in zip(d, shape))
+        sb = tuple(slice(max(0, k), n - max(0, -k)) for k, n in zip(d, shape))
+        assert cw[d] == (w[sa] & w[sb]).sum()

@@ -150,3 +150,40 @@ def test_phasegrid_helpers():
     assert g.mask(SOLID).sum() == 1
     with pytest.raises(OptionError):
         g.mask("lava")
+
+
+def test_default_voxel_of_a_closed_body_comes_from_its_own_scales():
+    """A 30 x 30 x 1.4 nm slab body: the default voxel puts about 6 voxels across the
+    thickness (mean chord of a slab = 2t, Cauchy/Santaló 1976; 12 voxels across it), not the
+    domain's smallest extent / 128 (a 1000 x 1000 x 128 grid), and says how it was chosen."""
+    import trimesh
+    from sheetview.grid import rasterize_body
+    from sheetview.structure import SurfaceBody
+    from sheetview.domain import Box
+    m = trimesh.creation.box(extents=(30, 30, 1.4))
+    body = SurfaceBody(m.vertices, m.faces, Box((-16.4, -16.4, -2.1), (16.4, 16.4, 2.1)))
+    g = rasterize_body(body)
+    v = g.metadata["voxel_size_nm"]
+    assert 1.4 / v == pytest.approx(6.6, abs=0.7)  # 4V/S = 2.56 nm (edges count) / 12
+    assert np.prod(g.shape) < 1e6
+    assert "mean chord" in g.metadata["voxel_default"]["rule"]
+    assert g.metadata["voxel_default"]["note"] is None
+
+
+def test_default_voxel_is_coarsened_to_fit_the_memory_limit_and_says_so():
+    """The prism default (6 voxels across the thinner of sheet and gap) becomes the finest
+    voxel that fits the memory limit, with a note; an explicit voxel still stops instead."""
+    from sheetview.synth import perfect_stack
+    s = perfect_stack(3, 6.0, repeat=1.4, thickness=0.7).structure
+    g = rasterize(s)
+    assert g.metadata["voxel_default"]["note"] is None
+    small = int(np.prod(g.shape) * 6 / 1.5)  # 6 bytes per voxel, two thirds of the grid
+    g2 = rasterize(s, max_memory=small)
+    assert g2.metadata["voxel_size_nm"] > g.metadata["voxel_size_nm"]
+    assert np.prod(g2.shape) * 6 <= small
+    assert "memory limit" in g2.metadata["voxel_default"]["note"]
+    with pytest.raises(MemoryLimitError):
+        rasterize(s, g.metadata["voxel_size_nm"], max_memory=small)
+    # a default that would need more than doubling the voxel stops instead, naming the fit
+    with pytest.raises(MemoryLimitError, match="would fit"):
+        rasterize(s, max_memory=int(np.prod(g.shape) * 6 / 20))

@@ -7,7 +7,8 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from sheetview import Sphere, measures, write
+from sheetview import Sphere, write
+from sheetview.app.registry import applicable, select
 from sheetview.cli import main
 from sheetview.synth import pack_stacks
 
@@ -29,9 +30,9 @@ def _run(args):
 def test_default_selection_leaves_them_out(pore):
     from sheetview import read
     s = read(pore)
-    assert "scattering" not in measures.applicable(s)
-    assert "relaxation" not in measures.applicable(s)
-    assert measures.select("default,relaxation", s) == measures.applicable(s) + ["relaxation"]
+    assert "scattering" not in applicable(s)
+    assert "relaxation" not in applicable(s)
+    assert select("default,relaxation", s) == applicable(s) + ["relaxation"]
     r = _run(["measure", pore, "--only", "nonsense"])
     assert r.exit_code == 2 and "'default'" in r.output
 

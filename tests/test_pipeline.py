@@ -78,12 +78,40 @@ def test_identical_when_run_twice(stack_file):
 
 
 def test_pore_split_makes_named_classes(stack_file):
+    """--pore-split keeps every class apart in every table: fractions, interfaces (which add
+    up to the whole solid-pore surface that m2/g uses), surface per class, water and T2."""
     p, _ = stack_file
     doc = json.loads(run(p, "--json", "--voxel", "0.2", "--pore-split", "1,3", "--lines", "200",
-                         "-q", "--no-intrusion").stdout)
+                         "-q", "--no-intrusion", "--only", "default,relaxation").stdout)
+    classes = {"gel", "interhydrate", "capillary"}
     vf = doc["volume_fractions"]
-    assert {"gel", "interhydrate", "capillary"} <= set(vf)
+    assert classes <= set(vf)
     assert sum(vf.values()) == pytest.approx(1.0)
+    itf = doc["surface"]["interfaces"]
+    areas = itf["areas_nm2"]
+    assert {f"solid-{c}" for c in classes | {"interlayer"}} <= set(areas)
+    pore_total = sum(v for k, v in areas.items() if k != "solid-outside")
+    assert itf["solid_pore_area_nm2"] == pytest.approx(pore_total, rel=1e-12)
+    # every solid face of the stack faces some pore class: the Minkowski surface of the
+    # solid (a body in the grid, wall contact 0 here) is the same Crofton sum
+    assert doc["surface"]["minkowski_solid"]["surface_nm2"] == pytest.approx(
+        pore_total + areas["solid-outside"], rel=1e-9)
+    assert doc["specific_surface_m2_per_g"] == pytest.approx(
+        1e-18 * pore_total / itf["mass_g"], rel=1e-12)
+    assert classes <= set(itf["s_over_v_per_nm"]) and classes <= set(doc["phases"]["water"])
+    present = {c for c in classes if vf[c] > 0}
+    assert len(present) >= 2
+    assert set(doc["relaxation"]["class_fraction"]) - {"interlayer"} == present
+
+
+def test_split_classes_have_their_own_colours_and_legend(stack_file, tmp_path):
+    """The section figure gives each size class a colour and a legend entry of its own."""
+    from sheetview.style import PHASE_COLOURS, phase_label
+    names = {3: "gel", 4: "interhydrate", 5: "capillary"}
+    cols = [PHASE_COLOURS[c] for c in (1, 2, 3, 4, 5, 6, 0)]
+    assert len(set(cols)) == len(cols)
+    assert phase_label(4, names) == "interhydrate pore"
+    assert phase_label(3, names) == "gel pore"
 
 
 def test_volume_input_runs_the_grid_measures(tmp_path):

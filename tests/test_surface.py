@@ -3,6 +3,7 @@ import numpy as np
 import pytest
 
 from sheetview.errors import OptionError
+from sheetview.material import Hydrate
 from sheetview.grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
 from sheetview.measures.surface import (configuration_histogram, direction_weights,
                                         euler_characteristic, interface_area,
@@ -76,8 +77,11 @@ def test_surfaces_units_and_slit():
     assert r.s_over_v["gel"] == pytest.approx(factor * 2 / 2.0, rel=1e-9)
     assert r.s_over_v["interlayer"] == pytest.approx(factor * 2 / 0.4, rel=1e-9)
     area = r.areas["solid-gel"] + r.areas["solid-interlayer"]
-    vs = r.volumes["solid"]
-    assert r.specific_surface_m2_per_g == pytest.approx(1e3 * area / (2.73 * vs))
+    assert r.pore_area == pytest.approx(area, rel=1e-12)
+    vs, vi = r.volumes["solid"], r.volumes["interlayer"]
+    # mass of sheets + interlayer water at the hydrate density (Allen et al. 2007: 2.604)
+    assert r.specific_surface_m2_per_g == pytest.approx(1e3 * area / (2.604 * (vs + vi)),
+                                                        rel=1e-12)
     d = r.to_dict()
     assert d["areas_nm2"]["solid-outside"] == 0.0
     assert set(r.table()) == {"interface", "area_nm2"}
@@ -100,7 +104,7 @@ def test_bad_inputs():
     with pytest.raises(OptionError, match="overlap"):
         interface_area(g, [SOLID, GEL], GEL)
     with pytest.raises(OptionError, match="density"):
-        surfaces(g, density=0)
+        surfaces(g, Hydrate(density=0))
     with pytest.raises(OptionError, match="PhaseGrid"):
         surfaces(np.zeros((3, 3, 3)))
     with pytest.raises(OptionError, match="connectivity"):

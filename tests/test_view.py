@@ -211,7 +211,7 @@ def test_contact_sheet_counts_bands(tmp_path):
     img = (imread(str(out))[..., :3] * 255).round().astype(np.uint8)
     r0, r1, c0, c1 = lay.boxes[0]
     col = img[r0 + 2:r1 - 2, (c0 + c1) // 2]
-    solid = close_to(col, V._rgb(V.PHASE_COLOURS[SOLID]), tol=2)
+    solid = close_to(col, V.colour_rgb(V.PHASE_COLOURS[SOLID]), tol=2)
     assert runs(solid) == 3
     rows = np.flatnonzero(solid)
     starts = np.flatnonzero(np.diff(np.concatenate([[0], solid.astype(int)])) == 1)
@@ -235,10 +235,10 @@ def test_render_section_crosses_n_bands(stack4, grid4, tmp_path):
                    camera="+x", size=(300, 300), lighting=False, decorations=False)
     assert (tmp_path / "cut.png").exists()
     col = img[:, 150]
-    assert runs(close_to(col, V._rgb(V.PHASE_COLOURS[SOLID]), tol=2)) == 4
-    assert runs(close_to(col, V._rgb(V.PHASE_COLOURS[INTERLAYER]), tol=2)) == 3
+    assert runs(close_to(col, V.colour_rgb(V.PHASE_COLOURS[SOLID]), tol=2)) == 4
+    assert runs(close_to(col, V.colour_rgb(V.PHASE_COLOURS[INTERLAYER]), tol=2)) == 3
     # the pore around the stack is drawn (blended) too: no background inside the domain
-    assert not close_to(col[140:160], V._rgb(V.BACKGROUND), tol=0).any()
+    assert not close_to(col[140:160], V.colour_rgb(V.BACKGROUND), tol=0).any()
 
 
 def test_render_stacking_number_colours(tmp_path):

@@ -10,8 +10,24 @@ import sys
 
 import click
 
-from .. import __version__
+from .._version import __version__
 from ..errors import SheetviewError
+from .convert import convert
+from .info import info
+from .view import render, slices, view
+
+
+def option_names(command) -> dict:
+    """Parameter name -> the option that sets it (its first long form, ``--voxel``), for
+    the parameters of a click command: how an error's parameter is shown to the user."""
+    out = {}
+    for p in getattr(command, "params", []):
+        if isinstance(p, click.Option):
+            longs = [o for o in p.opts if o.startswith("--")] or list(p.opts)
+            out[p.name] = longs[0]
+        elif isinstance(p, click.Argument):
+            out[p.name] = p.human_readable_name
+    return out
 
 
 class _Group(click.Group):
@@ -19,7 +35,9 @@ class _Group(click.Group):
         try:
             return super().invoke(ctx)
         except SheetviewError as e:
-            click.echo(f"sheetview: error: {e}", err=True)
+            cmd = self.get_command(ctx, ctx.invoked_subcommand) if ctx.invoked_subcommand else None
+            names = option_names(cmd)
+            click.echo(f"sheetview: error: {e.format(lambda p: names.get(p, p))}", err=True)
             sys.exit(e.exit_code)
         except MemoryError:
             click.echo("sheetview: error: out of memory; use a coarser voxel size (--voxel) or "
@@ -48,9 +66,6 @@ _MODULES = ("synth", "measure", "batch", "experiment", "sections", "micrograph",
 
 
 def _register():
-    from .convert import convert
-    from .info import info
-    from .view import render, slices, view
     for cmd in (info, convert, view, render, slices):
         main.add_command(cmd)
     for modname in _MODULES:

@@ -6,8 +6,9 @@ import sys
 import click
 
 from ..errors import OptionError
-from .common import at_options, read_options
-from .measure import measure_options, measure_settings
+from .common import at_options, read_kwargs, read_options
+from .measure import SETTINGS, measure_options, measure_settings
+from ..batch import run_batch, trend_plot
 
 
 @click.command("batch")
@@ -34,9 +35,8 @@ from .measure import measure_options, measure_settings
 @click.option("-q", "--quiet", is_flag=True, help="No progress on stderr (the log is kept).")
 @at_options
 @read_options
-def batch(inputs, out, only, voxel, max_memory, angle_tol, gap_tol, overlap, tilt_limit,
-          local_radius, frame, density, pore_split, intrusion, lines, seed, workers, threads,
-          cluster, no_plots, no_html, quiet, at_progress, at_time, **read_kw):
+def batch(inputs, out, only, workers, threads, cluster, no_plots, no_html, quiet, at_progress,
+          at_time, **kw):
     """Measure every structure of PATHS_OR_GLOBS... with the same settings into OUT.
 
     The measure options are those of `sheetview measure`, with the same names, defaults
@@ -52,10 +52,9 @@ def batch(inputs, out, only, voxel, max_memory, angle_tol, gap_tol, overlap, til
     column) and the batch goes on. Exit status: 0 all measured, 1 if any input
     failed, 2 for a usage error (bad option, unwritable OUT).
     """
-    from ..batch import run_batch
-    settings = measure_settings(voxel, max_memory, angle_tol, gap_tol, overlap, tilt_limit,
-                                local_radius, frame, density, pore_split, intrusion, lines,
-                                seed, spacing=read_kw.get("spacing"))
+    opts = {k: kw.pop(k) for k in SETTINGS}
+    read_kw = read_kwargs(kw)
+    settings = measure_settings(**opts, spacing=read_kw.get("spacing"))
     if workers < 1:
         raise OptionError(f"--workers: must be at least 1, got {workers}")
     if threads is not None and threads < 1:
@@ -87,7 +86,6 @@ def trend(summary, x, y, group, out, force):
     bars of one sample standard deviation. Columns are the dotted names of the
     summary header, e.g. input_metadata.synth.n_stacks or volume_fractions.solid.
     """
-    from ..batch import trend_plot
     stats = trend_plot(summary, x, y, out, group=group, force=force)
     for g, (xs, m, s, n) in stats.items():
         label = "" if group is None else f"{group} = {g}: "

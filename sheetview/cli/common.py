@@ -1,41 +1,11 @@
 """Options shared by commands that read a structure, and small output helpers."""
 from __future__ import annotations
 
-import json
-import math
-
 import click
 
-from ..errors import OptionError
-
-
-def _parse_phases(value):
-    """Parse ``--phases 0=outside,1=solid,2=gel`` into {0: 'outside', ...}."""
-    if value is None:
-        return None
-    out = {}
-    for item in value.split(","):
-        if "=" not in item:
-            raise OptionError(f"--phases: expected VALUE=PHASE pairs such as 0=outside,255=solid, "
-                              f"got {item!r}")
-        k, v = item.split("=", 1)
-        try:
-            out[int(k)] = v.strip().lower()
-        except ValueError:
-            raise OptionError(f"--phases: {k!r} is not a whole number") from None
-    return out
-
-
-def _parse_shape(value):
-    if value is None:
-        return None
-    try:
-        shape = tuple(int(v) for v in value.lower().replace("x", ",").split(","))
-    except ValueError:
-        raise OptionError(f"--shape: expected NX,NY,NZ, got {value!r}") from None
-    if len(shape) != 3 or min(shape) <= 0:
-        raise OptionError(f"--shape: expected three positive whole numbers, got {value!r}")
-    return shape
+from ..app.document import dumps as _dumps
+from ..app.load import at_moment, load as app_load
+from ..app.settings import parse_size as _parse
 
 
 def read_options(f):
@@ -67,85 +37,34 @@ def read_options(f):
     return f
 
 
-def load(path, thickness=None, spacing=None, units=None, as_="auto", voxel_size=None,
-         phases=None, raw_shape=None, raw_dtype=None, raw_byte_order=None):
+def load_input(path, read_kw: dict, at_progress=None, at_time=None):
+    """Read ``path`` with the options of :func:`read_options` and pick the moment of growth
+    of :func:`at_options`: ``(obj, moment)`` (moment None when not asked for)."""
+    from ..app.load import at_moment, load
+    obj = load(path, **read_kwargs(read_kw))
+    return at_moment(obj, at_progress, at_time)
+
+
+def read_kwargs(kw: dict) -> dict:
+    """The keyword arguments of :func:`sheetview.app.load.load` from the options of
+    :func:`read_options` (the raw-volume options drop their prefix)."""
+    names = {"raw_shape": "shape", "raw_dtype": "dtype", "raw_byte_order": "byte_order"}
+    return {names.get(k, k): v for k, v in kw.items()}
+
+
+def load(path, **kw):
     """Read a file with the options of :func:`read_options` (only those that apply)."""
-    from ..io import family_of, read
-
-    fam = family_of(path)
-    opts = {}
-    if fam in ("prisms", "meshes"):
-        opts.update(thickness=thickness, spacing=spacing, units=units)
-        if fam == "meshes" and as_ != "auto":
-            opts["as_"] = as_
-        ignored = [n for n, v in (("--voxel-size", voxel_size), ("--phases", phases),
-                                  ("--shape", raw_shape), ("--dtype", raw_dtype),
-                                  ("--byte-order", raw_byte_order)) if v is not None]
-    else:
-        opts.update(voxel_size=voxel_size, phases=_parse_phases(phases), shape=_parse_shape(raw_shape),
-                    dtype=raw_dtype, byte_order=raw_byte_order, units=units)
-        ignored = [n for n, v in (("--thickness", thickness), ("--spacing", spacing)) if v is not None]
-    if ignored:
-        raise OptionError(f"{', '.join(ignored)} do(es) not apply to {fam} files", path=path)
-    return read(path, **opts)
-
-
-def json_default(o):
-    import numpy as np
-    if isinstance(o, np.integer):
-        return int(o)
-    if isinstance(o, np.floating):
-        return _clean_float(float(o))
-    if isinstance(o, np.ndarray):
-        return o.tolist()
-    if isinstance(o, np.bool_):
-        return bool(o)
-    raise TypeError(f"not JSON serialisable: {type(o)}")
-
-
-def _clean_float(x):
-    return None if (math.isnan(x) or math.isinf(x)) else x
+    return app_load(path, **read_kwargs(kw))
 
 
 def dumps(doc) -> str:
     """JSON text for a result document; NaN and inf become null (valid JSON)."""
-    def clean(o):
-        if isinstance(o, float):
-            return _clean_float(o)
-        if isinstance(o, dict):
-            return {str(k): clean(v) for k, v in o.items()}
-        if isinstance(o, (list, tuple)):
-            return [clean(v) for v in o]
-        return o
-    return json.dumps(clean(json.loads(json.dumps(doc, default=json_default, allow_nan=True))),
-                      indent=2, allow_nan=False)
+    return _dumps(doc)
 
 
 def parse_size(text):
-    """'8G', '500M', '2.5GB', '123456789' -> bytes."""
-    if text is None:
-        return None
-    t = str(text).strip().upper().rstrip("B")
-    mult = {"K": 2 ** 10, "M": 2 ** 20, "G": 2 ** 30, "T": 2 ** 40}
-    try:
-        if t and t[-1] in mult:
-            v = float(t[:-1]) * mult[t[-1]]
-        else:
-            v = float(t)
-    except ValueError:
-        raise OptionError(f"--max-memory: expected a size such as 8G or 500M, got {text!r}") from None
-    if not (v > 0 and math.isfinite(v)):
-        raise OptionError(f"--max-memory: must be positive, got {text!r}")
-    return int(v)
-
-
-def parse_split(text):
-    if text is None:
-        return ()
-    try:
-        return tuple(float(x) for x in str(text).split(",") if x.strip())
-    except ValueError:
-        raise OptionError(f"--pore-split: expected diameters in nm such as 5,20, got {text!r}") from None
+    """'8G', '500M', '2.5GB', '123456789' -> bytes (:func:`sheetview.app.settings.parse_size`)."""
+    return _parse(text)
 
 
 def at_options(f):
@@ -161,15 +80,8 @@ def at_options(f):
 
 def apply_at(obj, at_progress=None, at_time=None):
     """``(obj, None)`` when neither option is set; else the structure at that moment and
-    the :class:`~sheetview.measures.kinetics.Moment`."""
-    if at_progress is None and at_time is None:
-        return obj, None
-    from ..measures.kinetics import structure_at
-    from ..structure import Structure
-    if not isinstance(obj, Structure):
-        raise OptionError("--at-progress / --at-time need prisms with a 'born' column, but the "
-                          f"input is a {type(obj).__name__}", path=getattr(obj, "source", None))
-    return structure_at(obj, progress=at_progress, time=at_time)
+    the :class:`~sheetview.measures.kinetics.Moment` (:func:`sheetview.app.load.at_moment`)."""
+    return at_moment(obj, at_progress, at_time)
 
 
 def echo_moment(moment, quiet: bool = False) -> None:

@@ -4,6 +4,7 @@ from __future__ import annotations
 import click
 
 from .common import load, read_options
+from ..io import write
 
 
 @click.command()
@@ -20,7 +21,6 @@ def convert(source, target, force, **read_opts):
     volumes -> .vti .npy .tif
     solid bodies -> .stl .ply .obj .off .vtp
     """
-    from ..io import write
 
     obj = load(source, **read_opts)
     write(obj, target, force=force)

@@ -11,12 +11,21 @@ import numpy as np
 
 from ..errors import OptionError
 from ..io.curves import read_experimental
-from ..report import plot_relaxation, plot_scattering
+from ..figures import plot_relaxation, plot_scattering
+from ..report import save_figure
 from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
+from ..app.run import Run
+from ..app.settings import Settings
+from ..grid import INTERLAYER, PhaseGrid, SOLID
+from ..io.output import atomic_path, check_writable
+from ..material import DEFAULT_DENSITY, DEFAULT_FORMULA, Hydrate, interlayer_share
+from ..measures.relaxation import DEFAULT_RHO2_NM_PER_US, DEFAULT_T2_BULK_S, compare_t2, relaxation_spectrum
+from ..measures.scattering import compare_curve, curve_features, describe_sheets, phase_slds, scattering_curve
+from ..sld import preset_sld
+from ..structure import Structure
 
 
 def _check_outputs(paths, force):
-    from ..io.output import check_writable
     seen = set()
     for q in paths:
         if q is None:
@@ -28,7 +37,6 @@ def _check_outputs(paths, force):
 
 
 def _write_csv(path, table: dict, force, header_note=None):
-    from ..io.output import atomic_path
     cols = list(table)
     n = len(table[cols[0]])
     with atomic_path(path, force) as tmp:
@@ -47,30 +55,29 @@ def _fmt(v):
     return f"{v:.8g}" if isinstance(v, float) else str(v)
 
 
-def _save_fig(fig, path, force):
-    from ..io.output import atomic_path
-    import matplotlib.pyplot as plt
-    with atomic_path(path, force) as tmp:
-        fig.savefig(tmp, dpi=120, format=Path(path).suffix.lstrip(".") or "png")
-    plt.close(fig)
-
-
 def _grid_of(obj, voxel, max_memory=None):
-    from .. import measures
-    from ..grid import PhaseGrid
+    """``(run, grid)``: the run that built the phase grid (None for a voxel volume, which
+    is its own grid) and the grid."""
     if isinstance(obj, PhaseGrid):
         return None, obj
-    ctx = measures.run(["phases"], obj, {"voxel": voxel, "max_memory": max_memory})
-    return ctx, ctx.grid
+    run = Run(obj, Settings(voxel=voxel, max_memory=max_memory))
+    return run, run.grid
 
 
-def _solid_sld(formula, density, probe):
-    from ..sld import PRESETS, sld
-    if formula is None and density is None:
-        return sld(*PRESETS["csh"], probe=probe), f"C-S-H {PRESETS['csh'][0]} at {PRESETS['csh'][1]} g/cm3"
-    if formula is None or density is None:
-        raise OptionError("give --solid-formula and --solid-density together")
-    return sld(formula, density, probe=probe), f"{formula} at {density:g} g/cm3"
+def _solid_sld(formula, density, probe, grid, interlayer_contrast=True):
+    """SLD of the sheets from the material model: the hydrate (default or given) less the
+    interlayer water the grid resolves; the whole hydrate's SLD when the interlayer is not
+    contrasted (sheets and interlayer water as one particle)."""
+    given = formula is not None or density is not None
+    h = Hydrate(DEFAULT_FORMULA if formula is None else formula,
+                DEFAULT_DENSITY if density is None else density,
+                source="given by the user" if given else
+                "Allen, Thomas & Jennings, Nature Materials 6 (2007) 311")
+    counts = np.bincount(grid.labels.ravel(), minlength=256)
+    split = h.split(interlayer_share({"solid": counts[SOLID], "interlayer": counts[INTERLAYER]}))
+    if not interlayer_contrast:
+        return split.hydrate_sld(probe), f"sheets and interlayer water = {h.formula} at {h.density:g} g/cm3"
+    return split.layer_sld(probe), describe_sheets(split)
 
 
 @click.command()
@@ -82,8 +89,11 @@ def _solid_sld(formula, density, probe):
 @click.option("--fluid", default="h2o", show_default=True,
               help="Pore fluid: h2o, d2o, or a D2O volume fraction (0.3 or 30%).")
 @click.option("--solid-formula", default=None,
-              help="Solid composition, e.g. '(CaO)1.7(SiO2)(H2O)1.8' (default C-S-H).")
-@click.option("--solid-density", type=float, default=None, help="Solid density (g/cm3).")
+              help="C-S-H composition with its interlayer water, e.g. '(CaO)1.7(SiO2)(H2O)1.8' "
+                   "(the default, Allen et al. 2007); the sheets get it less the interlayer "
+                   "water the grid resolves.")
+@click.option("--solid-density", type=float, default=None,
+              help="Density (g/cm3) of that composition (default 2.604, Allen et al. 2007).")
 @click.option("--no-interlayer-contrast", is_flag=True,
               help="Give the interlayer the solid's SLD (sheets and interlayer as one particle).")
 @click.option("--pad", type=int, default=2, show_default=True,
@@ -112,8 +122,6 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
             window, csv_out, plot_out, json_out, slopes, compare, q_unit, columns, max_memory,
             force, at_progress, at_time, **read_kw):
     """Predicted small-angle scattering curve I(q) (cm^-1) of FILE."""
-    from ..measures.scattering import compare_curve, curve_features, phase_slds, scattering_curve
-    from ..sld import preset_sld
     _check_outputs([csv_out, plot_out, json_out], force)
     ranges = [_parse_range(t) for t in slopes]
     exp = read_experimental(compare, "scattering", q_unit, columns) if compare else None
@@ -123,7 +131,8 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
     echo_moment(moment)
     _, grid = _grid_of(obj, voxel, mem)
-    s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe)
+    s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe, grid,
+                               not no_interlayer_contrast)
     f_sld = preset_sld(fluid, probe)
     slds = phase_slds(s_sld, f_sld, interlayer_contrast=not no_interlayer_contrast)
     res = scattering_curve(grid, slds, pad=pad, window=None if window == "none" else window,
@@ -145,15 +154,48 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     _write_csv(csv_out, {"q_nm-1": res.q.tolist(), "intensity_cm-1": res.intensity.tolist()},
                force, notes)
     if json_out:
-        from ..io.output import atomic_path
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:
-        plot_scattering(res, plot_out, cmp_, notes, force)
+        save_figure(plot_scattering(res, comparison=cmp_, notes=notes), plot_out, force)
     click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1 -> {csv_out}")
+    for line in _feature_lines(doc["features"]):
+        click.echo(line)
+    for note in res.notes:
+        click.echo(f"note: {note}")
     if cmp_ is not None:
         click.echo(f"fit to {compare}: scale {cmp_.scale:.4g}, background {cmp_.background:.4g} "
                    f"cm^-1, reduced chi2 {cmp_.chi2_reduced:.4g} ({cmp_.weighting})")
+
+
+def _feature_lines(feats):
+    """The Porod range (or why there is none) and the peaks, in words."""
+    out = []
+    po = feats.get("porod", {})
+    if "error" in po:
+        out.append(f"Porod: {po['error']}")
+    elif po.get("status") == "ok":
+        a, b = po["q_range_nm-1"]
+        out.append(f"Porod: S/V {po['s_over_v_nm-1']:.4g} nm^-1 "
+                   f"(K {po['porod_constant_cm-1_nm-4']:.4g} cm^-1 nm^-4) over q {a:.4g}-{b:.4g} nm^-1; q^4 I flat there: log-slope "
+                   f"{po['log_slope_q4I']:+.3f}, trend within {100 * po['trend_departure']:.1f} % "
+                   f"(aliasing divided out, at most {100 * po['alias_correction_max']:.0f} %)")
+    else:
+        out.append(f"Porod: no Porod range: {po.get('reason')}")
+    bp = feats.get("bragg_peaks", {})
+    if "error" in bp:
+        out.append(f"peaks: {bp['error']}")
+    elif not bp.get("n_peaks"):
+        out.append(f"peaks: none {bp.get('significance_min_sigma', 5):g} sigma above the "
+                   f"background ({bp.get('background', '')})")
+    else:
+        out.append(f"peaks {bp['significance_min_sigma']:g} sigma or more above the background "
+                   f"({bp['background']}):")
+        for q, d, w, h, z in zip(bp["q_nm-1"], bp["d_nm"], bp["fwhm_nm-1"], bp["height_ln"],
+                                 bp["significance_sigma"]):
+            out.append(f"  q {q:.4g} nm^-1, d = 2pi/q {d:.4g} nm, FWHM {w:.3g} nm^-1, "
+                       f"{math.exp(h):.3g} x the background, {z:.3g} sigma")
+    return out
 
 
 def _parse_range(text):
@@ -167,7 +209,6 @@ def _parse_range(text):
 
 
 def _solid_fraction(grid):
-    from ..grid import SOLID
     return float(np.count_nonzero(grid.labels == SOLID) / grid.labels.size)
 
 
@@ -204,9 +245,6 @@ def _solid_fraction(grid):
 def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out, json_out,
           compare, t2_unit, columns, max_memory, force, at_progress, at_time, **read_kw):
     """Predicted NMR T2 distribution of the pore water of FILE (fast exchange)."""
-    from ..measures.relaxation import (DEFAULT_RHO2_NM_PER_US, DEFAULT_T2_BULK_S, compare_t2,
-                                       relaxation_spectrum)
-    from ..structure import Structure
     _check_outputs([csv_out, plot_out, json_out], force)
     exp = read_experimental(compare, "t2", t2_unit, columns) if compare else None
     for w in (exp.warnings if exp else []):
@@ -225,10 +263,7 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
         gap = float(obj.spacing) - float(np.median(obj.thickness))
         if gap > 0:
             interlayer_width = gap
-    if ctx is not None:
-        gel = ctx.pore_thickness
-    else:
-        gel = None
+    gel = ctx.thickness if ctx is not None else None
     res = relaxation_spectrum(grid, gel, interlayer_width=interlayer_width, rho2=rho2,
                               t2_bulk=t2_bulk, shape=shape)
     cmp_ = compare_t2(res, exp.x, exp.y, source=compare) if exp else None
@@ -243,11 +278,10 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
              "a model's predicted distribution, not a measurement"]
     _write_csv(csv_out, res.table(), force, notes)
     if json_out:
-        from ..io.output import atomic_path
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:
-        plot_relaxation(res, plot_out, cmp_, notes, force)
+        save_figure(plot_relaxation(res, comparison=cmp_, notes=notes), plot_out, force)
     fr = ", ".join(f"{k} {v:.3f} (T2 {res.class_t2_logmean[k] * 1e3:.3g} ms)"
                    for k, v in res.class_fraction.items())
     click.echo(f"T2 distribution: {fr} -> {csv_out}")

@@ -6,6 +6,7 @@ import json
 import click
 
 from .common import dumps, load, read_options
+from ..app.describe import describe
 
 
 def _fmt_stats(d, unit):
@@ -39,7 +40,6 @@ def info(file, as_json, **read_opts):
     Warnings include prisms outside the domain, prisms crossing the wall, duplicated
     triangles and a missing domain.
     """
-    from ..summary import describe
 
     obj = load(file, **read_opts)
     d = describe(obj)

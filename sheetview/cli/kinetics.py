@@ -7,6 +7,10 @@ import numpy as np
 
 from ..errors import OptionError
 from .common import dumps, load, read_options
+from ..app.track import track as track_fn
+from ..io.output import atomic_path, check_writable
+from ..measures.kinetics import progress
+from ..report import write_csv
 
 
 def _floats(text, what):
@@ -53,9 +57,6 @@ def kinetics(path, bins, smooth, no_fit, t0, track, only, keys, voxel, csv_out, 
              track_csv, plot_out, as_json, force, quiet, **read_kw):
     """Growth kinetics of a structure from its 'born' column: progress alpha(t) (solid
     volume born by t over the final), the smoothed rate, t10/t50/t90 and an Avrami fit."""
-    from ..io.output import check_writable
-    from ..measures.kinetics import progress, track as track_fn
-    from ..report import write_csv
     outs = [p for p in (csv_out, rate_csv, track_csv, plot_out) if p]
     if len(set(map(str, outs))) != len(outs):
         raise OptionError("two outputs name the same file")
@@ -112,7 +113,6 @@ def _plot(kin, path, force, title):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    from ..io.output import atomic_path
     fig = Figure(figsize=(7, 4.6), dpi=110)
     FigureCanvasAgg(fig)
     ax = fig.add_subplot(111)

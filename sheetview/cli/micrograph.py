@@ -14,9 +14,14 @@ from pathlib import Path
 import click
 import numpy as np
 
-from .. import __version__
+from .._version import __version__
 from ..errors import OptionError
 from .common import dumps
+from ..io.images import read_micrograph
+from ..io.output import atomic_path
+from ..measures.planar import describe
+from ..report import atomic_folder, check_folder, write_csv, write_json
+from ..view import nice_length
 
 #: Files of the output folder.
 OUTPUT_FILES = ("descriptors.json", "chords.csv", "thickness.csv", "s2.csv",
@@ -30,8 +35,6 @@ def run_micrograph(path, *, pixel_size=None, threshold="otsu", solid="bright", c
                    lines: int = 2000, seed: int = 0):
     """Read and segment the image, measure it. Returns (Micrograph, PlanarDescriptors,
     JSON document)."""
-    from ..io.images import read_micrograph
-    from ..measures.planar import describe
 
     if isinstance(lines, bool) or int(lines) != lines or not 1 <= lines <= 10_000_000:
         raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
@@ -75,7 +78,6 @@ def summary_lines(mg, desc) -> list[str]:
 
 # ====================================================================== figure
 def _nice_length(span: float) -> float:
-    from ..view import nice_length
     return nice_length(span)
 
 
@@ -191,8 +193,6 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
     """Write the output folder: assembled under a temporary name beside ``outdir`` and
     renamed into place when complete (with ``force`` into an existing folder:
     :func:`sheetview.report.atomic_folder`). Every file goes through ``atomic_path``."""
-    from ..io.output import atomic_path
-    from ..report import atomic_folder, write_csv, write_json
 
     with atomic_folder(outdir, force, kind="micrograph") as (tmp, final):
         write_json(tmp / "descriptors.json", doc)
@@ -232,7 +232,6 @@ def micrograph(image, pixel_size, threshold, solid, channel, lines, seed, as_jso
     fraction, chord lengths (rows, columns, isotropic random lines), local thickness,
     two-point probability S2 and layer orientation. Lengths are nm."""
     if outdir is not None:
-        from ..report import check_folder
         check_folder(outdir, force)  # refuse before the work
     mg, desc, doc = run_micrograph(image, pixel_size=pixel_size, threshold=threshold,
                                    solid=solid, channel=channel, lines=lines, seed=seed)

@@ -8,6 +8,18 @@ import numpy as np
 
 from ..errors import OptionError
 from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
+from .. import pictures
+from ..app.run import phase_grid
+from ..app.settings import Settings
+from ..io.images import read_micrograph
+from ..io.output import atomic_path, check_writable
+from ..measures.compare import compare, virtual_images
+from ..measures.planar import describe
+from ..measures.sections import parse_axis_or_normal, projection, section, segment_projection
+from ..pictures import grey_rgb
+from ..report import write_csv
+from ..structure import Structure
+from ..style import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
 
 _PHASE_CHOICES = ("solid", "interlayer", "gel")
 
@@ -17,23 +29,24 @@ def _parse_phases(text):
     bad = [n for n in names if n not in _PHASE_CHOICES]
     if not names or bad:
         raise OptionError(f"--solid-phases: expected names from {', '.join(_PHASE_CHOICES)}, "
-                          f"got {text!r}", field="solid_phases")
+                          f"got {text!r}", param="solid_phases")
     return tuple(names)
 
 
-def _grid_settings(voxel, max_memory):
-    return {"voxel": voxel, "max_memory": parse_size(max_memory)}
+def _grid_of(obj, voxel, max_memory, *, needed=True):
+    """The phase grid of ``obj`` with the measure settings (``sheetview.app.run.phase_grid``,
+    the one builder); None when ``needed`` is False (prisms projected exactly)."""
+    if not needed:
+        return None
+    return phase_grid(obj, Settings(voxel=voxel, max_memory=parse_size(max_memory)))
 
 
 def _describe(mask, valid, pixel, lines, seed):
-    from ..measures.planar import describe
     return describe(mask, pixel, valid=valid, seed=seed, n_lines=lines)
 
 
 def _open(path, out, force, read_kw, at_progress, at_time):
     """Check the output names (before any work), read the input and take the moment."""
-    from .. import pictures
-    from ..io.output import check_writable
     if out is not None:
         for p in pictures.outputs(out).values():
             check_writable(p, force)
@@ -129,14 +142,11 @@ def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memo
                 as_json, describe, lines, seed, quiet, at_progress, at_time, **read_kw):
     """A virtual section: the phase image (solid, interlayer, gel pore) of any plane of a
     structure or volume, as PNG/TIFF with a scale bar."""
-    from .. import pictures
-    from ..measures.sections import parse_axis_or_normal, section
-    from ..view import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
 
     phases = _parse_phases(solid_phases)
     n = parse_axis_or_normal(axis, normal)
     obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
-    img = section(obj, n, offset, pixel=pixel, settings=_grid_settings(voxel, max_memory))
+    img = section(obj, n, offset, pixel=pixel, grid=_grid_of(obj, voxel, max_memory))
     doc = {"file": str(path), **img.to_dict()}
     if describe:
         mask = img.mask(phases) & img.valid
@@ -189,13 +199,11 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
                 out, force, as_json, describe, lines, seed, quiet, at_progress, at_time, **read_kw):
     """A virtual transmission micrograph: solid thickness through a slab projected along an
     axis, shown as exp(-t / lambda), as PNG/TIFF with a scale bar."""
-    from .. import pictures
-    from ..measures.sections import projection, segment_projection
 
     thr = _threshold(threshold, unit_range=True)
     obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
     img = projection(obj, axis, slab, offset=offset, pixel=pixel, mfp=mfp, resolution=resolution,
-                     settings=_grid_settings(voxel, max_memory))
+                     grid=_grid_of(obj, voxel, max_memory, needed=not isinstance(obj, Structure)))
     doc = {"file": str(path), **img.to_dict()}
     if describe:
         mask, used = segment_projection(img, thr)
@@ -261,11 +269,6 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
     """Put a structure's virtual micrographs beside a real micrograph IMAGE: the same 2D
     descriptors for both, and the Kolmogorov-Smirnov and Wasserstein distances between
     their chord and local-thickness distributions."""
-    from ..io.images import read_micrograph
-    from ..io.output import check_writable
-    from ..measures.compare import compare, virtual_images
-    from ..measures.planar import describe
-    from ..report import write_csv
 
     outs = [p for p in (csv_out, plot_out) if p]
     if len(set(map(str, outs))) != len(outs):
@@ -278,9 +281,10 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
     mg = read_micrograph(image, pixel_size=pixel_size, threshold=thr, solid=solid_is)
     obj, moment = apply_at(load(path, **read_kw), at_progress, at_time)
     echo_moment(moment, quiet)
+    grid = _grid_of(obj, voxel, max_memory,
+                    needed=kind == "section" or not isinstance(obj, Structure))
     vis = virtual_images(obj, kind, axis=axis, count=count, pixel=mg.pixel, slab=slab,
-                         settings=_grid_settings(voxel, max_memory), mfp=mfp,
-                         resolution=resolution, solid_phases=phases)
+                         grid=grid, mfp=mfp, resolution=resolution, solid_phases=phases)
     vds = [describe(v.mask, v.pixel, valid=v.valid, seed=seed + i, n_lines=lines)
            for i, v in enumerate(vis)]
     ods = describe(mg.mask, mg.pixel, valid=mg.valid, seed=seed, n_lines=lines)
@@ -322,8 +326,6 @@ def _plot_compare(mg, vi, cmp_, path, force, name_v, name_o):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    from ..io.output import atomic_path
-    from ..pictures import grey_rgb
     fig = Figure(figsize=(10, 7.0), dpi=100)
     FigureCanvasAgg(fig)
     gs = fig.add_gridspec(2, 4, height_ratios=[1.5, 1], hspace=0.45, wspace=0.35,
@@ -337,7 +339,9 @@ def _plot_compare(mg, vi, cmp_, path, force, name_v, name_o):
     ax.set_title(f"observed: {Path(name_o).name}", fontsize=8)
     ax.set_xlabel("nm", fontsize=8)
     ax2 = fig.add_subplot(gs[0, 2:4])
-    ax2.imshow(vi.picture, interpolation="nearest",
+    picture = (section_rgb(vi.image, background=BACKGROUND) if vi.kind == "section"
+               else grey_rgb(vi.image, vi.valid))
+    ax2.imshow(picture, interpolation="nearest",
                extent=(0, vi.mask.shape[1] * vi.pixel, 0, vi.mask.shape[0] * vi.pixel))
     ax2.set_title(f"virtual: {vi.label}", fontsize=8)
     ax2.set_xlabel("nm", fontsize=8)

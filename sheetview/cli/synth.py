@@ -7,6 +7,10 @@ import time
 import click
 
 from ..errors import OptionError
+from ..domain import Box, Sphere
+from ..io import write
+from ..io.output import check_writable
+from ..synth import pack_stacks, write_truth
 
 
 def _parse_triple(value, option, positive=False):
@@ -24,7 +28,6 @@ def _parse_triple(value, option, positive=False):
 
 
 def _domain(sphere, box, periodic):
-    from ..domain import Box, Sphere
 
     if sphere is not None and box is not None:
         raise OptionError("give either --sphere R or --box LX,LY,LZ, not both")
@@ -107,9 +110,6 @@ def synth(output, sphere, box, periodic, n_stacks, seeding, orientation, kappa, 
     """
     from pathlib import Path
 
-    from ..io import write
-    from ..io.output import check_writable
-    from ..synth import pack_stacks, write_truth
 
     dom = _domain(sphere, box, periodic)
     nrm = _parse_triple(normal, "--normal")

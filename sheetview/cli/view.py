@@ -6,6 +6,11 @@ import click
 
 from ..errors import OptionError
 from .common import apply_at, at_options, echo_moment, load, read_options
+from ..grid import PhaseGrid
+from ..io.output import check_writable
+from ..structure import Structure
+from ..view import Scene, check_display, export, open_window, parse_size, phase_grid, render as draw, slice_plane
+from ..view import contact_sheet
 
 _COLOURINGS = ["stacking", "stack", "order", "director", "wall", "born", "tag"]
 _CAMERAS = ["iso", "cut", "+x", "-x", "+y", "-y", "+z", "-z"]
@@ -40,7 +45,6 @@ def _plane_options(f):
 
 
 def _structure(file, read_opts, what, at_progress=None, at_time=None):
-    from ..structure import Structure
 
     obj = load(file, **read_opts)
     if not isinstance(obj, Structure):
@@ -55,13 +59,11 @@ def _structure(file, read_opts, what, at_progress=None, at_time=None):
 
 
 def _plane(structure, slice_axis, slice_at, slice_normal, slice_origin):
-    from ..view import slice_plane
     return slice_plane(structure.domain, axis=slice_axis, at=slice_at, normal=slice_normal,
                        origin=slice_origin)
 
 
 def _export(structure, export_dir, grid, voxel, force, cache):
-    from ..view import export
     paths = export(structure, export_dir, grid=grid, voxel_size=voxel, force=force, cache=cache)
     for p in paths:
         click.echo(f"wrote {p}", err=True)
@@ -94,7 +96,6 @@ def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_b
     """
     from pathlib import Path
 
-    from ..view import Scene, check_display, open_window
 
     check_display()
     s = _structure(file, read_opts, "view", at_progress, at_time)
@@ -131,9 +132,6 @@ def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel
     With --slice-axis/--slice-at or --slice-normal/--slice-origin the prisms are cut at
     that plane and the phases (solid, interlayer, gel pore, outside) are drawn on it.
     """
-    from ..io.output import check_writable
-    from ..view import parse_size
-    from ..view import render as draw
 
     check_writable(output, force)
     wh = parse_size(size)
@@ -142,7 +140,6 @@ def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel
     cache = {}
     grid = None
     if export_dir or plane is not None:
-        from ..view import phase_grid
         grid = phase_grid(s, voxel, cache)
     draw(s, output, colour_by=colour_by, plane=plane, grid=grid, camera=camera, size=wh,
          force=force, lighting=not flat, cache=cache)
@@ -171,10 +168,6 @@ def slices(file, output, axis, count, voxel, force, **read_opts):
     """
     from pathlib import Path
 
-    from ..grid import PhaseGrid
-    from ..io.output import check_writable
-    from ..structure import Structure
-    from ..view import contact_sheet, phase_grid
 
     check_writable(output, force)
     obj = load(file, **read_opts)

@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import OptionError
+from .sections import AXES, centre_and_span, projection, section, segment_projection
 
 #: Distributions compared (keys of PlanarDescriptors.distributions()).
 DISTRIBUTIONS = ("chord_solid", "chord_pore", "thickness_solid", "thickness_pore")
@@ -33,7 +34,7 @@ def weighted_ks(a, b, wa=None, wb=None) -> tuple[float, float]:
     """Two-sample Kolmogorov-Smirnov statistic of weighted samples,
     D = max |F_a(x) - F_b(x)| over all sample points with weighted empirical CDFs, and its
     p-value from the Kolmogorov distribution at the effective sample sizes
-    n = (sum w)^2 / sum w^2 (Kish 1965). With unit weights D equals
+    n = (sum w)^2 / sum w^2 (Kish, Survey Sampling, Wiley 1965). With unit weights D equals
     :func:`scipy.stats.ks_2samp`'s statistic and the p-value its ``method='asymp'``
     gives (the one-sample Kolmogorov distribution at n = n_a n_b / (n_a + n_b))."""
     from scipy.stats import kstwo
@@ -80,34 +81,33 @@ def distance(a, b, wa=None, wb=None) -> dict:
 @dataclass
 class VirtualImage:
     """One binary virtual micrograph: ``mask`` (solid), ``valid`` (inside the sample),
-    what it is (``label``) and, for the figure, a grey or RGB picture."""
+    what it is (``label``) and what it was made from, for a figure: the section's phase
+    labels (``kind`` "section") or the projection's transmitted intensity ("projection")."""
 
     mask: np.ndarray
     valid: np.ndarray
     pixel: float
     label: str
-    picture: np.ndarray
+    image: np.ndarray
+    kind: str = "section"
 
 
 def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 5,
-                   pixel: float, slab: float | None = None, settings: dict | None = None,
+                   pixel: float, slab: float | None = None, grid=None,
                    mfp: float = 100.0, resolution: float = 0.0, threshold=None,
                    solid_phases=("solid", "interlayer"), margin: float = 0.1) -> list[VirtualImage]:
     """``count`` virtual micrographs of ``obj`` at ``pixel`` nm: sections across ``axis``
     at evenly spaced offsets (the middle ``1 - 2 margin`` of the domain), or projections of
     ``count`` slabs of thickness ``slab`` spread the same way."""
-    from ..view import BACKGROUND, section_rgb
-    from .sections import (AXES, centre_and_span, phase_grid_of, projection, section,
-                           segment_projection)
     kind = str(kind).lower()
     if kind not in ("section", "projection"):
-        raise OptionError(f"--virtual must be section or projection, got {kind!r}", field="virtual")
+        raise OptionError(f"--virtual must be section or projection, got {kind!r}", param="virtual")
     a = AXES.get(str(axis).lower())
     if a is None:
-        raise OptionError(f"--axis must be x, y or z, got {axis!r}", field="axis")
+        raise OptionError(f"--axis must be x, y or z, got {axis!r}", param="axis")
     count = int(count)
     if not 1 <= count <= 200:
-        raise OptionError(f"--count must be 1 to 200, got {count}", field="count")
+        raise OptionError(f"--count must be 1 to 200, got {count}", param="count")
     if not (0 <= margin < 0.5):
         raise OptionError(f"margin must be in [0, 0.5), got {margin}")
     centre, span = centre_and_span(obj)
@@ -118,7 +118,7 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
         offs = np.linspace(-(0.5 - margin) * L, (0.5 - margin) * L, count)
     out = []
     if kind == "section":
-        g = phase_grid_of(obj, settings)
+        g = grid
         n = np.zeros(3)
         n[a] = 1.0
         codes = solid_phases
@@ -126,21 +126,20 @@ def virtual_images(obj, kind: str = "section", *, axis: str = "z", count: int = 
             img = section(obj, n, float(off), pixel=pixel, grid=g)
             out.append(VirtualImage(img.mask(codes) & img.valid, img.valid, img.pixel,
                                     f"section {'xyz'[a]} = {centre[a] + off:.3g} nm",
-                                    section_rgb(img.labels, background=BACKGROUND)))
+                                    img.labels, "section"))
     else:
         if slab is None:
             slab = L / count
-        from ..pictures import grey_rgb
         for off in offs:
             p = projection(obj, "xyz"[a], slab, offset=float(off), pixel=pixel, mfp=mfp,
-                           resolution=resolution, settings=settings)
+                           resolution=resolution, grid=grid)
             label = f"projection {'xyz'[a]} {p.slab[0]:.3g}..{p.slab[1]:.3g} nm"
             try:
                 m, _ = segment_projection(p, threshold)
             except OptionError as e:
                 raise OptionError(f"{label}: {e.detail}; use a thicker --slab or fewer "
-                                  "--count", field="slab") from None
-            out.append(VirtualImage(m, p.valid, p.pixel, label, grey_rgb(p.intensity, p.valid)))
+                                  "--count", param="slab") from None
+            out.append(VirtualImage(m, p.valid, p.pixel, label, p.intensity, "projection"))
     return out
 
 

@@ -17,7 +17,8 @@ times), divided by the total volume and the bin width, then smoothed with a Gaus
 ``t10``, ``t50``, ``t90`` are the first birth times at which alpha reaches 0.1, 0.5, 0.9.
 
 The Avrami form alpha = 1 - exp(-(k (t - t0))^n) (Avrami, J. Chem. Phys. 7 (1939) 1103;
-8 (1940) 212; 9 (1941) 177; Johnson & Mehl 1939; Kolmogorov 1937) is fitted by least
+8 (1940) 212; 9 (1941) 177; Johnson & Mehl, Trans. AIME 135 (1939) 416; Kolmogorov, Izv.
+Akad. Nauk SSSR Ser. Mat. 1 (1937) 355; the last two from memory) is fitted by least
 squares of ln(-ln(1 - alpha)) against ln(t - t0) over 0.05 <= alpha <= 0.95, with ``t0``
 the first birth time unless given. It is a description of the curve's shape, not
 evidence of a nucleation-and-growth mechanism.
@@ -41,7 +42,7 @@ def _born(structure) -> np.ndarray:
                          "--at-progress / --at-time need one", path=getattr(structure, "source", None))
     b = np.asarray(cols["born"], dtype=float)
     if not np.all(np.isfinite(b)):
-        raise InputError("column 'born' has non-finite values", path=structure.source, field="born")
+        raise InputError("column 'born' has non-finite values", path=structure.source, param="born")
     return b
 
 
@@ -202,14 +203,14 @@ def progress(structure, *, bins: int | None = None, smooth: float = 2.0,
         bins = int(np.clip(round(math.sqrt(len(times))), 10, 200))
     bins = int(bins)
     if not 1 <= bins <= 100_000:
-        raise OptionError(f"--bins must be 1 to 100000, got {bins}", field="bins")
+        raise OptionError(f"--bins must be 1 to 100000, got {bins}", param="bins")
     if not (math.isfinite(smooth) and 0 <= smooth <= bins):
         raise OptionError(f"--smooth must be 0 to the number of bins ({bins}), got {smooth}"
                           + (" (with --bins 1 use --smooth 0 or 1)" if bins == 1 else ""),
-                          field="smooth")
+                          param="smooth")
     if t0 is not None and not (math.isfinite(float(t0)) and float(t0) < float(born.max())):
         raise OptionError(f"--t0 must be a finite time before the last birth "
-                          f"({float(born.max()):g}), got {t0!r}", field="t0")
+                          f"({float(born.max()):g}), got {t0!r}", param="t0")
     t_lo, t_hi = float(times[0]), float(times[-1])
     notes = ["alpha counts prism volumes; overlapping prisms would count twice "
              "(grown structures have no overlaps)"]
@@ -249,14 +250,14 @@ def check_moment(progress: float | None = None, time: float | None = None) -> No
     """Refuse (OptionError) anything but exactly one of a progress in (0, 1] and a finite
     time; what :func:`structure_at` accepts, checked before any structure is read."""
     if (progress is None) == (time is None):
-        raise OptionError("give either --at-progress or --at-time, not both", field="at")
+        raise OptionError("give either --at-progress or --at-time, not both", param="at")
     if progress is not None:
         p = float(progress)
         if not (math.isfinite(p) and 0 < p <= 1):
             raise OptionError(f"--at-progress must be a fraction in (0, 1], got {progress!r} "
-                              f"(for a percentage divide by 100)", field="at_progress")
+                              f"(for a percentage divide by 100)", param="at_progress")
     elif not math.isfinite(float(time)):
-        raise OptionError(f"--at-time must be a finite number, got {time!r}", field="at_time")
+        raise OptionError(f"--at-time must be a finite number, got {time!r}", param="at_time")
 
 
 def structure_at(structure, *, progress: float | None = None, time: float | None = None):
@@ -284,47 +285,7 @@ def structure_at(structure, *, progress: float | None = None, time: float | None
     if n == 0:
         raise OptionError(f"no prism is born by time {t:g} (the first birth is at "
                           f"{float(born.min()):g}{' ' + time_unit(structure) if time_unit(structure) else ''})",
-                          field="at_time")
+                          param="at_time")
     sub = structure.subset(keep) if n < len(born) else structure
     a = float(alpha[int(np.searchsorted(times, t, side="right")) - 1])
     return sub, Moment(t, a, req, n, len(born))
-
-
-def track(structure, progresses, *, only=("stacking", "order"), settings=None,
-          keys=None, progress_cb=None) -> dict:
-    """Descriptors against progress: run the measures ``only`` on the structure as it
-    stood at each progress and collect their scalar results.
-
-    Returns a table {column: list}: ``progress``, ``time``, ``n_prisms`` and the scalars
-    of each result's ``to_dict()`` as dotted names (``stacking.mean``); ``keys`` (a list
-    of substrings) keeps only the columns whose names contain one of them.
-    """
-    from . import run, select
-    from ..batch import flatten
-    names = select(only, structure)
-    ps = [float(p) for p in progresses]
-    if not ps:
-        raise OptionError("--track needs at least one progress value", field="track")
-    bad = [p for p in ps if not (math.isfinite(p) and 0 < p <= 1)]
-    if bad:
-        raise OptionError(f"--track values must be fractions in (0, 1], got {bad[0]!r} "
-                          f"(for a percentage divide by 100)", field="track")
-    rows = []
-    for p in ps:
-        sub, m = structure_at(structure, progress=p)
-        if progress_cb:
-            progress_cb(p, m)
-        ctx = run(names, sub, dict(settings or {}))
-        flat = flatten({n: ctx.results[n].to_dict() for n in names if n in ctx.results})
-        flat = {k: v for k, v in flat.items() if isinstance(v, (int, float)) and not isinstance(v, bool)
-                or v is None}
-        if keys:
-            flat = {k: v for k, v in flat.items() if any(s in k for s in keys)}
-        rows.append({"progress_requested": p, "progress": m.progress, "time": m.time,
-                     "n_prisms": m.n_prisms, **flat})
-    cols = []
-    for r in rows:
-        for k in r:
-            if k not in cols:
-                cols.append(k)
-    return {c: [r.get(c) for r in rows] for c in cols}

@@ -7,9 +7,12 @@ is built from the second moment ``n n^T``:
     Q = sum_i w_i (3 n_i n_i^T - I) / 2 / sum_i w_i        (w_i = prism volume)
 
 the nematic order tensor of de Gennes (de Gennes & Prost, The Physics of Liquid Crystals,
-2nd ed., 1993). Its largest eigenvalue is the order parameter ``S`` (1 for perfect
-alignment, 0 for an isotropic set in the limit of many prisms, 1/4 for normals spread
-evenly over one plane); its eigenvector is the director.
+2nd ed., Oxford University Press, 1993). Its largest eigenvalue is the order parameter ``S``
+(1 for perfect alignment, 1/4 for normals spread evenly over one plane, 0 for an isotropic
+set only in the limit of many prisms: N isotropic normals give on average
+``(9/4) sqrt(2/(5 pi)) / sqrt(N) = 0.80 / sqrt(N)`` for large N, derived from the Gaussian
+limit of Q and checked in tests/validation/test_orientation_validation.py); its
+eigenvector is the director.
 """
 from __future__ import annotations
 
@@ -20,7 +23,9 @@ import numba
 import numpy as np
 
 from ..errors import OptionError, positive
+from ._result import Result
 from .cells import cell_list
+from .stacking import check_structure
 
 DEFAULTS = {"local_radius": 5.0, "frame": "z", "n_cos": 10, "n_phi": 12, "pole_bins": 41}
 
@@ -256,7 +261,9 @@ def lambert_xy(normals, axis=(0, 0, 1)):
     """Lambert azimuthal equal-area projection of sign-less normals about ``axis``:
     ``r = 2 sin(theta/2) = sqrt(2 (1 - cos theta))``, ``(x, y) = r (cos phi, sin phi)``;
     the upper hemisphere maps onto the disc of radius sqrt(2) preserving area
-    (Lambert 1772; Snyder, Map Projections: A Working Manual, USGS PP 1395, 1987, p. 182)."""
+    (Lambert 1772; Snyder, Map Projections: A Working Manual, USGS Professional Paper
+    1395, 1987, chapter on the Lambert azimuthal equal-area projection; the spherical
+    formulas are usually cited as pp. 185-186: page numbers not checked)."""
     ct, phi = polar_angles(normals, axis)
     r = np.sqrt(2.0 * (1.0 - ct))
     return r * np.cos(phi), r * np.sin(phi)
@@ -281,8 +288,8 @@ def pole_figure(normals, weights, axis=(0, 0, 1), bins=41):
 
 
 # ------------------------------------------------------------------------- result
-@dataclass
-class OrderResult:
+@dataclass(repr=False)
+class OrderResult(Result):
     """Orientation order of a structure's prisms (volume-weighted)."""
 
     n_prisms: int
@@ -334,6 +341,34 @@ class OrderResult:
         """Per-prism columns: local order parameter and P2 of the angle to the wall."""
         return {"local_S": self.local_S, "wall_P2": self.wall_S_per_prism}
 
+    def tables(self) -> dict:
+        """CSV tables: per-prism columns (``prisms``, joined with the stacking table), the
+        equal-area orientation histogram and the pole figure (density in multiples of a
+        uniform distribution)."""
+        ce, pe = self.cos_edges, self.phi_edges
+        nc, nphi = self.hist.shape
+        ci, pi = np.meshgrid(np.arange(nc), np.arange(nphi), indexing="ij")
+        e = self.pole_edges
+        xi, yi = np.meshgrid(np.arange(len(e) - 1), np.arange(len(e) - 1), indexing="ij")
+        return {"prisms": {"prism": np.arange(self.n_prisms), **self.table()},
+                "orientation_distribution": {
+                    "cos_theta_lo": ce[ci.ravel()], "cos_theta_hi": ce[ci.ravel() + 1],
+                    "phi_lo": pe[pi.ravel()], "phi_hi": pe[pi.ravel() + 1],
+                    "fraction": self.hist.ravel(),
+                    "density_mud": self.hist.ravel() * nc * nphi},
+                "pole_figure": {"x": 0.5 * (e[xi.ravel()] + e[xi.ravel() + 1]),
+                                "y": 0.5 * (e[yi.ravel()] + e[yi.ravel() + 1]),
+                                "density_mud": self.pole.ravel()}}
+
+    def basis(self) -> dict:
+        return {"order.S": "largest eigenvalue of the volume-weighted nematic order tensor of "
+                           "the sheet normals (1 aligned, 0 isotropic)"}
+
+    def brief(self) -> str:
+        if self.director is None:
+            return "no prisms"
+        return f"S = {self.S:.4f}, biaxiality {self.biaxiality:.4f}, {self.n_prisms} prisms"
+
 
 def _local_hist(ls, nb=20):
     if len(ls) == 0:
@@ -373,17 +408,16 @@ def orientation(structure, *, local_radius: float = DEFAULTS["local_radius"],
 
     References
     ----------
-    de Gennes & Prost, The Physics of Liquid Crystals (1993); Mardia & Jupp, Directional
-    Statistics (2000), for the Watson distribution used in validation.
+    de Gennes & Prost, The Physics of Liquid Crystals, 2nd ed. (1993); Mardia & Jupp,
+    Directional Statistics, Wiley (2000), for the Watson distribution used in validation.
     """
-    from .stacking import _check_structure
-    _check_structure(structure)
-    local_radius = positive(local_radius, "local radius", field="local_radius")
+    check_structure(structure)
+    local_radius = positive(local_radius, "local radius", param="local_radius")
     if frame not in ("z", "director"):
-        raise OptionError(f"frame must be 'z' or 'director', got {frame!r}", field="frame")
+        raise OptionError(f"frame must be 'z' or 'director', got {frame!r}", param="frame")
     for name, v in (("n_cos", n_cos), ("n_phi", n_phi), ("pole_bins", pole_bins)):
         if int(v) != v or v < 1:
-            raise OptionError(f"{name} must be a positive whole number, got {v!r}", field=name)
+            raise OptionError(f"{name} must be a positive whole number, got {v!r}", param=name)
     n = len(structure)
     notes = []
     nrm = np.asarray(structure.normals, dtype=float)

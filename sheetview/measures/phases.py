@@ -25,8 +25,14 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, rasterize
+from ..material import Hydrate, MaterialSplit, interlayer_share
+from ._result import Result
 from .stacking import (StackingSettings, clip_polygon_buf, pair_frame, plane_basis,
                        stacking_graph)
+
+
+#: Squared distance (nm^2) under which two vertices of a clipped polygon are one vertex.
+_DUP2 = 1e-18
 
 
 @numba.njit(cache=True)
@@ -92,6 +98,22 @@ def _paint_gaps(pairs, V, C, Nrm, T, periodic, L, org, sp, shape, labels):
                 continue
             px = buf[0]
             py = buf[1]
+            # drop vertices repeating their predecessor: where the two triangles share an
+            # edge (layers that are exact copies) the clipping leaves near-duplicates, and
+            # an edge ~1e-16 nm long has a direction set by rounding that would cut the
+            # polygon along a random line in the inside test below
+            m = 0
+            for k in range(npoly):
+                if m > 0 and (px[k] - px[m - 1]) ** 2 + (py[k] - py[m - 1]) ** 2 <= _DUP2:
+                    continue
+                px[m] = px[k]
+                py[m] = py[k]
+                m += 1
+            while m > 1 and (px[m - 1] - px[0]) ** 2 + (py[m - 1] - py[0]) ** 2 <= _DUP2:
+                m -= 1
+            npoly = m
+            if npoly < 3:
+                continue
             # faces: top of i  {r : r.ni >= t_i/2}; bottom of j {r : (r - d).nj <= -t_j/2}
             ci = 0.5 * T[i]
             cj = _dot(d0, d1, d2, nj0, nj1, nj2) - 0.5 * T[j]
@@ -204,18 +226,22 @@ def classify(structure, voxel_size=None, *, graph=None, settings: StackingSettin
     return grid
 
 
-@dataclass
-class PhaseFractions:
-    """Volume fractions of the phase classes.
+@dataclass(repr=False)
+class PhaseFractions(Result):
+    """Volume fractions of the phase classes, and the water they hold.
 
     Attributes
     ----------
     fractions : dict name -> fraction of the domain volume (voxels inside the domain)
     volumes_nm3 : dict name -> volume in nm^3
-    domain_volume_nm3 : volume of the domain voxels (nm^3)
+    domain_volume_nm3 : volume of the domain voxels (nm^3): the reference volume
     domain_volume_exact_nm3 : the domain's exact volume, for comparison (None if unknown)
     void_fraction : fraction of the domain that is not solid
     interlayer_share_of_void : interlayer volume / void volume
+    material : the layer / interlayer-water split of the material model
+        (:class:`sheetview.material.MaterialSplit`)
+    water : class -> {"mass_g", "fraction_of_water"}: structural water of the layers,
+        interlayer water and the water of each gel-pore class (saturated)
     """
 
     fractions: dict
@@ -224,31 +250,58 @@ class PhaseFractions:
     domain_volume_exact_nm3: float | None
     void_fraction: float
     interlayer_share_of_void: float | None
+    material: MaterialSplit | None = None
+    water: dict | None = None
 
     def to_dict(self) -> dict:
-        return {"fractions": dict(self.fractions), "volumes_nm3": dict(self.volumes_nm3),
-                "domain_volume_nm3": self.domain_volume_nm3,
-                "domain_volume_exact_nm3": self.domain_volume_exact_nm3,
-                "void_fraction": self.void_fraction,
-                "interlayer_share_of_void": self.interlayer_share_of_void}
+        d = {"reference": "domain", "fractions": dict(self.fractions),
+             "volumes_nm3": dict(self.volumes_nm3),
+             "domain_volume_nm3": self.domain_volume_nm3,
+             "domain_volume_exact_nm3": self.domain_volume_exact_nm3,
+             "void_fraction": self.void_fraction,
+             "interlayer_share_of_void": self.interlayer_share_of_void}
+        if self.material is not None:
+            d["interlayer_share_of_csh_volume"] = self.material.interlayer_share
+            d["water"] = self.water
+            d["material"] = self.material.to_dict()
+        return d
 
     def table(self) -> dict:
         names = list(self.fractions)
         return {"phase": names, "fraction_of_domain": [self.fractions[n] for n in names],
                 "volume_nm3": [self.volumes_nm3[n] for n in names]}
 
+    def headline(self) -> dict:
+        """The summary's headline: fractions of the domain volume."""
+        return {"volume_fractions": dict(self.fractions)}
 
-def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None) -> PhaseFractions:
-    """Volume fraction of each phase class relative to the domain (non-OUTSIDE voxels).
+    def tables(self) -> dict:
+        return {"phase_fractions": self.table()}
+
+    def basis(self) -> dict:
+        return {"volume_fractions": "fractions of the domain volume (voxels inside the domain)"}
+
+    def brief(self) -> str:
+        fr = ", ".join(f"{k} {v:.4g}" for k, v in self.fractions.items())
+        return f"of the domain: {fr}"
+
+
+def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None, *,
+                     hydrate: Hydrate | None = None) -> PhaseFractions:
+    """Volume fraction of each phase class relative to the domain (non-OUTSIDE voxels),
+    and the water of each class from the material model.
 
     Every phase code present other than OUTSIDE is reported, plus zero entries for
-    solid, interlayer and gel when absent.
+    solid, interlayer and gel when absent. ``hydrate`` (default
+    :class:`sheetview.material.Hydrate`, Allen, Thomas & Jennings 2007) splits the C-S-H
+    into layers and interlayer water (:mod:`sheetview.material`); the gel-pore classes are
+    taken as saturated with water of the same density.
     """
     counts = np.bincount(grid.labels.ravel(), minlength=256).astype(np.int64)
     inside = int(counts.sum() - counts[OUTSIDE])
     if inside == 0:
         raise OptionError("no voxel lies inside the domain: the domain is empty at this voxel size",
-                          path=grid.source, field="voxel_size")
+                          path=grid.source, param="voxel_size")
     vv = grid.voxel_volume
     codes = sorted({SOLID, INTERLAYER, GEL} | {int(c) for c in np.flatnonzero(counts)} - {OUTSIDE})
     fr, vol = {}, {}
@@ -258,8 +311,9 @@ def volume_fractions(grid: PhaseGrid, domain_volume: float | None = None) -> Pha
         vol[name] = float(counts[c] * vv)
     void = 1.0 - fr.get("solid", 0.0)
     inter = fr.get("interlayer", 0.0)
+    split = (Hydrate() if hydrate is None else hydrate).split(interlayer_share(vol))
     return PhaseFractions(fr, vol, inside * vv, domain_volume, void,
-                          inter / void if void > 0 else None)
+                          inter / void if void > 0 else None, split, split.water(vol))
 
 
 def split_pores_by_size(grid: PhaseGrid, thresholds, thickness: np.ndarray,
@@ -285,10 +339,10 @@ def split_pores_by_size(grid: PhaseGrid, thresholds, thickness: np.ndarray,
         return grid
     if any(not (math.isfinite(x) and x > 0) for x in t) or any(b <= a for a, b in zip(t, t[1:])):
         raise OptionError(f"pore size thresholds must be increasing positive numbers of nm, "
-                          f"got {list(thresholds)}", field="pore_split")
+                          f"got {list(thresholds)}", param="pore_split")
     if len(t) >= len(names):
         raise OptionError(f"at most {len(names) - 1} pore size thresholds, got {len(t)}",
-                          field="pore_split")
+                          param="pore_split")
     labels = grid.labels.copy()
     gel = labels == GEL
     cls = np.searchsorted(np.asarray(t), np.where(gel, thickness, 0.0), side="right")

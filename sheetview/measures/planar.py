@@ -43,21 +43,21 @@ ORIENTATION_BINS = 36
 
 # ======================================================================= checks
 def _check_pixel(pixel) -> float:
-    return positive(pixel, "pixel size", field="pixel")
+    return positive(pixel, "pixel size", param="pixel")
 
 
 def _check_mask(mask, valid=None, name="mask"):
     m = np.asarray(mask)
     if m.ndim != 2:
         raise OptionError(f"the {name} must be a 2D array (rows, columns), not {m.ndim}D",
-                          field=name)
+                          param=name)
     if min(m.shape) < 1:
-        raise OptionError(f"the {name} is empty (shape {m.shape})", field=name)
+        raise OptionError(f"the {name} is empty (shape {m.shape})", param=name)
     if m.dtype != bool:
         if m.dtype.kind not in "biuf":
-            raise OptionError(f"the {name} must be a bool array, not {m.dtype}", field=name)
+            raise OptionError(f"the {name} must be a bool array, not {m.dtype}", param=name)
         if m.dtype.kind == "f" and not np.all(np.isfinite(m)):
-            raise OptionError(f"the {name} holds NaN or infinite values", field=name)
+            raise OptionError(f"the {name} holds NaN or infinite values", param=name)
         m = m != 0
     if valid is None:
         v = np.ones(m.shape, dtype=bool)
@@ -65,10 +65,10 @@ def _check_mask(mask, valid=None, name="mask"):
         v = np.asarray(valid)
         if v.shape != m.shape:
             raise OptionError(f"valid has shape {v.shape}, the {name} {m.shape}",
-                              field="valid")
+                              param="valid")
         v = v.astype(bool, copy=False)
         if not v.any():
-            raise OptionError("valid marks no pixel as part of the sample", field="valid")
+            raise OptionError("valid marks no pixel as part of the sample", param="valid")
     return np.ascontiguousarray(m), np.ascontiguousarray(v)
 
 
@@ -154,14 +154,14 @@ class Chords2D:
     def _sel(self, phase, direction=None, include_cut=False):
         if phase not in self.lengths:
             raise OptionError(f"unknown phase {phase!r}; expected one of {PHASES}",
-                              field="phase")
+                              param="phase")
         s = np.ones(self.lengths[phase].size, dtype=bool)
         if not include_cut:
             s &= ~self.cut[phase]
         if direction is not None:
             if direction not in DIRECTIONS:
                 raise OptionError(f"unknown direction {direction!r}; expected one of "
-                                  f"{DIRECTIONS}", field="direction")
+                                  f"{DIRECTIONS}", param="direction")
             s &= self.direction[phase] == DIRECTIONS.index(direction)
         return s
 
@@ -452,7 +452,8 @@ def iur_lines_2d(n: int, shape, seed=None):
     image centre uniform on ``[-R, R]`` (R = half the diagonal); lines missing the
     rectangle ``[-1/2, L - 1/2] x [-1/2, M - 1/2]`` (pixel units, x = column, y = row)
     are drawn again. This is the motion-invariant line measure restricted to the lines
-    hitting the image (Santalo 1976). Returns origins (ox, oy), unit directions (ux, uy)
+    hitting the image (Santaló, *Integral Geometry and Geometric Probability*,
+    Addison-Wesley 1976). Returns origins (ox, oy), unit directions (ux, uy)
     and the parameter interval [t0, t1] inside the rectangle."""
     M, L = shape
     rng = np.random.default_rng(seed)
@@ -511,8 +512,8 @@ def chords_2d(mask, pixel, *, valid=None, directions=DIRECTIONS, n_lines: int = 
     against long chords (minus-sampling with Horvitz-Thompson weights; common practice).
 
     Under isotropic uniform random lines the mean chord of a phase of area ``A`` and
-    boundary length ``P`` is ``pi A / P`` (Cauchy-Crofton; Santalo, *Integral Geometry
-    and Geometric Probability*, 1976).
+    boundary length ``P`` is ``pi A / P`` (Cauchy-Crofton; Santaló, *Integral Geometry
+    and Geometric Probability*, Addison-Wesley 1976).
     """
     px = _check_pixel(pixel)
     m, v = _check_mask(mask, valid)
@@ -522,7 +523,7 @@ def chords_2d(mask, pixel, *, valid=None, directions=DIRECTIONS, n_lines: int = 
     bad = [d for d in directions if d not in DIRECTIONS]
     if bad or not directions:
         raise OptionError(f"directions must be among {DIRECTIONS}, got {directions!r}",
-                          field="directions")
+                          param="directions")
     directions = tuple(d for d in DIRECTIONS if d in directions)
     parts = {ph: [] for ph in PHASES}
     n_l, l_l = {}, {}
@@ -540,18 +541,18 @@ def chords_2d(mask, pixel, *, valid=None, directions=DIRECTIONS, n_lines: int = 
             n_lines = int(n_lines)
         except (TypeError, ValueError):
             raise OptionError(f"number of lines must be a whole number, not {n_lines!r}",
-                              field="n_lines") from None
+                              param="n_lines") from None
         if n_lines < 1:
             raise OptionError(f"number of lines must be at least 1, not {n_lines}",
-                              field="n_lines")
+                              param="n_lines")
         step = float(line_step)
         tau = float(hysteresis)
         if not (0 < step <= 1):
             raise OptionError(f"line_step must be in (0, 1] pixel, not {line_step!r}",
-                              field="line_step")
+                              param="line_step")
         if not (0 <= tau < 0.5):
             raise OptionError(f"hysteresis must be in [0, 0.5) pixel, not {hysteresis!r}",
-                              field="hysteresis")
+                              param="hysteresis")
         F = signed_distance(m)
         ox, oy, ux, uy, t0, t1 = iur_lines_2d(n_lines, m.shape, seed)
         ln, ph, cut, seg = _trace_lines(F, v, ox, oy, ux, uy, t0, t1, step, tau)
@@ -617,7 +618,7 @@ class Thickness2D:
         """Per-pixel thickness of the phase (nm): the area-weighted samples."""
         if phase not in self.maps:
             raise OptionError(f"unknown phase {phase!r}; expected one of {PHASES}",
-                              field="phase")
+                              param="phase")
         mp = self.maps[phase]
         return mp[np.isfinite(mp)].astype(np.float64)
 
@@ -748,7 +749,7 @@ def local_thickness_2d(mask, pixel, *, valid=None, phases=PHASES) -> Thickness2D
         phases = (phases,)
     bad = [p for p in phases if p not in PHASES]
     if bad or not phases:
-        raise OptionError(f"phases must be among {PHASES}, got {phases!r}", field="phases")
+        raise OptionError(f"phases must be among {PHASES}, got {phases!r}", param="phases")
     maps, mean = {}, {}
     for ph in PHASES:
         if ph not in phases:
@@ -807,7 +808,8 @@ def s2_2d(mask, pixel, *, valid=None, r_max=None) -> S2Result:
     valid`` are zero-padded (by at least ``r_max``), and at each displacement ``d``
     ``S2(d) = C_II(d) / C_WW(d)``, the fraction of the valid pixel pairs at ``d`` that are
     both solid; each bin averages ``S2(d)`` weighted by ``C_WW(d)``. ``S2(0)`` is the area
-    fraction (Torquato, *Random Heterogeneous Materials*, 2002, ch. 2).
+    fraction (Torquato, *Random Heterogeneous Materials*, Springer 2002, ch. 2; chapter
+    from memory).
 
     ``r_max`` (nm): default half the smaller image side.
     """
@@ -819,7 +821,7 @@ def s2_2d(mask, pixel, *, valid=None, r_max=None) -> S2Result:
     if r_max is None:
         rpx = max(1, (min(M, L) - 1) // 2)
     else:
-        rr = positive(r_max, "r_max", field="r_max")
+        rr = positive(r_max, "r_max", param="r_max")
         rpx = int(min(math.floor(rr / px + 1e-9), max(M, L) - 1))
         rpx = max(rpx, 1)
     shape = (sfft.next_fast_len(M + rpx, real=True), sfft.next_fast_len(L + rpx, real=True))
@@ -914,11 +916,11 @@ def _gradients(g, derivative, derivative_px, mode="reflect"):
     if derivative == "sobel":
         return (ndi.sobel(g, axis=0, mode=mode) / 8.0, ndi.sobel(g, axis=1, mode=mode) / 8.0)
     if derivative == "gaussian":
-        s = positive(derivative_px, "derivative_px", field="derivative_px", unit="pixels")
+        s = positive(derivative_px, "derivative_px", param="derivative_px", unit="pixels")
         return (ndi.gaussian_filter(g, s, order=(1, 0), mode=mode, truncate=4.0),
                 ndi.gaussian_filter(g, s, order=(0, 1), mode=mode, truncate=4.0))
     raise OptionError(f'derivative must be "gaussian" or "sobel", not {derivative!r}',
-                      field="derivative")
+                      param="derivative")
 
 
 def structure_tensor_2d(image, sigma_px: float, *, derivative: str = "gaussian",
@@ -948,7 +950,9 @@ def orientation_2d(grey_or_mask, pixel, *, valid=None, sigma_nm=None,
                    bins: int = ORIENTATION_BINS, derivative: str = "gaussian",
                    derivative_px: float = DERIVATIVE_PX) -> Orientation2D:
     """Dominant layer orientation, coherence and nematic order of a 2D image from the
-    structure tensor (Jähne, *Digital Image Processing*; Bigün & Granlund 1987).
+    structure tensor (Bigün & Granlund, Optimal orientation detection of linear symmetry,
+    Proc. 1st Int. Conf. Computer Vision, London, 1987, 433-438; Jähne, *Digital Image
+    Processing*, Springer; venue, pages and edition from memory).
 
     At each pixel the tensor ``J = G_sigma * (grad g grad g^T)`` (:func:`structure_tensor_2d`)
     has eigenvalues ``l1 >= l2``; the gradient lies along the first eigenvector and the
@@ -968,30 +972,30 @@ def orientation_2d(grey_or_mask, pixel, *, valid=None, sigma_nm=None,
     px = _check_pixel(pixel)
     g = np.asarray(grey_or_mask)
     if g.ndim != 2:
-        raise OptionError(f"the image must be 2D, not {g.ndim}D", field="image")
+        raise OptionError(f"the image must be 2D, not {g.ndim}D", param="image")
     if g.dtype.kind not in "biuf":
-        raise OptionError(f"the image must be numeric, not {g.dtype}", field="image")
+        raise OptionError(f"the image must be numeric, not {g.dtype}", param="image")
     g = g.astype(np.float64)
     if valid is None:
         v = np.ones(g.shape, dtype=bool)
     else:
         v = np.asarray(valid, dtype=bool)
         if v.shape != g.shape:
-            raise OptionError(f"valid has shape {v.shape}, the image {g.shape}", field="valid")
+            raise OptionError(f"valid has shape {v.shape}, the image {g.shape}", param="valid")
     fin = np.isfinite(g)
     v = v & fin
     if not v.any():
-        raise OptionError("no valid pixel to measure the orientation on", field="valid")
+        raise OptionError("no valid pixel to measure the orientation on", param="valid")
     sig = 2.0 if sigma_nm is None else float(sigma_nm) / px
     if not (math.isfinite(sig) and sig >= 0):
         raise OptionError(f"sigma_nm must be a non-negative length, not {sigma_nm!r}",
-                          field="sigma_nm")
+                          param="sigma_nm")
     try:
         nb = int(bins)
     except (TypeError, ValueError):
-        raise OptionError(f"bins must be a whole number, not {bins!r}", field="bins") from None
+        raise OptionError(f"bins must be a whole number, not {bins!r}", param="bins") from None
     if nb < 1:
-        raise OptionError(f"bins must be at least 1, not {bins!r}", field="bins")
+        raise OptionError(f"bins must be at least 1, not {bins!r}", param="bins")
     if v.all():
         w = np.ones(g.shape)
     else:

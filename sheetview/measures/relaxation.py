@@ -30,6 +30,7 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import INTERLAYER, OUTSIDE, SOLID
+from ._result import Result
 
 #: Surface relaxivity (nm/µs), McDonald et al. 2005 (from memory, low confidence).
 DEFAULT_RHO2_NM_PER_US = 3.7e-3
@@ -39,8 +40,8 @@ DEFAULT_T2_BULK_S = 2.5
 SHAPE_FACTOR = {"slit": 2.0, "cylinder": 4.0, "sphere": 6.0}
 
 
-@dataclass
-class RelaxationResult:
+@dataclass(repr=False)
+class RelaxationResult(Result):
     """A predicted T2 distribution.
 
     Attributes
@@ -70,6 +71,13 @@ class RelaxationResult:
         """Geometric mean T2 (s) of the whole distribution."""
         w = self.total
         return float(np.exp(np.sum(w * np.log(self.t2)) / w.sum())) if w.sum() > 0 else float("nan")
+
+    def tables(self) -> dict:
+        return {"t2_distribution": self.table()}
+
+    def brief(self) -> str:
+        fr = ", ".join(f"{k} {v:.3f}" for k, v in self.class_fraction.items())
+        return f"fast exchange; log-mean T2 {self.logmean() * 1e3:.4g} ms; water: {fr}"
 
     def table(self) -> dict:
         d = {"t2_s": self.t2.tolist(), "t2_ms": (self.t2 * 1e3).tolist(),

@@ -30,10 +30,11 @@ from dataclasses import dataclass, field
 
 import numba
 import numpy as np
-from scipy.spatial import cKDTree
 
 from ..errors import InputError, OptionError
+from ._result import Result
 from .cells import cell_list
+from ..structure import Structure
 
 #: Default tolerances. See docs/measures.md for the reasoning behind each.
 DEFAULTS = {
@@ -65,7 +66,7 @@ class StackingSettings:
 
     def __post_init__(self):
         def bad(opt, msg):
-            raise OptionError(msg, field=opt)
+            raise OptionError(msg, param=opt)
 
         for name in ("angle_tol", "gap_tol", "overlap", "tilt_limit", "edge_tol", "spacing"):
             v = getattr(self, name)
@@ -798,6 +799,7 @@ def candidate_pairs(centroids, radius, domain):
 
 def _candidate_pairs_kdtree(centroids, radius, domain):
     """Reference search: :meth:`scipy.spatial.cKDTree.query_pairs` (ndarray output)."""
+    from scipy.spatial import cKDTree  # heavy library, imported when used (the fallback)
     c = np.asarray(centroids, dtype=np.float64)
     if len(c) < 2:
         e = np.zeros(0, np.int64)
@@ -834,8 +836,7 @@ class StackingGraph:
     radius: float
 
 
-def _check_structure(structure):
-    from ..structure import Structure
+def check_structure(structure):
     if not isinstance(structure, Structure):
         kind = type(structure).__name__
         raise OptionError(f"stacking and orientation measures need prisms (a Structure), "
@@ -858,7 +859,7 @@ def stacking_graph(structure, settings: StackingSettings | None = None) -> Stack
     overlap of the triangles projected on the common plane (Sutherland-Hodgman
     clipping). Links come in a fixed order whatever the number of threads.
     """
-    _check_structure(structure)
+    check_structure(structure)
     if settings is None:
         settings = StackingSettings(spacing=structure.spacing)
     empty = np.zeros((0, 2), np.int64)
@@ -909,8 +910,8 @@ def _hist_dict(values, weights=None, normalise=False):
     return out
 
 
-@dataclass
-class StackingResult:
+@dataclass(repr=False)
+class StackingResult(Result):
     """Layers, stacks and stacking numbers of a structure.
 
     Per-prism arrays (length ``n_prisms``): ``layer``, ``stack``, ``stacking_number``
@@ -1018,6 +1019,29 @@ class StackingResult:
         return {"prism": np.arange(self.n_prisms), "layer": self.layer, "stack": self.stack,
                 "stacking_number": self.stacking_number, "volume": self.volumes}
 
+    def tables(self) -> dict:
+        """CSV tables: per prism (``prisms``), per stack (``stacks``), per tilted prism pair
+        (``tilted_contacts``)."""
+        g = self.graph
+        t = g.tilted
+        empty = np.zeros(0, np.int64)
+        return {"prisms": self.table(), "stacks": self.stack_table(),
+                "tilted_contacts": {"prism_a": t[:, 0], "prism_b": t[:, 1],
+                                    "angle_deg": g.tilted_angle,
+                                    "layer_a": self.layer[t[:, 0]] if len(t) else empty,
+                                    "layer_b": self.layer[t[:, 1]] if len(t) else empty}}
+
+    def basis(self) -> dict:
+        return {"stacking.mean": "mean stacking number (layers in the prism's stack column) "
+                                 "over prisms; mean_volume weights by prism volume, mean_stack "
+                                 "over stacks"}
+
+    def brief(self) -> str:
+        if not self.n_prisms:
+            return "no prisms"
+        return (f"{self.n_layers} layers in {self.n_stacks} stacks, mean stacking number "
+                f"{self.mean:.3f} (prisms), {self.mean_volume:.3f} (volume)")
+
     def stack_table(self) -> dict:
         """Per-stack columns (see :func:`stacking`)."""
         st = self.stacks
@@ -1099,7 +1123,7 @@ def stacking(structure, *, angle_tol: float = DEFAULTS["angle_tol"],
     consistently signed mean normal; it is computed exactly by dynamic programming on a
     topological order.
     """
-    _check_structure(structure)
+    check_structure(structure)
     settings = StackingSettings(angle_tol, gap_tol, overlap, tilt_limit, edge_tol,
                                 structure.spacing if spacing is None else spacing)
     n = len(structure)

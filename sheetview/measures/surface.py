@@ -32,12 +32,9 @@ import numba
 import numpy as np
 
 from ..errors import OptionError
-from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
-
-#: Default C-S-H solid density (g/cm^3) for the specific surface per mass:
-#: Muller, Scrivener, Gajewicz & McDonald, J. Phys. Chem. C 117 (2013) 403,
-#: doi:10.1021/jp3102964 (value at low degree of hydration).
-DEFAULT_SOLID_DENSITY = 2.73
+from ..grid import OUTSIDE, SOLID, PhaseGrid
+from ..material import MASS_BASIS, Hydrate, MaterialSplit, interlayer_share
+from ._result import Result
 
 # cell vertex k = (bit0 -> x, bit1 -> y, bit2 -> z)
 _VERTS = np.array([[(k >> 0) & 1, (k >> 1) & 1, (k >> 2) & 1] for k in range(8)])
@@ -163,8 +160,11 @@ def direction_weights(spacing=(1.0, 1.0, 1.0)) -> tuple[np.ndarray, np.ndarray]:
     """Physical line directions (13, 3) of the lattice and their Crofton weights.
 
     The weight of direction ``d`` is the solid-angle fraction of the Voronoi cells of
-    ``+d`` and ``-d`` on the unit sphere (Ohser & Mücklich 2000, sec. 5.2); the weights
-    sum to 1.
+    ``+d`` and ``-d`` on the unit sphere (the discretised Crofton formula of Ohser &
+    Mücklich 2000, ch. 4; section from memory); the weights sum to 1. For the cubic
+    lattice, per direction of each pair: 0.04577789 (axes), 0.03698063 (face diagonals),
+    0.03519564 (body diagonals); recomputed independently in
+    tests/validation/test_surface_validation.py.
     """
     sp = np.broadcast_to(np.asarray(spacing, dtype=float), (3,))
     vec = DIRECTIONS_13 * sp
@@ -225,7 +225,9 @@ class MinkowskiResult:
     mean_curvature : float  M = int (k1 + k2)/2 dS, nm (Crofton, 13 plane families)
     euler : int           chi of the 26-connected phase (complement 6-connected)
     euler_6 : int         chi of the 6-connected phase (complement 26-connected)
-    total_volume : float  volume of the grid, nm^3 (for densities)
+    reference_volume : float  the volume densities are taken per, nm^3
+    reference : str       what that volume is: "grid" (the whole grid box, the default of
+        a bare mask) or "domain" (the voxels inside the domain, as the phase fractions)
     """
 
     volume: float
@@ -233,22 +235,25 @@ class MinkowskiResult:
     mean_curvature: float
     euler: int
     euler_6: int
-    total_volume: float
+    reference_volume: float
     periodic: bool = False
+    reference: str = "grid"
 
     @property
     def densities(self) -> dict:
-        """Functionals per unit grid volume: V_V, S_V (nm^-1), M_V (nm^-2), chi_V (nm^-3)."""
-        t = self.total_volume
+        """Functionals per unit reference volume: V_V, S_V (nm^-1), M_V (nm^-2),
+        chi_V (nm^-3)."""
+        t = self.reference_volume
         return {"V_V": self.volume / t, "S_V": self.surface / t,
                 "M_V": self.mean_curvature / t, "chi_V": self.euler / t}
 
     def to_dict(self) -> dict:
         d = {"volume_nm3": float(self.volume), "surface_nm2": float(self.surface),
              "mean_curvature_nm": float(self.mean_curvature), "euler": int(self.euler),
-             "euler_6": int(self.euler_6), "total_volume_nm3": float(self.total_volume),
+             "euler_6": int(self.euler_6), "reference": self.reference,
+             "reference_volume_nm3": float(self.reference_volume),
              "periodic": bool(self.periodic)}
-        d.update({k: float(v) for k, v in self.densities.items()})
+        d.update({f"{k}_per_{self.reference}": float(v) for k, v in self.densities.items()})
         return d
 
 
@@ -295,7 +300,9 @@ def _euler_from_hist(hist) -> tuple[int, int]:
     return int(round(chi26)), int(round(chi6))
 
 
-def minkowski_functionals(mask, spacing=(1.0, 1.0, 1.0), periodic: bool = False) -> MinkowskiResult:
+def minkowski_functionals(mask, spacing=(1.0, 1.0, 1.0), periodic: bool = False, *,
+                          reference_volume: float | None = None,
+                          reference: str = "domain") -> MinkowskiResult:
     """Volume, surface, integral of mean curvature and Euler characteristic of a phase.
 
     Parameters
@@ -305,6 +312,10 @@ def minkowski_functionals(mask, spacing=(1.0, 1.0, 1.0), periodic: bool = False)
     spacing : voxel edge lengths, nm.
     periodic : wrap around the grid edges (periodic box) instead of padding with
         background.
+    reference_volume : volume (nm^3) the densities are taken per; default the whole grid
+        (then ``reference`` is "grid"). Pass the domain volume to get densities per domain
+        volume, as the phase fractions are.
+    reference : the name of ``reference_volume`` when given (default "domain").
 
     Returns
     -------
@@ -331,10 +342,17 @@ def minkowski_functionals(mask, spacing=(1.0, 1.0, 1.0), periodic: bool = False)
     hist = configuration_histogram(m, periodic)
     v = float(np.prod(sp))
     chi26, chi6 = _euler_from_hist(hist)
+    if reference_volume is None:
+        ref, name = m.size * v, "grid"
+    else:
+        ref, name = float(reference_volume), str(reference)
+        if not (np.isfinite(ref) and ref > 0):
+            raise OptionError(f"reference_volume must be a positive number of nm^3, got "
+                              f"{reference_volume!r}", param="reference_volume")
     return MinkowskiResult(volume=float(m.sum()) * v, surface=_surface_from_hist(hist, sp),
                            mean_curvature=float(_mean_curvature_from_hist(hist, sp)),
-                           euler=chi26, euler_6=chi6, total_volume=m.size * v,
-                           periodic=bool(periodic))
+                           euler=chi26, euler_6=chi6, reference_volume=ref,
+                           periodic=bool(periodic), reference=name)
 
 
 def euler_characteristic(mask, connectivity: int = 26, periodic: bool = False) -> int:
@@ -349,7 +367,8 @@ def euler_characteristic(mask, connectivity: int = 26, periodic: bool = False) -
 
 
 # ----------------------------------------------------------------- interfaces
-def _codes(phases, name) -> np.ndarray:
+def phase_codes(phases, name) -> np.ndarray:
+    """Phase codes (0-255) from a code or a list of codes; ``name`` is the parameter."""
     if isinstance(phases, (int, np.integer)):
         phases = [phases]
     try:
@@ -374,7 +393,7 @@ def interface_area(grid: PhaseGrid, a, b) -> float:
     Pairs across the grid edge count only for periodic grids.
     """
     _check_grid(grid)
-    ca, cb = _codes(a, "a"), _codes(b, "b")
+    ca, cb = phase_codes(a, "a"), phase_codes(b, "b")
     if np.intersect1d(ca, cb).size:
         raise OptionError(f"label sets a={ca.tolist()} and b={cb.tolist()} overlap")
     # one pass per label of a: the areas between that label and every other label
@@ -438,74 +457,187 @@ def _pair_count(ma, mb, d, periodic) -> int:
 
 @dataclass
 class SurfaceResult:
-    """Interfaces and specific surfaces of a PhaseGrid.
+    """Interfaces, specific surfaces and the mass basis of a PhaseGrid.
 
     Attributes
     ----------
-    areas : dict "solid-interlayer" / "solid-gel" / "solid-outside" -> nm^2
-    volumes : dict phase name -> nm^3
-    s_over_v : dict pore class -> interface area with solid / pore-class volume, nm^-1
-    specific_surface_m2_per_g : solid-pore interface (interlayer + gel) per solid mass
-    density_g_cm3 : the solid density used
+    areas : dict "solid-<class>" -> nm^2, one entry per pore class present (interlayer,
+        gel and any size class split from the gel) and "solid-outside" (contact with the
+        domain wall, not a pore surface); the pore entries add up to ``pore_area``
+    volumes : dict phase name -> nm^3 (solid and every pore class)
+    s_over_v : dict pore class -> its interface with solid / its volume, nm^-1
+    pore_area : solid surface facing any pore class (interlayer + gel + size classes), nm^2
+    domain_volume : volume of the voxels inside the domain, nm^3 (the reference volume)
+    material : :class:`sheetview.material.MaterialSplit` (layers and interlayer water)
+    mass_g : mass of the layers plus their interlayer water (g): what the hydrate density
+        refers to
     """
 
     areas: dict
     volumes: dict
     s_over_v: dict
-    specific_surface_m2_per_g: float
-    density_g_cm3: float
+    pore_area: float
+    domain_volume: float
+    material: MaterialSplit
+    mass_g: float
     periodic: bool = False
     notes: list = field(default_factory=list)
+
+    @property
+    def specific_surface_per_domain_volume(self) -> float:
+        """Solid–pore interface area per domain volume, nm^-1 (S_V)."""
+        return self.pore_area / self.domain_volume if self.domain_volume > 0 else float("nan")
+
+    @property
+    def specific_surface_m2_per_g(self) -> float:
+        """All solid–pore interface area (interlayer and every gel class) per mass of C-S-H
+        (layers plus interlayer water), m^2/g."""
+        return 1e-18 * self.pore_area / self.mass_g if self.mass_g > 0 else float("nan")
+
+    @property
+    def gel_surface_m2_per_g(self) -> float:
+        """Solid area facing the gel-pore classes only (not the interlayer) per the same
+        mass, m^2/g: the part a probe that cannot enter the interlayer would see."""
+        a = sum(v for k, v in self.areas.items() if k not in ("solid-interlayer", "solid-outside"))
+        return 1e-18 * a / self.mass_g if self.mass_g > 0 else float("nan")
 
     def to_dict(self) -> dict:
         return {"areas_nm2": {k: float(v) for k, v in self.areas.items()},
                 "volumes_nm3": {k: float(v) for k, v in self.volumes.items()},
                 "s_over_v_per_nm": {k: float(v) for k, v in self.s_over_v.items()},
+                "solid_pore_area_nm2": float(self.pore_area),
+                "domain_volume_nm3": float(self.domain_volume),
+                "specific_surface_per_domain_volume_nm-1":
+                    float(self.specific_surface_per_domain_volume),
                 "specific_surface_m2_per_g": float(self.specific_surface_m2_per_g),
-                "density_g_cm3": float(self.density_g_cm3), "periodic": bool(self.periodic),
-                "notes": list(self.notes)}
+                "gel_surface_m2_per_g": float(self.gel_surface_m2_per_g),
+                "mass_basis": MASS_BASIS,
+                "mass_g": float(self.mass_g),
+                "material": self.material.to_dict(),
+                "periodic": bool(self.periodic), "notes": list(self.notes)}
 
     def table(self) -> dict:
         keys = list(self.areas)
-        return {"interface": keys, "area_nm2": [float(self.areas[k]) for k in keys]}
+        rows = keys + ["solid-pore (all classes)"]
+        areas = [float(self.areas[k]) for k in keys] + [float(self.pore_area)]
+        return {"interface": rows, "area_nm2": areas}
 
 
-def surfaces(grid: PhaseGrid, density: float = DEFAULT_SOLID_DENSITY) -> SurfaceResult:
-    """Solid interfaces, S/V of each pore class and the specific surface per solid mass.
+def pore_codes(grid: PhaseGrid) -> list[int]:
+    """Codes of the pore classes of a grid: interlayer, gel and any size classes (every
+    named code but OUTSIDE and SOLID), plus any other code present in the labels."""
+    present = np.flatnonzero(np.bincount(grid.labels.ravel(), minlength=256))
+    codes = {int(c) for c in grid.names} | {int(c) for c in present}
+    return sorted(codes - {OUTSIDE, SOLID})
+
+
+def surfaces(grid: PhaseGrid, hydrate: Hydrate | None = None) -> SurfaceResult:
+    """Solid interfaces, S/V of each pore class and the specific surfaces.
 
     Parameters
     ----------
-    grid : PhaseGrid with codes SOLID, INTERLAYER, GEL (and OUTSIDE)
-    density : solid density in g/cm^3 (default 2.73, Muller et al. 2013)
+    grid : PhaseGrid with codes SOLID, INTERLAYER, GEL, size classes split from the gel
+        (codes 4+) and OUTSIDE
+    hydrate : :class:`sheetview.material.Hydrate`, the C-S-H composition and density with
+        its interlayer water (default: Allen, Thomas & Jennings 2007)
 
     Notes
     -----
     ``S/V`` of pore class p is ``A(solid, p) / V(p)`` in nm^-1 (for a slit of width d,
-    2/d). The specific surface ``A(solid, interlayer + gel) / (rho V_solid)`` in m^2/g
-    is ``1e3 A[nm^2] / (rho[g/cm^3] V[nm^3])``. Areas by :func:`interface_area`.
+    2/d). The specific surface per mass is the solid area facing every pore class divided
+    by the mass of the sheets plus their interlayer water, the mass the published density
+    refers to (:mod:`sheetview.material`): ``1e-18 A[nm^2] / m[g]``. Areas by
+    :func:`interface_areas_with` (Crofton, 13 directions); volumes by voxel counts; the
+    reference volume of densities is the domain (voxels not OUTSIDE).
     """
     _check_grid(grid)
-    if not (np.isfinite(density) and density > 0):
-        raise OptionError(f"density must be a positive number of g/cm^3, got {density!r}")
+    hydrate = Hydrate() if hydrate is None else hydrate
     with_solid = interface_areas_with(grid, SOLID)
-    areas = {"solid-interlayer": float(with_solid[INTERLAYER]),
-             "solid-gel": float(with_solid[GEL]),
-             "solid-outside": float(with_solid[OUTSIDE])}
     counts = np.bincount(grid.labels.ravel(), minlength=256)
     v = grid.voxel_volume
-    volumes = {grid.names.get(c, f"phase_{c}"): float(counts[c] * v)
-               for c in (SOLID, INTERLAYER, GEL)}
-    sov = {}
+    codes = pore_codes(grid)
+    areas, volumes, sov = {}, {"solid": float(counts[SOLID] * v)}, {}
     notes = []
-    for code, key in ((INTERLAYER, "solid-interlayer"), (GEL, "solid-gel")):
+    for code in codes:
         name = grid.names.get(code, f"phase_{code}")
-        vol = counts[code] * v
-        sov[name] = areas[key] / vol if vol > 0 else float("nan")
+        areas[f"solid-{name}"] = float(with_solid[code])
+        vol = float(counts[code] * v)
+        volumes[name] = vol
+        sov[name] = areas[f"solid-{name}"] / vol if vol > 0 else float("nan")
         if vol == 0:
             notes.append(f"no {name} voxels: S/V undefined")
-    vs = counts[SOLID] * v
-    a_pore = areas["solid-interlayer"] + areas["solid-gel"]
-    ssa = 1e3 * a_pore / (density * vs) if vs > 0 else float("nan")
-    if vs == 0:
+    areas["solid-outside"] = float(with_solid[OUTSIDE])
+    pore_area = float(sum(with_solid[c] for c in codes))
+    split = hydrate.split(interlayer_share({"solid": volumes["solid"],
+                                            "interlayer": volumes.get("interlayer", 0.0)}))
+    mass = split.mass_g(volumes["solid"], volumes.get("interlayer", 0.0))
+    if counts[SOLID] == 0:
         notes.append("no solid voxels: specific surface undefined")
-    return SurfaceResult(areas, volumes, sov, float(ssa), float(density), grid.periodic, notes)
+    if not split.consistent:
+        notes.append(split.inconsistency())
+    inside = float((counts.sum() - counts[OUTSIDE]) * v)
+    return SurfaceResult(areas, volumes, sov, pore_area, inside, split, float(mass),
+                         grid.periodic, notes)
+
+
+@dataclass(repr=False)
+class SurfaceMeasure(Result):
+    """The ``surface`` measure: the solid's interfaces and specific surfaces
+    (:class:`SurfaceResult`) and the Minkowski functionals of the solid and of the pore
+    space (every pore class), densities per domain volume."""
+
+    interfaces: SurfaceResult
+    minkowski_solid: MinkowskiResult
+    minkowski_pore: MinkowskiResult
+
+    def headline(self) -> dict:
+        """The summary's headline figures."""
+        sf = self.interfaces
+        return {"specific_surface_nm-1": _finite(sf.specific_surface_per_domain_volume),
+                "specific_surface_m2_per_g": _finite(sf.specific_surface_m2_per_g),
+                "specific_surface_basis": self._basis()}
+
+    def _basis(self) -> dict:
+        h = self.interfaces.material.hydrate
+        return {"nm-1": "solid area facing every pore class (interlayer and gel) per domain "
+                        "volume (Crofton estimate on the phase grid)",
+                "m2_per_g": f"the same area per {MASS_BASIS}: {h.formula} at {h.density:g} "
+                            f"g/cm3 ({h.source})"}
+
+    def basis(self) -> dict:
+        b = self._basis()
+        return {"specific_surface_nm-1": b["nm-1"], "specific_surface_m2_per_g": b["m2_per_g"]}
+
+    def to_dict(self) -> dict:
+        return {"interfaces": self.interfaces.to_dict(),
+                "minkowski_solid": self.minkowski_solid.to_dict(),
+                "minkowski_pore": self.minkowski_pore.to_dict()}
+
+    def tables(self) -> dict:
+        mk = {"solid": self.minkowski_solid.to_dict(), "pore": self.minkowski_pore.to_dict()}
+        keys = sorted({k for d in mk.values() for k, v in d.items()
+                       if isinstance(v, (int, float)) and not isinstance(v, bool)})
+        return {"interfaces": self.interfaces.table(),
+                "minkowski": {"phase": list(mk), **{k: [float(d.get(k, np.nan))
+                                                        for d in mk.values()] for k in keys}}}
+
+    def brief(self) -> str:
+        sf = self.interfaces
+        return (f"S_V {sf.specific_surface_per_domain_volume:.4g} nm^-1, "
+                f"{sf.specific_surface_m2_per_g:.4g} m^2/g, {len(sf.areas) - 1} pore classes")
+
+
+def surface_measure(grid: PhaseGrid, *, hydrate: Hydrate | None = None) -> SurfaceMeasure:
+    """Interfaces, specific surfaces (:func:`surfaces`) and the Minkowski functionals of
+    the solid and of the pore space (:func:`minkowski_functionals`, densities per domain
+    volume) of a phase grid: the ``surface`` measure of ``sheetview measure``."""
+    base = surfaces(grid, hydrate)
+    solid = minkowski_functionals(grid.labels == SOLID, grid.spacing, grid.periodic,
+                                  reference_volume=base.domain_volume)
+    pore = minkowski_functionals(np.isin(grid.labels, pore_codes(grid)), grid.spacing,
+                                 grid.periodic, reference_volume=base.domain_volume)
+    return SurfaceMeasure(base, solid, pore)
+
+
+def _finite(x):
+    return float(x) if x is not None and np.isfinite(x) else None

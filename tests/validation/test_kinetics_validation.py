@@ -2,28 +2,32 @@
 
 * Progress alpha(t) of prisms of known volume born at known times: right triangles with legs
   a, b have area a b / 2 (elementary closed form, common practice), so alpha(t) =
-  sum(a b h / 2 for born <= t) / sum(a b h / 2) is known without the project's geometry code.
+  sum(a b h / 2 for born <= t) / sum(a b h / 2) is known without the project's geometry code;
+  the triangles are placed in random orientations.
 * Avrami (JMAK) form alpha = 1 - exp(-(k t)^n) (Avrami, J. Chem. Phys. 7 (1939) 1103; 8 (1940)
   212): birth times placed at its quantiles are fitted back to n and k, and the smoothed rate
   follows its derivative n k (k t)^(n-1) exp(-(k t)^n).
 """
 import numpy as np
 import pytest
+from scipy.spatial.transform import Rotation
 
 from sheetview import Box, Structure
 from sheetview.measures.kinetics import fit_avrami, progress, structure_at
 
 
-def _right_triangles(legs_a, legs_b, h, born, spacing=1.4):
+def _right_triangles(legs_a, legs_b, h, born, spacing=1.4, seed=0):
+    """Right triangles with legs a, b, each in a random orientation (scipy
+    Rotation.random) about its right-angle corner, corners 10 nm apart (no overlaps)."""
     n = len(legs_a)
-    v = np.zeros((n, 3, 3))
-    v[:, 0, 0] = np.arange(n) * 10.0          # far apart: no overlaps
-    v[:, 1] = v[:, 0]
-    v[:, 1, 0] += legs_a
-    v[:, 2] = v[:, 0]
-    v[:, 2, 1] += legs_b
-    v[:, :, 2] = 5.0
-    dom = Box((-1, -1, 0), (10.0 * n + 10, 20, 10))
+    tri = np.zeros((n, 3, 3))
+    tri[:, 1, 0] = legs_a
+    tri[:, 2, 1] = legs_b
+    rot = Rotation.random(n, random_state=seed)
+    v = np.einsum("nij,nkj->nki", rot.as_matrix(), tri)
+    v[:, :, 0] += (np.arange(n) * 10.0)[:, None]
+    v[:, :, 1:] += 5.0
+    dom = Box((-5, -5, -5), (10.0 * n + 10, 15, 15))
     return Structure(v, h, dom, spacing, {"born": born}, {"time_unit": "h"})
 
 

@@ -6,8 +6,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .grid import PhaseGrid
-from .structure import Structure, SurfaceBody
+from ..grid import PhaseGrid
+from ..structure import Structure, SurfaceBody
 
 
 def _stats(a: np.ndarray) -> dict:

@@ -1,0 +1,2 @@
+"""The version of sheetview (one place; pyproject.toml reads the same number)."""
+__version__ = "0.1.0"
