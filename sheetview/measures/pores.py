@@ -1024,6 +1024,8 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, hvie
         c = np.empty(27)
         gap = np.empty(27)
         ov = np.empty(27)
+        cm = np.empty(27, np.uint32)
+        seen = np.empty(27, np.uint32)
         T = np.empty((33, 7))
         rhs = np.empty(33)
         obj = np.empty(7)
@@ -1078,15 +1080,22 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, hvie
                         v1 /= Lv
                         v2 /= Lv
                         cth = min(1.0, max(-1.0, v0 * nx + v1 * ny + v2 * nz))
-                        th = math.acos(cth)
-                        thmax = math.atan(hview / Lv)
-                        if th > thmax:
-                            st = math.sin(th)
-                            wa = math.sin(th - thmax) / st
-                            wb = math.sin(thmax) / st
-                            nx = wa * v0 + wb * nx
-                            ny = wa * v1 + wb * ny
-                            nz = wa * v2 + wb * nz
+                        hyp = math.sqrt(Lv * Lv + hview * hview)
+                        cmax = Lv / hyp  # cos and sin of the largest angle, atan(hview/Lv)
+                        if cth < cmax:
+                            # the unit vector at that angle from v towards n:
+                            # cos(thmax) v + sin(thmax) (n - cth v) / |n - cth v|
+                            ux = nx - cth * v0
+                            uy = ny - cth * v1
+                            uz = nz - cth * v2
+                            st = math.sqrt(ux * ux + uy * uy + uz * uz)
+                            if st > 1e-12:
+                                smax = hview / hyp
+                                nx = cmax * v0 + smax * ux / st
+                                ny = cmax * v1 + smax * uy / st
+                                nz = cmax * v2 + smax * uz / st
+                            else:
+                                nx, ny, nz = v0, v1, v2
                             g = -1.0  # measured along this direction when needed
                         dup = False
                         for q in range(npl):
@@ -1152,6 +1161,16 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, hvie
             # wall lies between the nearest plane through a non-phase centre and the
             # furthest phase centre next to those planes, both measured along each
             # plane's normal; the estimate is the least of the brackets' midpoints
+            # the groups: bit u of cm[q] set when plane u's normal lies within the cone
+            # of plane q's (the same for both passes)
+            for q in range(npl):
+                cm[q] = np.uint32(1) << np.uint32(q)
+            for q in range(npl):
+                for u in range(q + 1, npl):
+                    if (Nn[q, 0] * Nn[u, 0] + Nn[q, 1] * Nn[u, 1]
+                            + Nn[q, 2] * Nn[u, 2]) >= cone:
+                        cm[q] |= np.uint32(1) << np.uint32(u)
+                        cm[u] |= np.uint32(1) << np.uint32(q)
             for pass_ in range(2):
                 if pass_ == 0 and not refine:
                     A[t] = 0.0
@@ -1164,20 +1183,33 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, hvie
                     if o < lo:
                         lo = o
                 est = np.inf
+                nseen = 0
                 for q in range(npl):
                     if ov[q] > lo + tau:
                         continue
+                    grp = cm[q]
+                    dup = False
+                    for u in range(nseen):
+                        if seen[u] == grp:
+                            dup = True
+                            break
+                    if dup:  # same group, same bracket
+                        continue
+                    seen[nseen] = grp
+                    nseen += 1
                     lq = np.inf
-                    for u in range(npl):
-                        if ov[u] < lq and (Nn[q, 0] * Nn[u, 0] + Nn[q, 1] * Nn[u, 1]
-                                           + Nn[q, 2] * Nn[u, 2]) >= cone:
+                    bits = grp
+                    while bits != 0:
+                        u = int(_tz(bits))
+                        bits &= bits - np.uint32(1)
+                        if ov[u] < lq:
                             lq = ov[u]
                     hq = -np.inf
-                    for u in range(npl):
+                    bits = grp
+                    while bits != 0:
+                        u = int(_tz(bits))
+                        bits &= bits - np.uint32(1)
                         if ov[u] > lq + tau or ov[u] <= hq:
-                            continue
-                        if (Nn[q, 0] * Nn[u, 0] + Nn[q, 1] * Nn[u, 1]
-                                + Nn[q, 2] * Nn[u, 2]) < cone:
                             continue
                         if gap[u] < 0.0:
                             gap[u] = gap_along(mask, Bi[u, 0], Bi[u, 1], Bi[u, 2], Nn[u, 0],
