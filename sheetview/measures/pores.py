@@ -1224,7 +1224,10 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, hvie
                 if pass_ == 0:
                     A[t] = est
                 else:
-                    Dx[t] = est
+                    # the wall crosses the segment from x to its nearest non-phase
+                    # centre: no nearer than half way along it when the planes (some
+                    # seen from a neighbour, behind x) say less
+                    Dx[t] = min(max(est, 0.5 * dx_), dx_)
 
 
 #: Most wall primitives (prisms, triangles) gathered about one candidate centre.
