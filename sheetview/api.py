@@ -103,6 +103,7 @@ class Measurement:
         """Write a report folder (summary.json, CSV tables, PNG figures); see
         :func:`sheetview.report.write_report`."""
         return write_report(folder, self.summary(), self._run.results, force=force,
+                            protect=[self.source] if self.source else (),
                             plots=plots, grid=self.grid)
 
     def plot(self, name: str, ax=None):

@@ -14,6 +14,15 @@ import numpy as np
 
 from .errors import InputError
 
+#: Largest magnitude (nm) accepted for a coordinate, a length or a thickness read from a
+#: file: 1 m. Nothing sheetview models comes near it, so a larger value means wrong units
+#: or a damaged file; it also keeps every derived quantity (areas, volumes, voxel indices,
+#: squared distances) far from floating-point overflow.
+MAX_LENGTH_NM = 1e9
+#: Smallest extent (nm) of a domain read from a file along any axis (a radius: half of it):
+#: a thousandth of a nanometre, far below any sheet, so a smaller one is a damaged value.
+MIN_EXTENT_NM = 1e-3
+
 
 @dataclass(frozen=True)
 class Sphere:
@@ -174,7 +183,9 @@ def domain_from_dict(d, *, scale: float = 1.0, path=None, line=None) -> Domain:
                 bad('a sphere needs "center": [x, y, z] and "radius": r')
             if extra:
                 bad(f"unknown key(s) {sorted(extra)} for a sphere (expected center, radius)")
-            return Sphere(tuple(float(v) * scale for v in d["center"]), float(d["radius"]) * scale)
+            dom = Sphere(tuple(float(v) * scale for v in d["center"]), float(d["radius"]) * scale)
+            _check_magnitude(np.append(dom.center, dom.radius), bad, dom)
+            return dom
         if shape == "box":
             extra = set(d) - {"shape", "min", "max", "periodic"}
             if "min" not in d or "max" not in d:
@@ -184,11 +195,28 @@ def domain_from_dict(d, *, scale: float = 1.0, path=None, line=None) -> Domain:
             periodic = d.get("periodic", False)
             if not isinstance(periodic, bool):
                 bad('"periodic" must be true or false')
-            return Box(tuple(float(v) * scale for v in d["min"]),
-                       tuple(float(v) * scale for v in d["max"]), periodic)
+            dom = Box(tuple(float(v) * scale for v in d["min"]),
+                      tuple(float(v) * scale for v in d["max"]), periodic)
+            _check_magnitude(np.append(dom.min, dom.max), bad, dom)
+            return dom
+    except OverflowError:
+        bad(f"a number of the {shape} is too large")
     except (TypeError, ValueError) as e:
-        bad(str(e) if isinstance(e, ValueError) and "must" in str(e) else f"malformed {shape}: {e}")
-    bad(f'"shape" must be "sphere" or "box", not {shape!r}')
+        bad(str(e) if isinstance(e, ValueError) and "must" in str(e)
+            else f"malformed {shape}: {str(e)[:120]}")
+    bad(f'"shape" must be "sphere" or "box", not {str(shape)[:40]!r}')
+
+
+def _check_magnitude(values, bad, dom=None) -> None:
+    big = np.abs(np.asarray(values, dtype=float)).max()
+    if big > MAX_LENGTH_NM:
+        bad(f"lengths must lie within {MAX_LENGTH_NM:g} nm (1 m), found {big:.4g} nm "
+            f"(check the units)")
+    if dom is not None:
+        lo, hi = dom.bounds
+        ext = float(np.min(np.asarray(hi) - np.asarray(lo)))
+        if ext < MIN_EXTENT_NM:
+            bad(f"the domain is {ext:.3g} nm across, less than {MIN_EXTENT_NM:g} nm")
 
 
 def bounding_box(points: np.ndarray, pad: float) -> Box:

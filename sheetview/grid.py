@@ -5,14 +5,16 @@ Indexing is ``labels[i, j, k]`` = x, y, z; voxel ``(i, j, k)`` has its centre at
 """
 from __future__ import annotations
 
+import contextlib
 import math
 import os
+import warnings
 from dataclasses import dataclass, field
 
 import numba
 import numpy as np
 
-from .errors import MemoryLimitError, OptionError
+from .errors import InputError, MemoryLimitError, OptionError, SheetviewError
 
 #: Phase codes shared by every measure and writer.
 OUTSIDE, SOLID, INTERLAYER, GEL = 0, 1, 2, 3
@@ -108,11 +110,11 @@ class PhaseGrid:
 
     def mask(self, phases) -> np.ndarray:
         """Boolean mask of the voxels whose label is one of ``phases`` (codes or names)."""
-        codes = [_phase_code(p, self.names) for p in np.atleast_1d(np.asarray(phases, dtype=object))]
+        codes = [phase_code(p, self.names) for p in np.atleast_1d(np.asarray(phases, dtype=object))]
         return np.isin(self.labels, np.asarray(codes, dtype=np.uint8))
 
 
-def _phase_code(p, names) -> int:
+def phase_code(p, names) -> int:
     """A phase code from a code or a name (``PHASE_ALIASES`` or ``names``)."""
     if isinstance(p, (int, np.integer)) and not isinstance(p, bool):
         if not 0 <= int(p) <= 255:
@@ -132,10 +134,20 @@ def _phase_code(p, names) -> int:
 # ============================================================== rasterization
 #: Smallest voxel edge accepted (nm).
 MIN_VOXEL_NM = 0.01
-#: Bytes per voxel assumed by the memory estimate: the uint8 labels (1 byte) plus the
-#: working arrays of the grid measures that follow (a float32 distance or size map,
-#: 4 bytes, and a boolean phase mask, 1 byte).
-BYTES_PER_VOXEL = 6
+#: Memory estimate of a phase grid with the grid measures that follow it (the default set
+#: of ``measure``: phases, surface, pores, chords, correlation), calibrated against the peak
+#: resident memory they add, measured with benchmarks/calibrate_grid_memory.py (results in
+#: docs/reliability.md): ``GRID_BASE_BYTES + BYTES_PER_VOXEL * n +
+#: BYTES_PER_BLOCK_VOXEL * min(n, CORRELATION_BLOCK_VOXELS)`` for ``n`` voxels. The
+#: measured peak grows by about 19.5 bytes per voxel on large grids (the labels, the split
+#: grid, the float32 local-thickness map, masks); the two-point correlation adds about 95
+#: bytes per voxel of its central block (at most 160**3 voxels, the pipeline's ``s2_block``
+#: default; up to 107 measured in a spherical domain). The constants lie 10 to 20 % above
+#: those slopes; the old estimate, 6 bytes per voxel, was exceeded up to 19-fold.
+BYTES_PER_VOXEL = 22
+BYTES_PER_BLOCK_VOXEL = 128
+CORRELATION_BLOCK_VOXELS = 160 ** 3
+GRID_BASE_BYTES = 8 * 2 ** 20
 #: Extra bytes per voxel when a solid fraction is requested (the float32 array).
 BYTES_PER_VOXEL_FRACTION = 4
 #: Largest working buffer (bytes) used for the sub-point slabs of the supersampling.
@@ -200,7 +212,7 @@ def fit_default_voxel(dom, v: float, max_memory=None, *, fraction=False) -> tupl
     half the available memory), with a note saying so; :class:`MemoryLimitError` when even
     that does not fit."""
     shape = grid_geometry(dom, v)[0]
-    need = estimate_grid_bytes(int(np.prod(shape, dtype=np.int64)), fraction=fraction)
+    need = estimate_grid_bytes(n_voxels(shape), fraction=fraction)
     limit = available_memory() // 2 if max_memory is None else int(max_memory)
     if need <= limit:
         return v, None
@@ -213,10 +225,16 @@ def fit_default_voxel(dom, v: float, max_memory=None, *, fraction=False) -> tupl
 
 
 def _voxel_that_fits(dom, v, need, limit, fraction):
-    fit = v * (need / max(limit, 1)) ** (1.0 / 3.0) * 1.01
+    base = estimate_grid_bytes(1, fraction=fraction)
+    if base > limit:
+        raise MemoryLimitError(
+            f"no voxel size would fit the memory limit of {_gib(limit)}: the grid measures "
+            f"need {_gib(base)} at the least, before any voxel; raise --max-memory")
+    fit = v * (need / max(limit - base + 1, 1)) ** (1.0 / 3.0) * 1.01
     fit = float(f"{fit:.3g}") if fit >= v else v
-    while estimate_grid_bytes(int(np.prod(grid_geometry(dom, fit)[0], dtype=np.int64)),
-                              fraction=fraction) > limit:
+    for _ in range(10000):
+        if estimate_grid_bytes(n_voxels(grid_geometry(dom, fit)[0]), fraction=fraction) <= limit:
+            break
         fit = float(f"{fit * 1.05:.3g}")
     return fit
 
@@ -238,25 +256,79 @@ def grid_geometry(domain, voxel_size: float) -> tuple[tuple, tuple, tuple]:
         spacing = (v, v, v)
         origin = tuple(float(x) for x in c - 0.5 * n * v)
     else:
-        n = np.maximum(1, np.rint(ext / v)).astype(np.int64)
-        shape = tuple(int(x) for x in n)
-        spacing = tuple(float(x) for x in ext / n)
+        # Python integers: exact for any extent (numpy's int64 would wrap)
+        shape = tuple(max(1, int(round(float(e) / v))) for e in ext)
+        spacing = tuple(float(e) / n for e, n in zip(ext, shape))
         origin = tuple(float(x) for x in lo)
     return shape, spacing, origin
 
 
+def n_voxels(shape) -> int:
+    """The number of voxels of ``shape``, as an exact Python integer (never wraps)."""
+    return math.prod(int(s) for s in shape)
+
+
 def available_memory() -> int:
-    """Bytes of physical memory currently available (``SC_AVPHYS_PAGES``)."""
+    """Bytes of memory available to a new allocation now: Linux ``MemAvailable`` (free
+    memory plus what the kernel can reclaim), else free physical pages, else 8 GiB."""
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
     try:
         return int(os.sysconf("SC_AVPHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
     except (ValueError, OSError, AttributeError):  # pragma: no cover - non-POSIX
         return 8 * 2 ** 30
 
 
+def physical_memory() -> int | None:
+    """Bytes of physical memory of the machine, or None when unknown."""
+    try:
+        return int(os.sysconf("SC_PHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - non-POSIX
+        return None
+
+
 def estimate_grid_bytes(n_voxels: int, *, fraction: bool = False) -> int:
-    """Bytes a grid of ``n_voxels`` needs with the working arrays of later measures."""
+    """Peak bytes of a phase grid of ``n_voxels`` with the working arrays of the grid
+    measures that follow (see :data:`BYTES_PER_VOXEL`; plus
+    :data:`BYTES_PER_VOXEL_FRACTION` per voxel with a solid fraction); exact integer
+    arithmetic, so no voxel count wraps."""
+    n = int(n_voxels)
     per = BYTES_PER_VOXEL + (BYTES_PER_VOXEL_FRACTION if fraction else 0)
-    return int(n_voxels) * per
+    return GRID_BASE_BYTES + n * per + min(n, CORRELATION_BLOCK_VOXELS) * BYTES_PER_BLOCK_VOXEL
+
+
+class MemoryLimitWarning(UserWarning):
+    """A memory limit was given that the machine cannot honour."""
+
+
+def check_max_memory(max_memory) -> str | None:
+    """A warning (also issued as a :class:`MemoryLimitWarning`) when ``max_memory`` exceeds
+    the machine's physical memory: the guard then allows grids that cannot fit."""
+    if max_memory is None:
+        return None
+    phys = physical_memory()
+    if phys is None or int(max_memory) <= phys:
+        return None
+    msg = (f"--max-memory {_gib(max_memory)} is more than this machine's physical memory "
+           f"({_gib(phys)}); a grid allowed by it may not fit")
+    warnings.warn(msg, MemoryLimitWarning, stacklevel=3)
+    return msg
+
+
+def _gib(n) -> str:
+    """Bytes for a message: MiB, GiB, TiB, PiB or EiB (any size, no overflow)."""
+    n = int(n)
+    if n < 2**30:
+        return f"{n / 2**20:.3g} MiB"
+    for unit, shift in (("GiB", 30), ("TiB", 40), ("PiB", 50)):
+        if n < 2 ** (shift + 10):
+            return f"{n / 2**shift:.2f} {unit}"
+    return f"{n / 2**60:.3g} EiB"
 
 
 def _prism_coefficients(structure):
@@ -288,10 +360,94 @@ def _prism_coefficients(structure):
     lo = v.min(axis=1) - off
     hi = v.max(axis=1) + off
     axis = np.argmax(np.abs(nrm), axis=1).astype(np.int64)
+    unit = np.abs(np.einsum("ij,ij->i", nrm, nrm) - 1.0) < 1e-9  # not an overflowed cross
+    fin = (unit & np.isfinite(d0) & np.all(np.isfinite(G.reshape(len(G), 9)), axis=1)
+           & np.all(np.isfinite(C), axis=1) & np.all(np.isfinite(lo), axis=1)
+           & np.all(np.isfinite(hi), axis=1))
+    if not fin.all():  # overflow in the coefficients: skipped like non-finite prisms
+        nrm, d0, half, G, C, lo, hi, axis, keep = (
+            np.ascontiguousarray(a[fin]) for a in (nrm, d0, half, G, C, lo, hi, axis, keep))
     return nrm, d0, half, G, np.ascontiguousarray(C), lo, hi, axis, keep
 
 
-@numba.njit(cache=True, parallel=True)
+# ------------------------------------------------------------------ kernel safety
+#: Index range a periodic kernel may walk (far beyond any grid that fits in memory; keeps
+#: every index computation inside int64).
+_PERIODIC_INDEX_LIMIT = 2 ** 50
+_KERNEL_CHECKS = [os.environ.get("SHEETVIEW_KERNEL_CHECKS", "") not in ("", "0")]
+
+
+def kernel_checks_enabled() -> bool:
+    """Whether the rasterization kernels run in their bounds-checked debug build."""
+    return _KERNEL_CHECKS[0]
+
+
+@contextlib.contextmanager
+def kernel_checks(enabled: bool = True):
+    """Run the rasterization kernels in a debug build that checks every array index
+    (numba ``boundscheck``: an index outside its array raises ``IndexError`` instead of
+    writing outside it), e.g. ``with kernel_checks(): rasterize(s)``. Also switched on for
+    the whole process by the environment variable ``SHEETVIEW_KERNEL_CHECKS=1``. The debug
+    build is compiled on first use (not cached) and runs single-threaded."""
+    old = _KERNEL_CHECKS[0]
+    _KERNEL_CHECKS[0] = bool(enabled)
+    try:
+        yield
+    finally:
+        _KERNEL_CHECKS[0] = old
+
+
+def _kernel(parallel: bool = False):
+    """A numba kernel in two builds: the fast one (cached, parallel where asked) and a
+    bounds-checked one (:func:`kernel_checks`); calls go to the build switched on."""
+    def wrap(fn):
+        fast = numba.njit(cache=True, parallel=parallel, error_model="numpy")(fn)
+        checked = []
+
+        def call(*args):
+            if not _KERNEL_CHECKS[0]:
+                return fast(*args)
+            if not checked:
+                checked.append(numba.njit(cache=False, boundscheck=True,
+                                          error_model="numpy")(fn))
+            return checked[0](*args)
+
+        call.__name__ = fn.__name__
+        call.__doc__ = fn.__doc__
+        call.py_func = fn
+        call.fast = fast
+        return call
+    return wrap
+
+
+@numba.njit(cache=True)
+def _first(x, lo, hi):
+    """``int(x)`` for a lower index bound ``x`` (a whole float), clamped to ``[lo, hi + 1]``
+    before the conversion (``hi + 1``: nothing to visit; NaN too). No float to int
+    conversion ever sees a value outside the int64 range."""
+    if x != x:
+        return hi + 1
+    if x <= lo:
+        return lo
+    if x >= hi + 1:
+        return hi + 1
+    return int(x)
+
+
+@numba.njit(cache=True)
+def _last(x, lo, hi):
+    """``int(x)`` for an upper index bound, clamped to ``[lo - 1, hi]`` (``lo - 1``: nothing
+    to visit; NaN too)."""
+    if x != x:
+        return lo - 1
+    if x >= hi:
+        return hi
+    if x <= lo - 1:
+        return lo - 1
+    return int(x)
+
+
+@_kernel(parallel=True)
 def _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, x0, out,
                  value, keep):
     """Write ``value`` into every voxel of ``out`` whose centre is inside a prism.
@@ -302,16 +458,31 @@ def _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, x0,
     two axes; in each column the interval of the slab and edge constraints (linear in the
     column coordinate) is widened by one voxel each side and every voxel in it is tested
     directly, so the result is the exact centre-inside test.
+
+    Every index range is computed in floating point and clamped to the grid (to
+    :data:`_PERIODIC_INDEX_LIMIT` in a periodic grid, where indices wrap) before it is
+    converted to an integer, so no prism, however large, far or thick, can make the kernel
+    visit an index outside ``out``.
     """
     n_prisms = nrm.shape[0]
     wx1 = x0 + out.shape[0]
+    big = _PERIODIC_INDEX_LIMIT
     for p in numba.prange(n_prisms):
         m = axis[p]
         u = (m + 1) % 3
         w = (m + 2) % 3
+        if periodic:
+            lo0, hi0, lou, hiu, low, hiw, lom, him = -big, big, -big, big, -big, big, -big, big
+        else:
+            lo0, hi0 = 0, full[0] - 1
+            lou, hiu = 0, full[u] - 1
+            low, hiw = 0, full[w] - 1
+            lom, him = 0, full[m] - 1
         # periodic/window early rejection along x
-        ax0 = int(math.ceil((lo[p, 0] - org[0]) / sp[0] - 0.5)) - 1
-        ax1 = int(math.floor((hi[p, 0] - org[0]) / sp[0] - 0.5)) + 1
+        ax0 = _first(math.ceil((lo[p, 0] - org[0]) / sp[0] - 0.5) - 1.0, lo0, hi0)
+        ax1 = _last(math.floor((hi[p, 0] - org[0]) / sp[0] - 0.5) + 1.0, lo0, hi0)
+        if ax0 > ax1:
+            continue
         if periodic:
             if ax1 - ax0 + 1 < full[0]:
                 am = ax0 % full[0]
@@ -325,16 +496,11 @@ def _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, x0,
         else:
             if ax1 < x0 or ax0 > wx1 - 1:
                 continue
-        u0 = int(math.ceil((lo[p, u] - org[u]) / sp[u] - 0.5)) - 1
-        u1 = int(math.floor((hi[p, u] - org[u]) / sp[u] - 0.5)) + 1
-        w0 = int(math.ceil((lo[p, w] - org[w]) / sp[w] - 0.5)) - 1
-        w1 = int(math.floor((hi[p, w] - org[w]) / sp[w] - 0.5)) + 1
-        if not periodic:
-            u0 = max(u0, 0)
-            u1 = min(u1, full[u] - 1)
-            w0 = max(w0, 0)
-            w1 = min(w1, full[w] - 1)
-        else:
+        u0 = _first(math.ceil((lo[p, u] - org[u]) / sp[u] - 0.5) - 1.0, lou, hiu)
+        u1 = _last(math.floor((hi[p, u] - org[u]) / sp[u] - 0.5) + 1.0, lou, hiu)
+        w0 = _first(math.ceil((lo[p, w] - org[w]) / sp[w] - 0.5) - 1.0, low, hiw)
+        w1 = _last(math.floor((hi[p, w] - org[w]) / sp[w] - 0.5) + 1.0, low, hiw)
+        if periodic:
             u1 = min(u1, u0 + full[u] - 1)
             w1 = min(w1, w0 + full[w] - 1)
         n0 = nrm[p, 0]
@@ -364,12 +530,9 @@ def _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, x0,
                         zlo = max(zlo, bound)
                     else:
                         zhi = min(zhi, bound)
-                k0 = int(math.ceil((zlo - org[m]) / sp[m] - 0.5)) - 1
-                k1 = int(math.floor((zhi - org[m]) / sp[m] - 0.5)) + 1
-                if not periodic:
-                    k0 = max(k0, 0)
-                    k1 = min(k1, full[m] - 1)
-                else:
+                k0 = _first(math.ceil((zlo - org[m]) / sp[m] - 0.5) - 1.0, lom, him)
+                k1 = _last(math.floor((zhi - org[m]) / sp[m] - 0.5) + 1.0, lom, him)
+                if periodic:
                     k1 = min(k1, k0 + full[m] - 1)
                 for km in range(k0, k1 + 1):
                     pm = org[m] + (km + 0.5) * sp[m]
@@ -422,37 +585,106 @@ def _fill_domain(labels, domain, spacing, origin) -> bool:
     return labels.size > 0
 
 
-def check_memory(dom, v, shape, max_memory=None, *, fraction=False) -> None:
-    """Raise :class:`MemoryLimitError` when a grid of ``shape`` at voxel ``v`` over ``dom``
-    would need more than ``max_memory`` bytes (default half the available memory); the
-    message names a voxel size that fits."""
-    nvox = int(np.prod(shape, dtype=np.int64))
+def check_memory(dom, v, shape, max_memory=None, *, fraction=False, path=None) -> None:
+    """Raise :class:`MemoryLimitError` (naming ``path``, the file) when a grid of ``shape``
+    at voxel ``v`` over ``dom`` would need more than ``max_memory`` bytes (default half the
+    available memory) by :func:`estimate_grid_bytes`; the message names a voxel size that
+    fits. A ``max_memory`` above the machine's memory gets a warning
+    (:func:`check_max_memory`). The arithmetic is exact: no voxel count wraps."""
+    check_max_memory(max_memory)
+    nvox = n_voxels(shape)
     need = estimate_grid_bytes(nvox, fraction=fraction)
     limit = available_memory() // 2 if max_memory is None else int(max_memory)
     if need > limit:
         fit = _voxel_that_fits(dom, v, need, limit, fraction)
+        which = ("--max-memory" if max_memory is not None
+                 else "the default limit, half the available memory (--max-memory)")
         raise MemoryLimitError(
-            f"a grid of {shape[0]} x {shape[1]} x {shape[2]} voxels at {v:g} nm needs about "
-            f"{need / 2**30:.2f} GiB ({BYTES_PER_VOXEL} bytes per voxel with working arrays), "
-            f"over the limit of {limit / 2**30:.2f} GiB; a voxel size of {fit:g} nm would fit",
-            field="voxel_size")
+            f"a phase grid of {shape[0]:,} x {shape[1]:,} x {shape[2]:,} voxels at {v:.4g} nm "
+            f"would need about {_gib(need)} with the working arrays of the grid measures, "
+            f"over {which} of {_gib(limit)}; a voxel size of {fit:.4g} nm would fit "
+            f"(--voxel {fit:.4g})", path=path)
 
 
 def _check_voxel_size(structure, voxel_size):
+    src = getattr(structure, "source", None)
     try:
         v = float(voxel_size)
     except (TypeError, ValueError):
-        raise OptionError(f"voxel size must be a number (nm), not {voxel_size!r}",
-                          field="voxel_size") from None
+        raise OptionError(f"--voxel must be a number of nm, not {str(voxel_size)[:40]!r}",
+                          path=src) from None
     if not math.isfinite(v) or v < MIN_VOXEL_NM:
-        raise OptionError(f"voxel size {voxel_size!r} nm is below the smallest accepted, "
-                          f"{MIN_VOXEL_NM} nm", field="voxel_size")
+        raise OptionError(f"--voxel {v:g} nm is below the smallest accepted voxel, "
+                          f"{MIN_VOXEL_NM} nm", path=src)
     lo, hi = (np.asarray(b, dtype=float) for b in structure.domain.bounds)
     ext = float(np.min(hi - lo))
     if v > ext:
-        raise OptionError(f"voxel size {v:g} nm is larger than the domain's smallest extent "
-                          f"({ext:g} nm)", field="voxel_size")
+        raise OptionError(f"--voxel {v:g} nm is larger than the domain's smallest extent "
+                          f"({ext:.4g} nm)", path=src)
     return v
+
+
+#: The axes' names, for messages.
+_AXES = "xyz"
+
+
+def check_domain_for_grid(domain, source=None) -> None:
+    """Refuse, before any grid is sized, a domain the rasterizer cannot cover: bounds not
+    finite or beyond :data:`~sheetview.domain.MAX_LENGTH_NM`, or an extent below the
+    smallest voxel (:data:`MIN_VOXEL_NM`) along some axis."""
+    from .domain import MAX_LENGTH_NM
+    lo, hi = (np.asarray(b, dtype=float) for b in domain.bounds)
+    if not (np.all(np.isfinite(lo)) and np.all(np.isfinite(hi))):
+        raise InputError("the domain's bounds are not finite numbers", path=source,
+                         field="domain")
+    big = float(max(np.abs(lo).max(), np.abs(hi).max()))
+    if big > MAX_LENGTH_NM:
+        raise InputError(f"the domain reaches {big:.4g} nm from the origin, beyond the "
+                         f"{MAX_LENGTH_NM:g} nm (1 m) a grid can cover (check the units)",
+                         path=source, field="domain")
+    ext = hi - lo
+    a = int(np.argmin(ext))
+    if not ext[a] >= MIN_VOXEL_NM:
+        raise InputError(f"the domain is {ext[a]:.3g} nm across along {_AXES[a]}, less than the "
+                         f"smallest voxel ({MIN_VOXEL_NM} nm): there is nothing to rasterize "
+                         f"(check the domain in the file)", path=source, field="domain")
+
+
+def _check_prisms_for_grid(structure) -> None:
+    """Refuse finite prisms beyond :data:`~sheetview.domain.MAX_LENGTH_NM` (corners or
+    thickness), naming the first row; non-finite ones are skipped by the rasterizer."""
+    from .domain import MAX_LENGTH_NM
+    v = np.asarray(structure.vertices, dtype=np.float64).reshape(len(structure), 9)
+    t = np.asarray(structure.thickness, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        bad = np.any(np.abs(v) > MAX_LENGTH_NM, axis=1) & np.all(np.isfinite(v), axis=1)
+        bad |= np.isfinite(t) & (t > MAX_LENGTH_NM)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise InputError(f"prism row {i + 1}: corners or thickness beyond {MAX_LENGTH_NM:g} nm "
+                         f"(1 m): cannot be rasterized (check the units; {int(bad.sum())} "
+                         f"row(s) affected)", path=structure.source)
+
+
+def _check_grid(shape, spacing, origin, source=None) -> None:
+    """The grid a kernel writes into: positive whole shape, positive finite spacing, finite
+    origin, and voxel indices of the whole grid far inside the int64 range."""
+    sp = np.asarray(spacing, dtype=float)
+    org = np.asarray(origin, dtype=float)
+    ok = (len(shape) == 3 and all(int(n) >= 1 for n in shape) and np.all(np.isfinite(sp))
+          and np.all(sp > 0) and np.all(np.isfinite(org))
+          and all(int(n) < _PERIODIC_INDEX_LIMIT for n in shape))
+    if not ok:
+        raise InputError(f"cannot build a grid of shape {tuple(shape)}, spacing "
+                         f"{tuple(float(x) for x in sp)} nm, origin "
+                         f"{tuple(float(x) for x in org)} nm", path=source)
+
+
+def _with_path(e, source):
+    """``e`` again with the file named when it names none."""
+    if e.path is None and source is not None:
+        return type(e)(e.detail, path=source, line=e.line, field=e.field)
+    return e
 
 
 def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=None,
@@ -486,7 +718,7 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
         sphere wall within partially covered voxels).
     max_memory : int, optional
         Bytes allowed for the grid and the working arrays of later measures
-        (:data:`BYTES_PER_VOXEL` per voxel); default half the available memory.
+        (:func:`estimate_grid_bytes`); default half the available memory.
     out : (nx, ny, nz) uint8 C-contiguous array, optional
         A buffer to fill (reusing memory already touched is much faster than a fresh
         allocation for large grids).
@@ -514,15 +746,22 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
         raise OptionError(f"supersample must be a positive integer, not {supersample!r}",
                           field="supersample")
     dom = structure.domain
+    src = structure.source
+    check_domain_for_grid(dom, src)
+    _check_prisms_for_grid(structure)
     rule = note = None
-    if voxel_size is None:
-        v0 = default_voxel_size(structure)
-        rule = f"min(thickness, repeat - thickness) / 6 = {v0:.4g} nm"
-        v, note = fit_default_voxel(dom, v0, max_memory, fraction=s > 1)
-    else:
-        v = _check_voxel_size(structure, voxel_size)
-    shape, spacing, origin = grid_geometry(dom, v)
-    check_memory(dom, v, shape, max_memory, fraction=s > 1)
+    try:
+        if voxel_size is None:
+            v0 = default_voxel_size(structure)
+            rule = f"min(thickness, repeat - thickness) / 6 = {v0:.4g} nm"
+            v, note = fit_default_voxel(dom, v0, max_memory, fraction=s > 1)
+        else:
+            v = _check_voxel_size(structure, voxel_size)
+        shape, spacing, origin = grid_geometry(dom, v)
+        check_memory(dom, v, shape, max_memory, fraction=s > 1, path=src)
+    except SheetviewError as e:
+        raise _with_path(e, src) from None
+    _check_grid(shape, spacing, origin, src)
     if out is None:
         labels = np.empty(shape, dtype=np.uint8)
     else:
@@ -533,13 +772,14 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
                               f"{shape}", field="out")
     nonempty = _fill_domain(labels, dom, spacing, origin)
     periodic = bool(getattr(dom, "periodic", False))
-    nrm, d0, half, G, C, lo, hi, axis, keep = _prism_coefficients(structure)
+    with np.errstate(all="ignore"):
+        nrm, d0, half, G, C, lo, hi, axis, keep = _prism_coefficients(structure)
     org = np.asarray(origin, dtype=np.float64)
     sp = np.asarray(spacing, dtype=np.float64)
     full = np.asarray(shape, dtype=np.int64)
     if not nonempty:
         raise OptionError("the domain contains no voxel centre at this voxel size "
-                          f"({v:g} nm): the domain is empty", field="voxel_size")
+                          f"({v:g} nm): the domain is empty; use a finer --voxel", path=src)
     _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, 0, labels,
                  np.uint8(SOLID), np.uint8(OUTSIDE))
     frac = None
@@ -590,7 +830,7 @@ def rasterize_fraction(structure, voxel_size=None, *, supersample: int = 4,
 _COLUMN_JITTER = 1e-6 * math.pi
 
 
-@numba.njit(cache=True)
+@_kernel()
 def _column_hits(tri, org, sp, nx, ny, count_only, start, zs):
     """Crossings of the z-parallel voxel columns with the triangles (parity ray casting).
 
@@ -608,10 +848,10 @@ def _column_hits(tri, org, sp, nx, ny, count_only, start, zs):
             continue  # seen edge-on from z: no column crosses it
         xmin = min(x0, min(x1, x2)); xmax = max(x0, max(x1, x2))
         ymin = min(y0, min(y1, y2)); ymax = max(y0, max(y1, y2))
-        i0 = max(0, int(math.ceil((xmin - org[0]) / sp[0] - 0.5 - jit)))
-        i1 = min(nx - 1, int(math.floor((xmax - org[0]) / sp[0] - 0.5 - jit)))
-        j0 = max(0, int(math.ceil((ymin - org[1]) / sp[1] - 0.5 - jit)))
-        j1 = min(ny - 1, int(math.floor((ymax - org[1]) / sp[1] - 0.5 - jit)))
+        i0 = _first(math.ceil((xmin - org[0]) / sp[0] - 0.5 - jit), 0, nx - 1)
+        i1 = _last(math.floor((xmax - org[0]) / sp[0] - 0.5 - jit), 0, nx - 1)
+        j0 = _first(math.ceil((ymin - org[1]) / sp[1] - 0.5 - jit), 0, ny - 1)
+        j1 = _last(math.floor((ymax - org[1]) / sp[1] - 0.5 - jit), 0, ny - 1)
         for i in range(i0, i1 + 1):
             x = org[0] + (i + 0.5 + jit) * sp[0]
             for j in range(j0, j1 + 1):
@@ -630,7 +870,7 @@ def _column_hits(tri, org, sp, nx, ny, count_only, start, zs):
                     start[c] += 1
 
 
-@numba.njit(cache=True)
+@_kernel()
 def _fill_columns(labels, start, zs, org2, sp2, code, keep):
     """Mark voxels between successive pairs of sorted crossings of each column."""
     nx, ny, nz = labels.shape
@@ -643,8 +883,8 @@ def _fill_columns(labels, start, zs, org2, sp2, code, keep):
                 continue
             z = np.sort(zs[a:b])
             for p in range(0, b - a - 1, 2):
-                k0 = max(0, int(math.ceil((z[p] - org2) / sp2 - 0.5)))
-                k1 = min(nz - 1, int(math.floor((z[p + 1] - org2) / sp2 - 0.5)))
+                k0 = _first(math.ceil((z[p] - org2) / sp2 - 0.5), 0, nz - 1)
+                k1 = _last(math.floor((z[p + 1] - org2) / sp2 - 0.5), 0, nz - 1)
                 for k in range(k0, k1 + 1):
                     if labels[i, j, k] == keep:
                         labels[i, j, k] = code
@@ -661,25 +901,44 @@ def rasterize_body(body, voxel_size=None, *, max_memory=None) -> PhaseGrid:
     :func:`default_body_voxel_size` (from the body's own mean chords), coarsened to fit the
     memory limit if need be (said in the grid's metadata, ``voxel_default``).
     """
+    from .domain import MAX_LENGTH_NM
     dom = body.domain
+    src = body.source
+    check_domain_for_grid(dom, src)
+    verts = np.asarray(body.vertices, dtype=np.float64)
+    faces = np.asarray(body.faces)
+    if verts.size and not (np.all(np.isfinite(verts)) and np.abs(verts).max() <= MAX_LENGTH_NM):
+        raise InputError(f"the surface's vertices must be finite and within {MAX_LENGTH_NM:g} nm "
+                         f"(1 m): cannot be rasterized", path=src)
+    if faces.size and (faces.min() < 0 or faces.max() >= len(verts)):
+        raise InputError("a face of the surface refers to a vertex that does not exist",
+                         path=src)
     lo, hi = (np.asarray(b, dtype=float) for b in dom.bounds)
     default = None
-    if voxel_size is None:
-        v0, rule = default_body_voxel_size(body)
-        v, note = fit_default_voxel(dom, min(v0, float(np.min(hi - lo))), max_memory)
-        default = {"rule": rule, "note": note}
-    else:
-        v = float(voxel_size)
-        if not math.isfinite(v) or v < MIN_VOXEL_NM or v > float(np.min(hi - lo)):
-            raise OptionError(f"voxel size {voxel_size!r} nm must lie between {MIN_VOXEL_NM} nm "
-                              f"and the domain's smallest extent", field="voxel_size")
-    shape, spacing, origin = grid_geometry(dom, v)
-    check_memory(dom, v, shape, max_memory)
+    try:
+        if voxel_size is None:
+            v0, rule = default_body_voxel_size(body)
+            v, note = fit_default_voxel(dom, min(v0, float(np.min(hi - lo))), max_memory)
+            default = {"rule": rule, "note": note}
+        else:
+            try:
+                v = float(voxel_size)
+            except (TypeError, ValueError):
+                v = float("nan")
+            if not math.isfinite(v) or v < MIN_VOXEL_NM or v > float(np.min(hi - lo)):
+                raise OptionError(f"--voxel {str(voxel_size)[:40]} nm must lie between "
+                                  f"{MIN_VOXEL_NM} nm and the domain's smallest extent "
+                                  f"({float(np.min(hi - lo)):.4g} nm)", path=src)
+        shape, spacing, origin = grid_geometry(dom, v)
+        check_memory(dom, v, shape, max_memory, path=src)
+    except SheetviewError as e:
+        raise _with_path(e, src) from None
+    _check_grid(shape, spacing, origin, src)
     labels = np.empty(shape, dtype=np.uint8)
     if not _fill_domain(labels, dom, spacing, origin):
-        raise OptionError("the domain contains no voxel centre at this voxel size",
-                          field="voxel_size")
-    tri = np.ascontiguousarray(body.vertices[body.faces], dtype=np.float64)
+        raise OptionError("the domain contains no voxel centre at this voxel size; use a finer "
+                          "--voxel", path=src)
+    tri = np.ascontiguousarray(verts[faces], dtype=np.float64)
     org = np.asarray(origin, dtype=np.float64)
     sp = np.asarray(spacing, dtype=np.float64)
     nx, ny = shape[0], shape[1]

@@ -13,7 +13,7 @@ from functools import cached_property
 
 import numpy as np
 
-from .domain import Box, Domain, bounding_box
+from .domain import MAX_LENGTH_NM, Box, Domain, bounding_box
 from .errors import InputError
 
 #: Optional per-prism columns with a meaning sheetview knows, and their dtypes.
@@ -167,21 +167,42 @@ class Structure:
 
     # ---------------------------------------------------------- validation
     def validate(self) -> None:
-        """Raise :class:`InputError` for non-finite values, degenerate triangles or
-        non-positive thickness, naming the first offending prism (1-based row)."""
+        """Raise :class:`InputError` for non-finite or out-of-range values (corners and
+        thickness within :data:`~sheetview.domain.MAX_LENGTH_NM`), degenerate triangles,
+        non-positive thickness or repeat, naming the first offending prism (1-based row)."""
         src = self.source
-        bad = ~np.all(np.isfinite(self.vertices.reshape(len(self), 9)), axis=1)
+        n = len(self)
+        flat = self.vertices.reshape(n, 9)
+        with np.errstate(invalid="ignore"):
+            mag = np.abs(flat).max(axis=1) if n else np.zeros(0)  # NaN where any is NaN
+        out = ~(mag <= MAX_LENGTH_NM)  # one pass for NaN, inf and too large
+        if out.any():
+            bad = ~np.all(np.isfinite(flat), axis=1)
+            if bad.any():
+                i = int(np.flatnonzero(bad)[0])
+                raise InputError(f"prism row {i + 1}: corner coordinates must be finite numbers "
+                                 f"(found NaN or inf; {int(bad.sum())} row(s) affected)",
+                                 path=src)
+            bad = out
+            i = int(np.flatnonzero(bad)[0])
+            big = float(np.abs(flat[i]).max())
+            raise InputError(f"prism row {i + 1}: corner coordinates must lie within "
+                             f"{MAX_LENGTH_NM:g} nm (1 m) of the origin, found {big:.4g} nm "
+                             f"(check the units; {int(bad.sum())} row(s) affected)", path=src)
+        t = self.thickness
+        bad = ~np.isfinite(t) | (t <= 0) | (t > MAX_LENGTH_NM)
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
-            raise InputError(f"prism row {i + 1}: corner coordinates must be finite numbers "
-                             f"(found NaN or inf; {int(bad.sum())} row(s) affected)", path=src)
-        bad = ~np.isfinite(self.thickness) | (self.thickness <= 0)
-        if bad.any():
-            i = int(np.flatnonzero(bad)[0])
-            raise InputError(f"prism row {i + 1}: thickness must be a positive finite number, "
-                             f"got {self.thickness[i]!r} ({int(bad.sum())} row(s) affected)", path=src)
-        scale = self.edge_lengths.max(axis=1) ** 2
-        bad = self.areas <= DEGENERATE_REL_AREA * np.maximum(scale, 1e-300)
+            raise InputError(f"prism row {i + 1}: thickness must be a positive finite number of "
+                             f"at most {MAX_LENGTH_NM:g} nm, got {float(t[i]):.6g} "
+                             f"({int(bad.sum())} row(s) affected)", path=src)
+        if not (np.isfinite(self.spacing) and 0 < self.spacing <= MAX_LENGTH_NM):
+            raise InputError(f"the interlayer repeat (spacing) must be a positive number of at "
+                             f"most {MAX_LENGTH_NM:g} nm, got {self.spacing:.6g}", path=src,
+                             field="spacing")
+        with np.errstate(all="ignore"):
+            scale = self.edge_lengths.max(axis=1) ** 2
+            bad = self.areas <= DEGENERATE_REL_AREA * np.maximum(scale, 1e-300)
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
             raise InputError(f"prism row {i + 1}: degenerate triangle (zero area: corners "

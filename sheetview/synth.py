@@ -35,6 +35,7 @@ import time
 from dataclasses import dataclass, field
 from functools import lru_cache
 
+import numba
 import numpy as np
 from scipy.spatial import cKDTree
 
@@ -421,6 +422,1075 @@ class _CentroidIndex:
         return out
 
 
+# ================================================================== dense filling
+#: Prisms of different stacks whose normals lie within this angle (degrees) of each other
+#: are kept from looking stacked in the fill mode (:func:`_looks_stacked`): the stacking
+#: measure's default tilt limit, so that it finds neither stacked links nor tilted
+#: contacts between different stacks.
+GUARD_ANGLE = 25.0
+#: Least in-plane separation (nm) of the projections of two such prisms closer than 1.5
+#: repeats along their mean normal (above the stacking measure's default edge tolerance).
+GUARD_GAP = 0.1
+#: Failed tries at (or next to) a voxel of the free-space map before it is no longer a site.
+MAX_STRIKES = 4
+#: Default number of proposals (size and orientation drawn from their laws) per site.
+FILL_TRIES = 32
+#: Proposals per site passed from the map's ranking to the exact tests, best first.
+FILL_KEEP = 3
+#: Margin (in voxels) above the clearance that the free-space map must show over the body
+#: of a proposed stack.
+FILL_MARGIN = 0.5
+#: Map tests per proposal in the search for its largest scale that fits the map.
+FIT_STEPS = 10
+#: Exact tests per proposal in the search for its largest scale that passes them.
+PLACE_STEPS = 6
+
+
+def _stack_guard(repeat: float, edge: float) -> float:
+    """Centroid distance beyond which two near-parallel prisms of different stacks cannot
+    look stacked (:func:`_looks_stacked`): ``sqrt((1.5 repeat)^2 + (2 edge / sqrt 3 +
+    GUARD_GAP)^2)``. Closer than 1.5 repeats along their mean normal, they are then more
+    than two circumradii plus :data:`GUARD_GAP` apart across it."""
+    return math.hypot(1.5 * repeat, 2.0 * edge / math.sqrt(3.0) + GUARD_GAP)
+
+
+@numba.njit(cache=True)
+def _axis_gap(a, na, ha, b, nb, hb, u0, u1, u2):
+    """Gap between the projections of two prisms on the axis (u0, u1, u2) (negative when
+    they overlap), in nm; -inf for a null axis."""
+    nrm = math.sqrt(u0 * u0 + u1 * u1 + u2 * u2)
+    if nrm < 1e-12:
+        return -np.inf
+    amin = np.inf
+    amax = -np.inf
+    bmin = np.inf
+    bmax = -np.inf
+    for k in range(3):
+        pa = a[k, 0] * u0 + a[k, 1] * u1 + a[k, 2] * u2
+        pb = b[k, 0] * u0 + b[k, 1] * u1 + b[k, 2] * u2
+        amin = min(amin, pa)
+        amax = max(amax, pa)
+        bmin = min(bmin, pb)
+        bmax = max(bmax, pb)
+    ra = ha * abs(na[0] * u0 + na[1] * u1 + na[2] * u2)
+    rb = hb * abs(nb[0] * u0 + nb[1] * u1 + nb[2] * u2)
+    return max(bmin - rb - amax - ra, amin - ra - bmax - rb) / nrm
+
+
+@numba.njit(cache=True)
+def _separated(a, na, ha, b, nb, hb, clear, ea, eb):
+    """True when some separating axis puts the two prisms at least ``clear`` apart.
+
+    Prism = mid-plane triangle ``a`` (3, 3) extruded by ``ha`` along the unit normal ``na``
+    on both sides. Axes: the five face normals of each prism and the cross products of
+    their edge directions (three triangle edges and the normal each), the candidate axes
+    of the separating axis theorem for convex polyhedra (Gottschalk, Lin & Manocha,
+    SIGGRAPH 1996, doi:10.1145/237170.237244). The gap along any axis is a lower bound of
+    the true distance, so the test never accepts two prisms closer than ``clear``."""
+    for k in range(3):
+        for d in range(3):
+            ea[k, d] = a[(k + 1) % 3, d] - a[k, d]
+            eb[k, d] = b[(k + 1) % 3, d] - b[k, d]
+    for d in range(3):
+        ea[3, d] = na[d]
+        eb[3, d] = nb[d]
+    if _axis_gap(a, na, ha, b, nb, hb, na[0], na[1], na[2]) >= clear:
+        return True
+    if _axis_gap(a, na, ha, b, nb, hb, nb[0], nb[1], nb[2]) >= clear:
+        return True
+    for k in range(3):
+        u0 = ea[k, 1] * na[2] - ea[k, 2] * na[1]
+        u1 = ea[k, 2] * na[0] - ea[k, 0] * na[2]
+        u2 = ea[k, 0] * na[1] - ea[k, 1] * na[0]
+        if _axis_gap(a, na, ha, b, nb, hb, u0, u1, u2) >= clear:
+            return True
+        u0 = eb[k, 1] * nb[2] - eb[k, 2] * nb[1]
+        u1 = eb[k, 2] * nb[0] - eb[k, 0] * nb[2]
+        u2 = eb[k, 0] * nb[1] - eb[k, 1] * nb[0]
+        if _axis_gap(a, na, ha, b, nb, hb, u0, u1, u2) >= clear:
+            return True
+    for i in range(4):
+        for j in range(4):
+            u0 = ea[i, 1] * eb[j, 2] - ea[i, 2] * eb[j, 1]
+            u1 = ea[i, 2] * eb[j, 0] - ea[i, 0] * eb[j, 2]
+            u2 = ea[i, 0] * eb[j, 1] - ea[i, 1] * eb[j, 0]
+            if _axis_gap(a, na, ha, b, nb, hb, u0, u1, u2) >= clear:
+                return True
+    return False
+
+
+@numba.njit(cache=True)
+def _looks_stacked(a, na, b, nb, repeat, margin):
+    """Whether two near-parallel prisms (mid-plane triangles ``a``, ``b`` relative to the
+    first centroid, unit normals ``na``, ``nb``) could be linked by the stacking measure:
+    closer than 1.5 repeats along their mean normal ``m`` (any gap tolerance it accepts
+    is below half the repeat) and, projected on the plane normal to ``m``, closer than
+    ``margin`` (2D separating axes over the six edge normals), so that their projections
+    could overlap or share an edge."""
+    s = 1.0 if na[0] * nb[0] + na[1] * nb[1] + na[2] * nb[2] >= 0.0 else -1.0
+    m0 = na[0] + s * nb[0]
+    m1 = na[1] + s * nb[1]
+    m2 = na[2] + s * nb[2]
+    mn = math.sqrt(m0 * m0 + m1 * m1 + m2 * m2)
+    m0 /= mn
+    m1 /= mn
+    m2 /= mn
+    ca0 = (a[0, 0] + a[1, 0] + a[2, 0]) / 3.0
+    ca1 = (a[0, 1] + a[1, 1] + a[2, 1]) / 3.0
+    ca2 = (a[0, 2] + a[1, 2] + a[2, 2]) / 3.0
+    cb0 = (b[0, 0] + b[1, 0] + b[2, 0]) / 3.0
+    cb1 = (b[0, 1] + b[1, 1] + b[2, 1]) / 3.0
+    cb2 = (b[0, 2] + b[1, 2] + b[2, 2]) / 3.0
+    if abs((cb0 - ca0) * m0 + (cb1 - ca1) * m1 + (cb2 - ca2) * m2) >= 1.5 * repeat:
+        return False
+    # in-plane basis (u, v) of the plane normal to m
+    if abs(m0) < 0.9:
+        u0, u1, u2 = 0.0, -m2, m1
+    else:
+        u0, u1, u2 = m2, 0.0, -m0
+    un = math.sqrt(u0 * u0 + u1 * u1 + u2 * u2)
+    u0 /= un
+    u1 /= un
+    u2 /= un
+    v0 = m1 * u2 - m2 * u1
+    v1 = m2 * u0 - m0 * u2
+    v2 = m0 * u1 - m1 * u0
+    px = np.empty((2, 3))
+    py = np.empty((2, 3))
+    for q in range(3):
+        px[0, q] = a[q, 0] * u0 + a[q, 1] * u1 + a[q, 2] * u2
+        py[0, q] = a[q, 0] * v0 + a[q, 1] * v1 + a[q, 2] * v2
+        px[1, q] = b[q, 0] * u0 + b[q, 1] * u1 + b[q, 2] * u2
+        py[1, q] = b[q, 0] * v0 + b[q, 1] * v1 + b[q, 2] * v2
+    for t in range(2):
+        for q in range(3):
+            ex = px[t, (q + 1) % 3] - px[t, q]
+            ey = py[t, (q + 1) % 3] - py[t, q]
+            nx = -ey
+            ny = ex
+            nn = math.sqrt(nx * nx + ny * ny)
+            if nn < 1e-12:
+                continue
+            amin = np.inf
+            amax = -np.inf
+            bmin = np.inf
+            bmax = -np.inf
+            for r in range(3):
+                pa = px[0, r] * nx + py[0, r] * ny
+                pb = px[1, r] * nx + py[1, r] * ny
+                amin = min(amin, pa)
+                amax = max(amax, pa)
+                bmin = min(bmin, pb)
+                bmax = max(bmax, pb)
+            if max(bmin - amax, amin - bmax) / nn >= margin:
+                return False
+    return True
+
+
+@numba.njit(cache=True)
+def _cell_of(x, lo, cs, ncell, periodic):
+    c = 0
+    for d in range(3):
+        i = int(math.floor((x[d] - lo[d]) / cs[d]))
+        if periodic:
+            i %= ncell[d]
+        else:
+            i = min(max(i, 0), ncell[d] - 1)
+        c = c * ncell[d] + i
+    return c
+
+
+@numba.njit(cache=True)
+def _build_one(V, N, C, x, nrm, e1, e2, k, n, tilt, uv, minu, edge, repeat, cos_a, sin_a):
+    """The prisms of one stack into V, N, C (rows 0..P-1, P returned), exactly as
+    :func:`_build` makes them."""
+    p = 0
+    u0 = -minu[k - 1] * edge
+    for layer in range(n + (1 if tilt else 0)):
+        tilted = layer == n
+        hgt = (layer - 0.5 * (n - 1)) * repeat
+        for t in range(k):
+            for q in range(3):
+                u = uv[t, q, 0] * edge
+                v = uv[t, q, 1] * edge
+                w = 0.0
+                if tilted:
+                    uu = u + u0
+                    u = -u0 + uu * cos_a
+                    w = uu * sin_a
+                w += hgt
+                for d in range(3):
+                    V[p, q, d] = x[d] + u * e1[d] + v * e2[d] + w * nrm[d]
+            for d in range(3):
+                N[p, d] = cos_a * nrm[d] - sin_a * e1[d] if tilted else nrm[d]
+                C[p, d] = (V[p, 0, d] + V[p, 1, d] + V[p, 2, d]) / 3.0
+            p += 1
+    return p
+
+
+@numba.njit(cache=True)
+def _inside_one(V, N, P, half, sphere, dc, dr, dlo, dhi):
+    """Every corner of prisms 0..P-1 (mid-plane corners +- half the thickness along the
+    normal) at least 1e-9 nm inside the sphere (centre dc, radius dr) or box (dlo, dhi)."""
+    for p in range(P):
+        for q in range(3):
+            for sgn in (-1.0, 1.0):
+                if sphere:
+                    r2 = 0.0
+                    for d in range(3):
+                        z = V[p, q, d] + sgn * half * N[p, d] - dc[d]
+                        r2 += z * z
+                    if math.sqrt(r2) > dr - 1e-9:
+                        return False
+                else:
+                    for d in range(3):
+                        z = V[p, q, d] + sgn * half * N[p, d]
+                        if z < dlo[d] + 1e-9 or z > dhi[d] - 1e-9:
+                            return False
+    return True
+
+
+@numba.njit(cache=True)
+def _conflict(V, N, C, P, half, SV, SN, SC, SH, nxt, head, count0, lo, cs, ncell, L,
+              periodic, clear, ball2, guard2, cos_guard, repeat, a, b, ea, eb, dv):
+    """0 when prisms 0..P-1 keep clear of every stored prism, else 1 (a conflict with a
+    prism stored before index ``count0``) or 2 (only with later ones).
+
+    Centroids closer than ``sqrt(ball2)`` must be separated by ``clear``
+    (:func:`_separated`); near-parallel prisms (``|n.n'| >= cos_guard``) with centroids
+    closer than ``sqrt(guard2)`` (:func:`_stack_guard`) must not look stacked
+    (:func:`_looks_stacked`), so that the stacking measure cannot join two stacks."""
+    for p in range(P):
+        ci0 = int(math.floor((C[p, 0] - lo[0]) / cs[0]))
+        ci1 = int(math.floor((C[p, 1] - lo[1]) / cs[1]))
+        ci2 = int(math.floor((C[p, 2] - lo[2]) / cs[2]))
+        if periodic:
+            ci0 %= ncell[0]
+            ci1 %= ncell[1]
+            ci2 %= ncell[2]
+        else:
+            ci0 = min(max(ci0, 0), ncell[0] - 1)
+            ci1 = min(max(ci1, 0), ncell[1] - 1)
+            ci2 = min(max(ci2, 0), ncell[2] - 1)
+        l0 = 0 if (periodic and ncell[0] < 3) else 1
+        l1 = 0 if (periodic and ncell[1] < 3) else 1
+        l2 = 0 if (periodic and ncell[2] < 3) else 1
+        for ox in range(-l0, l0 + 1):
+            jx = ci0 + ox
+            if periodic:
+                jx %= ncell[0]
+            elif jx < 0 or jx >= ncell[0]:
+                continue
+            for oy in range(-l1, l1 + 1):
+                jy = ci1 + oy
+                if periodic:
+                    jy %= ncell[1]
+                elif jy < 0 or jy >= ncell[1]:
+                    continue
+                for oz in range(-l2, l2 + 1):
+                    jz = ci2 + oz
+                    if periodic:
+                        jz %= ncell[2]
+                    elif jz < 0 or jz >= ncell[2]:
+                        continue
+                    j = head[(jx * ncell[1] + jy) * ncell[2] + jz]
+                    while j >= 0:
+                        d2 = 0.0
+                        for d in range(3):
+                            dk = SC[j, d] - C[p, d]
+                            if periodic:
+                                dk -= L[d] * np.round(dk / L[d])
+                            dv[d] = dk
+                            d2 += dk * dk
+                        if d2 >= guard2 and d2 >= ball2:
+                            j = nxt[j]
+                            continue
+                        for q in range(3):
+                            for d in range(3):
+                                a[q, d] = V[p, q, d] - C[p, d]
+                                b[q, d] = SV[j, q, d] - SC[j, d] + dv[d]
+                        bad = False
+                        if d2 < guard2:
+                            cn = abs(N[p, 0] * SN[j, 0] + N[p, 1] * SN[j, 1] + N[p, 2] * SN[j, 2])
+                            bad = cn >= cos_guard and _looks_stacked(a, N[p], b, SN[j], repeat,
+                                                                     GUARD_GAP)
+                        if not bad and d2 < ball2:
+                            bad = not _separated(a, N[p], half, b, SN[j], SH[j], clear, ea, eb)
+                        if bad:
+                            return 1 if j < count0 else 2
+                        j = nxt[j]
+    return 0
+
+
+@numba.njit(cache=True)
+def _place_fit(centre, nrm, e1, e2, n0, lat0, tilt, s_map, keep, tpl_dist, uv, minu, edge,
+               repeat, thickness, cos_a, sin_a, vol0, vol_target, max_new, SV, SN, SC, SH, nxt,
+               head, count0, lo, cs, ncell, L, periodic, sphere, dc, dr, dlo, dhi, clear, ball2,
+               guard2, cos_guard, steps, maxp):
+    """Place one stack per site, site by site in order, from the site's ``keep`` proposals
+    (rows ``site * keep + r``, best first; ``s_map`` < 0 marks none): the first proposal
+    that fits is kept, at the largest scale that passes the exact tests (inside the
+    domain, :func:`_conflict`), searched by bisection below the map's estimate ``s_map``
+    (at most ``steps`` tests, then the smallest stack). A kept stack's prisms join the cell
+    list at once. Stops once the C-S-H volume reaches ``vol_target`` or ``max_new`` stacks
+    are kept.
+
+    Returns (per site: state 1 kept, 0 not tried, -1 nothing fits because of a stack
+    placed before this call, -2 only because of one placed in this call, -3 nothing fits
+    inside the domain; the proposal kept (0..keep-1); its layers, triangles per layer and
+    scale; then the prisms stored and the volume)."""
+    M = centre.shape[0] // keep
+    state = np.zeros(M, np.int8)
+    r_out = np.zeros(M, np.int64)
+    n_out = np.zeros(M, np.int64)
+    k_out = np.zeros(M, np.int64)
+    s_out = np.zeros(M)
+    V = np.empty((maxp, 3, 3))
+    N = np.empty((maxp, 3))
+    C = np.empty((maxp, 3))
+    a = np.empty((3, 3))
+    b = np.empty((3, 3))
+    ea = np.empty((4, 3))
+    eb = np.empty((4, 3))
+    dv = np.empty(3)
+    half = 0.5 * thickness
+    area = math.sqrt(3.0) / 4.0 * edge * edge
+    count = count0
+    vol = vol0
+    n_new = 0
+    for m in range(M):
+        if vol >= vol_target or n_new >= max_new:
+            break
+        worst = 0
+        for r in range(keep):
+            q = m * keep + r
+            if s_map[q] < 0.0:
+                continue
+            best = -1.0
+            lo_s = 0.0
+            hi_s = s_map[q]
+            s = hi_s
+            code0 = 0
+            tested0 = False
+            for step in range(steps + 1):
+                if step == steps:
+                    if best >= 0.0 or tested0:
+                        break
+                    s = 0.0
+                n = 1 + int(math.floor(s * (n0[q] - 1) + 0.5))
+                kk = max(1, np.searchsorted(tpl_dist, 0.5 * s * lat0[q] / edge + 1e-9,
+                                            side="right"))
+                P = _build_one(V, N, C, centre[q], nrm[q], e1[q], e2[q], kk, n, tilt[q], uv,
+                               minu, edge, repeat, cos_a, sin_a)
+                if not _inside_one(V, N, P, half, sphere, dc, dr, dlo, dhi):
+                    code = 3
+                else:
+                    code = _conflict(V, N, C, P, half, SV, SN, SC, SH, nxt, head, count0, lo,
+                                     cs, ncell, L, periodic, clear, ball2, guard2, cos_guard,
+                                     repeat, a, b, ea, eb, dv)
+                if s == 0.0:
+                    tested0 = True
+                    code0 = code
+                if code == 0:
+                    best = s
+                    lo_s = s
+                    if step == 0:
+                        break
+                else:
+                    hi_s = s
+                    if s == 0.0:
+                        break
+                s = 0.5 * (lo_s + hi_s)
+                if hi_s - lo_s < 1e-3 and best >= 0.0:
+                    break
+            if best < 0.0:
+                # remember the most lasting reason: outside or an older stack beat a newer one
+                c = 3 if code0 == 3 else (1 if code0 == 1 else 2)
+                if worst == 0 or c != 2:
+                    worst = c
+                continue
+            n = 1 + int(math.floor(best * (n0[q] - 1) + 0.5))
+            kk = max(1, np.searchsorted(tpl_dist, 0.5 * best * lat0[q] / edge + 1e-9,
+                                        side="right"))
+            P = _build_one(V, N, C, centre[q], nrm[q], e1[q], e2[q], kk, n, tilt[q], uv, minu,
+                           edge, repeat, cos_a, sin_a)
+            for p in range(P):
+                SV[count] = V[p]
+                SN[count] = N[p]
+                SC[count] = C[p]
+                SH[count] = half
+                cell = _cell_of(C[p], lo, cs, ncell, periodic)
+                nxt[count] = head[cell]
+                head[cell] = count
+                count += 1
+            vol += area * kk * (n * thickness + (n - 1) * (repeat - thickness)
+                                + (thickness if tilt[q] else 0.0))
+            state[m] = 1
+            r_out[m] = r
+            n_out[m] = n
+            k_out[m] = kk
+            s_out[m] = best
+            n_new += 1
+            break
+        if state[m] == 0 and worst != 0:
+            state[m] = -3 if worst == 3 else (-1 if worst == 1 else -2)
+    return state, r_out, n_out, k_out, s_out, count, vol
+
+
+@lru_cache(maxsize=8)
+def _rank_table(reach: int):
+    """Rank of each lattice triangle in the template ``_template(reach)`` (its position in
+    the order of centroid distance; a large number for triangles outside the template),
+    indexed ``[i + off, j + off, down]`` for the triangle of lattice cell (i, j) (``down``
+    0 for the triangle (i, j), (i+1, j), (i, j+1), 1 for the other). A point of a patch of
+    ``k`` triangles is inside it when the rank of its triangle is below ``k``."""
+    tpl = _template(reach)
+    c = tpl.uv.mean(axis=1)
+    beta = c[:, 1] / (math.sqrt(3.0) / 2.0)
+    alpha = c[:, 0] - 0.5 * beta
+    i = np.floor(alpha + 1e-9).astype(np.int64)
+    j = np.floor(beta + 1e-9).astype(np.int64)
+    down = ((alpha - i) + (beta - j) > 1.0).astype(np.int64)
+    off = int(max(np.abs(i).max(), np.abs(j).max())) + 2
+    rank = np.full((2 * off + 1, 2 * off + 1, 2), np.iinfo(np.int64).max, np.int64)
+    rank[i + off, j + off, down] = np.arange(len(c))
+    return rank, off
+
+
+@numba.njit(cache=True)
+def _in_patch(u, v, k, rank, off):
+    """Whether the in-plane point (u, v) (units of the triangle edge, lattice vertex at the
+    origin) lies in the patch of the first ``k`` template triangles."""
+    beta = v / (math.sqrt(3.0) / 2.0)
+    alpha = u - 0.5 * beta
+    fi = math.floor(alpha)
+    fj = math.floor(beta)
+    down = 1 if (alpha - fi) + (beta - fj) > 1.0 else 0
+    i = int(fi) + off
+    j = int(fj) + off
+    if i < 0 or j < 0 or i >= rank.shape[0] or j >= rank.shape[1]:
+        return False
+    return rank[i, j, down] < k
+
+
+@numba.njit(cache=True)
+def _paint(O, g_lo, h, periodic, L, centre, nrm, e1, e2, k, n, tilt, u0, rho, rank, off,
+           edge, repeat, thickness, cos_a, sin_a):
+    """Mark (O = 1) the voxels whose centres lie in the C-S-H body of each stack: its
+    patch extruded over its untilted layers and the interlayer gaps between them
+    (|height| <= (n - 1) repeat / 2 + thickness / 2), and a tilt-defect layer's patch
+    extruded by its thickness in the layer's own frame (hinge as in :func:`_build`)."""
+    shape = O.shape
+    for s in range(centre.shape[0]):
+        c0 = centre[s, 0]
+        c1 = centre[s, 1]
+        c2 = centre[s, 2]
+        Hb = 0.5 * (n[s] - 1) * repeat + 0.5 * thickness
+        ht = 0.5 * (n[s] + 1) * repeat
+        rr = np.empty((3, 2), np.int64)
+        cc = (c0, c1, c2)
+        for d in range(3):
+            i0 = int(math.floor((cc[d] - rho[s] - g_lo[d]) / h[d]))
+            i1 = int(math.floor((cc[d] + rho[s] - g_lo[d]) / h[d]))
+            if periodic:
+                if i1 - i0 + 1 > shape[d]:
+                    i1 = i0 + shape[d] - 1
+            else:
+                i0 = max(i0, 0)
+                i1 = min(i1, shape[d] - 1)
+            rr[d, 0] = i0
+            rr[d, 1] = i1
+        for i in range(rr[0, 0], rr[0, 1] + 1):
+            ii = i % shape[0]
+            dx = g_lo[0] + (ii + 0.5) * h[0] - c0
+            if periodic:
+                dx -= L[0] * np.round(dx / L[0])
+            for j in range(rr[1, 0], rr[1, 1] + 1):
+                jj = j % shape[1]
+                dy = g_lo[1] + (jj + 0.5) * h[1] - c1
+                if periodic:
+                    dy -= L[1] * np.round(dy / L[1])
+                for kk_ in range(rr[2, 0], rr[2, 1] + 1):
+                    kk = kk_ % shape[2]
+                    if O[ii, jj, kk]:
+                        continue
+                    dz = g_lo[2] + (kk + 0.5) * h[2] - c2
+                    if periodic:
+                        dz -= L[2] * np.round(dz / L[2])
+                    t = dx * nrm[s, 0] + dy * nrm[s, 1] + dz * nrm[s, 2]
+                    u = dx * e1[s, 0] + dy * e1[s, 1] + dz * e1[s, 2]
+                    v = dx * e2[s, 0] + dy * e2[s, 1] + dz * e2[s, 2]
+                    if abs(t) <= Hb and _in_patch(u / edge, v / edge, k[s], rank, off):
+                        O[ii, jj, kk] = 1
+                    elif tilt[s]:
+                        # frame of the tilted layer: origin at the hinge
+                        a = u + u0[s]
+                        b = t - ht
+                        s1 = a * cos_a + b * sin_a
+                        w = b * cos_a - a * sin_a
+                        if abs(w) <= 0.5 * thickness and _in_patch((s1 - u0[s]) / edge,
+                                                                   v / edge, k[s], rank, off):
+                            O[ii, jj, kk] = 1
+
+
+@numba.njit(cache=True)
+def _body_clear(E, g_lo, h, periodic, x, nrm, e1, e2, k, n, tilt, u0, R, rank, off, edge,
+                repeat, thickness, cos_a, sin_a, need, delta):
+    """True when every sample point of the C-S-H body of a stack (as painted by
+    :func:`_paint`; in-plane points ``delta`` apart over the patch, levels at most
+    ``delta`` apart) lies on a voxel of the free-space map with ``E >= need``."""
+    nx, ny, nz = E.shape
+    Hb = 0.5 * (n - 1) * repeat + 0.5 * thickness
+    ht = 0.5 * (n + 1) * repeat
+    nlev = max(2, int(math.ceil(2.0 * Hb / delta)) + 1)
+    ng = int(math.ceil(R / delta))
+    for iu in range(-ng, ng + 1):
+        u = iu * delta
+        for iv in range(-ng, ng + 1):
+            v = iv * delta
+            if not _in_patch(u / edge, v / edge, k, rank, off):
+                continue
+            nl = nlev
+            if tilt:
+                nl += 3
+            for il in range(nl):
+                if il < nlev:
+                    z = -Hb + 2.0 * Hb * il / (nlev - 1)
+                    px = x[0] + z * nrm[0] + u * e1[0] + v * e2[0]
+                    py = x[1] + z * nrm[1] + u * e1[1] + v * e2[1]
+                    pz = x[2] + z * nrm[2] + u * e1[2] + v * e2[2]
+                else:
+                    w = 0.5 * thickness * (il - nlev - 1)
+                    a = u + u0
+                    uu = -u0 + a * cos_a - w * sin_a
+                    zz = ht + a * sin_a + w * cos_a
+                    px = x[0] + zz * nrm[0] + uu * e1[0] + v * e2[0]
+                    py = x[1] + zz * nrm[1] + uu * e1[1] + v * e2[1]
+                    pz = x[2] + zz * nrm[2] + uu * e1[2] + v * e2[2]
+                i = int(math.floor((px - g_lo[0]) / h[0]))
+                j = int(math.floor((py - g_lo[1]) / h[1]))
+                kk = int(math.floor((pz - g_lo[2]) / h[2]))
+                if periodic:
+                    i %= nx
+                    j %= ny
+                    kk %= nz
+                elif i < 0 or j < 0 or kk < 0 or i >= nx or j >= ny or kk >= nz:
+                    return False
+                if E[i, j, kk] < need:
+                    return False
+    return True
+
+
+@numba.njit(cache=True, parallel=True)
+def _fit(E, g_lo, h, periodic, centre, nrm, e1, e2, n0, lat0, tilt, tries, keep, tpl_dist,
+         tpl_maxr, tpl_minu, rank, off, edge, repeat, thickness, cos_a, sin_a, need, delta,
+         steps):
+    """For each site (``tries`` consecutive proposals), the ``keep`` proposals that fit the
+    most C-S-H volume into the free space of the map, best first, and their scales.
+
+    A proposal (``n0`` layers, lateral size ``lat0``) scaled by ``s`` in [0, 1] has
+    ``1 + round(s (n0 - 1))`` layers of lateral size ``s lat0``; the largest ``s`` at which
+    its body clears the map (:func:`_body_clear`) is found by bisection (at most ``steps``
+    tests), skipping scales that could not enter the site's best so far. Returns (indices
+    of the chosen proposals, -1 where fewer fit; their scales), each (sites, keep)."""
+    m_sites = centre.shape[0] // tries
+    best_i = np.full((m_sites, keep), -1, np.int64)
+    best_s = np.full((m_sites, keep), -1.0)
+    area = math.sqrt(3.0) / 4.0 * edge * edge
+    for site in numba.prange(m_sites):
+        top_v = np.full(keep, -1.0)
+        best_v = -1.0       # the volume to beat: the keep-th best so far
+        for q in range(site * tries, (site + 1) * tries):
+            lo_s = -1.0         # largest scale known to fit
+            lo_b = 0.0          # lower end of the bisection
+            hi_s = 1.0
+            s = 1.0
+            for step in range(steps + 1):
+                if step == steps:
+                    # last resort, while the site has nothing: the smallest stack
+                    if lo_s >= 0.0 or best_v >= 0.0:
+                        break
+                    s = 0.0
+                n = 1 + int(math.floor(s * (n0[q] - 1) + 0.5))
+                kk = max(1, np.searchsorted(tpl_dist, 0.5 * s * lat0[q] / edge + 1e-9,
+                                            side="right"))
+                v = area * kk * ((n - 1) * repeat + thickness + (thickness if tilt[q] else 0.0))
+                if v <= best_v:
+                    # cannot beat the site's best proposal: look only at larger scales
+                    if step == 0:
+                        break
+                    lo_b = s
+                else:
+                    u0 = -tpl_minu[kk - 1] * edge
+                    if _body_clear(E, g_lo, h, periodic, centre[q], nrm[q], e1[q], e2[q], kk,
+                                   n, tilt[q], u0, tpl_maxr[kk - 1] * edge, rank, off, edge,
+                                   repeat, thickness, cos_a, sin_a, need, delta):
+                        lo_s = s
+                        lo_b = s
+                        if step == 0:
+                            break
+                    else:
+                        hi_s = s
+                if step == steps:
+                    break
+                s = 0.5 * (lo_b + hi_s)
+            if lo_s >= 0.0:
+                n = 1 + int(math.floor(lo_s * (n0[q] - 1) + 0.5))
+                kk = max(1, np.searchsorted(tpl_dist, 0.5 * lo_s * lat0[q] / edge + 1e-9,
+                                            side="right"))
+                v = area * kk * ((n - 1) * repeat + thickness + (thickness if tilt[q] else 0.0))
+                if v > best_v:
+                    r = keep - 1
+                    while r > 0 and top_v[r - 1] < v:
+                        top_v[r] = top_v[r - 1]
+                        best_i[site, r] = best_i[site, r - 1]
+                        best_s[site, r] = best_s[site, r - 1]
+                        r -= 1
+                    top_v[r] = v
+                    best_i[site, r] = q
+                    best_s[site, r] = lo_s
+                    best_v = top_v[keep - 1]
+    return best_i, best_s
+
+
+@numba.njit(cache=True)
+def _local_maxima(E, strikes, max_strikes, emin, periodic):
+    """Flat indices of the voxels with ``E >= emin`` and fewer than ``max_strikes`` failed
+    tries that no neighbour (26) exceeds."""
+    nx, ny, nz = E.shape
+    out = np.empty(E.size, np.int64)
+    m = 0
+    for i in range(nx):
+        for j in range(ny):
+            for k in range(nz):
+                e = E[i, j, k]
+                if e < emin or strikes[i, j, k] >= max_strikes:
+                    continue
+                top = True
+                for a in range(-1, 2):
+                    ia = i + a
+                    if periodic:
+                        ia %= nx
+                    elif ia < 0 or ia >= nx:
+                        continue
+                    for b in range(-1, 2):
+                        jb = j + b
+                        if periodic:
+                            jb %= ny
+                        elif jb < 0 or jb >= ny:
+                            continue
+                        for c in range(-1, 2):
+                            kc = k + c
+                            if periodic:
+                                kc %= nz
+                            elif kc < 0 or kc >= nz:
+                                continue
+                            if E[ia, jb, kc] > e:
+                                top = False
+                                break
+                        if not top:
+                            break
+                    if not top:
+                        break
+                if top:
+                    out[m] = (i * ny + j) * nz + k
+                    m += 1
+    return out[:m]
+
+
+@numba.njit(cache=True)
+def _spread(pos, rad, lo, cs, ncell, max_keep):
+    """Greedy choice, in the given order, of centres whose balls (radius ``rad``) do not
+    overlap those already chosen (a coarse grid of cells ``cs`` at least twice the largest
+    radius finds the neighbours). Returns the chosen row indices."""
+    n = pos.shape[0]
+    head = -np.ones(ncell[0] * ncell[1] * ncell[2], np.int64)
+    nxt = -np.ones(n, np.int64)
+    keep = np.empty(n, np.int64)
+    m = 0
+    for p in range(n):
+        if m >= max_keep:
+            break
+        ci = np.empty(3, np.int64)
+        for k in range(3):
+            ci[k] = min(max(int(math.floor((pos[p, k] - lo[k]) / cs[k])), 0), ncell[k] - 1)
+        free = True
+        for ox in range(-1, 2):
+            jx = ci[0] + ox
+            if jx < 0 or jx >= ncell[0]:
+                continue
+            for oy in range(-1, 2):
+                jy = ci[1] + oy
+                if jy < 0 or jy >= ncell[1]:
+                    continue
+                for oz in range(-1, 2):
+                    jz = ci[2] + oz
+                    if jz < 0 or jz >= ncell[2]:
+                        continue
+                    q = head[(jx * ncell[1] + jy) * ncell[2] + jz]
+                    while q >= 0:
+                        d2 = 0.0
+                        for k in range(3):
+                            dk = pos[q, k] - pos[p, k]
+                            d2 += dk * dk
+                        r = rad[q] + rad[p]
+                        if d2 < r * r:
+                            free = False
+                            break
+                        q = nxt[q]
+                    if not free:
+                        break
+                if not free:
+                    break
+            if not free:
+                break
+        if free:
+            cell = (ci[0] * ncell[1] + ci[1]) * ncell[2] + ci[2]
+            nxt[p] = head[cell]
+            head[cell] = p
+            keep[m] = p
+            m += 1
+    return keep[:m]
+
+
+class _PrismStore:
+    """Placed prisms in a growing linked cell list (cells at least ``cutoff`` wide)."""
+
+    def __init__(self, domain, cutoff):
+        lo, hi = (np.asarray(b, dtype=float) for b in domain.bounds)
+        self.periodic = bool(getattr(domain, "periodic", False))
+        L = hi - lo
+        n = np.maximum(1, np.floor(L / cutoff)).astype(np.int64)
+        if self.periodic:
+            n = np.where(n < 3, 1, n)
+        self.lo, self.L, self.ncell = lo, L, n
+        self.cs = L / n
+        self.head = -np.ones(int(np.prod(n)), np.int64)
+        self.count = 0
+        self._alloc(4096)
+
+    def _alloc(self, cap):
+        old = getattr(self, "SV", None)
+        SV, SN = np.zeros((cap, 3, 3)), np.zeros((cap, 3))
+        SC, SH = np.zeros((cap, 3)), np.zeros(cap)
+        nxt = -np.ones(cap, np.int64)
+        if old is not None:
+            c = self.count
+            SV[:c], SN[:c], SC[:c], SH[:c], nxt[:c] = (self.SV[:c], self.SN[:c], self.SC[:c],
+                                                       self.SH[:c], self.nxt[:c])
+        self.SV, self.SN, self.SC, self.SH, self.nxt = SV, SN, SC, SH, nxt
+
+    def reserve(self, extra):
+        if self.count + extra > len(self.SH):
+            self._alloc(max(2 * len(self.SH), self.count + extra))
+
+
+def _stack_radius(tpl, k, n, tilt, edge, repeat, thickness, tilt_rad):
+    """Radius of a ball about the stack centre holding the whole stack (corners of the
+    prisms, a tilt-defect layer included): the stack's untilted layers lie in the cylinder
+    of radius R (largest corner radius of the patch) and half-height
+    ``(n - 1) repeat / 2 + thickness / 2``; a tilt-defect layer lies above, below
+    ``(n - 1) repeat / 2 + repeat + 2 R sin(tilt) + thickness / 2``."""
+    R = tpl.max_r[np.asarray(k) - 1] * edge
+    top = 0.5 * (np.asarray(n) - 1) * repeat
+    rho = np.hypot(R, top + 0.5 * thickness)
+    rho_t = np.hypot(R, top + repeat + 2.0 * R * math.sin(tilt_rad) + 0.5 * thickness)
+    return np.where(tilt, np.maximum(rho, rho_t), rho)
+
+
+def _csh_volume(k, n, tilt, edge, repeat, thickness):
+    """C-S-H volume of stacks from their construction: every layer's prisms
+    (``k`` triangles of area sqrt(3)/4 edge^2, thickness ``thickness``) plus the ``n - 1``
+    interlayer gaps (the same area, ``repeat - thickness`` high); a tilt-defect layer adds
+    its prisms only (its wedge is no interlayer)."""
+    area = math.sqrt(3.0) / 4.0 * edge * edge * np.asarray(k, dtype=float)
+    n = np.asarray(n, dtype=float)
+    return area * (n * thickness + (n - 1.0) * (repeat - thickness)
+                   + np.asarray(tilt, dtype=float) * thickness)
+
+
+def _fill_grid(domain, voxel):
+    lo, hi = (np.asarray(b, dtype=float) for b in domain.bounds)
+    L = hi - lo
+    shape = np.maximum(1, np.round(L / voxel)).astype(np.int64)
+    h = L / shape
+    return lo, h, shape
+
+
+def _fill(domain, *, rng, orientation, kappa, fixed_normal, ldist, sdist, edge, repeat,
+          thickness, clearance, tilt_rad, tilt_probability, target, max_stacks, max_attempts,
+          voxel, tries):
+    """The fill mode of :func:`pack_stacks`: stacks into the remaining gaps, with
+    decreasing size, until the C-S-H volume reaches ``target`` of the domain or nothing
+    more fits.
+
+    Method (our own construction; invented demonstration data, no physics):
+
+    1. A *free-space map* on a voxel grid: ``occupied`` holds the C-S-H bodies placed so
+       far (each stack's patch extruded through its layers and interlayer gaps, and its
+       tilt-defect layer; :func:`_paint`); ``E`` is the distance from each voxel centre
+       to the nearest occupied one (Euclidean distance transform), and to the wall plus
+       one clearance (prisms may touch the wall), capped at ``cap`` (the median radius of
+       a drawn stack plus the clearance and one voxel).
+    2. Each round, the *sites* are the local maxima of ``E`` (the centres of the largest
+       free balls), ordered by their free radius (times a random factor in [0.75, 1]),
+       and thinned so that their free balls do not overlap (:func:`_spread`).
+    3. At each site, ``tries`` proposals: layer count, lateral size and tilt defect drawn
+       from their distributions, the centre at a random point of the site's voxel, the
+       normal from the orientation law. Each is *sized to the gap*: scaled by the largest
+       ``s`` in [0, 1] (``1 + round(s (n - 1))`` layers of lateral size ``s D``) at which
+       its body clears the map by the clearance plus half a voxel (:func:`_fit`). The
+       proposals that fit the most C-S-H volume go on, best first.
+    4. The *exact tests* decide (:func:`_place_fit`): every prism inside the domain, and
+       every prism at least the clearance from every prism of another stack (separating
+       axes, :func:`_separated`, on the pairs a cell list of placed prisms finds), and
+       near-parallel prisms of different stacks far enough apart that the stacking measure
+       cannot join them (:func:`_stack_guard`). The largest scale below the map's estimate
+       that passes is searched by bisection; the first proposal of the site that passes is
+       kept and joins the cell list at once, so the next sites see it.
+    5. The new bodies are painted and the map updated (only around them when they are
+       few, :func:`_update_map`). A site where nothing fits, for a reason other than a
+       stack of the same round, counts a strike on its voxel and the 26 around it;
+       :data:`MAX_STRIKES` strikes and a voxel is no longer a site. The fill ends at the
+       target, at ``max_stacks`` or ``max_attempts`` (sites tried), or when no site is left
+       (the domain is full at this clearance).
+
+    Returns (stacks or None, template, attempts, rounds, reason, C-S-H volume)."""
+    from .threads import budget
+
+    periodic = bool(getattr(domain, "periodic", False))
+    lo, hi = (np.asarray(b, dtype=float) for b in domain.bounds)
+    Lbox = hi - lo
+    vol_target = target * domain.volume
+    r_prism = math.sqrt(edge * edge / 3.0 + 0.25 * thickness * thickness)
+    ball = 2.0 * r_prism + clearance
+    guard = _stack_guard(repeat, edge)
+    store = _PrismStore(domain, max(ball, guard))
+    cos_guard = math.cos(math.radians(GUARD_ANGLE))
+    L_arr = Lbox if periodic else np.ones(3)
+    cos_a, sin_a = math.cos(tilt_rad), math.sin(tilt_rad)
+    sphere = isinstance(domain, Sphere)
+    dom_c = np.asarray(domain.center, dtype=float) if sphere else np.zeros(3)
+    dom_r = float(domain.radius) if sphere else 0.0
+    # ---------------------------------------------------------------- free-space map
+    g_lo, h, shape = _fill_grid(domain, voxel)
+    hmax = float(h.max())
+    probe_l = sdist.sample(rng, 4096)
+    tpl, probe_k = _patch_sizes(probe_l, edge)
+    probe_n = np.maximum(ldist.sample(rng, 4096), 1)
+    rho_probe = _stack_radius(tpl, probe_k, probe_n, np.zeros(4096, bool), edge, repeat,
+                              thickness, tilt_rad)
+    # distances are kept up to `cap`: it spreads the sites of one round (sizes are checked
+    # point by point over each stack's body, not by this radius)
+    cap = float(np.quantile(rho_probe, 0.5)) + clearance + hmax
+    axes = [g_lo[d] + (np.arange(shape[d]) + 0.5) * h[d] for d in range(3)]
+    X, Y, Z = np.meshgrid(*axes, indexing="ij", sparse=True)
+    if isinstance(domain, Sphere):
+        c = np.asarray(domain.center)
+        wall = domain.radius - np.sqrt((X - c[0]) ** 2 + (Y - c[1]) ** 2 + (Z - c[2]) ** 2)
+    else:   # a periodic box too: every prism stays inside the primary cell
+        wall = np.full(tuple(shape), np.inf)
+        for d, A in enumerate((X, Y, Z)):
+            wall = np.minimum(wall, np.minimum(A - lo[d], hi[d] - A))
+    # walls count as bodies one clearance further out (prisms may touch the wall)
+    wall = np.minimum(wall + clearance, cap).astype(np.float32)
+    del X, Y, Z
+    occupied = np.zeros(tuple(shape), np.uint8)
+    E = np.maximum(wall, np.float32(0.0))
+    strikes = np.zeros(tuple(shape), np.int8)
+    need = clearance + FILL_MARGIN * hmax   # map value a stack's sample points must reach
+    e_min = need + 0.5 * thickness          # a site must hold at least half a prism
+    pad = int(math.ceil(cap / float(h.min()))) + 1
+    spread_cs = np.full(3, 2.0 * cap)
+    spread_n = np.maximum(1, np.ceil(Lbox / spread_cs)).astype(np.int64)
+    placed: list[_Stacks] = []
+    tpl_all = tpl
+    vol = 0.0
+    n_placed = attempts = rounds = 0
+    reason = "full"
+    while True:
+        if vol >= vol_target:
+            reason = "target"
+            break
+        if max_stacks is not None and n_placed >= max_stacks:
+            reason = "stacks"
+            break
+        if max_attempts is not None and attempts >= max_attempts:
+            reason = "attempts"
+            break
+        sites = _local_maxima(E, strikes, MAX_STRIKES, e_min, periodic)
+        if len(sites) == 0:
+            break
+        rounds += 1
+        e_c = E.ravel()[sites]
+        key = e_c * (0.75 + 0.25 * rng.random(len(sites)))
+        order = np.argsort(-key, kind="stable")
+        sites, e_c = sites[order], e_c[order]
+        ijk = np.stack(np.unravel_index(sites, tuple(shape)), axis=1)
+        pos = g_lo + (ijk + 0.5) * h
+        budget_ = 4000 if max_attempts is None else max(1, min(4000, max_attempts - attempts))
+        sel = _spread(pos, e_c, g_lo, spread_cs, spread_n, budget_)
+        ijk, pos = ijk[sel], pos[sel]
+        m = len(sel)
+        # -------------------------------- `tries` proposals per site, sized to the gap
+        mt = m * tries
+        nl0 = np.maximum(ldist.sample(rng, mt), 1)
+        lat0 = sdist.sample(rng, mt)
+        tilt = rng.random(mt) < tilt_probability
+        tpl, _ = _patch_sizes(lat0, edge)
+        if len(tpl.dist) > len(tpl_all.dist):
+            tpl_all = tpl
+        reach = _template_reach(tpl)
+        rank, off = _rank_table(reach)
+        centre = np.repeat(pos, tries, axis=0) + (rng.random((mt, 3)) - 0.5) * h
+        nrm = _orientations(rng, domain, orientation, kappa, fixed_normal, centre)
+        e1, e2 = _perp_basis(nrm)
+        psi = rng.uniform(0.0, 2.0 * math.pi, mt)
+        cs_, sn_ = np.cos(psi)[:, None], np.sin(psi)[:, None]
+        e1, e2 = cs_ * e1 + sn_ * e2, -sn_ * e1 + cs_ * e2
+        best, s_b = _fit(E, g_lo, h, periodic, centre, nrm, e1, e2, nl0.astype(np.float64),
+                         lat0, tilt, tries, FILL_KEEP, tpl.dist, tpl.max_r, tpl.min_u, rank,
+                         off, edge, repeat, thickness, cos_a, sin_a, need, hmax, FIT_STEPS)
+        feasible = best[:, 0] >= 0
+        s_b = np.where(feasible[:, None], s_b, -1.0).ravel()
+        best = np.where(best >= 0, best, tries * np.arange(m)[:, None]).ravel()
+        k1 = np.maximum(np.searchsorted(tpl.dist, 0.5 * lat0[best] / edge + 1e-9,
+                                        side="right"), 1)
+        nprism = (nl0[best] + tilt[best]) * k1
+        maxp = int(nprism.max(initial=1))
+        store.reserve(int(nprism.reshape(m, FILL_KEEP).max(axis=1, initial=0)[feasible].sum()))
+        max_new = (1 << 62) if max_stacks is None else max_stacks - n_placed
+        state, r_u, n_u, k_u, s_u, count, vol = _place_fit(
+            centre[best], nrm[best], e1[best], e2[best], nl0[best].astype(np.float64),
+            lat0[best], tilt[best], s_b, FILL_KEEP, tpl.dist, tpl.uv, tpl.min_u, edge, repeat,
+            thickness, cos_a, sin_a, vol, vol_target, max_new, store.SV, store.SN, store.SC,
+            store.SH, store.nxt, store.head, store.count, store.lo, store.cs, store.ncell,
+            L_arr, periodic, sphere, dom_c, dom_r, lo, hi, clearance, ball * ball,
+            guard * guard, cos_guard, PLACE_STEPS, maxp)
+        store.count = int(count)
+        acc = np.flatnonzero(state == 1)
+        stopped = vol >= vol_target or (max_stacks is not None
+                                        and n_placed + len(acc) >= max_stacks)
+        tried = int(acc[-1]) + 1 if (stopped and len(acc)) else m
+        if len(acc):
+            bi = best[acc * FILL_KEEP + r_u[acc]]
+            a = _Stacks(n_u[acc], k_u[acc], s_u[acc] * lat0[bi], centre[bi], nrm[bi], e1[bi],
+                        e2[bi], tilt[bi])
+            placed.append(a)
+            n_placed += len(a)
+            R = tpl.max_r[a.k - 1] * edge
+            top = 0.5 * (a.n_layers - 1) * repeat
+            rho = np.where(a.tilt, np.hypot(math.sqrt(2.0) * R + thickness,
+                                            top + repeat + 2.0 * R * sin_a + thickness),
+                           np.hypot(R, top + thickness)) + hmax
+            _paint(occupied, g_lo, h, periodic, L_arr, a.centre, a.normal, a.e1, a.e2,
+                   a.k, a.n_layers, a.tilt, -tpl.min_u[a.k - 1] * edge, rho, rank, off,
+                   edge, repeat, thickness, cos_a, sin_a)
+            E = _update_map(E, occupied, wall, a.centre, rho, cap, g_lo, h, periodic, pad,
+                            budget())
+        attempts += tried
+        # -------- strikes where a try failed for a reason other than a stack of this round
+        failed = ~feasible
+        failed[(state == -1) | (state == -3)] = True
+        if failed.any():
+            _strike(strikes, ijk[failed], periodic)
+    st = _Stacks.concat(placed) if placed else None
+    return st, tpl_all, attempts, rounds, reason, vol
+
+
+def _update_map(E, occupied, wall, centres, rho, cap, g_lo, h, periodic, pad, threads):
+    """The free-space map after new bodies were painted into ``occupied`` (their centres
+    and bounding radii ``rho``): the distance from each voxel centre to the nearest
+    occupied one (edt, Felzenszwalb & Huttenlocher's algorithm; a periodic grid is padded by
+    wrapping), no more than ``wall``. With few new bodies, only the boxes within ``cap``
+    of each are recomputed and lowered: the map never exceeds ``cap`` (``wall`` is capped
+    there), so farther voxels cannot change, and within the box the new body lies whole,
+    so min(old map, distance inside the box) is exact."""
+    import edt
+
+    shape = np.asarray(E.shape)
+    anis = tuple(float(x) for x in h)
+    half = np.ceil((rho[:, None] + cap) / h[None, :]).astype(np.int64) + 1
+    ctr = np.floor((centres - g_lo) / h).astype(np.int64)
+    if np.prod(2 * half + 1, axis=1).sum() < 0.25 * E.size:
+        for c, w in zip(ctr, half):
+            idx = []
+            for d in range(3):
+                r = np.arange(c[d] - w[d], c[d] + w[d] + 1)
+                idx.append(np.mod(r, shape[d]) if periodic
+                           else r[(r >= 0) & (r < shape[d])])
+            if periodic and any(len(np.unique(i)) < len(i) for i in idx):
+                break       # a box wider than the grid: recompute everything below
+            ix = np.ix_(*idx)
+            sub = edt.edt(occupied[ix] == 0, anisotropy=anis, black_border=False,
+                          parallel=1)
+            E[ix] = np.minimum(E[ix], sub.astype(np.float32, copy=False))
+        else:
+            return E
+    free = occupied == 0
+    if periodic:
+        free = np.pad(free, pad, mode="wrap")
+    dist = edt.edt(free, anisotropy=anis, black_border=False, parallel=threads)
+    if periodic:
+        dist = dist[pad:-pad, pad:-pad, pad:-pad]
+    E = np.minimum(dist.astype(np.float32, copy=False), wall)
+    np.maximum(E, np.float32(0.0), out=E)
+    return E
+
+
+def _template_reach(tpl) -> int:
+    """The ``reach`` a cached template was made with (its cache key)."""
+    for reach in (4, 8, 16, 32, 64, 128, 256, 512, 1024):
+        if _template(reach) is tpl:
+            return reach
+    raise AssertionError("template not from the cache")
+
+
+def _orientations(rng, domain, orientation, kappa, fixed_normal, centre):
+    """Stack normals at ``centre`` by the orientation law (as in the sequential mode)."""
+    m = len(centre)
+    if orientation == "isotropic":
+        return _watson(rng, m, 0.0, np.array([0.0, 0.0, 1.0]))
+    if orientation == "wall":
+        mu = domain.inward_normal(centre)
+        bad = ~np.all(np.isfinite(mu), axis=1)
+        mu[bad] = fixed_normal
+        nrm = _watson(rng, m, kappa, mu)
+        flip = np.einsum("ij,ij->i", nrm, mu) < 0
+        nrm[flip] *= -1.0
+        return nrm
+    return np.broadcast_to(fixed_normal, (m, 3)).copy()
+
+
+@numba.njit(cache=True)
+def _strike(strikes, ijk, periodic):
+    """Count a failed try at each voxel ``ijk`` and its 26 neighbours (a voxel with
+    :data:`MAX_STRIKES` failures is no longer a site)."""
+    nx, ny, nz = strikes.shape
+    for p in range(ijk.shape[0]):
+        for a in range(-1, 2):
+            i = ijk[p, 0] + a
+            if periodic:
+                i %= nx
+            elif i < 0 or i >= nx:
+                continue
+            for b in range(-1, 2):
+                j = ijk[p, 1] + b
+                if periodic:
+                    j %= ny
+                elif j < 0 or j >= ny:
+                    continue
+                for c in range(-1, 2):
+                    k = ijk[p, 2] + c
+                    if periodic:
+                        k %= nz
+                    elif k < 0 or k >= nz:
+                        continue
+                    if strikes[i, j, k] < 127:
+                        strikes[i, j, k] += 1
+
+
+
 # ============================================================================== result
 @dataclass
 class StackTruth:
@@ -458,8 +1528,10 @@ class SynthResult:
         tilted ones.
     stacks : StackTruth
         Per-stack truth.
-    requested, attempts : int
-        Stacks asked for and candidate stacks tried.
+    requested : int or None
+        Stacks asked for (None: no limit, the fill mode).
+    attempts : int
+        Candidate stacks tried (in the fill mode: sites tried).
     elapsed : float
         Seconds spent generating.
     """
@@ -470,7 +1542,7 @@ class SynthResult:
     tilted: np.ndarray
     stacking_number: np.ndarray
     stacks: StackTruth
-    requested: int
+    requested: int | None
     attempts: int
     elapsed: float = 0.0
     settings: dict = field(default_factory=dict)
@@ -478,6 +1550,26 @@ class SynthResult:
     @property
     def n_stacks(self) -> int:
         return len(self.stacks.n_layers)
+
+    @property
+    def csh_volume(self) -> float:
+        """C-S-H volume, nm^3, exact from the construction: per stack, ``n`` layers of its
+        patch's area times the thickness plus the ``n - 1`` interlayer gaps (area times
+        ``repeat - thickness``); a tilt-defect layer adds its prisms only."""
+        s = self.settings
+        return float(_csh_volume(self.stacks.triangles_per_layer, self.stacks.n_layers,
+                                 self.stacks.has_tilt, s["triangle_edge"], s["repeat"],
+                                 s["thickness"]).sum())
+
+    @property
+    def csh_fraction(self) -> float:
+        """:attr:`csh_volume` over the domain's volume."""
+        return self.csh_volume / self.structure.domain.volume
+
+    @property
+    def solid_fraction(self) -> float:
+        """Volume of the prisms (area times thickness) over the domain's volume."""
+        return float(self.structure.volumes.sum()) / self.structure.domain.volume
 
     def table(self) -> dict:
         """Per-prism ground truth as equal-length columns (row i = prism i)."""
@@ -488,10 +1580,12 @@ class SynthResult:
                 else np.zeros(0, np.int64)}
 
     def to_dict(self) -> dict:
-        return {"requested_stacks": int(self.requested), "placed_stacks": int(self.n_stacks),
+        return {"requested_stacks": None if self.requested is None else int(self.requested),
+                "placed_stacks": int(self.n_stacks),
                 "prisms": int(len(self.stack)), "attempts": int(self.attempts),
                 "tilted_layers": int(self.stacks.has_tilt.sum()),
                 "mean_layers": float(self.stacks.n_layers.mean()) if self.n_stacks else 0.0,
+                "csh_fraction": self.csh_fraction, "solid_fraction": self.solid_fraction,
                 "elapsed_s": float(self.elapsed), "settings": dict(self.settings)}
 
 
@@ -567,17 +1661,28 @@ def _inside(domain, pts):
     return domain.contains(pts)
 
 
-def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: str = "isotropic",
+def pack_stacks(domain, n_stacks: int | None = None, *, seeding: str = "volume",
+                orientation: str = "isotropic",
                 kappa: float = 10.0, normal=(0.0, 0.0, 1.0), layers="poisson:3",
                 lateral_size="lognormal:5,0.3", triangle_edge: float = 1.0, repeat: float = 1.4,
                 thickness: float = 0.7, clearance: float = 0.3, wall_gap: float = 0.3,
                 tilt_angle: float = 0.0, tilt_probability: float = 0.0, born: bool = False,
-                max_attempts: int | None = None, seed: int = 0) -> SynthResult:
+                max_attempts: int | None = None, seed: int = 0,
+                target_fraction: float | None = None, fill_voxel: float | None = None,
+                fill_tries: int = FILL_TRIES) -> SynthResult:
     """Pack layered sheet stacks into a domain by random sequential placement.
 
     An invented demonstration scenario, **not** a growth simulation: finished stacks are
     proposed one after another and kept if they fit (see the module docstring for the
     geometry of a stack and of a tilt defect).
+
+    Two modes. *Sequential* (the default): ``n_stacks`` stacks drawn from the
+    distributions are proposed at random places and kept if they fit, until ``n_stacks``
+    are placed or the domain is full (about 15 % C-S-H by volume, 10 % solid, with the
+    default sizes). *Fill* (``target_fraction`` given): stacks are placed into the remaining gaps
+    with decreasing size until the C-S-H volume (the prisms plus the gaps between the
+    stacked layers of each stack) reaches ``target_fraction`` of the domain or nothing more
+    fits; see :func:`_fill` for the method and ``docs/synth.md`` for what it reaches.
 
     Parameters
     ----------
@@ -585,9 +1690,10 @@ def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: 
         Where to pack. A periodic box has no walls (``seeding="wall"`` and
         ``orientation="wall"`` are refused); prisms are kept inside the primary cell and
         clearances are measured with the minimum-image convention.
-    n_stacks : int
+    n_stacks : int, optional
         Stacks to place. Fewer are placed if ``max_attempts`` candidates are used up
-        (``result.n_stacks`` says how many).
+        (``result.n_stacks`` says how many). Required in the sequential mode; in the fill
+        mode an upper limit (default none).
     seeding : {"volume", "wall"}
         ``volume``: centres uniform in the domain. ``wall``: a uniform point on the wall
         (area-weighted over the faces of a box), the stack centre moved inwards along the
@@ -635,6 +1741,19 @@ def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: 
         also stops once :data:`STALL_ATTEMPTS` (10,000) candidates in a row have failed.
     seed : int
         Random seed; the same inputs and seed give the same structure.
+    target_fraction : float, optional
+        Turns on the fill mode: the C-S-H volume fraction of the domain to reach,
+        ``0 < F < 1`` (exact from the construction, see :attr:`SynthResult.csh_fraction`).
+        The fill mode uses ``seeding="volume"`` only.
+    fill_voxel : float, optional
+        Fill mode: voxel of the free-space map, nm (default ``max(0.4 * triangle_edge,
+        (box volume / 4e6)^(1/3))``, about 0.4 nm up to a 63 nm box). Finer packs a little
+        denser and is slower; it never affects the clearance, which is tested exactly.
+    fill_tries : int
+        Fill mode: proposals (size and orientation drawn from their laws) tried at each
+        site, of which the one fitting the most C-S-H volume is kept (default 32). More
+        packs denser; 1 keeps every stack's orientation and relative size as drawn (the
+        scale still shrinks to the gap), at a lower reachable fraction.
 
     Returns
     -------
@@ -645,8 +1764,22 @@ def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: 
     t0 = time.perf_counter()
     if not isinstance(domain, (Sphere, Box)):
         raise OptionError("domain must be a sheetview Sphere or Box")
-    if not (isinstance(n_stacks, (int, np.integer)) and not isinstance(n_stacks, bool)
-            and n_stacks >= 0):
+    fill = target_fraction is not None
+    if fill:
+        try:
+            target_fraction = float(target_fraction)
+        except (TypeError, ValueError):
+            raise OptionError(f"--target-fraction must be a number between 0 and 1, got "
+                              f"{target_fraction!r}") from None
+        if not (0.0 < target_fraction < 1.0):
+            raise OptionError(f"--target-fraction must be between 0 and 1 (exclusive), got "
+                              f"{target_fraction}")
+    if n_stacks is None and not fill:
+        raise OptionError("give --stacks (n_stacks), the number of stacks to place, or "
+                          "--target-fraction (target_fraction) to fill the domain")
+    if not ((fill and n_stacks is None)
+            or (isinstance(n_stacks, (int, np.integer)) and not isinstance(n_stacks, bool)
+                and n_stacks >= 0)):
         raise OptionError(f"--stacks (n_stacks) must be a whole number >= 0, got {n_stacks!r}")
     if seeding not in ("volume", "wall"):
         raise OptionError(f"--seeding must be 'volume' or 'wall', not {seeding!r}")
@@ -685,11 +1818,23 @@ def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: 
     if tilt_probability > 0 and not (0.0 < tilt_angle < 90.0):
         raise OptionError(f"--tilt-angle must be between 0 and 90 degrees (exclusive) when "
                           f"--tilt-probability > 0, got {tilt_angle}")
-    if max_attempts is None:
+    if max_attempts is None and not fill:
         max_attempts = 100 * int(n_stacks) + 1000
-    if not (isinstance(max_attempts, (int, np.integer)) and max_attempts >= 1):
+    if not (max_attempts is None
+            or (isinstance(max_attempts, (int, np.integer)) and max_attempts >= 1)):
         raise OptionError(f"--max-attempts must be a whole number >= 1, got {max_attempts!r}")
     tilt_rad = math.radians(tilt_angle)
+    if fill:
+        return _pack_fill(domain, n_stacks, target_fraction, fill_voxel, fill_tries,
+                          seeding=seeding,
+                          orientation=orientation, kappa=kappa, fixed_normal=fixed_normal,
+                          ldist=ldist, sdist=sdist, edge=edge, repeat=repeat,
+                          thickness=thickness, clearance=clearance, tilt_angle=tilt_angle,
+                          tilt_probability=tilt_probability, born=born,
+                          max_attempts=max_attempts, seed=seed, t0=t0)
+    if fill_voxel is not None or fill_tries != FILL_TRIES:
+        raise OptionError("--fill-voxel and --fill-tries apply to the fill mode only "
+                          "(give --target-fraction)")
 
     settings = {"kind": "pack_stacks", "domain": domain.to_dict(), "n_stacks": int(n_stacks),
                 "seeding": seeding, "orientation": orientation, "kappa": kappa,
@@ -869,6 +2014,63 @@ def pack_stacks(domain, n_stacks: int, *, seeding: str = "volume", orientation: 
     return _assemble(st, tpl_all, domain=domain, edge=edge, repeat=repeat, thickness=thickness,
                      tilt_rad=tilt_rad, born=born, settings=settings, requested=int(n_stacks),
                      attempts=int(attempts), t0=t0)
+
+
+def _pack_fill(domain, n_stacks, target, voxel, tries, *, seeding, orientation, kappa, fixed_normal,
+               ldist, sdist, edge, repeat, thickness, clearance, tilt_angle, tilt_probability,
+               born, max_attempts, seed, t0) -> SynthResult:
+    """The fill mode of :func:`pack_stacks` (``target_fraction`` given)."""
+    if seeding != "volume":
+        raise OptionError("--seeding wall does not combine with --target-fraction: the fill "
+                          "mode places stacks wherever the free space allows (use --seeding "
+                          "volume, with --orientation wall for wall-aligned stacks)")
+    if not (isinstance(tries, (int, np.integer)) and not isinstance(tries, bool)
+            and 1 <= tries <= 1024):
+        raise OptionError(f"--fill-tries (fill_tries) must be a whole number from 1 to 1024, "
+                          f"got {tries!r}")
+    if voxel is None:
+        lo, hi = domain.bounds
+        voxel = max(0.4 * edge, (float(np.prod(np.asarray(hi) - np.asarray(lo))) / 4e6) ** (1 / 3))
+    voxel = _check_positive(voxel, "--fill-voxel (fill_voxel)")
+    lo, hi = (np.asarray(b, dtype=float) for b in domain.bounds)
+    if np.prod(np.maximum(1, np.round((hi - lo) / voxel))) > 64e6:
+        raise OptionError(f"--fill-voxel {voxel:g} nm makes a free-space map of more than "
+                          f"64 million voxels: give a coarser voxel")
+    periodic = bool(getattr(domain, "periodic", False))
+    r_prism = math.sqrt(edge * edge / 3.0 + 0.25 * thickness * thickness)
+    reach = max(2.0 * r_prism + clearance, _stack_guard(repeat, edge))
+    if periodic and np.any(hi - lo < 2.0 * reach):
+        raise OptionError(f"the periodic box must be at least {2 * reach:.2f} nm on every side "
+                          f"for --target-fraction (twice the reach of the clearance tests)")
+    tilt_rad = math.radians(tilt_angle)
+    rng = np.random.default_rng(seed)
+    st, tpl, attempts, rounds, reason, vol = _fill(
+        domain, rng=rng, orientation=orientation, kappa=kappa, fixed_normal=fixed_normal,
+        ldist=ldist, sdist=sdist, edge=edge, repeat=repeat, thickness=thickness,
+        clearance=clearance, tilt_rad=tilt_rad, tilt_probability=tilt_probability,
+        target=target, max_stacks=None if n_stacks is None else int(n_stacks),
+        max_attempts=max_attempts, voxel=voxel, tries=int(tries))
+    if st is None:
+        z = np.zeros(0)
+        st = _Stacks(z.astype(np.int64), z.astype(np.int64), z, np.zeros((0, 3)),
+                     np.zeros((0, 3)), np.zeros((0, 3)), np.zeros((0, 3)), z.astype(bool))
+    settings = {"kind": "pack_stacks", "mode": "fill", "domain": domain.to_dict(),
+                "n_stacks": None if n_stacks is None else int(n_stacks),
+                "target_fraction": target, "seeding": seeding, "orientation": orientation,
+                "kappa": kappa, "normal": fixed_normal.tolist(), "layers": str(ldist),
+                "lateral_size": str(sdist), "triangle_edge": edge, "repeat": repeat,
+                "thickness": thickness, "clearance": clearance, "tilt_angle": tilt_angle,
+                "tilt_probability": tilt_probability, "born": bool(born),
+                "max_attempts": None if max_attempts is None else int(max_attempts),
+                "fill_voxel": float(voxel), "fill_tries": int(tries), "seed": int(seed),
+                "placed_stacks": int(len(st)), "csh_fraction": None,
+                "stopped": reason, "rounds": int(rounds)}
+    res = _assemble(st, tpl, domain=domain, edge=edge, repeat=repeat, thickness=thickness,
+                    tilt_rad=tilt_rad, born=born, settings=settings,
+                    requested=None if n_stacks is None else int(n_stacks),
+                    attempts=int(attempts), t0=t0)
+    res.settings["csh_fraction"] = res.csh_fraction
+    return res
 
 
 def write_truth(result: SynthResult, path, *, force: bool = False):

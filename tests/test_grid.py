@@ -7,8 +7,8 @@ import pytest
 
 from sheetview import Box, Sphere, Structure
 from sheetview.errors import MemoryLimitError, OptionError
-from sheetview.grid import (GEL, OUTSIDE, SOLID, PhaseGrid, default_voxel_size, rasterize,
-                            rasterize_fraction)
+from sheetview.grid import (GEL, OUTSIDE, SOLID, PhaseGrid, default_voxel_size,
+                            estimate_grid_bytes, rasterize, rasterize_fraction)
 
 
 def reference_labels(structure, shape, spacing, origin, periodic=False):
@@ -102,7 +102,7 @@ def test_errors():
     with pytest.raises(MemoryLimitError, match=r"voxel size of [0-9.]+ nm would fit") as e:
         rasterize(s, 0.02, max_memory=10_000_000)
     fit = float(str(e.value).split("voxel size of ")[1].split(" nm")[0])
-    assert rasterize(s, fit, max_memory=10_000_000).labels.size * 6 <= 10_000_000
+    assert estimate_grid_bytes(rasterize(s, fit, max_memory=10_000_000).labels.size) <= 10_000_000
     with pytest.raises(OptionError, match="supersample"):
         rasterize(s, 0.1, supersample=0)
     with pytest.raises(OptionError, match="out must"):
@@ -177,10 +177,10 @@ def test_default_voxel_is_coarsened_to_fit_the_memory_limit_and_says_so():
     s = perfect_stack(3, 6.0, repeat=1.4, thickness=0.7).structure
     g = rasterize(s)
     assert g.metadata["voxel_default"]["note"] is None
-    small = int(np.prod(g.shape) * 6 / 1.5)  # 6 bytes per voxel, two thirds of the grid
+    small = estimate_grid_bytes(int(np.prod(g.shape) * 3 / 8))
     g2 = rasterize(s, max_memory=small)
     assert g2.metadata["voxel_size_nm"] > g.metadata["voxel_size_nm"]
-    assert np.prod(g2.shape) * 6 <= small
+    assert estimate_grid_bytes(int(np.prod(g2.shape))) <= small
     assert "memory limit" in g2.metadata["voxel_default"]["note"]
     with pytest.raises(MemoryLimitError):
         rasterize(s, g.metadata["voxel_size_nm"], max_memory=small)

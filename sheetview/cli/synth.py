@@ -52,8 +52,19 @@ def _domain(sphere, box, periodic):
 @click.option("--box", default=None, metavar="LX,LY,LZ",
               help="Box from the origin to (LX, LY, LZ) nm.")
 @click.option("--periodic", is_flag=True, help="Make the box periodic (no walls).")
-@click.option("--stacks", "n_stacks", type=int, default=100, show_default=True,
-              help="Stacks to place (fewer if the domain jams; see --max-attempts).")
+@click.option("--stacks", "n_stacks", type=int, default=None,
+              help="Stacks to place (fewer if the domain jams; see --max-attempts)  "
+                   "[default: 100; with --target-fraction: no limit]")
+@click.option("--target-fraction", type=float, default=None, metavar="F",
+              help="Fill mode: place stacks into the remaining gaps, shrinking them to "
+                   "fit, until the C-S-H volume (prisms + interlayer gaps) is this "
+                   "fraction of the domain (0 < F < 1) or nothing more fits.")
+@click.option("--fill-voxel", type=float, default=None, metavar="NM",
+              help="Fill mode: voxel of the free-space map, nm  "
+                   "[default: 0.4 x edge, coarser above a 63 nm box]")
+@click.option("--fill-tries", type=int, default=32, show_default=True,
+              help="Fill mode: proposals drawn per site; the one fitting the most volume "
+                   "is kept (1: orientations and relative sizes as drawn).")
 @click.option("--seeding", type=click.Choice(["volume", "wall"]), default="volume",
               show_default=True,
               help="Stack centres uniform in the volume, or next to the wall.")
@@ -93,20 +104,23 @@ def _domain(sphere, box, periodic):
               help="Also write the per-prism ground truth (stack, layer, tilted, "
                    "stacking number) as CSV.")
 @click.option("--force", is_flag=True, help="Overwrite existing outputs.")
-def synth(output, sphere, box, periodic, n_stacks, seeding, orientation, kappa, normal, layers,
-          lateral, edge, repeat, thickness, clearance, wall_gap, tilt_angle, tilt_probability,
-          born, max_attempts, seed, truth, force):
+def synth(output, sphere, box, periodic, n_stacks, target_fraction, fill_voxel, fill_tries,
+          seeding, orientation, kappa, normal, layers, lateral, edge, repeat, thickness,
+          clearance, wall_gap, tilt_angle, tilt_probability, born, max_attempts, seed, truth,
+          force):
     """Write an invented demonstration structure: stacks of triangulated sheets packed at
     random into a sphere or box, with known ground truth.
 
     Not a growth simulation: finished stacks (layers REPEAT nm apart, exact copies) are
     placed one after another and kept if they stay inside the domain and at least
-    CLEARANCE nm from every other stack. Lengths in nm.
+    CLEARANCE nm from every other stack. With --target-fraction, stacks go on into the
+    remaining gaps, shrunk to fit, up to a gel-like packing. Lengths in nm.
 
     \b
-    Example:
+    Examples:
       sheetview synth --sphere 20 --stacks 150 --seeding wall --orientation wall \\
           --kappa 10 -o pore.npz --truth pore_truth.csv
+      sheetview synth --box 40,40,40 --periodic --target-fraction 0.35 -o dense.npz
     """
     from pathlib import Path
 
@@ -124,18 +138,28 @@ def synth(output, sphere, box, periodic, n_stacks, seeding, orientation, kappa, 
             raise OptionError("--truth must differ from -o", path=truth)
         check_writable(truth, force)
     check_writable(output, force)
+    if n_stacks is None and target_fraction is None:
+        n_stacks = 100
     t0 = time.perf_counter()
     res = pack_stacks(dom, n_stacks, seeding=seeding, orientation=orientation, kappa=kappa,
                       normal=nrm, layers=layers, lateral_size=lateral, triangle_edge=edge,
                       repeat=repeat, thickness=thickness, clearance=clearance, wall_gap=wall_gap,
                       tilt_angle=tilt_angle, tilt_probability=tilt_probability, born=born,
-                      max_attempts=max_attempts, seed=seed)
+                      max_attempts=max_attempts, seed=seed, target_fraction=target_fraction,
+                      fill_voxel=fill_voxel, fill_tries=fill_tries)
     write(res.structure, output, force=force)
     if truth is not None:
         write_truth(res, truth, force=force)
-    short = "" if res.n_stacks == n_stacks else (
-        f" (of {n_stacks} requested: the domain is full at this clearance; "
-        f"{res.attempts} candidates tried)")
+    if target_fraction is None:
+        short = "" if res.n_stacks == n_stacks else (
+            f" (of {n_stacks} requested: the domain is full at this clearance; "
+            f"{res.attempts} candidates tried)")
+    else:
+        why = {"target": "target reached",
+               "full": "nothing more fits at this clearance: target NOT reached",
+               "stacks": "--stacks reached", "attempts": "--max-attempts reached"}
+        short = (f", C-S-H {res.csh_fraction:.4f} of the domain (target {target_fraction:g}; "
+                 f"{why[res.settings['stopped']]})")
     click.echo(f"sheetview synth: {res.n_stacks} stacks{short}, {len(res.structure)} prisms, "
                f"{int(res.stacks.has_tilt.sum())} tilted layers, {time.perf_counter() - t0:.2f} s "
                f"-> {output}", err=True)

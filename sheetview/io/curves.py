@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError, OptionError
+from .safety import check_input_file, check_read_memory
 
 # unit spellings found in header labels -> factor to nm^-1 (scattering) or to s (T2)
 _Q_UNITS = [  # checked in order; Å before nm so "1/A" inside "nm" labels cannot clash
@@ -75,7 +76,20 @@ def read_experimental(path, kind: str = "scattering", unit: str | None = None,
     out of x order are sorted with a warning. Anything else (a non-numeric row in the
     data, fewer than 3 rows, no unit found) is refused with an InputError naming the file.
     """
-    p = Path(path)
+    p = check_input_file(path, missing="cannot read: no such file")
+    size = p.stat().st_size
+    # Python floats of each row: about 40 bytes per character of the text at worst
+    check_read_memory(size * CURVE_READ_FACTOR, f"{size:,} bytes of text", p)
+    from . import guarded
+    return guarded(_read, p, kind, unit, columns)
+
+
+#: Peak bytes per byte of a curve file while it is parsed (the text, its lines, the rows as
+#: Python floats, the arrays).
+CURVE_READ_FACTOR = 48
+
+
+def _read(p: Path, kind, unit, columns) -> ExperimentalCurve:
     try:
         text = p.read_text(encoding="utf-8-sig", errors="replace")
     except OSError as e:

@@ -23,7 +23,10 @@ Rules
   the usual 72-300 dpi defaults give) is not taken as a calibration. Otherwise an
   :class:`OptionError` asks for ``--pixel-size``.
 * Refused with a message naming the file: missing, unreadable, truncated or corrupt
-  files, unknown types, multi-page TIFF, images smaller than 16 pixels on a side,
+  files, anything but a regular file (FIFO, device, folder, broken or looping link),
+  images whose declared size needs more than the memory budget or (TIFF) more pixels
+  than the stored bytes can hold, unknown types, multi-page TIFF, images smaller than 16
+  pixels on a side,
   constant images, images with no valid pixel; pixel sizes that are not positive, not
   finite, or absurd for a micrograph (above 1e6 nm or below 1e-3 nm).
 """
@@ -36,6 +39,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError, OptionError
+from .safety import check_input_file, check_read_memory, check_tiff_pages, quiet
 
 #: Suffixes read, by family.
 IMAGE_SUFFIXES = {".png": "png", ".tif": "tiff", ".tiff": "tiff", ".jpg": "jpeg",
@@ -146,7 +150,7 @@ def _parse_threshold(threshold, path):
 
 
 # ====================================================================== readers
-def _read_tiff(path, notes):
+def _read_tiff(path, kind, notes):
     import tifffile
 
     try:
@@ -157,6 +161,8 @@ def _read_tiff(path, notes):
                                  "images are read: save the page to measure as its own file",
                                  path=path)
             page = tf.pages[0]
+            check_tiff_pages(tf, path, [page])
+            _check_image_memory(page.shape, path)
             data = page.asarray()
             extra = page.extrasamples if hasattr(page, "extrasamples") else ()
             photometric = int(page.photometric) if page.photometric is not None else None
@@ -185,6 +191,20 @@ def _read_tiff(path, notes):
             raise InputError("CMYK TIFF images are not read; save it as RGB or grey",
                              path=path)
     return data, alpha, res
+
+
+#: Peak bytes per sample and per pixel of reading and segmenting a micrograph (the samples
+#: as float64, the grey values, masks and Otsu's histogram input).
+IMAGE_BYTES_PER_SAMPLE = 24
+IMAGE_BYTES_PER_PIXEL = 24
+
+
+def _check_image_memory(shape, path) -> None:
+    """Refuse, before decoding, an image whose declared size needs more than the budget."""
+    shape = tuple(int(d) for d in shape)
+    need = math.prod(shape) * IMAGE_BYTES_PER_SAMPLE + \
+        math.prod(sorted(shape)[-2:]) * IMAGE_BYTES_PER_PIXEL
+    check_read_memory(need, f"an image of {' x '.join(str(d) for d in shape)} samples", path)
 
 
 def _tiff_resolution(tf, page):
@@ -221,6 +241,7 @@ def _read_pillow(path, kind, notes):
             expected = {"png": "PNG", "jpeg": "JPEG"}[kind]
             if fmt and fmt != expected:
                 notes.append(f"the file holds a {fmt} image despite its suffix")
+            _check_image_memory((im.size[1], im.size[0], len(im.getbands())), path)
             im.load()
             mode = im.mode
             if mode == "P" or mode == "PA":
@@ -281,20 +302,22 @@ def read_micrograph(path, *, pixel_size=None, threshold="otsu", solid: str = "br
                           field="solid")
     thr = _parse_threshold(threshold, path)
     px = None if pixel_size is None else check_pixel_size(pixel_size, path)
-    if not path.exists():
-        raise InputError("no such file", path=path)
-    if path.is_dir():
-        raise InputError("is a folder, expected an image file", path=path)
+    check_input_file(path, "an image file")
     kind = IMAGE_SUFFIXES.get(path.suffix.lower())
     if kind is None:
         raise InputError(f"unknown image type {path.suffix!r}; expected PNG (.png), TIFF "
                          "(.tif, .tiff) or JPEG (.jpg, .jpeg)", path=path)
     if path.stat().st_size == 0:
         raise InputError("the file is empty", path=path)
-    if kind == "tiff":
-        data, alpha, res = _read_tiff(path, notes)
-    else:
-        data, alpha, res = _read_pillow(path, kind, notes)
+    from . import guarded
+    reader = _read_tiff if kind == "tiff" else _read_pillow
+    data, alpha, res = guarded(reader, path, kind, notes)
+    with quiet():
+        return _segment(path, data, alpha, res, px, thr, solid, channel, notes)
+
+
+def _segment(path, data, alpha, res, px, thr, solid, channel, notes) -> Micrograph:
+    """Grey values, valid pixels, pixel size and segmentation of the decoded samples."""
     data = np.asarray(data)
     dtype = str(data.dtype)
     if data.dtype.kind not in "biuf":

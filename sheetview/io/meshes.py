@@ -5,7 +5,13 @@ Readers
 * STL, PLY, OBJ, OFF, GLB/GLTF through trimesh (a scene's geometries are concatenated,
   with their transforms applied);
 * VTK files (``.vtk`` legacy, ``.vtp``, ``.vtu``) through pyvista: the outer surface is
-  extracted and its polygons are split into triangles.
+  extracted and its polygons are split into triangles. Their declared sizes are checked
+  first and VTK parses them in a child process, whose crash is a one-line error
+  (:mod:`sheetview.io.vtkfiles`, :mod:`sheetview.io.isolate`).
+
+Before parsing, the counts a file declares (PLY elements, OFF counts, binary STL
+triangles, glTF accessors and buffers) are checked against its size and the memory budget
+(:func:`_precheck_trimesh`).
 
 What becomes what
 -----------------
@@ -45,7 +51,6 @@ Writers
 """
 from __future__ import annotations
 
-import contextlib
 import dataclasses
 import json
 import re
@@ -58,8 +63,14 @@ import numpy as np
 from ..domain import Domain, bounding_box, domain_from_dict
 from ..errors import InputError, OptionError, SheetviewError
 from ..structure import DEFAULT_SPACING_NM, KNOWN_COLUMNS, Structure, SurfaceBody, with_inferred_domain
+from ..domain import MAX_LENGTH_NM
 from .output import atomic_path, json_default
-from .prisms import UNITS, unit_factor
+from .prisms import UNITS, unit_factor, whole_numbers
+from .vtkfiles import quiet_vtk as _quiet_vtk
+from .vtkfiles import read_mesh_arrays
+from .vtkfiles import short_error as _short
+from .safety import (check_declared, check_input_file, check_read_memory, finite_number,
+                     json_type, load_json)
 
 VTK_SUFFIXES = {".vtk", ".vtp", ".vtu"}
 TRIMESH_SUFFIXES = {".stl", ".ply", ".obj", ".off", ".glb", ".gltf"}
@@ -104,13 +115,15 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     if as_ not in (None, "auto", "sheets", "solid"):
         raise OptionError(f"--as must be 'sheets' or 'solid', not {as_!r}", path=path)
     for name, v in (("thickness", thickness), ("spacing", spacing)):
-        if v is not None and not (np.isfinite(v) and v > 0):
-            raise OptionError(f"--{name} must be a positive number of nm, got {v}", path=path)
+        if v is not None and not (finite_number(v) is not None and 0 < v <= MAX_LENGTH_NM):
+            raise OptionError(f"--{name} must be a positive number of nm (at most "
+                              f"{MAX_LENGTH_NM:g}), got {v}", path=path)
     if units is not None:
         unit_factor(units, path=path)  # refuse a bad option before reading
     if suffix in VTK_SUFFIXES:
         vertices, faces, face_arrays, found = _load_vtk(path)
     elif suffix in TRIMESH_SUFFIXES:
+        _precheck_trimesh(path, suffix)
         vertices, faces, face_arrays = _load_trimesh(path)
         found = _find_text_header(path, suffix)
     else:
@@ -118,17 +131,26 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     header = _interpret_header(found, path, units)
     f = header.factor if header is not None else unit_factor(units or "nm", path=path)
 
+    vertices, faces = _checked_arrays(vertices, faces, path, suffix)
     if faces.shape[0] == 0:
         raise InputError(f"has no triangles (the {_FORMAT_NAMES[suffix]} file holds "
                          f"{len(vertices)} points and no faces)", path=path)
     if faces.min() < 0 or faces.max() >= len(vertices):
         raise InputError("a face refers to a vertex that does not exist", path=path)
     tri = vertices[faces]  # (N, 3, 3), file order
-    bad = ~np.all(np.isfinite(tri.reshape(len(tri), 9)), axis=1)
+    flat = tri.reshape(len(tri), 9)
+    bad = ~np.all(np.isfinite(flat), axis=1)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
         raise InputError(f"face row {i + 1}: corner coordinates must be finite numbers "
                          f"(found NaN or inf; {int(bad.sum())} face(s) affected)", path=path)
+    bad = np.any(np.abs(flat) * f > MAX_LENGTH_NM, axis=1)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise InputError(f"face row {i + 1}: corner coordinates must lie within "
+                         f"{MAX_LENGTH_NM:g} nm (1 m) of the origin, found "
+                         f"{float(np.abs(flat[i]).max() * f):.4g} nm (check the units; "
+                         f"{int(bad.sum())} face(s) affected)", path=path)
     if f != 1.0:
         vertices = vertices * f
         tri = tri * f
@@ -160,7 +182,12 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     if thickness is not None:
         thick = np.full(len(tri), float(thickness))
     elif "thickness" in face_arrays:
-        thick = np.asarray(face_arrays["thickness"], dtype=np.float64) * f
+        thick = np.asarray(face_arrays["thickness"])
+        if thick.shape != (len(tri),) or thick.dtype.kind not in "biuf":
+            raise InputError(f"per-face array 'thickness' must hold one number per face "
+                             f"({len(tri)}), got {thick.dtype} of shape {thick.shape}",
+                             path=path, field="thickness")
+        thick = thick.astype(np.float64) * f
     else:
         raise InputError(f"no sheet thickness: a mesh read as sheets needs --thickness <nm> "
                          f"(or a per-face array named 'thickness'); the {len(tri)} triangles "
@@ -169,10 +196,12 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     for name in KEPT_FACE_ARRAYS:
         if name in face_arrays:
             a = np.asarray(face_arrays[name])
-            if KNOWN_COLUMNS[name] is np.int64 and a.dtype.kind == "f":
-                if not np.all(np.isfinite(a)) or np.any(a != np.round(a)):
-                    raise InputError(f"per-face array '{name}' must hold whole numbers",
-                                     path=path, field=name)
+            if a.shape != (len(tri),) or a.dtype.kind not in "biuf":
+                raise InputError(f"per-face array '{name}' must hold one number per face "
+                                 f"({len(tri)}), got {a.dtype} of shape {a.shape}",
+                                 path=path, field=name)
+            if KNOWN_COLUMNS[name] is np.int64:
+                a = whole_numbers(a, name, path, "per-face array")
             cols[name] = a
     if spacing is not None:
         sp = spacing
@@ -191,6 +220,228 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
         raise InputError(e.detail.replace("prism row", "face row"), path=path,
                          field=e.field) from None
     return s
+
+
+def _checked_arrays(vertices, faces, path, suffix):
+    """Vertices as finite-size (n, 3) float64 and faces as (m, 3) int64, or a refusal."""
+    fmt = _FORMAT_NAMES[suffix]
+    v = np.asarray(vertices)
+    fc = np.asarray(faces)
+    if v.size == 0:
+        v = v.reshape(0, 3)
+    if fc.size == 0:
+        fc = fc.reshape(0, 3)
+    if v.ndim != 2 or v.shape[1] != 3 or v.dtype.kind not in "biuf":
+        raise InputError(f"cannot be read as {fmt}: its vertices are not (x, y, z) numbers "
+                         f"(got {v.dtype} of shape {v.shape})", path=path)
+    if fc.ndim != 2 or fc.shape[1] != 3 or fc.dtype.kind not in "iu":
+        raise InputError(f"cannot be read as {fmt}: its faces are not triangles of vertex "
+                         f"numbers (got {fc.dtype} of shape {fc.shape})", path=path)
+    return v.astype(np.float64, copy=False), fc.astype(np.int64, copy=False)
+
+
+#: Peak bytes per byte of a text mesh file (OBJ, ASCII STL, ASCII PLY, OFF) while trimesh
+#: parses it and the prisms are built (the text, its tokens, the arrays).
+TEXT_MESH_READ_FACTOR = 24
+#: Peak bytes per declared vertex and face of a binary mesh file.
+MESH_BYTES_PER_VERTEX = 160
+MESH_BYTES_PER_FACE = 400
+#: PLY property types and their sizes in bytes.
+PLY_TYPES = {"char": 1, "int8": 1, "uchar": 1, "uint8": 1, "short": 2, "int16": 2, "ushort": 2,
+             "uint16": 2, "int": 4, "int32": 4, "uint": 4, "uint32": 4, "float": 4,
+             "float32": 4, "double": 8, "float64": 8}
+
+
+def _precheck_trimesh(path: Path, suffix: str) -> None:
+    """What a mesh file declares, checked against its size and the memory budget before
+    trimesh allocates: PLY element counts and property sizes, OFF counts, the triangle
+    count of a binary STL, the accessors and buffers of a glTF; the size of text files.
+    A ``.gltf`` may refer only to data URIs or to regular files beside it."""
+    size = path.stat().st_size
+    with open(path, "rb") as fh:
+        head = fh.read(1 << 16)
+    if suffix == ".ply" and head.startswith(b"ply"):
+        _precheck_ply(path, size)
+    elif suffix == ".off":
+        _precheck_off(path, head, size)
+    elif suffix == ".stl" and not head.lstrip().lower().startswith(b"solid") and size >= 84:
+        n = int.from_bytes(head[80:84], "little")
+        if 84 + 50 * n > size:
+            raise InputError(f"damaged or truncated binary STL: it declares {n:,} triangles "
+                             f"({84 + 50 * n:,} bytes) but holds {size:,} bytes", path=path)
+        check_read_memory(n * MESH_BYTES_PER_FACE, f"{n:,} triangles", path)
+        return
+    elif suffix in (".glb", ".gltf"):
+        _precheck_gltf(path, head, size, suffix)
+    check_read_memory(size * TEXT_MESH_READ_FACTOR, f"{size:,} bytes of mesh data", path)
+
+
+def _precheck_ply(path, size):
+    with open(path, "rb") as fh:
+        lines = []
+        used = 0
+        while True:
+            raw = fh.readline(1 << 16)
+            used += len(raw)
+            if not raw or used > HEADER_SCAN_BYTES:
+                raise InputError("damaged PLY file: no 'end_header' line", path=path)
+            text = raw.decode("latin1").strip()
+            lines.append(text)
+            if text == "end_header":
+                break
+        body = size - fh.tell()
+    fmt = next((ln.split()[1] for ln in lines if ln.startswith("format ") and len(ln.split()) > 1),
+               None)
+    if fmt not in ("ascii", "binary_little_endian", "binary_big_endian"):
+        raise InputError(f"damaged PLY header: unknown format {fmt!r}", path=path)
+    elements = []  # [name, count, fixed bytes, list count bytes]
+    for ln in lines:
+        tok = ln.split()
+        if not tok:
+            continue
+        if tok[0] == "element" and len(tok) >= 3:
+            try:
+                count = int(tok[2])
+            except ValueError:
+                count = -1
+            if not 0 <= count <= 2**40:
+                raise InputError(f"damaged PLY header: element {tok[1]!r} count {tok[2][:30]!r}",
+                                 path=path)
+            elements.append([tok[1], count, 0, 0])
+        elif tok[0] == "property" and elements and len(tok) >= 3:
+            if tok[1] == "list" and len(tok) >= 5:
+                elements[-1][3] += PLY_TYPES.get(tok[2], 1)
+            else:
+                elements[-1][2] += PLY_TYPES.get(tok[1], 1)
+    if fmt == "ascii":
+        declared = sum(n * 2 * max(1, (fixed > 0) + (lst > 0)) for _, n, fixed, lst in elements)
+    else:
+        declared = sum(n * (fixed + lst) for _, n, fixed, lst in elements)
+    counts = ", ".join(f"{n:,} {name}" for name, n, _, _ in elements)
+    check_declared(declared, body, f"{counts} elements", path)
+    n_all = sum(n for _, n, _, _ in elements)
+    check_read_memory(n_all * MESH_BYTES_PER_FACE, counts or "no elements", path)
+
+
+def _precheck_off(path, head, size):
+    toks = []
+    for raw in head.split(b"\n")[:64]:
+        line = raw.split(b"#", 1)[0].strip()
+        if not line:
+            continue
+        parts = line.split()
+        if not toks and parts[0].upper().endswith(b"OFF"):
+            parts = parts[1:]
+            if not parts:
+                continue
+        toks = parts
+        break
+    try:
+        nv, nf = int(toks[0]), int(toks[1])
+    except (IndexError, ValueError):
+        return  # trimesh says what is wrong
+    if nv < 0 or nf < 0:
+        raise InputError(f"damaged OFF header: negative counts {nv} vertices, {nf} faces",
+                         path=path)
+    check_declared(nv * 6 + nf * 8, size, f"{nv:,} vertices and {nf:,} faces", path)
+    check_read_memory(nv * MESH_BYTES_PER_VERTEX + nf * MESH_BYTES_PER_FACE,
+                      f"{nv:,} vertices and {nf:,} faces", path)
+
+
+_GLTF_COMPONENTS = {"SCALAR": 1, "VEC2": 2, "VEC3": 3, "VEC4": 4, "MAT2": 4, "MAT3": 9, "MAT4": 16}
+_GLTF_BYTES = {5120: 1, 5121: 1, 5122: 2, 5123: 2, 5125: 4, 5126: 4}
+
+
+def _precheck_gltf(path, head, size, suffix):
+    """glTF 2.0: accessors within their buffer views, views within their buffers, buffers
+    within the file (GLB) or the data they name; external URIs only to regular files
+    beside the ``.gltf``."""
+    if suffix == ".glb":
+        if len(head) < 20 or head[:4] != b"glTF":
+            return  # trimesh says what it is not
+        length, kind = struct.unpack("<II", head[12:20])
+        if kind != 0x4E4F534A:
+            return
+        if 20 + length > size:
+            raise InputError(f"damaged glTF binary: its JSON chunk claims {length:,} bytes, the "
+                             f"file holds {size:,}", path=path)
+        with open(path, "rb") as fh:
+            fh.seek(20)
+            text = fh.read(length)
+        bin_len = max(0, size - 20 - length - 8)
+    else:
+        text = path.read_bytes()
+        bin_len = None
+    doc = load_json(text, path=path, what="the glTF JSON", expect=dict)
+    buffers = doc.get("buffers") or []
+    views = doc.get("bufferViews") or []
+    accessors = doc.get("accessors") or []
+    if not all(isinstance(x, list) for x in (buffers, views, accessors)):
+        raise InputError("damaged glTF: 'buffers', 'bufferViews' and 'accessors' must be arrays",
+                         path=path)
+    blen = []
+    for i, b in enumerate(buffers):
+        n = b.get("byteLength") if isinstance(b, dict) else None
+        if not isinstance(n, int) or isinstance(n, bool) or n < 0:
+            raise InputError(f"damaged glTF: buffer {i} has no valid byteLength", path=path)
+        uri = b.get("uri")
+        if uri is None:
+            if bin_len is not None and n > bin_len:
+                raise InputError(f"damaged glTF binary: buffer {i} claims {n:,} bytes, the "
+                                 f"file holds {bin_len:,} after its JSON", path=path)
+        elif not isinstance(uri, str):
+            raise InputError(f"damaged glTF: buffer {i} has a uri that is not text", path=path)
+        elif not uri.startswith("data:"):
+            _check_gltf_uri(path, uri, f"buffer {i}")
+        blen.append(n)
+    for img in doc.get("images") or []:
+        if isinstance(img, dict) and isinstance(img.get("uri"), str) and \
+                not img["uri"].startswith("data:"):
+            _check_gltf_uri(path, img["uri"], "an image")
+    for i, v in enumerate(views):
+        if not isinstance(v, dict):
+            raise InputError(f"damaged glTF: bufferView {i} is not an object", path=path)
+        b, off, n = v.get("buffer"), v.get("byteOffset", 0), v.get("byteLength")
+        if not (isinstance(b, int) and 0 <= b < len(blen) and isinstance(off, int) and
+                isinstance(n, int) and off >= 0 and n >= 0 and off + n <= blen[b]):
+            raise InputError(f"damaged glTF: bufferView {i} does not lie inside its buffer",
+                             path=path)
+    total = 0
+    for i, a in enumerate(accessors):
+        if not isinstance(a, dict):
+            raise InputError(f"damaged glTF: accessor {i} is not an object", path=path)
+        count = a.get("count")
+        kind, ctype = a.get("type"), a.get("componentType")
+        comps = _GLTF_COMPONENTS.get(kind, 1) if isinstance(kind, str) else 1
+        item = _GLTF_BYTES.get(ctype, 4) if isinstance(ctype, int) else 4
+        if not isinstance(count, int) or isinstance(count, bool) or not 0 <= count <= 2**40:
+            raise InputError(f"damaged glTF: accessor {i} has no valid count", path=path)
+        view = a.get("bufferView")
+        if isinstance(view, int) and 0 <= view < len(views) and count:
+            off = a.get("byteOffset", 0)
+            stride = views[view].get("byteStride") or comps * item
+            if not (isinstance(off, int) and off >= 0 and isinstance(stride, int) and stride > 0):
+                raise InputError(f"damaged glTF: accessor {i} has a bad byteOffset or stride",
+                                 path=path)
+            if off + (count - 1) * stride + comps * item > views[view]["byteLength"]:
+                raise InputError(f"damaged glTF: accessor {i} declares {count:,} items, more "
+                                 f"than its bufferView holds", path=path)
+        total += count * comps * 8
+    check_read_memory(total * 8, f"{len(accessors)} accessors", path)
+
+
+def _check_gltf_uri(path, uri, what):
+    """A glTF's external file: a relative name of a regular file in the glTF's folder."""
+    from urllib.parse import unquote
+    name = unquote(uri)
+    target = (path.parent / name)
+    if "://" in uri or Path(name).is_absolute() or ".." in Path(name).parts:
+        raise InputError(f"{what} refers to {uri[:80]!r}; a glTF may refer only to files "
+                         f"beside it", path=path)
+    try:
+        check_input_file(target)
+    except InputError as e:
+        raise InputError(f"{what} refers to {uri[:80]!r}, which {e.detail}", path=path) from None
 
 
 def _load_trimesh(path: Path):
@@ -235,59 +486,21 @@ def _load_trimesh(path: Path):
     return vertices, faces, arrays
 
 
-@contextlib.contextmanager
-def _quiet_vtk():
-    """Silence VTK's console output and collect its error messages instead."""
-    import logging
-
-    import pyvista as pv
-
-    previous = logging.root.manager.disable
-    logging.disable(logging.CRITICAL)  # pyvista's readers log VTK errors to the root logger
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            with pv.vtk_verbosity("off"):
-                with pv.VtkErrorCatcher(raise_errors=False, send_to_logging=False) as catcher:
-                    yield catcher
-    finally:
-        logging.disable(previous)
-
-
 def _load_vtk(path: Path):
-    import pyvista as pv
+    """Points, triangles, per-face arrays and the header of a VTK file, parsed by VTK in a
+    child process after its declarations are checked (:mod:`sheetview.io.vtkfiles`)."""
 
-    fmt = _FORMAT_NAMES[path.suffix.lower()]
-    mesh = None
-    err = None
-    with _quiet_vtk() as catcher:
-        try:
-            mesh = pv.read(str(path))
-        except Exception as e:
-            err = _short(e)
-    errors = [str(getattr(ev, "alert", ev)) for ev in getattr(catcher, "error_events", [])]
-    if mesh is None or (errors and mesh.n_points == 0):
-        why = err or (errors[0] if errors else "unknown error")
-        raise InputError(f"cannot be read as {fmt}: {_short(why)}", path=path)
-    found = _field_header(mesh)
-    if isinstance(mesh, pv.MultiBlock):
-        mesh = mesh.combine()
-    if mesh.n_cells == 0:
-        return (np.array(mesh.points, dtype=np.float64).reshape(-1, 3), np.zeros((0, 3), np.int64),
-                {}, found)
-    with _quiet_vtk():
-        if not isinstance(mesh, pv.PolyData):
-            mesh = mesh.extract_surface()
-        mesh = _polygons_only(mesh)
-        if mesh.n_cells == 0:
-            return (np.array(mesh.points, dtype=np.float64).reshape(-1, 3),
-                    np.zeros((0, 3), np.int64), {}, found)
-        surf = mesh.triangulate()
-    # copies: views into VTK memory must not outlive the dataset
-    faces = np.array(surf.regular_faces, dtype=np.int64).reshape(-1, 3)
-    arrays = {k: np.array(surf.cell_data[k]) for k in surf.cell_data.keys()
-              if np.asarray(surf.cell_data[k]).ndim == 1}
-    return np.array(surf.points, dtype=np.float64), faces, arrays, found
+    vertices, faces, arrays, raw = read_mesh_arrays(path)
+    found = None
+    if raw is not None:
+        where = f"VTK field data '{HEADER_FIELD}'"
+        remedy = (f"remove the field data array '{HEADER_FIELD}' to read the mesh with an "
+                  f"inferred domain")
+        if raw[0] == "text":
+            found = _found_json(raw[1], where, remedy)
+        else:
+            found = _Found(MESH_FORMAT_VERSION, _NOT_TEXT, where, remedy)
+    return vertices, faces, arrays, found
 
 
 # ----------------------------------------------------------------------------- header
@@ -319,7 +532,7 @@ class MeshHeader:
 class _Found:
     """A sheetview header found in a file, not yet checked."""
 
-    version: int
+    version: int | None  # None: a damaged version number
     payload: object  # JSON text, a parsed object, or _NOT_TEXT
     where: str  # how the file holds it, for messages
     remedy: str  # how to read the mesh without it
@@ -333,32 +546,21 @@ def _found_json(value, where, remedy):
     obj = value
     if isinstance(value, str):
         try:
-            obj = json.loads(value)
-        except ValueError:
+            obj = load_json(value)
+        except InputError:
             return _Found(MESH_FORMAT_VERSION, value, where, remedy)
     version = MESH_FORMAT_VERSION
     if isinstance(obj, dict) and "format" in obj:
         m = _FORMAT_RE.fullmatch(str(obj["format"]))
         if not m:
             return None
-        version = int(m.group(1))
+        version = _version(m.group(1))
     return _Found(version, obj, where, remedy)
 
 
-def _field_header(dataset):
-    """The header in the field data of a VTK dataset, or None."""
-    fd = getattr(dataset, "field_data", None)
-    if fd is None or HEADER_FIELD not in fd.keys():
-        return None
-    where = f"VTK field data '{HEADER_FIELD}'"
-    remedy = f"remove the field data array '{HEADER_FIELD}' to read the mesh with an inferred domain"
-    try:
-        a = np.asarray(fd[HEADER_FIELD]).ravel()
-    except Exception:  # noqa: BLE001 - an array pyvista cannot hand over is as bad as garbage
-        a = None
-    if a is None or a.size != 1 or a.dtype.kind not in "USO":
-        return _Found(MESH_FORMAT_VERSION, _NOT_TEXT, where, remedy)
-    return _found_json(str(a[0]), where, remedy)
+def _version(digits: str) -> int | None:
+    """A header's version number, or None when it is damaged (absurdly long)."""
+    return int(digits) if len(digits) <= 6 else None
 
 
 def _find_text_header(path: Path, suffix: str):
@@ -404,7 +606,7 @@ def _find_text_header(path: Path, suffix: str):
                 body = text[1:].strip()
             m = _COMMENT_RE.match(body)
             if m:
-                return _Found(int(m.group(1)), m.group(2) or "", f"{name} comment line",
+                return _Found(_version(m.group(1)), m.group(2) or "", f"{name} comment line",
                               "fix or delete that comment line to read the mesh with an "
                               "inferred domain", lineno)
     return None
@@ -422,10 +624,10 @@ def _glb_header(path: Path):
             length, kind = struct.unpack("<II", head[12:20])
             if kind != 0x4E4F534A or length > HEADER_SCAN_BYTES:  # "JSON"
                 return None
-            doc = json.loads(fh.read(length).decode("utf-8"))
+            doc = load_json(fh.read(length))
         scene = doc["scenes"][doc.get("scene", 0)]
         extras = scene.get("extras")
-    except (OSError, ValueError, KeyError, IndexError, TypeError, AttributeError):
+    except (OSError, ValueError, KeyError, IndexError, TypeError, AttributeError, InputError):
         return None  # not readable as glTF: trimesh says why
     if not isinstance(extras, dict) or HEADER_FIELD not in extras:
         return None
@@ -449,6 +651,9 @@ def _interpret_header(found, path, units) -> MeshHeader | None:
         raise InputError(f"sheetview header ({found.where}): {msg}; {found.remedy}",
                          path=path, line=found.line, field=field)
 
+    if found.version is None:
+        raise InputError(f"sheetview header ({found.where}): its version number is damaged; "
+                         f"{found.remedy}", path=path, line=found.line, field=HEADER_FIELD)
     if found.version > MESH_FORMAT_VERSION:
         raise InputError(f"sheetview header ({found.where}) is version {found.version}, newer "
                          f"than this sheetview reads (v{MESH_FORMAT_VERSION}); update sheetview",
@@ -458,11 +663,11 @@ def _interpret_header(found, path, units) -> MeshHeader | None:
         bad("expected one JSON text")
     if isinstance(h, str):
         try:
-            h = json.loads(h)
-        except ValueError as e:
-            bad(f"not valid JSON ({getattr(e, 'msg', str(e))} at column {getattr(e, 'colno', '?')})")
+            h = load_json(h, what="the header")
+        except InputError as e:
+            bad(e.detail.replace("the header is ", "", 1).replace("the header ", "", 1))
     if not isinstance(h, dict):
-        bad(f"expected a JSON object, got {type(h).__name__}")
+        bad(f"expected a JSON object, got {json_type(h)}")
     if units is not None:
         f = unit_factor(units, path=path)
     elif "units" in h:
@@ -487,14 +692,14 @@ def _interpret_header(found, path, units) -> MeshHeader | None:
     sp = None
     if h.get("spacing") is not None:
         v = h["spacing"]
-        if isinstance(v, bool) or not isinstance(v, (int, float)) or not np.isfinite(v) or v <= 0:
-            bad(f"spacing must be a positive number, got {json.dumps(v)}", "spacing")
+        if finite_number(v) is None or not 0 < float(v) * f <= MAX_LENGTH_NM:
+            bad(f"spacing must be a positive number, got {json.dumps(v)[:40]}", "spacing")
         sp = float(v) * f
     meta = h.get("metadata")
     if meta is None:
         meta = {}
     elif not isinstance(meta, dict):
-        bad(f"metadata must be a JSON object, got {type(meta).__name__}", "metadata")
+        bad(f"metadata must be a JSON object, got {json_type(meta)}", "metadata")
     return MeshHeader(f, dom, sp, meta)
 
 
@@ -523,29 +728,6 @@ def _comment_line(header: dict) -> str:
     """``sheetview mesh v1 {JSON}``: the text after a PLY ``comment`` or an OBJ/OFF ``#``."""
     body = {k: v for k, v in header.items() if k != "format"}
     return f"{MESH_MARKER} {_header_json(body)}"
-
-
-def _polygons_only(poly):
-    """Drop vertex and line cells of a PolyData (VTK orders its cells verts, lines, polys,
-    strips), keeping the polygons and strips with their cell arrays."""
-    import pyvista as pv
-
-    nv, nl = poly.n_verts, poly.n_lines
-    if nv == 0 and nl == 0:
-        return poly
-    out = pv.PolyData(np.array(poly.points), faces=np.array(poly.faces),
-                      strips=np.array(poly.strips))
-    start = nv + nl
-    for k in poly.cell_data.keys():
-        out.cell_data[k] = np.array(poly.cell_data[k])[start:]
-    return out
-
-
-def _short(e) -> str:
-    s = str(e).strip().splitlines()
-    s = s[0] if s else type(e).__name__
-    s = re.sub(r"\s*\(0x[0-9a-f]+\)", "", s)
-    return s[:200]
 
 
 def _merge(vertices: np.ndarray, faces: np.ndarray):

@@ -19,16 +19,22 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
+import hashlib
 import io
 import json
+import math
+import os
 import re
+import tokenize
 import zipfile
+import zlib
 from pathlib import Path
 
 import numpy as np
 
-from ..domain import Box, domain_from_dict
+from ..domain import MAX_LENGTH_NM, Box, domain_from_dict
 from ..errors import InputError, OptionError
+from .safety import check_read_memory, finite_number, fmt, json_type, load_json, read_npy_header
 from ..structure import DEFAULT_SPACING_NM, KNOWN_COLUMNS, Structure, with_inferred_domain
 from .output import atomic_path
 
@@ -50,7 +56,7 @@ _PLACEHOLDER_DOMAIN = Box((0.0, 0.0, 0.0), (1.0, 1.0, 1.0), inferred=True)
 def unit_factor(units, *, path=None, line=None) -> float:
     """Factor that converts a length in ``units`` to nm; refuses unknown units."""
     if not isinstance(units, str) or units.strip().lower() not in UNITS:
-        raise InputError(f"unknown units {units!r}; expected one of \"nm\", \"A\" "
+        raise InputError(f"unknown units {str(units)[:40]!r}; expected one of \"nm\", \"A\" "
                          f"(\"angstrom\"), \"um\"", path=path, line=line, field="units")
     return UNITS[units.strip().lower()]
 
@@ -80,11 +86,12 @@ def _parse_header(lines, path):
             continue
         key, value = m.group(1), m.group(2)
         try:
-            header[key] = json.loads(value)
-        except json.JSONDecodeError as e:
+            header[key] = load_json(value, path=path, line=lineno, field=key,
+                                    what="header value")
+        except InputError as e:
             if key in RESERVED_KEYS:
-                raise InputError(f"header value is not valid JSON ({e.msg}); write it as "
-                                 f"`# {key}: <JSON value>`", path=path, line=lineno, field=key)
+                raise InputError(f"{e.detail}; write it as `# {key}: <JSON value>`", path=path,
+                                 line=lineno, field=key) from None
             header[key] = value  # free text metadata
         where[key] = lineno
     return header, where
@@ -94,10 +101,12 @@ def _header_number(header, where, key, path, positive=True):
     if key not in header:
         return None
     v = header[key]
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or not np.isfinite(v) or (positive and v <= 0):
-        raise InputError(f"expected a positive number, got {json.dumps(v)}", path=path,
-                         line=where.get(key), field=key)
-    return float(v)
+    f = finite_number(v)
+    if f is None or (positive and not 0 < f <= MAX_LENGTH_NM):
+        shown = json_type(v) if not isinstance(v, (int, float)) or isinstance(v, bool) else fmt(v)
+        raise InputError(f"expected a positive number of at most {MAX_LENGTH_NM:g}, got "
+                         f"{shown}", path=path, line=where.get(key), field=key)
+    return f
 
 
 def _check_columns(names, path, line):
@@ -132,6 +141,12 @@ def _assemble(arrays: dict, header: dict, where: dict, path, *, thickness=None,
         vert[:, k // 3, k % 3] = arrays[name]
     if f != 1.0:
         vert *= f
+    for name, a in arrays.items():
+        a = np.asarray(a)
+        if a.shape != (n,) or a.dtype.kind not in "biuf":
+            what = f"{a.dtype} values" if a.dtype.kind not in "biuf" else f"shape {a.shape}"
+            raise InputError(f"column '{name}' must hold {n} numbers (one per prism), got "
+                             f"{what}", path=path, field=name)
     if "thickness" in arrays:
         thick = np.asarray(arrays["thickness"], dtype=np.float64) * f
     else:
@@ -152,10 +167,7 @@ def _assemble(arrays: dict, header: dict, where: dict, path, *, thickness=None,
             continue
         a = np.asarray(a)
         if name in ("sheet", "tag"):
-            if a.dtype.kind == "f":
-                if not np.all(np.isfinite(a)) or np.any(a != np.round(a)):
-                    raise InputError(f"column '{name}' must hold whole numbers", path=path, field=name)
-            cols[name] = a.astype(np.int64)
+            cols[name] = whole_numbers(a, name, path, "column")
         else:
             cols[name] = a.astype(np.float64)
     meta = {k: v for k, v in header.items() if k not in RESERVED_KEYS}
@@ -176,6 +188,31 @@ def _assemble(arrays: dict, header: dict, where: dict, path, *, thickness=None,
     return s
 
 
+def whole_numbers(a, name, path, what="column") -> np.ndarray:
+    """An integer column as int64: floats must be whole and within the int64 range, and
+    unsigned values must fit; else an :class:`InputError` naming the row."""
+    a = np.asarray(a)
+    if a.dtype.kind == "b":
+        return a.astype(np.int64)
+    if a.dtype.kind == "u" and a.dtype.itemsize >= 8:
+        bad = a > np.iinfo(np.int64).max
+    elif a.dtype.kind == "f":
+        with np.errstate(invalid="ignore"):
+            bad = ~np.isfinite(a) | (a != np.round(a)) | (np.abs(a) >= INT64_LIMIT)
+    else:
+        return a.astype(np.int64)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise InputError(f"{what} '{name}' must hold whole numbers within +/-9.2e18, got "
+                         f"{fmt(a[i])} at row {i + 1} ({int(bad.sum())} row(s) affected)",
+                         path=path, field=name)
+    return a.astype(np.int64)
+
+
+#: Floats at or beyond this magnitude do not fit an int64.
+INT64_LIMIT = 2.0 ** 63
+
+
 # ------------------------------------------------------------------------------ CSV
 def read_csv(path, *, thickness=None, spacing=None, units=None) -> Structure:
     """Read the CSV form of the prism table (also plain CSV without a header block)."""
@@ -184,6 +221,9 @@ def read_csv(path, *, thickness=None, spacing=None, units=None) -> Structure:
 
     path = Path(path)
     try:
+        size = path.stat().st_size
+        # the text, Arrow's parsed columns and the prism arrays made from them
+        check_read_memory(size * CSV_READ_FACTOR, f"{size:,} bytes of CSV text", path)
         raw = path.read_bytes()
     except OSError as e:
         raise InputError(f"cannot read: {e.strerror}", path=path) from None
@@ -320,81 +360,217 @@ def write_npz(s: Structure, path, *, force=False) -> Path:
 
 
 def read_npz(path, *, thickness=None, spacing=None, units=None) -> Structure:
-    """Read the NPZ form. Object arrays (pickles) are refused."""
+    """Read the NPZ form. Object arrays (pickles) are refused; the declared shape of every
+    array is checked against the archive (:func:`npz_inventory`) and the memory budget
+    before any array is read."""
     path = Path(path)
+    inventory = npz_inventory(path)
+    if "vertices" not in inventory or "header" not in inventory:
+        raise InputError("not a sheetview prism NPZ (needs arrays 'vertices' and "
+                         "'header'); for a voxel volume use .npy", path=path)
+    shape, dtype = inventory["vertices"]
+    if len(shape) != 3 or shape[1:] != (3, 3) or dtype.kind not in "fiu":
+        raise InputError(f"'vertices' must be a numeric (N, 3, 3) array, got {dtype} {shape}",
+                         path=path, field="vertices")
+    n = shape[0]
+    if n == 0:
+        raise InputError("holds no prisms ('vertices' has 0 rows)", path=path, field="vertices")
+    hshape, hdtype = inventory["header"]
+    if hshape != () or hdtype.kind != "U":
+        raise InputError(f"the 'header' array must be one text (a 0-d unicode array), got "
+                         f"{hdtype} {hshape}", path=path, field="header")
+    for k, (shp, dt) in inventory.items():
+        if k.startswith("col_") or k == "thickness":
+            if shp != (n,) or dt.kind not in "fiub":
+                raise InputError(f"array {k!r} must hold {n} numbers (one per prism), got "
+                                 f"{dt} {shp}", path=path, field=k)
+    check_read_memory(n * prism_read_bytes(len(inventory) + 8), f"{n:,} prisms", path)
     try:
         with np.load(path, allow_pickle=False) as z:
-            names = set(z.files)
-            if "vertices" not in names or "header" not in names:
-                raise InputError("not a sheetview prism NPZ (needs arrays 'vertices' and "
-                                 "'header'); for a voxel volume use .npy", path=path)
-            data = {k: z[k] for k in z.files}
-    except InputError:
-        raise
+            data = {k: z[k] for k in z.files if k in inventory}
     except ValueError as e:
         if "pickle" in str(e).lower() or "object" in str(e).lower():
             raise InputError("holds Python objects (pickles), which sheetview never loads",
                              path=path) from None
-        raise InputError(f"damaged or truncated NPZ ({e})", path=path) from None
-    except (zipfile.BadZipFile, EOFError, OSError, KeyError) as e:
-        raise InputError(f"damaged or truncated NPZ ({type(e).__name__}: {e})", path=path) from None
-    try:
-        header = json.loads(str(data.pop("header")))
-    except json.JSONDecodeError:
-        raise InputError("the 'header' array is not valid JSON", path=path, field="header") from None
-    fmt = header.pop("format", f"{MAGIC} v1")
-    m = re.match(rf"{MAGIC} v(\d+)$", str(fmt))
+        raise InputError(f"damaged or truncated NPZ ({_first_line(e)})", path=path) from None
+    except (zipfile.BadZipFile, EOFError, OSError, KeyError, zlib.error, SyntaxError,
+            tokenize.TokenError) as e:
+        raise InputError(f"damaged or truncated NPZ ({type(e).__name__}: {_first_line(e)})",
+                         path=path) from None
+    header = load_json(str(data.pop("header")), path=path, field="header",
+                       what="the 'header' array", expect=dict)
+    fmt_name = header.pop("format", f"{MAGIC} v1")
+    m = re.match(rf"{MAGIC} v(\d+)$", str(fmt_name))
     if not m or int(m.group(1)) > FORMAT_VERSION:
-        raise InputError(f"unsupported format {fmt!r} (this sheetview reads v{FORMAT_VERSION})",
-                         path=path, field="format")
+        raise InputError(f"unsupported format {str(fmt_name)[:80]!r} (this sheetview reads "
+                         f"v{FORMAT_VERSION})", path=path, field="format")
     v = data.pop("vertices")
-    if v.ndim != 3 or v.shape[1:] != (3, 3) or v.dtype.kind not in "fiu":
-        raise InputError(f"'vertices' must be a numeric (N, 3, 3) array, got {v.dtype} {v.shape}",
-                         path=path, field="vertices")
     arrays = {name: v[:, k // 3, k % 3] for k, name in enumerate(CORNER_COLUMNS)}
     t = data.pop("thickness", None)
     if t is not None:
         arrays["thickness"] = t
     for k, a in data.items():
         if k.startswith("col_"):
-            if a.shape != (len(v),) or a.dtype.kind not in "fiub":
-                raise InputError(f"column array {k!r} must be numeric with {len(v)} entries",
-                                 path=path, field=k)
             arrays[k[4:]] = a
     return _assemble(arrays, header, {}, path, thickness=thickness, spacing=spacing, units=units)
 
 
+#: Most a deflate stream can expand (RFC 1951: at best about 1032 output bytes per input
+#: byte); a zip entry claiming more is damaged.
+DEFLATE_MAX_RATIO = 1032
+#: Most the corner coordinates of real prisms are accepted to compress (declared bytes per
+#: stored byte). Random coordinates compress about 1.2:1, coordinates on an integer lattice
+#: about 6:1 (measured with zlib); far higher only comes from runs of identical bytes, i.e.
+#: zeros (degenerate prisms) or copies of one prism: a decompression bomb.
+COORDINATE_MAX_RATIO = 256
+
+
+def npz_inventory(path) -> dict:
+    """``{name: (shape, dtype)}`` of the arrays of an NPZ, read from the ``.npy`` headers of
+    its entries without reading their data; refuses damaged archives (an entry larger than
+    the file, a declared size deflate cannot reach, a header that disagrees with the entry
+    size), object arrays, and corner coordinates compressed beyond
+    :data:`COORDINATE_MAX_RATIO`."""
+    path = Path(path)
+    size = path.stat().st_size
+    out = {}
+    try:
+        with zipfile.ZipFile(path) as zf:
+            for info in zf.infolist():
+                name = info.filename[:-4] if info.filename.endswith(".npy") else info.filename
+                if info.compress_size > size:
+                    raise InputError(f"damaged NPZ: entry {name!r} claims {info.compress_size:,} "
+                                     f"stored bytes, more than the file holds", path=path)
+                if info.compress_type == zipfile.ZIP_STORED and info.file_size != info.compress_size \
+                        or info.compress_type == zipfile.ZIP_DEFLATED and \
+                        info.file_size > DEFLATE_MAX_RATIO * info.compress_size + 1024:
+                    raise InputError(f"damaged NPZ: entry {name!r} claims {info.file_size:,} bytes "
+                                     f"from {info.compress_size:,} stored bytes", path=path)
+                if not info.filename.endswith(".npy"):
+                    continue
+                with zf.open(info) as fh:
+                    shape, _fortran, dtype = read_npy_header(fh)
+                    hlen = fh.tell()
+                if dtype.hasobject:
+                    raise InputError(f"array {name!r} holds Python objects (pickles), which "
+                                     f"sheetview never loads", path=path)
+                nbytes = math.prod(int(d) for d in shape) * dtype.itemsize
+                if nbytes + hlen != info.file_size:
+                    raise InputError(f"damaged NPZ: array {name!r} declares shape {shape} of "
+                                     f"{dtype} ({nbytes:,} bytes) but its entry holds "
+                                     f"{info.file_size - hlen:,}", path=path)
+                if name == "vertices" and info.compress_type != zipfile.ZIP_STORED and \
+                        nbytes > COORDINATE_MAX_RATIO * max(info.compress_size, 1):
+                    raise InputError(f"'vertices' declares {nbytes:,} bytes of corner "
+                                     f"coordinates stored in {info.compress_size:,} bytes (a "
+                                     f"ratio of {nbytes // max(info.compress_size, 1):,}:1 that "
+                                     f"real coordinates do not reach): a damaged file or a "
+                                     f"decompression bomb", path=path, field="vertices")
+                out[name] = (tuple(int(d) for d in shape), dtype)
+    except InputError:
+        raise
+    except (zipfile.BadZipFile, zipfile.LargeZipFile, EOFError, OSError, zlib.error,
+            ValueError, KeyError, NotImplementedError, SyntaxError, tokenize.TokenError) as e:
+        raise InputError(f"damaged or truncated NPZ ({type(e).__name__}: {_first_line(e)})",
+                         path=path) from None
+    return out
+
+
+def _first_line(e) -> str:
+    s = str(e).strip().splitlines()
+    return (s[0] if s else type(e).__name__)[:200]
+
+
+#: Bytes of the text a CSV reading holds at its peak per byte of file (the text, Arrow's
+#: columns and the prism arrays; measured 4.5 with benchmarks/bench_io.py).
+CSV_READ_FACTOR = 6
+
+
+def prism_read_bytes(n_columns: int) -> int:
+    """Peak bytes per prism of reading a binary prism table of ``n_columns`` columns: the
+    columns as read, the (N, 3, 3) corners, the validation temporaries (measured about 400
+    bytes per prism for 13 columns with benchmarks/bench_io.py; taken as 48 per column plus
+    256)."""
+    return 48 * int(n_columns) + 256
+
+
 # -------------------------------------------------------------------------- Parquet
+#: Schema metadata key of the checksum of the prism columns (see :func:`content_hash`).
+CONTENT_KEY = b"sheetview.content"
+
+
+def content_hash(columns: dict, header: bytes = b"") -> str:
+    """``sha256:<hex>`` of the header text (the ``sheetview`` schema metadata, as stored) and
+    the columns in order: for each, its name, numpy type (little endian), length and the
+    SHA-256 of its bytes (the columns are hashed in parallel threads; hashlib releases the
+    GIL). Written into the Parquet schema metadata and checked on reading, so that a damaged
+    data page that still decodes (a flipped bit in a number) or a damaged header value is
+    refused instead of giving other numbers."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    cols = []
+    for name, a in columns.items():
+        a = np.asarray(a)
+        cols.append((name, np.ascontiguousarray(a.astype(a.dtype.newbyteorder("<"), copy=False))))
+
+    def digest(a):
+        return hashlib.sha256(memoryview(a).cast("B")).digest()
+
+    with ThreadPoolExecutor(max_workers=max(1, min(4, os.cpu_count() or 1))) as pool:
+        digests = list(pool.map(digest, [a for _, a in cols]))
+    h = hashlib.sha256()
+    h.update(b"header\0" + bytes(header) + b"\0")
+    for (name, a), d in zip(cols, digests):
+        h.update(f"{name}\0{a.dtype.str}\0{a.shape[0]}\0".encode())
+        h.update(d)
+    return "sha256:" + h.hexdigest()
+
+
 def write_parquet(s: Structure, path, *, force=False) -> Path:
-    """Write the Parquet form: one column per table column, header in schema metadata."""
+    """Write the Parquet form: one column per table column, header in schema metadata,
+    CRC-32 checksums on every data page and a checksum of the columns
+    (:func:`content_hash`) in the schema metadata."""
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    cols = _columns_for(s)
+    cols = {k: np.ascontiguousarray(v) for k, v in _columns_for(s).items()}
     header = dict(_header_for(s), format=f"{MAGIC} v{FORMAT_VERSION}")
-    table = pa.table({k: np.ascontiguousarray(v) for k, v in cols.items()})
-    table = table.replace_schema_metadata({b"sheetview": json.dumps(header).encode()})
+    table = pa.table(cols)
+    text = json.dumps(header).encode()
+    table = table.replace_schema_metadata({b"sheetview": text,
+                                           CONTENT_KEY: content_hash(cols, text).encode()})
     with atomic_path(path, force) as tmp:
-        pq.write_table(table, tmp, compression="zstd")
+        pq.write_table(table, tmp, compression="zstd", write_page_checksum=True)
     return Path(path)
 
 
 def read_parquet(path, *, thickness=None, spacing=None, units=None) -> Structure:
+    """Read the Parquet form. The footer is checked first (row counts that agree, column
+    chunks inside the file, the memory the rows need); data pages are read with their
+    checksums verified, and the columns checked against :func:`content_hash` when the file
+    carries one."""
     import pyarrow as pa
     import pyarrow.parquet as pq
 
     path = Path(path)
     try:
-        table = pq.read_table(path)
-    except (pa.ArrowInvalid, OSError) as e:
-        raise InputError(f"damaged or not a Parquet file ({str(e).splitlines()[0]})", path=path) from None
+        pf = pq.ParquetFile(path, page_checksum_verification=True,
+                            thrift_string_size_limit=64 * 2**20)
+        md = pf.metadata
+        _check_parquet_footer(md, path)
+        table = pf.read(use_threads=True)
+    except InputError:
+        raise
+    except (pa.ArrowException, OSError, ValueError) as e:
+        raise InputError(f"damaged or not a Parquet file ({_first_line(e)})", path=path) from None
+    if table.num_rows != md.num_rows:
+        raise InputError(f"damaged Parquet file: the footer declares {md.num_rows:,} rows but "
+                         f"{table.num_rows:,} were read", path=path)
     meta = table.schema.metadata or {}
     header = {}
     if b"sheetview" in meta:
-        try:
-            header = json.loads(meta[b"sheetview"])
-        except json.JSONDecodeError:
-            raise InputError("the 'sheetview' schema metadata is not valid JSON", path=path) from None
+        header = load_json(meta[b"sheetview"], path=path, field="sheetview",
+                           what="the 'sheetview' schema metadata", expect=dict)
         header.pop("format", None)
     names = table.column_names
     _check_columns(names, path, None)
@@ -403,10 +579,32 @@ def read_parquet(path, *, thickness=None, spacing=None, units=None) -> Structure
         col = table.column(n)
         if not (pa.types.is_floating(col.type) or pa.types.is_integer(col.type)):
             raise InputError(f"column {n!r} must be numeric, not {col.type}", path=path, field=n)
+        if col.null_count:
+            raise InputError(f"column {n!r} has {col.null_count:,} missing (null) value(s); "
+                             f"every cell must be a number", path=path, field=n)
         arrays[n] = col.to_numpy()
     if table.num_rows == 0:
         raise InputError("the table has no rows", path=path)
+    if CONTENT_KEY in meta:
+        expected = meta[CONTENT_KEY].decode("ascii", errors="replace")
+        if content_hash(arrays, meta.get(b"sheetview", b"")) != expected:
+            raise InputError("the prism columns or the header do not match the checksum "
+                             "written with them (schema metadata 'sheetview.content'): the "
+                             "file is damaged", path=path)
     return _assemble(arrays, header, {}, path, thickness=thickness, spacing=spacing, units=units)
+
+
+def _check_parquet_footer(md, path) -> None:
+    """Row counts that agree between the footer and its row groups, and rows whose columns
+    fit the memory budget. (Only these fields are read: pyarrow aborts the process, instead
+    of raising, on some damaged column-chunk metadata, so the column chunks are left to its
+    reader, which raises.)"""
+    n = md.num_rows
+    groups = sum(md.row_group(i).num_rows for i in range(md.num_row_groups))
+    if n < 0 or groups != n:
+        raise InputError(f"damaged Parquet file: the footer declares {n:,} rows, its row "
+                         f"groups {groups:,}", path=path)
+    check_read_memory(n * prism_read_bytes(md.num_columns), f"{n:,} rows", path)
 
 
 READERS = {".csv": read_csv, ".txt": read_csv, ".npz": read_npz,

@@ -31,6 +31,14 @@ carries a ``sheetview`` marker) is read as is; a volume whose values are exactly
 {0, 1} is read as 0 = gel pore, 1 = solid; anything else is refused with the values
 found and a request for ``--phases``.
 
+Damaged files
+-------------
+The declared size of the volume must fit the file (NPY header against the data that
+follows, TIFF strips inside the file and within their compression's expansion, ImageJ
+stacks with all their images, VTI extent; :mod:`sheetview.io.vtkfiles`) and the memory
+budget, before anything is allocated; voxel size and origin must be finite numbers (the
+voxel size positive) whatever gives them; VTK parses ``.vti`` in a child process.
+
 Writers (:func:`write_volume`)
 ------------------------------
 ``.vti`` (ImageData, cell data ``phase``, spacing and origin, field data ``sheetview``),
@@ -46,16 +54,19 @@ and no second-file convention).
 from __future__ import annotations
 
 import json
-import os
+import math
 import re
 from pathlib import Path
 
 import numpy as np
 
+from ..domain import MAX_LENGTH_NM
 from ..errors import InputError, MemoryLimitError, OptionError
 from ..grid import PHASE_ALIASES, PHASE_NAMES, PhaseGrid
 from .output import atomic_path, json_default
 from .prisms import unit_factor
+from .safety import (MEMORY_FRACTION, check_tiff_pages, finite_number, fmt, gib, json_type,
+                     load_json, read_npy_header)
 
 MARKER = "sheetview phase codes v1"
 #: Name of the VTI cell array holding ``PhaseGrid.solid_fraction``.
@@ -63,8 +74,6 @@ FRACTION_ARRAY = "solid_fraction"
 #: Largest image data written as an ImageJ (classic, 32-bit offset) TIFF; beyond it a
 #: BigTIFF with the same metadata in its JSON description.
 IMAGEJ_TIFF_LIMIT = 2**32 - 2**25
-#: Fraction of the available memory a volume may use when read.
-MEMORY_FRACTION = 0.75
 
 #: Length units found in image metadata, as factors to nm.
 IMAGE_UNITS = {
@@ -81,31 +90,20 @@ IMAGE_UNITS = {
 
 # ----------------------------------------------------------------------------- memory
 def available_memory() -> int:
-    """Bytes of memory available now: Linux ``MemAvailable``, else ``os.sysconf``'s
-    free pages, else the physical memory."""
-    try:
-        with open("/proc/meminfo") as fh:
-            for line in fh:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    except (OSError, ValueError, IndexError):
-        pass
-    try:
-        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
-    except (ValueError, OSError, AttributeError):
-        try:
-            return int(os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
-        except (ValueError, OSError, AttributeError):
-            return 1 << 62
+    """Bytes of memory available now (:func:`sheetview.grid.available_memory`)."""
+    from ..grid import available_memory as avail
+    return avail()
 
 
 def memory_budget() -> int:
-    """Bytes a volume may take when read: :data:`MEMORY_FRACTION` of the available memory."""
-    return int(MEMORY_FRACTION * available_memory())
+    """Bytes a volume may take when read: :data:`MEMORY_FRACTION` of the available memory
+    (:func:`sheetview.io.safety.memory_budget`)."""
+    from . import safety
+    return safety.memory_budget()
 
 
 def _check_memory(shape, itemsize, path):
-    n = int(np.prod(shape, dtype=np.float64))
+    n = math.prod(int(s) for s in shape)
     # the file's array, the uint8 labels and one working copy of the labels
     need = n * int(itemsize) + 2 * n
     budget = memory_budget()
@@ -118,7 +116,7 @@ def _check_memory(shape, itemsize, path):
 
 
 def _gib(n) -> str:
-    return f"{n / 2**30:.2f} GiB" if n >= 2**30 else f"{n / 2**20:.1f} MiB"
+    return gib(n)
 
 
 # ----------------------------------------------------------------------------- reading
@@ -178,34 +176,56 @@ def read_volume(path, *, voxel_size=None, phases=None, shape=None, dtype=None, u
     if vs is not None:
         spacing = vs
     elif marker is not None and "spacing" in marker:  # nm by definition
-        spacing = tuple(float(v) for v in marker["spacing"])
+        spacing = _triple(marker["spacing"], "spacing", path, positive=True, where="marker")
     elif info.get("spacing") is not None:
-        spacing = info["spacing"]
+        spacing = _triple(info["spacing"], "voxel size", path, positive=True)
     else:
         why = info.get("no_spacing_reason", "the file gives no voxel size")
         raise InputError(f"{why}; pass --voxel-size <nm> (voxel_size=...)", path=path)
     if marker is not None and "origin" in marker:
-        origin = tuple(float(v) for v in marker["origin"])
+        origin = _triple(marker["origin"], "origin", path, positive=False, where="marker")
     else:
-        origin = info.get("origin", (0.0, 0.0, 0.0))
+        origin = _triple(info.get("origin", (0.0, 0.0, 0.0)), "origin", path, positive=False)
     names = dict(PHASE_NAMES)
     if marker is not None and isinstance(marker.get("names"), dict):
         try:
             names = {int(k): str(v) for k, v in marker["names"].items()}
-        except (TypeError, ValueError):
+            if any(not 0 <= k <= 255 for k in names):
+                raise ValueError
+        except (TypeError, ValueError, OverflowError):
             names = dict(PHASE_NAMES)
+    if marker is not None and not isinstance(marker.get("periodic", False), bool):
+        raise InputError(f"sheetview marker: \"periodic\" must be true or false, got "
+                         f"{json_type(marker['periodic'])}", path=path, field="periodic")
     labels = map_phases(arr, phases, marker is not None, path, names)
     meta = {}
     if marker is not None and isinstance(marker.get("metadata"), dict):
         meta.update(marker["metadata"])
     meta["source_format"] = suffix.lstrip(".")
-    periodic = bool(marker.get("periodic", False)) if marker is not None else False
+    periodic = marker.get("periodic", False) if marker is not None else False
     fraction = info.get("solid_fraction")
     try:
         return PhaseGrid(labels, spacing, origin, names, periodic, meta, str(path),
                          solid_fraction=fraction)
     except ValueError as e:
         raise InputError(f"bad voxel geometry: {e}", path=path) from None
+
+
+def _triple(value, what, path, *, positive, where=None):
+    """Three finite numbers of nm (positive for a spacing), each within
+    :data:`~sheetview.domain.MAX_LENGTH_NM`; else an :class:`InputError` naming the file."""
+    src = "sheetview marker" if where == "marker" else "the file's"
+    vals = None
+    if isinstance(value, (list, tuple, np.ndarray)) and len(value) == 3:
+        vals = [finite_number(v) for v in value]
+    if vals is None or any(v is None for v in vals) or \
+            any(abs(v) > MAX_LENGTH_NM for v in vals) or (positive and any(v <= 0 for v in vals)):
+        kind = "positive finite numbers" if positive else "finite numbers"
+        shown = json.dumps(value, default=str)[:80] if not isinstance(value, np.ndarray) \
+            else str(value.tolist())[:80]
+        raise InputError(f"{src} {what} must be three {kind} of nm (at most {MAX_LENGTH_NM:g}), "
+                         f"got {shown}", path=path, field=what)
+    return tuple(vals)
 
 
 def _check_voxel_size(voxel_size, path):
@@ -331,16 +351,31 @@ def _load_tiff(path: Path, ufac):
 
     try:
         tif = tifffile.TiffFile(str(path))
-    except Exception as e:
+    except Exception as e:  # noqa: BLE001 - tifffile raises many kinds on bad files
         raise InputError(f"cannot be read as TIFF: {_short(e)}", path=path) from None
     with tif:
         try:
+            n_pages = len(tif.pages)
             series = tif.series[0]
             shape = tuple(series.shape)
             axes = series.axes
             dtype = np.dtype(series.dtype)
-        except Exception as e:
+        except Exception as e:  # noqa: BLE001
             raise InputError(f"cannot be read as TIFF: {_short(e)}", path=path) from None
+        check_tiff_pages(tif, path)
+        nbytes = math.prod(int(d) for d in shape) * dtype.itemsize
+        offset = getattr(series, "dataoffset", None)
+        if offset is not None and offset + nbytes > path.stat().st_size:
+            raise InputError(f"declares a {' x '.join(map(str, shape))} stack ({nbytes:,} bytes "
+                             f"of contiguous data from byte {offset:,}) that runs beyond the end "
+                             f"of the file ({path.stat().st_size:,} bytes): truncated", path=path)
+        ij = tif.imagej_metadata if tif.is_imagej else None
+        declared = ij.get("images") if isinstance(ij, dict) else None
+        if isinstance(declared, int) and declared > 1 and \
+                math.prod(int(d) for d in shape[:-2]) < declared:
+            raise InputError(f"its ImageJ description declares {declared} images but only "
+                             f"{math.prod(int(d) for d in shape[:-2])} can be read: a truncated "
+                             f"or damaged stack", path=path)
         if "S" in axes and shape[axes.index("S")] > 1:
             raise InputError(f"is a colour (RGB) image stack of shape {shape} (axes {axes}); "
                              f"expected a 3D grey-level stack, one page per z slice", path=path)
@@ -352,15 +387,17 @@ def _load_tiff(path: Path, ufac):
         eff = tuple(shape[i] for i in keep) if squeeze else shape
         if len(eff) != 3:
             kind = "a single 2D image" if len(eff) == 2 else f"a {len(eff)}D image"
-            raise InputError(f"holds {kind} of shape {shape} (axes {axes}); expected a 3D stack "
-                             f"(one page per z slice, shape z, y, x)", path=path)
+            more = " (if it should hold more pages, it is truncated)" if len(eff) == 2 else ""
+            raise InputError(f"holds {kind} of shape {shape} (axes {axes}, {n_pages} page(s)); "
+                             f"expected a 3D stack (one page per z slice, shape z, y, x){more}",
+                             path=path)
         if dtype.kind not in "biuf":
             raise InputError(f"holds {dtype} values; expected integer or real voxel values",
                              path=path)
         _check_memory(eff, dtype.itemsize, path)
         try:
             data = series.asarray()
-        except Exception as e:
+        except Exception as e:  # noqa: BLE001
             raise InputError(f"cannot read the image data: {_short(e)}", path=path) from None
         info = _tiff_geometry(tif, ufac)
     data = data.reshape(eff)
@@ -381,16 +418,19 @@ def _tiff_geometry(tif, ufac) -> dict:
         if isinstance(md, dict) and "sheetview" in md:
             try:
                 mk = md["sheetview"]
-                mk = json.loads(mk) if isinstance(mk, str) else mk
+                mk = load_json(mk) if isinstance(mk, str) else mk
                 if isinstance(mk, dict) and mk.get("format") == MARKER:
                     info["marker"] = mk
-            except (TypeError, ValueError):
+            except (TypeError, ValueError, InputError):
                 pass
     page = tif.pages[0]
     tags = page.tags
     xres = tags["XResolution"].value if "XResolution" in tags else None
     yres = tags["YResolution"].value if "YResolution" in tags else None
-    res_unit = int(tags["ResolutionUnit"].value) if "ResolutionUnit" in tags else 1
+    try:
+        res_unit = int(tags["ResolutionUnit"].value) if "ResolutionUnit" in tags else 1
+    except (TypeError, ValueError, OverflowError):
+        res_unit = 1  # a damaged tag: no unit
     unit_f = ufac
     if unit_f is None and ij and isinstance(ij.get("unit"), str):
         unit_f = IMAGE_UNITS.get(ij["unit"].strip().lower()) or IMAGE_UNITS.get(ij["unit"].strip())
@@ -402,12 +442,14 @@ def _tiff_geometry(tif, ufac) -> dict:
         return info
 
     def per_pixel(res):
-        if res is None:
+        """Pixel edge from a resolution tag (pixels per unit, a rational), None when absent
+        or damaged."""
+        try:
+            num, den = res if isinstance(res, tuple) else (res, 1)
+            v = float(den) / float(num)
+        except (TypeError, ValueError, ZeroDivisionError, OverflowError):
             return None
-        num, den = res if isinstance(res, tuple) else (res, 1)
-        if not num or not den:
-            return None
-        return float(den) / float(num)
+        return v if math.isfinite(v) and v > 0 else None
 
     dx, dy = per_pixel(xres), per_pixel(yres)
     dz = ij.get("spacing") if ij else None
@@ -425,20 +467,14 @@ def _tiff_geometry(tif, ufac) -> dict:
 
 # NPY ----------------------------------------------------------------------------------
 def _load_npy(path: Path):
+    size = path.stat().st_size
     try:
         with open(path, "rb") as fh:
-            version = np.lib.format.read_magic(fh)
-            hstart = fh.tell()
-            if version == (1, 0):
-                shape, fortran, dtype = np.lib.format.read_array_header_1_0(fh)
-            elif version == (2, 0):
-                shape, fortran, dtype = np.lib.format.read_array_header_2_0(fh)
-            else:
-                shape, fortran, dtype = np.lib.format._read_array_header(fh, version)
+            shape, fortran, dtype = read_npy_header(fh)
             hend = fh.tell()
-            fh.seek(hstart)
-            raw_header = fh.read(hend - hstart)
-    except Exception as e:
+            fh.seek(0)
+            raw_header = fh.read(hend)
+    except Exception as e:  # noqa: BLE001 - numpy raises several kinds on a bad header
         raise InputError(f"cannot be read as a NumPy .npy file: {_short(e)}", path=path) from None
     if dtype.hasobject:
         raise InputError("holds Python objects (an object array, stored with pickle); "
@@ -449,21 +485,26 @@ def _load_npy(path: Path):
                          f"volume indexed [i, j, k] = x, y, z", path=path)
     if dtype.kind not in "biuf":
         raise InputError(f"holds {dtype} values; expected integer or real voxel values", path=path)
+    nbytes = math.prod(int(d) for d in shape) * dtype.itemsize
+    if nbytes > size - hend:
+        raise InputError(f"declares a {' x '.join(str(d) for d in shape)} array of {dtype} "
+                         f"({nbytes:,} bytes) but holds {size - hend:,} bytes of data: "
+                         f"truncated or damaged", path=path)
     _check_memory(shape, dtype.itemsize, path)
     try:
         arr = np.load(path, allow_pickle=False)
-    except Exception as e:
+    except Exception as e:  # noqa: BLE001
         raise InputError(f"cannot be read as a NumPy .npy file: {_short(e)}", path=path) from None
     info: dict = {"no_spacing_reason": "a .npy file holds no voxel size"}
     text = raw_header.decode("latin1", errors="replace")
     m = re.search(r"#\s*" + re.escape(MARKER) + r"\s*(\{.*\})", text)
     if m:
         try:
-            mk = json.loads(m.group(1))
+            mk = load_json(m.group(1), path=path, what="the sheetview marker")
             if isinstance(mk, dict):
                 mk["format"] = MARKER
                 info["marker"] = mk
-        except ValueError:
+        except InputError:
             pass
     return np.ascontiguousarray(arr), info
 
@@ -513,60 +554,43 @@ def _load_raw(path: Path, shape, dtype, byte_order):
 
 # VTI ----------------------------------------------------------------------------------
 def _load_vti(path: Path, ufac):
-    import pyvista as pv
+    """The voxel array and geometry of a ``.vti``: the XML declarations checked first
+    (extent against the file size and the memory budget; Spacing, Origin and Direction
+    finite, spacing positive), then parsed by VTK in a child process
+    (:func:`sheetview.io.vtkfiles.read_image_arrays`)."""
+    from .vtkfiles import read_image_arrays
 
-    from .meshes import _quiet_vtk
-
-    try:
-        with open(path, "rb") as fh:
-            head = fh.read(65536).decode("latin1", errors="replace")
-    except OSError as e:
-        raise InputError(f"cannot be opened: {e.strerror}", path=path) from None
-    m = re.search(r'WholeExtent="\s*(-?\d+)\s+(-?\d+)\s+(-?\d+)\s+(-?\d+)\s+(-?\d+)\s+(-?\d+)\s*"', head)
-    if not m or "ImageData" not in head:
-        raise InputError("cannot be read as VTK ImageData (.vti): no <ImageData WholeExtent=...> "
-                         "header found", path=path)
-    ext = [int(v) for v in m.groups()]
-    npts = [ext[1] - ext[0] + 1, ext[3] - ext[2] + 1, ext[5] - ext[4] + 1]
-    # the phase array, and a float32 solid fraction where one is named in the file
-    _check_memory(npts, 8 + (4 if f'Name="{FRACTION_ARRAY}"' in head else 0), path)
-    err = None
-    grid = None
-    with _quiet_vtk() as catcher:
-        try:
-            grid = pv.read(str(path))
-        except Exception as e:
-            err = _short(e)
-    errors = [str(getattr(ev, "alert", ev)) for ev in getattr(catcher, "error_events", [])]
-    if grid is None or errors:
-        why = err or (errors[0] if errors else "unknown error")
-        raise InputError(f"cannot be read as VTK ImageData (.vti): {_short(why)}", path=path)
-    if not isinstance(grid, pv.ImageData):
-        raise InputError(f"holds a {type(grid).__name__}, expected ImageData", path=path)
-    direction = getattr(grid, "direction_matrix", None)
-    if direction is not None and not np.allclose(np.asarray(direction), np.eye(3)):
+    grid = read_image_arrays(path)
+    direction = grid.get("direction")
+    if direction is not None and not np.allclose(np.asarray(direction).reshape(3, 3), np.eye(3)):
         raise InputError("has a rotated grid (non-identity Direction); only axis-aligned "
                          "grids are read", path=path)
-    dims = np.asarray(grid.dimensions)
+    dims = np.asarray(grid["dimensions"])
     name, where = _vti_array(grid, path)
-    data = np.asarray((grid.cell_data if where == "cell" else grid.point_data)[name])
+    data = np.asarray(grid[where][name])
     if data.ndim != 1:
         raise InputError(f"array '{name}' has {data.shape[1]} components; expected one value "
                          f"per voxel", path=path, field=name)
     vshape = tuple(int(d) for d in (np.maximum(dims - 1, 1) if where == "cell" else dims))
+    if data.size != math.prod(vshape):
+        raise InputError(f"array '{name}' holds {data.size:,} values for {math.prod(vshape):,} "
+                         f"voxels", path=path, field=name)
     arr = np.ascontiguousarray(data.reshape(vshape, order="F"))
     f = ufac if ufac is not None else 1.0
-    spacing = tuple(float(s) * f for s in grid.spacing)
-    origin = np.asarray(grid.origin, dtype=float) * f
+    spacing = tuple(float(s) * f for s in grid["spacing"])
+    origin = np.asarray(grid["origin"], dtype=float) * f
+    if not (all(math.isfinite(s) and s > 0 for s in spacing) and np.all(np.isfinite(origin))):
+        raise InputError(f"Spacing {grid['spacing']} and Origin {grid['origin']} must be finite "
+                         f"(spacing positive) in nm", path=path)
     if where == "point":
         origin = origin - 0.5 * np.asarray(spacing)
     info = {"spacing": spacing, "origin": tuple(float(o) for o in origin)}
-    if "sheetview" in grid.field_data:
+    if grid.get("marker") is not None:
         try:
-            mk = json.loads(str(np.asarray(grid.field_data["sheetview"]).ravel()[0]))
+            mk = json.loads(grid["marker"])
             if isinstance(mk, dict) and mk.get("format") == MARKER:
                 info["marker"] = mk
-        except (ValueError, IndexError, TypeError):
+        except (ValueError, RecursionError):
             pass
     mk = info.get("marker")
     if mk is not None and mk.get("solid_fraction") is not None:
@@ -577,8 +601,8 @@ def _load_vti(path: Path, ufac):
 def _vti_fraction(grid, name, where, vshape, path) -> np.ndarray:
     """The solid-fraction array that the marker of a sheetview VTI names: one float per
     voxel, beside the phase array (same cell or point association), each in [0, 1]."""
-    data = grid.cell_data if where == "cell" else grid.point_data
-    if not isinstance(name, str) or name not in data.keys():
+    data = grid[where]
+    if not isinstance(name, str) or name not in data:
         raise InputError(f"its sheetview marker announces a solid-fraction array {name!r}, "
                          f"but the file holds no {where} array of that name", path=path,
                          field="solid_fraction")
@@ -590,21 +614,21 @@ def _vti_fraction(grid, name, where, vshape, path) -> np.ndarray:
     bad = ~((a >= 0) & (a <= 1))  # NaN is bad too
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise InputError(f"solid-fraction array {name!r} must lie in [0, 1]; value {a[i]!r} "
+        raise InputError(f"solid-fraction array {name!r} must lie in [0, 1]; value {fmt(a[i])} "
                          f"at voxel {i} ({int(bad.sum())} voxel(s) affected)", path=path,
                          field=name)
     return np.ascontiguousarray(a.reshape(vshape, order="F"), dtype=np.float32)
 
 
 def _vti_array(grid, path):
-    cells = list(grid.cell_data.keys())
-    points = list(grid.point_data.keys())
+    cells = list(grid["cell"])
+    points = list(grid["point"])
     if "phase" in cells:
         return "phase", "cell"
     if "phase" in points:
         return "phase", "point"
-    for where, names, data in (("cell", cells, grid.cell_data), ("point", points, grid.point_data)):
-        active = getattr(data, "active_scalars_name", None)
+    for where, names in (("cell", cells), ("point", points)):
+        active = grid["active"].get(where)
         if active in names:
             return active, where
     if len(cells) + len(points) == 1:

@@ -125,7 +125,7 @@ import numpy as np
 from numba.cpython.unsafe.numbers import trailing_zeros as _tz
 
 from ..errors import OptionError
-from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, _phase_code
+from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, phase_code
 from ..structure import Structure, SurfaceBody
 from ..threads import budget
 from ._walls import (NONE, cell_lists, closest_on_prism, closest_on_triangle, feature_transform,
@@ -522,12 +522,12 @@ def _containment_table(kmax, types):
                     if v > A[t, q]:
                         A[t, q] = v
     M = np.full((nt, kmax + 2), -1, dtype=np.int64)
-    _prefix_max(A, M)
+    prefix_max(A, M)
     return M
 
 
 @numba.njit(cache=True)
-def _prefix_max(A, M):
+def prefix_max(A, M):
     """``M[t, K] = max(A[t, :K])`` for ``K >= 1`` (``M[t, 0]`` left as it is): the table
     of :func:`_containment_table` from the per-radius maxima ``A``."""
     for t in range(A.shape[0]):
@@ -1230,10 +1230,6 @@ def _refine_voxel(mask, F, d2, cand, rel, periodic, box, tau, gscale, thin, hvie
                     Dx[t] = min(max(est, 0.5 * dx_), dx_)
 
 
-#: Most wall primitives (prisms, triangles) gathered about one candidate centre.
-_MAXPRIM = 192
-#: Most half-spaces in one linear programme of the exact path.
-_MAXPL = 40
 
 
 @numba.njit(cache=True, inline="always")
@@ -1330,7 +1326,7 @@ def _exact_walls(kind, tri, nrm, half, prim, shf, npr, dom, dpar, vpl, nvp, xc, 
 @numba.njit(cache=True, parallel=True)
 def _refine_exact(mask, labels, solid, F, cand, sp, org, periodic, box, kind, tri, nrm, half,
                   cstart, citems, clo, csize, cdims, dom, dpar, zc, A, Dx, nchunk, niter,
-                  overflow, rel, unit, gscale):
+                  maxprim, rel, unit, gscale):
     """Exact path of :func:`exact_local_thickness`: per candidate centre ``x``, the
     walls near the features of its 27-neighbourhood (prisms or triangles from the cell
     lists, the domain wall, voxel planes for non-pore voxels that are neither solid nor
@@ -1344,16 +1340,16 @@ def _refine_exact(mask, labels, solid, F, cand, sp, org, periodic, box, kind, tr
     for a in range(3):
         r[a] = box * sp[a]
     for ch in numba.prange(nchunk):
-        prim = np.empty(_MAXPRIM, np.int64)
-        shf = np.empty((_MAXPRIM, 3))
+        prim = np.empty(maxprim, np.int64)
+        shf = np.empty((maxprim, 3))
         vpl = np.empty((27, 4))
-        Nn = np.empty((_MAXPRIM + 34, 3))
-        c = np.empty(_MAXPRIM + 34)
-        dist = np.empty(_MAXPRIM + 34)
-        T = np.empty((_MAXPL + 6, 7))
-        rhs = np.empty(_MAXPL + 6)
+        Nn = np.empty((maxprim + 34, 3))
+        c = np.empty(maxprim + 34)
+        dist = np.empty(maxprim + 34)
+        T = np.empty((maxprim + 40, 7))
+        rhs = np.empty(maxprim + 40)
         obj = np.empty(7)
-        basis = np.empty(_MAXPL + 6, np.int64)
+        basis = np.empty(maxprim + 40, np.int64)
         nonb = np.empty(7, np.int64)
         sol = np.empty(4)
         xc = np.empty(3)
@@ -1418,9 +1414,6 @@ def _refine_exact(mask, labels, solid, F, cand, sp, org, periodic, box, kind, tr
                                         break
                                 if seen:
                                     continue
-                                if npr == _MAXPRIM:
-                                    overflow[ch] += 1
-                                    continue
                                 prim[npr] = p
                                 shf[npr, 0] = s0
                                 shf[npr, 1] = s1
@@ -1447,7 +1440,7 @@ def _refine_exact(mask, labels, solid, F, cand, sp, org, periodic, box, kind, tr
                                  xc, 0.0, 0.0, 0.0, Nn, c, dist, 0)
             for _ in range(niter):
                 _, nw = _exact_walls(kind, tri, nrm, half, prim, shf, npr, dom, dpar, vpl,
-                                     nvp, xc, z0, z1, z2, Nn, c, dist, _MAXPL)
+                                     nvp, xc, z0, z1, z2, Nn, c, dist, maxprim + 34)
                 if nw == 0:
                     break
                 _lp_maxmin(Nn, c, nw, r, T, rhs, obj, basis, nonb, sol)
@@ -1653,6 +1646,9 @@ REFINE_THIN = 0.3
 VIEW_SLACK = 2.0
 #: Half-angle (degrees) of the cone of normals taken as one wall in the bracket.
 WALL_CONE = 85.0
+#: A refined ball also holds the phase voxels whose centre lies within this distance (voxel
+#: edges) beyond its radius (module docstring, step 6).
+PAINT_SLACK = 0.25
 
 
 def _centres_local_thickness(m, sp, periodic, out):
@@ -1756,6 +1752,8 @@ def _subvoxel_local_thickness(m, sp, periodic, out):
         # common on anisotropic grids) must stay outside the open ball
         rr_lat *= np.float32(1.0 - 1e-6)
     rho2 *= np.float32(1.0 - 1e-6)
+    if PAINT_SLACK > 0:
+        rho2 = np.maximum(rho2, (A + np.float32(PAINT_SLACK * float(np.min(rel)))) ** 2)
     if out is None:
         out = d2
     _paint_refined(m, cand, zc, rho2, rr_lat, 2.0 * unit * A, 2.0 * unit * Dx, rel,
@@ -1891,7 +1889,7 @@ def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np
     else:
         if isinstance(phases, (str, int, np.integer)):
             phases = (phases,)
-        codes = [_phase_code(p, grid.names) for p in phases]
+        codes = [phase_code(p, grid.names) for p in phases]
     if SOLID in codes or OUTSIDE in codes:
         raise OptionError("the pore phases cannot include solid or outside voxels",
                           field="phases")
@@ -1930,16 +1928,18 @@ def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np
     A = np.empty(nc, np.float64)
     Dx = np.empty(nc, np.float64)
     nchunk = max(1, min(nc, 64 * numba.get_num_threads()))
-    overflow = np.zeros(nchunk, np.int64)
+    # every primitive gathered for a candidate is listed in one of at most 27 cells
+    maxprim = max(1, 27 * int(np.diff(cstart).max(initial=0)))
     _refine_exact(m, labels, np.uint8(SOLID), F, cand, sp, org, periodic, REFINE_BOX, kind,
                   tri, nrm, half, cstart, citems, org, csize, cdims, dkind, dpar, zc, A,
-                  Dx, nchunk, EXACT_ROUNDS, overflow, np.asarray(rel, np.float64), unit,
+                  Dx, nchunk, EXACT_ROUNDS, maxprim, np.asarray(rel, np.float64), unit,
                   gap_scale(rel))
     del F
     rr_lat = d2.reshape(-1)[cand]
     if out is None:
         out = d2
-    _paint_refined(m, cand, (zc / unit).astype(np.float32), ((A / unit) ** 2).astype(np.float32),
+    _paint_refined(m, cand, (zc / unit).astype(np.float32),
+                   ((A / unit + PAINT_SLACK * float(np.min(rel))) ** 2).astype(np.float32),
                    rr_lat, 2.0 * A, 2.0 * Dx, rel, periodic, out)
     out[~m] = np.nan
     return out
@@ -2590,7 +2590,7 @@ def pore_size_distribution(grid: PhaseGrid, phases=(GEL,), *, bins="log",
         raise OptionError(f"pore sizes need a PhaseGrid, not {type(grid).__name__}")
     if isinstance(phases, (str, int, np.integer)):
         phases = (phases,)
-    codes = [_phase_code(p, grid.names) for p in phases]
+    codes = [phase_code(p, grid.names) for p in phases]
     names = tuple(grid.names.get(c, f"phase_{c}") for c in codes)
     mask = np.isin(grid.labels, np.asarray(codes, dtype=np.uint8))
     if not mask.any():

@@ -41,7 +41,7 @@ from ..sld import preset_sld
 from ..threads import budget
 from ._result import Result
 from ..errors import MemoryLimitError
-from ..grid import _phase_code, available_memory
+from ..grid import phase_code, available_memory
 
 NM_TO_CM = 1e-7
 #: 1e-6 Å⁻² in cm⁻².
@@ -295,7 +295,7 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
     sp = np.asarray(grid.spacing, dtype=float)
     codes = {}
     for k, v in sld_by_phase.items():
-        codes[_phase_code(k, names)] = float(v)
+        codes[phase_code(k, names)] = float(v)
     lut, code_counts = _sld_field(labels, codes, names)
     ref = codes.get(OUTSIDE, codes.get(GEL, float("nan")))
     if np.isnan(ref):
