@@ -22,7 +22,8 @@ cavity behind a narrow throat (an "ink bottle") takes the throat's diameter.
 
 Local thickness has two methods; intrusion uses the first one's lattice conventions.
 
-**method="centres"** (this program's first discretisation; the one intrusion uses):
+**method="centres"** (the default, :data:`DEFAULT_LT_METHOD`; this program's first
+discretisation; the one intrusion uses):
 
 * ``d(x)`` is the Euclidean distance from the centre of phase voxel ``x`` to the centre of
   the nearest voxel not in the phase (computed by the ``edt`` package with the voxel
@@ -50,7 +51,8 @@ a face or in-plane neighbour with a larger radius (exact integer test). The x ax
 into slabs painted in parallel, one thread per slab. The result is, bit for bit, the
 plain maximum over all balls.
 
-**method="subvoxel"** (the default; this program's own method, built on the definition
+**method="subvoxel"** (an option, 4 to 8 times slower than "centres"; this program's own
+method, built on the definition
 of Hildebrand & Rüegsegger): ball centres off the lattice and a wall between the voxel
 centres. Lengths below are in voxel edges.
 
@@ -91,12 +93,15 @@ centres. Lengths below are in voxel edges.
    diameter ``2 A``, and its lattice ball ``|q - x| < d(x)`` with twice the radius from 5
    at ``x``. Balls are painted from the largest diameter down, first cover wins (as for
    "centres", with float centres and without the plane masks), so every phase voxel
-   takes the largest diameter of the balls holding it.
+   takes the largest diameter of the balls holding it. The refined ball also holds the
+   phase voxels within :data:`PAINT_SLACK` (a quarter voxel) beyond ``A``: the outermost
+   voxels of a ball at a sub-voxel offset lie within a hair of its sphere (0.001 voxel is
+   common), so a centre or radius off by that much left them to smaller balls.
 
-Measured on balls of radius 5 to 16 voxels and cylinders (axis along a grid axis) at
-random sub-voxel offsets, the mean error is -0.1 to -0.3 voxel (see docs/validation.md);
-a slab of a whole number of voxels along a grid axis reads its width exactly, oblique
-slabs up to a quarter voxel wide. Walls made of thin sheets (convex edges and corners)
+Measured on balls of radius 4 to 10 voxels, cylinders of random axis (radius 4 to 8) and
+oblique slabs at random sub-voxel offsets, every voxel reads the diameter or width within
+0.3 voxel (see docs/validation.md); a slab of a whole number of voxels along a grid axis
+reads its width exactly. Walls made of thin sheets (convex edges and corners)
 read up to about half a voxel far per side for pores of 20 voxels and more (the nearest
 non-phase centre of a corner lies deep behind the tip).
 
@@ -109,8 +114,12 @@ placed at mid-gap), the exact distances to them are linearised at the current ce
 the linear programme is solved again (4 rounds); the radius is the exact distance at the
 final centre (closest point on a triangle: Ericson, *Real-Time Collision Detection*, 2005,
 5.1.5; on a prism, the closest point of its mid-plane triangle to the projection, shifted
-along the normal by the clamped offset). The refined ball holds the voxels closer than
-that distance to its centre; the lattice ball takes twice the exact distance at ``x``.
+along the normal by the clamped offset). Every gathered wall enters the programme (a fine
+mesh's nearest few triangles all lie on one side of the centre). The refined ball holds the
+voxels closer than that distance plus :data:`PAINT_SLACK` to its centre (next to an oblique
+wall the ball centres, one per candidate, are up to a voxel apart along the wall, and the
+pore voxels nearest the wall lie in none of the exact balls); the lattice ball takes twice
+the exact distance at ``x``.
 A wall missed by the gathering (one that lies more than a voxel nearer than the centres
 it covers suggest) leaves a ball too large; on the sample structure this happened for
 0.8 % of the candidates, by at most 0.15 nm at 0.2 nm voxels.
@@ -128,6 +137,7 @@ from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, phase_code
 from ..structure import Structure, SurfaceBody
 from ..threads import budget
+from ._result import Result
 from ._walls import (NONE, cell_lists, closest_on_prism, closest_on_triangle, feature_transform,
                      gap_along, gap_scale, wall_at, wall_normals)
 
@@ -1632,9 +1642,12 @@ def _paint_first_f(cx, cy, cz, rr, val, ilo, ihi, rel, out, U, S, periodic, nsla
 #: Methods of :func:`local_thickness`.
 LT_METHODS = ("subvoxel", "centres")
 #: The method :func:`local_thickness` uses when none is given (and so every caller:
-#: ``measure``, ``--pore-split``, ``relax`` on volumes). "subvoxel" is the accurate one;
-#: "centres" is several times faster (docs/performance.md).
-DEFAULT_LT_METHOD = "subvoxel"
+#: ``measure``, ``--pore-split``, ``relax`` on volumes). "subvoxel" is the accurate one
+#: (within half a voxel on balls, cylinders and slabs at any offset) but 4 to 8 times
+#: slower than "centres", 23 to 38 times one ``edt.edt`` call at 400^3 where the floor is
+#: 5 (docs/performance.md): an option. Prisms and meshes take the exact path whatever
+#: this is (:func:`exact_local_thickness`).
+DEFAULT_LT_METHOD = "centres"
 #: Half-width (voxels, per axis) of the box about a candidate centre in which its
 #: refined centre is sought.
 REFINE_BOX = 1.0
@@ -1780,7 +1793,8 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None,
     out : (nx, ny, nz) float32 array, optional
         Buffer to write into.
     method : "subvoxel" or "centres", optional
-        See the module docstring; default :data:`DEFAULT_LT_METHOD` ("subvoxel").
+        See the module docstring; default :data:`DEFAULT_LT_METHOD` ("centres", fast;
+        "subvoxel" reads balls and cylinders at any offset within half a voxel).
 
     Returns
     -------
@@ -1936,6 +1950,12 @@ def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np
                   gap_scale(rel))
     del F
     rr_lat = d2.reshape(-1)[cand]
+    # a voxel plane (a wall that is not geometry, e.g. interlayer) seen obliquely can pass
+    # behind a pore centre next to it: its lattice ball would get no positive value and
+    # its voxels none; such a centre takes half its distance to the nearest wall voxel
+    bad = ~(Dx > 0)
+    if bad.any():
+        Dx[bad] = 0.5 * unit * np.sqrt(rr_lat[bad].astype(np.float64))
     if out is None:
         out = d2
     _paint_refined(m, cand, (zc / unit).astype(np.float32),
@@ -2611,3 +2631,79 @@ def pore_size_distribution(grid: PhaseGrid, phases=(GEL,), *, bins="log",
                           field="method")
     return size_distribution(d, bins=bins, voxel_size=grid.spacing, method=method,
                              phases=names)
+
+
+# ================================================================== the measure
+def _finite(x):
+    return float(x) if x is not None and math.isfinite(x) else None
+
+
+@dataclass(repr=False)
+class PoreSizes(Result):
+    """The ``pores`` measure: the local-thickness size distribution of the non-interlayer
+    pore space (``parts["local_thickness"]``) and, when asked, the intrusion distribution
+    (``parts["intrusion"]``), each a :class:`PoreSizeResult` or None."""
+
+    parts: dict
+    notes: list = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        d = {k: None if v is None else v.to_dict() for k, v in self.parts.items()}
+        if self.notes:
+            d["notes"] = list(self.notes)
+        return d
+
+    def tables(self) -> dict:
+        return {f"pore_sizes_{k}": v.table() for k, v in self.parts.items() if v is not None}
+
+    def basis(self) -> dict:
+        return {"pore_size": "volume-weighted quantiles of the local thickness (diameter of the "
+                             "largest ball inside the pore space that holds the point) of the "
+                             "non-interlayer pore space"}
+
+    def __repr__(self) -> str:
+        h = self.headline()["pore_size"]
+        return "PoreSizes(" + ", ".join(f"{k}={v:.4g}" if v is not None else f"{k}=None"
+                                       for k, v in h.items()) + ")"
+
+    def headline(self) -> dict:
+        lt = self.parts["local_thickness"]
+        it = self.parts["intrusion"]
+        return {"pore_size": {
+            "d10_nm": _finite(lt.d10) if lt else None, "d50_nm": _finite(lt.d50) if lt else None,
+            "d90_nm": _finite(lt.d90) if lt else None,
+            "intrusion_d50_nm": _finite(it.d50) if it else None}}
+
+
+def pores_measure(grid: PhaseGrid, *, thickness=None, intrusion: bool = False) -> PoreSizes:
+    """The ``pores`` measure of ``sheetview measure``: size distributions of the
+    non-interlayer pore space (every phase but outside, solid and interlayer) of ``grid``.
+
+    ``thickness`` is the run's local-thickness map (nm, NaN off those phases; exact
+    geometry for prisms and meshes, :func:`exact_local_thickness`); None computes
+    :func:`local_thickness` at its defaults. ``intrusion`` adds the simulated intrusion
+    from the default reservoir (none in a periodic box: a note says so)."""
+    g = grid
+    codes = tuple(sorted(c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)))
+    names = tuple(g.names[c] for c in codes)
+    mask = np.isin(g.labels, codes)
+    if not mask.any():
+        return PoreSizes({"local_thickness": None, "intrusion": None},
+                         notes=["no gel pore space: pore sizes undefined"])
+    lt = thickness if thickness is not None else local_thickness(mask, g.spacing,
+                                                                 periodic=g.periodic)
+    parts = {"local_thickness": size_distribution(lt, voxel_size=g.spacing,
+                                                  method="local_thickness", phases=names),
+             "intrusion": None}
+    notes = []
+    if intrusion:
+        if g.periodic:
+            notes.append("periodic box: no reservoir at the boundary, so no intrusion "
+                         "distribution")
+        else:
+            m = ~np.isnan(lt)
+            res = default_reservoir(m, outside=g.labels == OUTSIDE)
+            d = intrusion_diameter(m, g.spacing, res)
+            parts["intrusion"] = size_distribution(d, voxel_size=g.spacing, method="intrusion",
+                                                   phases=names)
+    return PoreSizes(parts, notes=notes)
