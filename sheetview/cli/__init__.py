@@ -82,7 +82,8 @@ def main():
 
 #: Command modules registered when present; each defines its commands and a list
 #: ``COMMANDS`` (or a command named like the module).
-_MODULES = ("synth", "measure", "batch", "experiment", "sections", "micrograph", "kinetics")
+_MODULES = ("synth", "measure", "batch", "experiment", "sections", "micrograph", "kinetics",
+            "beside", "waterwalk")
 
 
 def _register():

@@ -157,7 +157,9 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
         with atomic_path(json_out, force) as tmp:
             Path(tmp).write_text(dumps(doc), encoding="utf-8")
     if plot_out:
-        save_figure(plot_scattering(res, comparison=cmp_, notes=notes), plot_out, force)
+        save_figure(plot_scattering(res, comparison=cmp_, notes=notes, features=doc["features"],
+                                    experiment=(exp.x, exp.y, exp.sigma) if exp else None),
+                    plot_out, force)
     click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1 -> {csv_out}")
     for line in _feature_lines(doc["features"]):
         click.echo(line)

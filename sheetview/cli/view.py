@@ -44,7 +44,7 @@ def _plane_options(f):
     return f
 
 
-def _structure(file, read_opts, what, at_progress=None, at_time=None):
+def _structure(file, read_opts, what, at_progress=None, at_time=None, with_moment=False):
 
     obj = load(file, **read_opts)
     if not isinstance(obj, Structure):
@@ -55,7 +55,15 @@ def _structure(file, read_opts, what, at_progress=None, at_time=None):
                           path=file)
     obj, moment = apply_at(obj, at_progress, at_time)
     echo_moment(moment)
-    return obj
+    return (obj, moment) if with_moment else obj
+
+
+def moment_caption(moment) -> str | None:
+    """The moment of growth drawn, in words (None for the whole structure)."""
+    if moment is None:
+        return None
+    return (f"as it stood at {moment.requested}: time {moment.time:g}, progress "
+            f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms")
 
 
 def _plane(structure, slice_axis, slice_at, slice_normal, slice_origin):
@@ -120,7 +128,9 @@ def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_b
 @click.option("--camera", type=click.Choice(_CAMERAS), default=None,
               help="Viewpoint: iso, cut (facing the cut), or from a side such as +x or -z "
                    "[default: cut with a cut, iso without].")
-@click.option("--size", default="1200x900", show_default=True, help="Picture size WIDTHxHEIGHT.")
+@click.option("--size", default="1200", show_default=True,
+              help="Picture size WIDTHxHEIGHT in pixels, or WIDTH alone: the height then "
+                   "follows the shape of the structure seen from the camera.")
 @click.option("--flat", is_flag=True,
               help="Unshaded colours (each prism exactly its colormap colour).")
 @click.option("--force", is_flag=True, help="Overwrite the picture (and exported files).")
@@ -135,14 +145,14 @@ def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel
 
     check_writable(output, force)
     wh = parse_size(size)
-    s = _structure(file, read_opts, "render", at_progress, at_time)
+    s, moment = _structure(file, read_opts, "render", at_progress, at_time, with_moment=True)
     plane = _plane(s, slice_axis, slice_at, slice_normal, slice_origin)
     cache = {}
     grid = None
     if export_dir or plane is not None:
         grid = phase_grid(s, voxel, cache)
     draw(s, output, colour_by=colour_by, plane=plane, grid=grid, camera=camera, size=wh,
-         force=force, lighting=not flat, cache=cache)
+         force=force, lighting=not flat, cache=cache, caption=moment_caption(moment))
     click.echo(f"wrote {output}", err=True)
     if export_dir:
         _export(s, export_dir, grid, voxel, force, cache)
