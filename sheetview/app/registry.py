@@ -132,7 +132,6 @@ def check_inputs(selected, obj, source=None) -> None:
 
 
 _M = "sheetview.measures"
-_A = "sheetview.app.adapters"
 register("stacking", f"{_M}.stacking:stacking", "structure",
          "layers, stacks, stacking numbers, per-stack table, tilted contacts")
 register("order", f"{_M}.orientation:orientation", "structure",

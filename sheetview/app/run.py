@@ -221,7 +221,8 @@ class Run:
         input is a Structure or SurfaceBody
         (:func:`~sheetview.measures.pores.exact_local_thickness`; walls that are not
         geometry, such as the interlayer class, from the voxels), else from the voxels
-        (:func:`~sheetview.measures.pores.local_thickness`)."""
+        (:func:`~sheetview.measures.pores.local_thickness` with the ``pore_method``
+        setting)."""
         g = self.base_grid
         codes = [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)]
         if isinstance(self.geometry, (Structure, SurfaceBody)):  # particles: voxels
@@ -233,7 +234,7 @@ class Run:
         if tell is not None and "progress" in inspect.signature(local_thickness).parameters:
             kw["progress"] = tell
         return self.stage("local thickness", local_thickness, mask, g.spacing,
-                          periodic=g.periodic, **kw)
+                          periodic=g.periodic, method=self.settings.pore_method, **kw)
 
     def provides(self, name: str) -> bool:
         return name in SHARED or name in Settings.__dataclass_fields__
