@@ -225,14 +225,12 @@ class Run:
         setting)."""
         g = self.base_grid
         codes = [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)]
+        tell = self.within("local thickness")
+        kw = {} if tell is None else {"progress": tell}
         if isinstance(self.geometry, (Structure, SurfaceBody)):  # particles: voxels
             return self.stage("local thickness", exact_local_thickness, g, self.geometry,
-                              codes)
+                              codes, **kw)
         mask = np.isin(g.labels, codes)
-        kw = {}
-        tell = self.within("local thickness")
-        if tell is not None and "progress" in inspect.signature(local_thickness).parameters:
-            kw["progress"] = tell
         return self.stage("local thickness", local_thickness, mask, g.spacing,
                           periodic=g.periodic, method=self.settings.pore_method, **kw)
 

@@ -1667,11 +1667,13 @@ WALL_CONE = 85.0
 PAINT_SLACK = 0.25
 
 
-def _centres_local_thickness(m, sp, periodic, out):
+def _centres_local_thickness(m, sp, periodic, out, tell):
     """``method="centres"``: balls centred on voxel centres, radius ``d(x)`` to the
-    nearest non-phase centre, diameter ``2 d(x) - h`` (module docstring)."""
+    nearest non-phase centre, diameter ``2 d(x) - h`` (module docstring). ``tell(fraction,
+    message)`` hears the end of each step (fractions: rough shares of the time)."""
     unit, rel, hc = _units(sp)
     d2 = squared_distance(m, rel, periodic=periodic)
+    tell(0.15, "local thickness: distance transform")
     nch = max(1, min(m.shape[0], 16 * numba.get_num_threads()))
     top = _int_max(d2, nch) if np.all(rel == 1.0) else -1
     if top >= 0:
@@ -1682,9 +1684,11 @@ def _centres_local_thickness(m, sp, periodic, out):
         kk = np.arange(hist.shape[1], dtype=np.float64)
         vk = ((2.0 * np.sqrt(kk) - hc) * unit).astype(np.float32)
         isq = _isqrt_table(hist.shape[1])
+        tell(0.3, "local thickness: ridge of the distance map")
         ci, cj, ck, rr, vals, pmask = _gather_ridge(d2, flag, hist, vk, nch, bool(periodic),
                                                     isq)
         del flag
+        tell(0.4, f"local thickness: painting {ci.size:,} balls")
         if out is None:
             out = d2  # reuse the distance buffer (already touched memory)
         _paint_sorted(ci, cj, ck, rr, vals, rel, periodic, m, out, True, pmask)
@@ -1762,6 +1766,7 @@ def _subvoxel_local_thickness(m, sp, periodic, out):
                   rho2, A, Dx,
                   max(1, min(nc, 64 * numba.get_num_threads())))
     del F
+    tell(0.7, "local thickness: painting")
     rr_lat = d2.reshape(-1)[cand]
     if not np.all(rel == 1.0):
         # squared radii rounded to float32: a voxel at exactly a ball's radius (a tie,
@@ -1779,7 +1784,7 @@ def _subvoxel_local_thickness(m, sp, periodic, out):
 
 
 def local_thickness(mask, spacing, *, periodic: bool = False, out=None,
-                    method: str | None = None) -> np.ndarray:
+                    method: str | None = None, progress=None) -> np.ndarray:
     """Local thickness (nm) of a phase (Hildebrand & Rüegsegger 1997).
 
     .. math:: \\tau(p) = 2 \\max\\{ r : p \\in B(x, r) \\subseteq X \\}
@@ -1798,6 +1803,8 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None,
     method : "subvoxel" or "centres", optional
         See the module docstring; default :data:`DEFAULT_LT_METHOD` ("centres", fast;
         "subvoxel" reads balls and cylinders at any offset within half a voxel).
+    progress : callable ``progress(done_fraction, message)``, optional
+        Told as the steps end (distance transform, ridge, ball list, painting).
 
     Returns
     -------
@@ -1818,9 +1825,14 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None,
                             or out.dtype != np.float32 or not out.flags.c_contiguous):
         raise OptionError(f"out must be a C-contiguous float32 array of shape {m.shape}",
                           field="out")
+    tell = progress if progress is not None else (lambda f, msg="": None)
+    tell(0.0, "local thickness")
     if method == "centres":
-        return _centres_local_thickness(m, sp, periodic, out)
-    return _subvoxel_local_thickness(m, sp, periodic, out)
+        res = _centres_local_thickness(m, sp, periodic, out, tell)
+    else:
+        res = _subvoxel_local_thickness(m, sp, periodic, out)
+    tell(1.0, "local thickness: done")
+    return res
 
 
 #: Rounds of linearised programmes per candidate on the exact path.
@@ -1872,7 +1884,8 @@ def _wall_primitives(body, periodic_box, margin):
             np.ascontiguousarray(half), bmin, bmax)
 
 
-def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np.ndarray:
+def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None,
+                          progress=None) -> np.ndarray:
     """Local thickness (nm) of the pore space of a grid rasterized from prisms or a closed
     mesh, from exact distances to the geometry.
 
@@ -1887,6 +1900,8 @@ def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np
         The pore space; default every phase but outside, solid and interlayer (the gel
         pores and any size classes).
     out : float32 array of the grid's shape, optional
+    progress : callable ``progress(done_fraction, message)``, optional
+        Told as the steps end (feature transform, wall normals, refinement, painting).
 
     Returns
     -------
@@ -1937,10 +1952,14 @@ def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np
         dkind, dpar = 1, np.array([*dom.center, dom.radius, 0.0, 0.0])
     else:
         dkind, dpar = 2, np.array([*dom.min, *dom.max], dtype=np.float64)
+    tell = progress if progress is not None else (lambda f, msg="": None)
+    tell(0.0, "local thickness (exact geometry)")
     F, d2 = feature_transform(m, rel, periodic=periodic)
+    tell(0.1, "local thickness: feature transform")
     wall_normals(m, F, rel, periodic=periodic)
     cand = _candidates(d2, rel, periodic)
     nc = cand.size
+    tell(0.25, f"local thickness: refining {nc:,} ball centres against the geometry")
     zc = np.empty((nc, 3), np.float64)
     A = np.empty(nc, np.float64)
     Dx = np.empty(nc, np.float64)
@@ -1952,6 +1971,7 @@ def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np
                   Dx, nchunk, EXACT_ROUNDS, maxprim, np.asarray(rel, np.float64), unit,
                   gap_scale(rel))
     del F
+    tell(0.7, "local thickness: painting")
     rr_lat = d2.reshape(-1)[cand]
     # a voxel plane (a wall that is not geometry, e.g. interlayer) seen obliquely can pass
     # behind a pore centre next to it: its lattice ball would get no positive value and
@@ -1965,6 +1985,7 @@ def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None) -> np
                    ((A / unit + PAINT_SLACK * float(np.min(rel))) ** 2).astype(np.float32),
                    rr_lat, 2.0 * A, 2.0 * Dx, rel, periodic, out)
     out[~m] = np.nan
+    tell(1.0, "local thickness: done")
     return out
 
 
