@@ -1746,8 +1746,9 @@ def _paint_refined(m, cand, zc, rr_ref, rr_lat, v_ref, v_lat, rel, periodic, out
         _paint_first_f(*balls, rel, out, U, S, bool(periodic), nslabs)
 
 
-def _subvoxel_local_thickness(m, sp, periodic, out):
-    """``method="subvoxel"`` (definitions in :func:`local_thickness`)."""
+def _subvoxel_local_thickness(m, sp, periodic, out, tell):
+    """``method="subvoxel"`` (definitions in :func:`local_thickness`); ``tell(fraction,
+    message)`` hears the end of each step."""
     unit, rel, _ = _units(sp)
     if periodic and m.all():
         raise OptionError("the phase fills the whole periodic grid: it has no wall, so its "
@@ -1755,6 +1756,7 @@ def _subvoxel_local_thickness(m, sp, periodic, out):
     F, d2 = feature_transform(m, rel, periodic=periodic)
     cand = _candidates(d2, rel, periodic)
     nc = cand.size
+    tell(0.1, "local thickness: feature transform")
     zc = np.empty((nc, 3), np.float32)
     rho2 = np.empty(nc, np.float32)
     A = np.empty(nc, np.float32)
@@ -1830,7 +1832,7 @@ def local_thickness(mask, spacing, *, periodic: bool = False, out=None,
     if method == "centres":
         res = _centres_local_thickness(m, sp, periodic, out, tell)
     else:
-        res = _subvoxel_local_thickness(m, sp, periodic, out)
+        res = _subvoxel_local_thickness(m, sp, periodic, out, tell)
     tell(1.0, "local thickness: done")
     return res
 
