@@ -71,7 +71,10 @@ def grow(a, n):
     if n < a.shape[0]:
         return a
     b = np.empty(max(2 * a.shape[0], 16), a.dtype)
-    b[:a.shape[0]] = a
+    # a loop, not b[:n] = a: numba's slice assignment compiles its shape-mismatch error
+    # message (str() of tuples, about 3 s of a first run) into every caller
+    for q in range(a.shape[0]):
+        b[q] = a[q]
     return b
 
 

@@ -402,7 +402,8 @@ def _mesh_intervals(o, u, tlo, thi, tseg, line_ids, tri, glo, h, dims, start, it
         if not tlo[i] < thi[i]:
             continue
         cand, nc = _dda_candidates(o[i, 0], o[i, 1], o[i, 2], u[i, 0], u[i, 1], u[i, 2],
-                                   0.0, tseg[i], glo, h, dims, start, items, stamp, i, cand, 0)
+                                   0.0, tseg[i], glo, h, dims, start, items, stamp, i, cand,
+                                   np.int64(0))
         m = 0
         for q in range(nc):
             p = cand[q]
