@@ -181,7 +181,7 @@ def clip_polygon_buf(ax, ay, bx, by, buf):
 @numba.njit(cache=True)
 def _ccw(x, y):
     """Make a 2D triangle counter-clockwise in place; return its (positive) area."""
-    a = _shoelace(x, y, 3)
+    a = _shoelace(x, y, np.int64(3))  # not a literal 3: one specialisation
     if a < 0.0:
         tx = x[1]
         ty = y[1]
