@@ -852,10 +852,10 @@ def _column_hits(tri, org, sp, nx, ny, count_only, start, zs):
             continue  # seen edge-on from z: no column crosses it
         xmin = min(x0, min(x1, x2)); xmax = max(x0, max(x1, x2))
         ymin = min(y0, min(y1, y2)); ymax = max(y0, max(y1, y2))
-        i0 = _first(math.ceil((xmin - org[0]) / sp[0] - 0.5 - jit), 0, nx - 1)
-        i1 = _last(math.floor((xmax - org[0]) / sp[0] - 0.5 - jit), 0, nx - 1)
-        j0 = _first(math.ceil((ymin - org[1]) / sp[1] - 0.5 - jit), 0, ny - 1)
-        j1 = _last(math.floor((ymax - org[1]) / sp[1] - 0.5 - jit), 0, ny - 1)
+        i0 = _first(math.ceil((xmin - org[0]) / sp[0] - 0.5 - jit), np.int64(0), nx - 1)
+        i1 = _last(math.floor((xmax - org[0]) / sp[0] - 0.5 - jit), np.int64(0), nx - 1)
+        j0 = _first(math.ceil((ymin - org[1]) / sp[1] - 0.5 - jit), np.int64(0), ny - 1)
+        j1 = _last(math.floor((ymax - org[1]) / sp[1] - 0.5 - jit), np.int64(0), ny - 1)
         for i in range(i0, i1 + 1):
             x = org[0] + (i + 0.5 + jit) * sp[0]
             for j in range(j0, j1 + 1):
@@ -887,8 +887,8 @@ def _fill_columns(labels, start, zs, org2, sp2, code, keep):
                 continue
             z = np.sort(zs[a:b])
             for p in range(0, b - a - 1, 2):
-                k0 = _first(math.ceil((z[p] - org2) / sp2 - 0.5), 0, nz - 1)
-                k1 = _last(math.floor((z[p + 1] - org2) / sp2 - 0.5), 0, nz - 1)
+                k0 = _first(math.ceil((z[p] - org2) / sp2 - 0.5), np.int64(0), nz - 1)
+                k1 = _last(math.floor((z[p + 1] - org2) / sp2 - 0.5), np.int64(0), nz - 1)
                 for k in range(k0, k1 + 1):
                     if labels[i, j, k] == keep:
                         labels[i, j, k] = code
