@@ -17,7 +17,7 @@ def budget() -> int:
         return 1
 
 
-def chunk_tasks(n_items: int, threads: int, per_thread: int = 4) -> list[tuple[int, int]]:
+def chunk_tasks(n_items: int, threads: int, per_thread: int = 8) -> list[tuple[int, int]]:
     """Split ``range(n_items)`` into at most ``per_thread * threads`` contiguous ``(lo, hi)``
     ranges of near-equal size, in order (none empty)."""
     n_items = int(n_items)
