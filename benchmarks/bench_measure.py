@@ -47,16 +47,16 @@ def build(n_target: int, seed: int = 0):
 
 
 def one(n: int, voxel: float) -> dict:
-    import sheetview.measures as m
+    import sheetview as sv
     # warm the numba caches on a small case so compile time is not timed
     small = build(3000)
-    m.run(m.applicable(small), small, {"voxel": 0.3, "lines": 500})
+    sv.measure(small, voxel=0.3, lines=500)
     s = build(n)
     t = time.perf_counter()
-    ctx = m.run(m.applicable(s), s, {"voxel": voxel})
+    m = sv.measure(s, voxel=voxel)
     total = time.perf_counter() - t
-    return {"n": len(s), "radius_nm": s.domain.radius, "grid": list(ctx.grid.shape),
-            "total_s": total, "stages": ctx.timings,
+    return {"n": len(s), "radius_nm": s.domain.radius, "grid": list(m.grid.shape),
+            "total_s": total, "stages": m.timings,
             "peak_gb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2 ** 20}
 
 
