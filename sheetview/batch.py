@@ -41,6 +41,7 @@ from pathlib import Path
 
 from .app.document import file_document, flatten
 from .app.load import at_moment, load
+from .app.applies import check_settings
 from .app.registry import check_inputs, parse_only, select
 from .app.run import Run
 from .app.settings import Settings
@@ -166,9 +167,11 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         _set_threads(numba_threads)
     try:
         obj, moment = at_moment(load(path, **read_kw), *_moment_args(at))
+        settings = Settings.of(settings)
+        check_settings(obj, settings, path=path)
         selected = select(only or None, obj)
         check_inputs(selected, obj, path)
-        run = Run(obj, Settings.of(settings)).run(selected)
+        run = Run(obj, settings).run(selected)
         doc = file_document(path, run)
         if moment is not None:
             doc["at"] = moment.to_dict()
@@ -187,7 +190,8 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         t2 = time.perf_counter()
         return {"status": "ok", "error": None, "seconds": t1 - t0, "write_seconds": t2 - t1}
     except SheetviewError as e:
-        msg = str(e) if e.path else f"{path}: {e}"
+        text = e.format(_option_style)
+        msg = text if e.path else f"{path}: {text}"
     except MemoryError:
         msg = f"{path}: out of memory; use a coarser voxel or a lower max_memory"
     except Exception as e:  # a bug: record it and let the batch go on
@@ -195,6 +199,12 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
                + "".join(traceback.format_exception(e)[-3:]))
     return {"status": "failed", "error": msg, "seconds": time.perf_counter() - t0,
             "write_seconds": 0.0}
+
+
+def _option_style(param: str) -> str:
+    """A parameter as the batch command's option (``max_memory`` -> ``--max-memory``)."""
+    return {"voxel_size": "--volume-voxel", "spacing": "--repeat"}.get(
+        param, "--" + param.rstrip("_").replace("_", "-"))
 
 
 def _moment_args(at: dict | None) -> tuple:

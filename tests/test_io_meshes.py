@@ -159,7 +159,7 @@ def _expect(path, *words, **opts):
 def test_open_surface_without_thickness_asks_for_it(tmp_path):
     p = tmp_path / "plane.obj"
     trimesh.Trimesh([[0, 0, 0], [1, 0, 0], [0, 1, 0]], [[0, 1, 2]], process=False).export(p)
-    _expect(p, "--thickness")
+    _expect(p, "thickness (nm)")
 
 
 def test_solid_forced_on_open_surface(tmp_path):

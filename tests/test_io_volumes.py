@@ -102,7 +102,7 @@ def test_tiff_without_unit_needs_voxel_size(tmp_path):
                      photometric="minisblack")
     with pytest.raises(InputError) as ei:
         sv.read(p)
-    assert str(p) in str(ei.value) and "--voxel-size" in str(ei.value)
+    assert str(p) in str(ei.value) and "voxel_size" in str(ei.value)
     assert sv.read(p, voxel_size=2.0).spacing == (2.0, 2.0, 2.0)
 
 

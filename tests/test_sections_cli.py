@@ -27,17 +27,16 @@ def _run(args):
 
 
 def test_section_writes_picture_and_data(born_file, tmp_path):
-    stem = tmp_path / "cut"
-    r = _run(["section", born_file, "--axis", "z", "--offset", "1.5", "--voxel", "0.2", "-o", stem,
-              "--json"])
+    folder = tmp_path / "cut"
+    r = _run(["section", born_file, "--axis", "z", "--voxel", "0.2", "-o", folder, "--json"])
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
     assert doc["pixel_nm"] == pytest.approx(0.2)
     assert set(doc["area_fractions"]) <= {"solid", "interlayer", "gel"}
     assert sum(doc["area_fractions"].values()) == pytest.approx(1.0)
-    for suffix in (".png", ".tif", "_data.tif"):
-        assert (tmp_path / f"cut{suffix}").stat().st_size > 0
-    with tifffile.TiffFile(tmp_path / "cut_data.tif") as tf:
+    for suffix in (".png", ".tif", "_data.tif", ".json"):
+        assert (folder / f"section{suffix}").stat().st_size > 0
+    with tifffile.TiffFile(folder / "section_data.tif") as tf:
         page = tf.pages[0]
         lab = page.asarray()
         xres = page.tags["XResolution"].value
@@ -47,10 +46,10 @@ def test_section_writes_picture_and_data(born_file, tmp_path):
     assert desc["kind"] == "section" and desc["pixel_nm"] == pytest.approx(0.2)
     assert lab.shape == tuple(doc["shape_rows_cols"])
     # existing outputs are refused and left alone
-    before = (tmp_path / "cut.png").read_bytes()
-    r = _run(["section", born_file, "--voxel", "0.2", "-o", stem])
-    assert r.exit_code == 2 and "already exists" in r.output
-    assert (tmp_path / "cut.png").read_bytes() == before
+    before = (folder / "section.png").read_bytes()
+    r = _run(["section", born_file, "--voxel", "0.2", "-o", folder])
+    assert r.exit_code == 2 and "exists" in r.output
+    assert (folder / "section.png").read_bytes() == before
 
 
 def test_project_json_and_files(born_file, tmp_path):
@@ -60,7 +59,7 @@ def test_project_json_and_files(born_file, tmp_path):
     doc = json.loads(r.stdout)
     assert doc["slab_thickness_nm"] == pytest.approx(4.0)
     assert doc["right"] == "y" and doc["up"] == "z"
-    with tifffile.TiffFile(tmp_path / "tem_data.tif") as tf:
+    with tifffile.TiffFile(tmp_path / "tem" / "projection_data.tif") as tf:
         assert len(tf.pages) == 3
         inten = tf.pages[0].asarray()
         thick = tf.pages[1].asarray()
@@ -198,7 +197,7 @@ def test_project_and_compare_a_voxel_volume(tmp_path):
     doc = json.loads(r.stdout)
     zyx = tf.imread(SAMPLE_TIF)            # pages along z, rows y, columns x; 1 = solid
     expected = (zyx == 1).sum(axis=0)[::-1] * 0.5   # picture rows run down y
-    with tf.TiffFile(tmp_path / "v_data.tif") as t:
+    with tf.TiffFile(tmp_path / "v" / "projection_data.tif") as t:
         thick = t.pages[1].asarray()
     np.testing.assert_allclose(thick, expected, atol=1e-6)
     assert doc["pixel_nm"] == 0.5

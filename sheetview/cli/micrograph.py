@@ -17,6 +17,8 @@ import numpy as np
 from .._version import __version__
 from ..errors import OptionError
 from .common import dumps
+from .conventions import (command, force_option, json_option, lines_option, output_option,
+                          quiet_option, seed_option)
 from ..io.images import read_micrograph
 from ..io.output import atomic_path
 from ..measures.planar import describe
@@ -37,7 +39,7 @@ def run_micrograph(path, *, pixel_size=None, threshold="otsu", solid="bright", c
     JSON document)."""
 
     if isinstance(lines, bool) or int(lines) != lines or not 1 <= lines <= 10_000_000:
-        raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
+        raise OptionError(f"must be between 1 and 10,000,000, got {lines}", param="lines")
     mg = read_micrograph(path, pixel_size=pixel_size, threshold=threshold, solid=solid,
                          channel=channel)
     desc = describe(mg.mask, mg.pixel, valid=None if mg.valid.all() else mg.valid,
@@ -207,30 +209,28 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
 
 
 # ====================================================================== command
-@click.command("micrograph")
-@click.argument("image", metavar="IMAGE")
-@click.option("--pixel-size", type=float, default=None, metavar="NM",
+@command("micrograph")
+@click.argument("image", metavar="IMAGE", type=click.Path(dir_okay=False))
+@click.option("--pixel", "pixel_size", type=float, default=None, metavar="NM",
               help="Edge of one pixel in nm (required unless a TIFF resolution tag gives it).")
 @click.option("--threshold", default="otsu", show_default=True, metavar="otsu|VALUE",
               help="Grey value separating solid from pore, in the image's own scale, or otsu.")
 @click.option("--solid", type=click.Choice(["bright", "dark"]), default="bright",
               show_default=True, help="Which side of the threshold is solid.")
-@click.option("--channel", default=None, metavar="r|g|b",
+@click.option("--channel", default=None, type=click.Choice(["r", "g", "b"]),
               help="Colour images: use one channel instead of the BT.709 luma.")
-@click.option("--lines", type=int, default=2000, show_default=True,
-              help="Isotropic random lines for the chord lengths.")
-@click.option("--seed", type=int, default=0, show_default=True,
-              help="Seed of the random lines.")
-@click.option("--json", "as_json", is_flag=True, help="Print the result document as JSON.")
-@click.option("-o", "--output", "outdir", default=None, metavar="FOLDER",
-              help="Write descriptors.json, CSV tables and overview.png to this folder.")
-@click.option("--force", is_flag=True, help="Write into an existing output folder.")
-@click.option("-q", "--quiet", is_flag=True, help="Print no summary.")
-def micrograph(image, pixel_size, threshold, solid, channel, lines, seed, as_json, outdir,
+@lines_option(2000, "Isotropic random lines for the chord lengths.")
+@seed_option()
+@json_option()
+@output_option("folder", "Write descriptors.json, CSV tables and overview.png into FOLDER.")
+@force_option("Write into an existing output folder.")
+@quiet_option("Print no summary.")
+def micrograph(image, pixel_size, threshold, solid, channel, lines, seed, as_json, output,
                force, quiet):
     """Segment a micrograph (PNG, TIFF, JPEG) into solid and pore and measure it: area
     fraction, chord lengths (rows, columns, isotropic random lines), local thickness,
     two-point probability S2 and layer orientation. Lengths are nm."""
+    outdir = output
     if outdir is not None:
         check_folder(outdir, force)  # refuse before the work
     mg, desc, doc = run_micrograph(image, pixel_size=pixel_size, threshold=threshold,

@@ -105,8 +105,10 @@ def guarded(reader, path, *args, **kwargs):
 def _only(options, allowed, path, fam):
     extra = set(options) - allowed
     if extra:
-        names = ", ".join("--" + e.rstrip("_").replace("_", "-") for e in sorted(extra))
-        raise OptionError(f"option(s) {names} do not apply to {fam} files", path=path)
+        first = sorted(extra)[0]
+        fits = ", ".join(f"<<{k}>>" for k in sorted(allowed))
+        raise OptionError(f"<<{first}>> does not apply to {fam} files; it applies to other "
+                          f"families (for {fam} files: {fits})", path=path, param=first)
 
 
 def write(obj, path, *, force: bool = False):

@@ -43,6 +43,7 @@ class ExperimentalCurve:
     unit_found: str
     unit_source: str
     warnings: list = field(default_factory=list)
+    format: str = "columns"
 
 
 def _is_number(tok: str) -> bool:

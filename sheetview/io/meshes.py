@@ -113,11 +113,11 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     path = Path(path)
     suffix = path.suffix.lower()
     if as_ not in (None, "auto", "sheets", "solid"):
-        raise OptionError(f"--as must be 'sheets' or 'solid', not {as_!r}", path=path)
+        raise OptionError(f"must be 'sheets' or 'solid', not {as_!r}", path=path, param="as_")
     for name, v in (("thickness", thickness), ("spacing", spacing)):
         if v is not None and not (finite_number(v) is not None and 0 < v <= MAX_LENGTH_NM):
-            raise OptionError(f"--{name} must be a positive number of nm (at most "
-                              f"{MAX_LENGTH_NM:g}), got {v}", path=path)
+            raise OptionError(f"must be a positive number of nm (at most "
+                              f"{MAX_LENGTH_NM:g}), got {v}", path=path, param=name)
     if units is not None:
         unit_factor(units, path=path)  # refuse a bad option before reading
     if suffix in VTK_SUFFIXES:
@@ -189,7 +189,7 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
                              path=path, field="thickness")
         thick = thick.astype(np.float64) * f
     else:
-        raise InputError(f"no sheet thickness: a mesh read as sheets needs --thickness <nm> "
+        raise InputError(f"no sheet thickness: a mesh read as sheets needs <<thickness>> (nm) "
                          f"(or a per-face array named 'thickness'); the {len(tri)} triangles "
                          f"are the mid-surfaces of the sheets", path=path)
     cols = {}

@@ -181,7 +181,7 @@ def read_volume(path, *, voxel_size=None, phases=None, shape=None, dtype=None, u
         spacing = _triple(info["spacing"], "voxel size", path, positive=True)
     else:
         why = info.get("no_spacing_reason", "the file gives no voxel size")
-        raise InputError(f"{why}; pass --voxel-size <nm> (voxel_size=...)", path=path)
+        raise InputError(f"{why}; give it with <<voxel_size>> (nm)", path=path, param="voxel_size")
     if marker is not None and "origin" in marker:
         origin = _triple(marker["origin"], "origin", path, positive=False, where="marker")
     else:
@@ -235,8 +235,8 @@ def _check_voxel_size(voxel_size, path):
     if vs.shape == (1,):
         vs = np.repeat(vs, 3)
     if vs.shape != (3,) or not np.all(np.isfinite(vs)) or np.any(vs <= 0):
-        raise OptionError(f"--voxel-size must be one or three positive numbers of nm, got "
-                          f"{voxel_size!r}", path=path)
+        raise OptionError(f"<<voxel_size>> must be one or three positive numbers of nm, got "
+                          f"{voxel_size!r}", path=path, param="voxel_size")
     return tuple(float(v) for v in vs)
 
 
