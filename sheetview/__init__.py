@@ -10,9 +10,10 @@ Public API::
     m.to_frame()                            # one row of its scalars (pandas)
     m.write("report/")                      # a report folder
     sv.write(s, "structure.npz")
+    c = sv.compare_structures(["a.npz", "b.npz"])   # side by side: c.table, c.figure()
 """
 from ._version import __version__
-from .api import Measurement, measure
+from .api import Comparison, Measurement, compare_structures, measure
 from .app.settings import Settings
 from .domain import Box, Sphere
 from .errors import InputError, OptionError, SheetviewError
@@ -21,5 +22,5 @@ from .io import read, write
 from .structure import Structure, SurfaceBody
 
 __all__ = ["Box", "Sphere", "Structure", "SurfaceBody", "PhaseGrid", "read", "write", "measure",
-           "Measurement", "Settings", "SheetviewError", "InputError", "OptionError",
+           "Measurement", "compare_structures", "Comparison", "Settings", "SheetviewError", "InputError", "OptionError",
            "__version__"]

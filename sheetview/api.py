@@ -21,11 +21,13 @@ from .app.load import at_moment, load
 from .app.registry import REGISTRY, select
 from .app.run import Run
 from .app.settings import Settings
+from .app.sidebyside import SideBySide, profiles_of, side_by_side
 from .errors import OptionError
 from .grid import PhaseGrid
 from .structure import Structure, SurfaceBody
 from .figures import figure_of
-from .report import write_report
+from .overlay import plot_side_by_side
+from .report import write_comparison, write_report
 
 
 class Measurement:
@@ -103,6 +105,7 @@ class Measurement:
         """Write a report folder (summary.json, CSV tables, PNG figures); see
         :func:`sheetview.report.write_report`."""
         return write_report(folder, self.summary(), self._run.results, force=force,
+                            protect=[self.source] if self.source else (),
                             plots=plots, grid=self.grid)
 
     def plot(self, name: str, ax=None):
@@ -187,3 +190,113 @@ def measure(obj, only=None, settings=None, *, progress=None, at_progress=None, a
     obj, moment = at_moment(obj, at_progress, at_time)
     run = Run(obj, s, progress).run(select(only, obj))
     return Measurement(run, source, moment)
+
+
+class Comparison:
+    """Several structures side by side (:func:`compare_structures`).
+
+    ``table``: the headline numbers, one column per structure, with the difference and
+    the ratio of each to the first (a :class:`pandas.DataFrame` indexed by quantity);
+    ``curves``: curve name -> structure label -> ``{"x", "y"}``; ``measured``: the fits
+    to measured curves; ``settings_differ``: settings that differ between the structures
+    (empty when every number has the same definition). :meth:`figure` draws the curves on
+    shared axes, :meth:`write` writes a comparison folder.
+    """
+
+    def __init__(self, result: SideBySide):
+        self._r = result
+
+    @property
+    def labels(self) -> list[str]:
+        return self._r.labels
+
+    @property
+    def curves(self) -> dict:
+        return self._r.curves
+
+    @property
+    def measured(self) -> dict:
+        return self._r.measured
+
+    @property
+    def settings_differ(self) -> dict:
+        return self._r.settings_differ
+
+    @property
+    def profiles(self) -> list:
+        return list(self._r.profiles)
+
+    @property
+    def table(self):
+        import pandas as pd  # heavy optional library, imported when asked for
+        cols = self._r.table_columns()
+        df = pd.DataFrame(cols)
+        return df.set_index("key") if "key" in df else df
+
+    def to_dict(self) -> dict:
+        return self._r.to_dict()
+
+    def figure(self):
+        """The curves of every structure on shared axes (a matplotlib Figure)."""
+        return plot_side_by_side(self._r)
+
+    def write(self, folder, *, force: bool = False, plots: bool = True,
+              protect=()) -> list[Path]:
+        """Write a comparison folder: ``comparison.json`` (:meth:`to_dict`),
+        ``headline.csv``, one ``curve_NAME.csv`` per curve (columns structure, x, y; units
+        in ``comparison.json``), ``side_by_side.png``. Assembled beside ``folder`` and
+        renamed into place when complete; the inputs are never replaced."""
+        return write_comparison(folder, self._r, force=force, plots=plots,
+                                protect=list(protect) + [p.source for p in self._r.profiles
+                                                         if p.source])
+
+    def __repr__(self) -> str:
+        lines = [f"Comparison of {', '.join(self.labels)} (reference {self.labels[0]})"]
+        for r in self._r.rows[:16]:
+            vals = "  ".join(_num(r.get(lab)) for lab in self.labels)
+            lines.append(f"  {r['quantity']} [{r['unit']}]: {vals}")
+        if self.settings_differ:
+            lines.append(f"  settings that differ: {', '.join(self.settings_differ)}")
+        return "\n".join(lines[:20])
+
+    def _repr_html_(self) -> str:
+        head = "".join(f"<th>{html.escape(x)}</th>" for x in ["quantity", "unit", *self.labels])
+        body = "".join("<tr>" + "".join(
+            f"<td>{html.escape(x)}</td>" for x in [r["quantity"], r["unit"],
+                                                  *(_num(r.get(lab)) for lab in self.labels)])
+            + "</tr>" for r in self._r.rows)
+        return f"<table><caption>sheetview comparison</caption><tr>{head}</tr>{body}</table>"
+
+
+def _num(v) -> str:
+    return "–" if v is None else (f"{v:.4g}" if isinstance(v, float) else str(v))
+
+
+def compare_structures(inputs, labels=None, only=None, settings=None, *, measured_scattering=None,
+                       measured_t2=None, q_unit=None, t2_unit=None, progress=None,
+                       read_options=None, **kw) -> Comparison:
+    """Put two or more structures through the same definitions and compare them.
+
+    Parameters
+    ----------
+    inputs : paths of structures (any format sheetview reads; measured here), report
+        folders written by ``sheetview measure -o`` (read), or Structure / SurfaceBody /
+        PhaseGrid objects
+    labels : one name per input (a list or ``"a,b"``); default the file names
+    only : measures to run on structures measured here (default: the default set plus
+        scattering and relaxation, whose curves are overlaid)
+    settings, **kw : as for :func:`measure`; the same for every structure. Without a voxel,
+        the first input's voxel is used for all, so that grid measures share one definition
+    measured_scattering, measured_t2 : files of measured curves to fit every structure to
+        (as ``sheetview scatter --compare`` / ``relax --compare``); ``q_unit``, ``t2_unit``
+        their x units when the header does not say
+
+    Returns
+    -------
+    Comparison
+    """
+    s = Settings.of(settings, **kw)
+    profiles = profiles_of(inputs, labels=labels, only=only, settings=s, progress=progress,
+                           read_options=read_options)
+    return Comparison(side_by_side(profiles, measured_scattering=measured_scattering,
+                                   measured_t2=measured_t2, q_unit=q_unit, t2_unit=t2_unit))

@@ -39,7 +39,7 @@ import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .app.document import file_document, flatten
+from .app.document import file_document, file_sha256, flatten
 from .app.load import at_moment, load
 from .app.applies import check_settings
 from .app.registry import check_inputs, parse_only, select
@@ -47,6 +47,7 @@ from .app.run import Run
 from .app.settings import Settings
 from .errors import OptionError, OutputExistsError, SheetviewError
 from .io.output import atomic_path, json_default
+from .io.safety import check_input_file
 from .measures.kinetics import check_moment
 from .figures import new_figure
 from .report import write_json, write_report
@@ -65,15 +66,6 @@ def canonical_json(obj) -> str:
     """Canonical JSON text of ``obj``: sorted keys, no spaces, tuples as lists."""
     return json.dumps(obj, sort_keys=True, separators=(",", ":"), default=json_default,
                       allow_nan=True)
-
-
-def file_sha256(path) -> str:
-    """SHA-256 of a file's bytes."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 22), b""):
-            h.update(block)
-    return h.hexdigest()
 
 
 def result_key(input_sha256: str, config: dict) -> str:
@@ -131,9 +123,14 @@ def plan(paths, config: dict) -> list[Job]:
     jobs = []
     for p in paths:
         try:
+            check_input_file(p)
             sha = file_sha256(p)
+        except SheetviewError as e:
+            key = hashlib.sha256(str(p).encode()).hexdigest()[:16]
+            jobs.append(Job(Path(p), None, key, f"{_safe(Path(p).stem)}-{key}", str(e)))
+            continue
         except OSError as e:
-            key = hashlib.sha256(str(Path(p).resolve()).encode()).hexdigest()[:16]
+            key = hashlib.sha256(os.path.abspath(p).encode()).hexdigest()[:16]
             jobs.append(Job(Path(p), None, key, f"{_safe(Path(p).stem)}-{key}",
                             f"{p}: cannot read ({e.strerror or e})"))
             continue
@@ -180,7 +177,7 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
             doc["read_options"] = dict(read_kw)
         t1 = time.perf_counter()
         try:
-            write_report(out_folder, doc, run.results, force=False, plots=plots,
+            write_report(out_folder, doc, run.results, force=False, plots=plots, protect=[path],
                          grid=run.__dict__.get("grid"))
         except (OutputExistsError, OSError):
             # another process (a worker of a killed run) finished the same key meanwhile:
@@ -414,18 +411,68 @@ class _Log:
             (self.echo or (lambda m: print(m, file=sys.stderr, flush=True)))(f"sheetview: {msg}")
 
 
+#: The lock file of a batch folder: the host, process id and start time of the batch that
+#: holds it.
+LOCK = ".sheetview-batch.lock"
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def acquire_lock(out: Path) -> Path:
+    """Take the batch folder's lock (:data:`LOCK`, created exclusively) or refuse naming
+    its holder. A lock left by a process of this host that no longer runs is stale: it is
+    taken over (the caller logs it). A lock from another host is never taken over: the
+    message says how to remove it when that batch is known to be dead."""
+    import socket
+    path = out / LOCK
+    me = {"host": socket.gethostname(), "pid": os.getpid(),
+          "started": time.strftime("%Y-%m-%d %H:%M:%S")}
+    for _ in range(3):
+        try:
+            fd = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+        except FileExistsError:
+            try:
+                holder = json.loads(path.read_text())
+                host, pid = str(holder["host"]), int(holder["pid"])
+            except (OSError, ValueError, KeyError, TypeError):
+                holder, host, pid = {}, None, None
+            if host == me["host"] and pid is not None and not _alive(pid):
+                path.unlink(missing_ok=True)  # stale: its process is gone
+                continue
+            who = (f"batch process {pid} on host {host}, started {holder.get('started')}"
+                   if host else "an unreadable lock file")
+            raise SheetviewError(
+                f"the folder is in use by {who}; wait for it to finish, or, if it is known "
+                f"to be dead, remove {path}", path=out) from None
+        with os.fdopen(fd, "w") as fh:
+            json.dump(me, fh)
+        return path
+    raise SheetviewError(f"cannot take the lock {path}", path=out)
+
+
+def release_lock(path: Path) -> None:
+    """Remove the lock if this process still holds it."""
+    try:
+        if int(json.loads(path.read_text()).get("pid", -1)) == os.getpid():
+            path.unlink()
+    except (OSError, ValueError):
+        pass
+
+
 def prepare_out(out) -> Path:
     """Create ``out`` and its sub-folders; clear temporary leftovers of a killed run.
-    A folder that cannot be written is a :class:`SheetviewError` (exit status 2)."""
+    A folder that cannot be written is a :class:`SheetviewError` (exit status 2). The
+    caller holds the folder's lock (:func:`acquire_lock`) before leftovers are cleared."""
     out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise SheetviewError("exists and is not a folder; give a folder for -o", path=out)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise SheetviewError(f"cannot create the output folder ({e.strerror})", path=out) from None
-    if not os.access(out, os.W_OK | os.X_OK):
-        raise SheetviewError("output folder is not writable", path=out)
+    _check_out_folder(out)
     try:
         for sub in ("runs", "failed"):
             (out / sub).mkdir(exist_ok=True)
@@ -504,6 +551,30 @@ def run_batch(patterns, out, settings, read_kw: dict | None = None, *, only=None
             raise OptionError(f"at: expected numbers, got {at!r}") from None
         check_moment(*_moment_args(at))
     paths = expand_inputs(patterns)
+    out = Path(out)
+    _check_out_folder(out)
+    lock = acquire_lock(out)
+    try:
+        return _run_locked(paths, out, settings, read_kw, only, plots, workers, cluster,
+                           html_pages, quiet, echo, dask_options, threads, fork_warm, at)
+    finally:
+        release_lock(lock)
+
+
+def _check_out_folder(out: Path) -> None:
+    """Create the batch folder (the lock lives in it) or refuse it."""
+    if out.exists() and not out.is_dir():
+        raise SheetviewError("exists and is not a folder; give a folder for -o", path=out)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise SheetviewError(f"cannot create the output folder ({e.strerror})", path=out) from None
+    if not os.access(out, os.W_OK | os.X_OK):
+        raise SheetviewError("output folder is not writable", path=out)
+
+
+def _run_locked(paths, out, settings, read_kw, only, plots, workers, cluster, html_pages, quiet,
+                echo, dask_options, threads, fork_warm, at) -> BatchResult:
     out = prepare_out(out)
     log = _Log(out / "batch.log", echo, quiet)
     config = {"settings": key_settings(settings), "read": read_kw, "only": only}

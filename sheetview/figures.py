@@ -14,6 +14,7 @@ import textwrap
 import numpy as np
 
 from .grid import GEL, INTERLAYER, SOLID
+from .measures.diffusion import RelaxationWalkResult, T2T2Result, TransportResult
 from .style import PHASE_COLOURS, SECTION_ORDER, phase_label, section_rgb
 
 
@@ -241,6 +242,103 @@ def plot_sections(grid, ax=None):
     return fig
 
 
+# ------------------------------------------------------------------ random walks
+def _one_axes(ax, size=(5.0, 3.6)):
+    if ax is not None:
+        return ax.figure, ax
+    from matplotlib.figure import Figure
+    fig = Figure(figsize=size, dpi=110)
+    return fig, fig.add_subplot(1, 1, 1)
+
+
+def plot_decay(result: RelaxationWalkResult, ax=None):
+    """M(t) of a relaxation walk, total and by start class (log scale). Returns the Figure."""
+    fig, ax = _one_axes(ax)
+    t = result.t_us * 1e-3
+    ax.semilogy(t, np.maximum(result.m, 1e-6), "k-", lw=1.6, label="all water")
+    for k, v in result.m_by_class.items():
+        ax.semilogy(t, np.maximum(v, 1e-6), lw=1.0, label=f"started in {k}")
+    ax.set_xlabel("t (ms)")
+    ax.set_ylabel("M(t) / M(0)")
+    ax.set_title("Predicted decay (random walk)", fontsize=9)
+    ax.legend(fontsize=7)
+    fig.tight_layout()
+    return fig
+
+
+def plot_t2_spectrum(result: RelaxationWalkResult, ax=None):
+    """The walk's T2 spectrum by start class beside the fast-diffusion one of ``relax``.
+    Returns the Figure."""
+    fig, ax = _one_axes(ax)
+    sp = result.spectrum
+    if sp is not None:
+        x = sp.t2_s * 1e3
+        ax.semilogx(x, sp.amplitude, "k-", lw=1.6, label="walk, all water")
+        for k, v in sp.amplitude_by_class.items():
+            ax.semilogx(x, v, lw=1.0, label=f"walk, started in {k}")
+    if result.fast is not None:
+        ax.semilogx(result.fast.t2 * 1e3, result.fast.total, "k--", lw=1.0,
+                    label="fast diffusion (relax)")
+    ax.set_xlabel("T2 (ms)")
+    ax.set_ylabel("signal fraction per bin")
+    ax.set_title("Predicted T2 spectra (not measurements)", fontsize=9)
+    ax.legend(fontsize=7)
+    fig.tight_layout()
+    return fig
+
+
+def plot_exchange(result, ax=None):
+    """Share of the walkers of each start class found in another class against time
+    (an :class:`ExchangeResult` or a :class:`RelaxationWalkResult`). Returns the Figure."""
+    ex = result.exchange if isinstance(result, RelaxationWalkResult) else result
+    fig, ax = _one_axes(ax)
+    t = np.maximum(ex.t_us, 1e-12)
+    for i, a in enumerate(ex.classes):
+        for j, b in enumerate(ex.classes):
+            if i != j:
+                ax.semilogx(t[1:], ex.fraction[1:, i, j], lw=1.0, label=f"{a} → {b}")
+    ax.set_xlabel("mixing time (µs)")
+    ax.set_ylabel("fraction of the walkers of the start class")
+    ax.set_title("Exchange between pore classes", fontsize=9)
+    if len(ex.classes) > 1:
+        ax.legend(fontsize=7)
+    fig.tight_layout()
+    return fig
+
+
+def plot_msd(result: TransportResult, ax=None):
+    """MSD per axis against time with the free-water line 2 D0 t. Returns the Figure."""
+    fig, ax = _one_axes(ax)
+    t = result.t_us
+    for a, axn in enumerate("xyz"):
+        ax.plot(t, result.msd_nm2[:, a, a], lw=1.2, label=f"<Δ{axn}²>")
+    ax.plot(t, 2 * result.d0_nm2_per_us * t, "k:", lw=1.0, label="free water 2 D0 t")
+    ax.set_xlabel("t (µs)")
+    ax.set_ylabel("mean-square displacement (nm²)")
+    ax.set_title("Transport (random walk)", fontsize=9)
+    ax.legend(fontsize=7)
+    fig.tight_layout()
+    return fig
+
+
+def plot_t2_t2(result: T2T2Result, ax=None):
+    """The T2–T2 exchange map: amplitude against T2 during encoding (x) and detection
+    (y), log axes, with the diagonal. Returns the Figure (made without pyplot)."""
+    fig, ax = _one_axes(ax, size=(4.6, 4.0))
+    e = result.edges_s * 1e3
+    F = np.asarray(result.amplitude, float)
+    mesh = ax.pcolormesh(e, e, F.T, cmap="viridis", shading="flat")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.plot([e[0], e[-1]], [e[0], e[-1]], "w:", lw=0.8)
+    ax.set_xlabel("T2 during encoding (ms)")
+    ax.set_ylabel("T2 during detection (ms)")
+    ax.set_title(f"Predicted T2–T2 map, mixing {result.mixing_time_us:.3g} µs", fontsize=9)
+    fig.colorbar(mesh, ax=ax, label="signal fraction per bin")
+    fig.tight_layout()
+    return fig
+
+
 #: The figures of the named measures: name -> [(file stem, function)].
 FIGURES = {
     "stacking": [("stacking_histogram", plot_stacking)],
@@ -251,6 +349,10 @@ FIGURES = {
     "scattering": [("scattering", lambda r, ax=None: plot_scattering(
         r.curve, ax, notes=[f"predicted curve, {r.probe}s: {r.solid} in {r.fluid}; a model's "
                             "prediction, not a measurement"]))],
+    "water_walk": [("walk_decay", lambda r, ax=None: plot_decay(r, ax)),
+                   ("walk_t2_spectrum", lambda r, ax=None: plot_t2_spectrum(r, ax)),
+                   ("walk_exchange", lambda r, ax=None: plot_exchange(r, ax))],
+    "transport": [("transport_msd", lambda r, ax=None: plot_msd(r, ax))],
     "relaxation": [("t2_distribution", lambda r, ax=None: plot_relaxation(
         r, ax, notes=["predicted T2 distribution (fast exchange); a model's prediction, not "
                       "a measurement"]))],

@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import contextlib
 import csv
+import glob
 import math
 import os
 import shutil
@@ -42,6 +43,8 @@ from .errors import OutputExistsError, SheetviewError
 from .figures import FIGURES, plot_sections
 from .io.output import atomic_path
 from .app.document import dumps
+from .app.sidebyside import CURVES
+from .overlay import plot_side_by_side
 
 
 def check_folder(outdir, force: bool = False) -> Path:
@@ -143,21 +146,23 @@ def save_figure(fig, path, force: bool = False) -> Path:
 
 
 def write_report(outdir, doc: dict, results: dict, *, force: bool = False,
-                 plots: bool = True, grid=None) -> list[Path]:
+                 plots: bool = True, grid=None, protect=()) -> list[Path]:
     """Write a report folder for measure ``results`` (name -> result object).
 
     ``doc`` is the JSON summary (written as ``summary.json``); ``grid`` the phase grid the
     grid measures used (for the section figure). The folder is assembled under a temporary
     name beside ``outdir`` and renamed into place when complete, so an interrupted run
-    leaves no half-written report. Returns the paths written.
+    leaves no half-written report. ``protect``: files (the inputs) that must never be
+    replaced or removed by the report; a report that would is refused before anything in
+    ``outdir`` changes. Returns the paths written.
     """
-    with atomic_folder(outdir, force) as (out, final):
+    with atomic_folder(outdir, force, protect=protect) as (out, final):
         names = _write_all(out, doc, results, plots, grid)
     return [final / n for n in names]
 
 
 @contextlib.contextmanager
-def atomic_folder(outdir, force: bool = False, kind: str = "report"):
+def atomic_folder(outdir, force: bool = False, kind: str = "report", protect=()):
     """Yield ``(tmp, final)``: a temporary folder beside ``outdir`` to fill, and the final
     path. On success the folder is renamed into place (with ``force`` into an existing
     folder: see :func:`_move_into_place`; ``kind`` names the command in the manifest);
@@ -169,17 +174,43 @@ def atomic_folder(outdir, force: bool = False, kind: str = "report"):
             parent.mkdir(parents=True)
         except OSError as e:
             raise SheetviewError(f"cannot create the folder ({e.strerror})", path=final) from None
+    clear_stale_parts(parent, final.name)
     try:
-        tmp = Path(tempfile.mkdtemp(prefix=f".{final.name}.", suffix=".part", dir=parent))
+        tmp = Path(tempfile.mkdtemp(prefix=f".{final.name}.{os.getpid()}.", suffix=".part",
+                                    dir=parent))
     except OSError as e:
         raise SheetviewError(f"cannot write beside the output folder ({e.strerror})",
                              path=final) from None
     try:
         yield tmp, final
-        _move_into_place(tmp, final, kind)
+        _move_into_place(tmp, final, kind, protect)
+    except OSError as e:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise SheetviewError(f"cannot write the folder ({e.strerror or e})", path=final) from None
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
+
+
+def clear_stale_parts(parent: Path, name: str) -> None:
+    """Remove the temporary ``.NAME.PID.*.part`` folders beside an output that a killed
+    run of this host left behind (their process no longer runs); folders of running
+    processes and of an unknown process are kept."""
+    for p in parent.glob(f".{glob.escape(name)}.*.part"):
+        pid = p.name[len(name) + 2:].split(".", 1)[0]
+        if not pid.isdigit() or _pid_alive(int(pid)) or not p.is_dir() or p.is_symlink():
+            continue
+        shutil.rmtree(p, ignore_errors=True)
+
+
+def _pid_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OverflowError):
+        return True
+    return True
 
 
 #: Hidden file in an output folder: a first line ``# sheetview <kind>`` naming what wrote the
@@ -210,7 +241,7 @@ def _listed(folder: Path, kind: str) -> set:
     return {n for n in lines[1:] if _plain_name(n)}
 
 
-def _move_into_place(tmp: Path, final: Path, kind: str = "report") -> None:
+def _move_into_place(tmp: Path, final: Path, kind: str = "report", protect=()) -> None:
     """Rename the finished temporary folder to ``final``. With an existing folder (force)
     the files of the same name are replaced; the files an earlier run of the same kind
     wrote (listed in its :data:`MANIFEST`) that this run did not write are removed; any
@@ -223,6 +254,12 @@ def _move_into_place(tmp: Path, final: Path, kind: str = "report") -> None:
         os.replace(tmp, final)
         return
     stale = _listed(final, kind) - set(names)
+    guarded = {os.path.realpath(p) for p in protect}
+    hit = [n for n in sorted(set(names) | stale)
+           if os.path.realpath(final / n) in guarded]
+    if hit:
+        raise SheetviewError(f"the report would replace its own input {final / hit[0]}; write "
+                             f"the report to another folder", path=final)
     for p in tmp.iterdir():
         os.replace(p, final / p.name)
     tmp.rmdir()
@@ -277,3 +314,34 @@ def _write_figures(out: Path, results: dict, grid) -> list[Path]:
     if grid is not None:
         written.append(save_figure(plot_sections(grid), out / "sections.png"))
     return written
+
+
+def write_comparison(outdir, cmp, *, force: bool = False, plots: bool = True,
+                     protect=()) -> list[Path]:
+    """Write a comparison folder (:class:`sheetview.app.sidebyside.SideBySide`):
+    ``comparison.json``, ``headline.csv``, ``curve_NAME.csv`` (structure, x, y) per curve
+    drawn, ``side_by_side.png``. Assembled beside ``outdir``, renamed into place when
+    complete; ``protect``: inputs never replaced or removed (an input report folder may not
+    be the output folder)."""
+    final = Path(outdir).resolve()
+    for p in protect:
+        if p and Path(p).exists() and Path(p).resolve() == final:
+            raise SheetviewError("the output folder is one of the inputs; choose another "
+                                 "folder for -o", path=outdir)
+    doc = cmp.to_dict()
+    doc["curves"] = {name: {"title": t, "x": xl, "y": yl, "file": f"curve_{name}.csv"}
+                     for name, (t, xl, yl, _, _) in CURVES.items() if cmp.curves.get(name)}
+    names = []
+    with atomic_folder(outdir, force, kind="comparison", protect=protect) as (out, final):
+        write_json(out / "comparison.json", doc)
+        names.append("comparison.json")
+        write_csv(out / "headline.csv", cmp.table_columns())
+        names.append("headline.csv")
+        for name in CURVES:
+            if cmp.curves.get(name):
+                write_csv(out / f"curve_{name}.csv", cmp.curve_columns(name))
+                names.append(f"curve_{name}.csv")
+        if plots:
+            save_figure(plot_side_by_side(cmp), out / "side_by_side.png")
+            names.append("side_by_side.png")
+    return [final / n for n in names]

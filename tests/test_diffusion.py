@@ -7,6 +7,8 @@ import numba
 import numpy as np
 import pytest
 
+from sheetview import figures
+
 from sheetview.errors import MemoryLimitError, OptionError
 from sheetview.grid import GEL, INTERLAYER, SOLID, PhaseGrid
 from sheetview.measures import diffusion as dm
@@ -139,12 +141,12 @@ def test_figures_are_matplotlib_figures_without_global_state():
     g = _two_class_grid()
     r = dm.relaxation_walk(g, n_walkers=500, seed=1, rho2_nm_per_us=200.0, t_max_us=0.02)
     t = dm.transport_walk(g, n_walkers=300, t_max_us=0.002)
-    for fig in (dm.plot_decay(r), dm.plot_t2_spectrum(r), dm.plot_exchange(r),
-                dm.plot_exchange(r.exchange), dm.plot_msd(t)):
+    for fig in (figures.plot_decay(r), figures.plot_t2_spectrum(r), figures.plot_exchange(r),
+                figures.plot_exchange(r.exchange), figures.plot_msd(t)):
         assert isinstance(fig, Figure)
     fig = Figure()
     ax = fig.add_subplot(1, 1, 1)
-    assert dm.plot_msd(t, ax=ax) is fig
+    assert figures.plot_msd(t, ax=ax) is fig
     assert matplotlib.get_backend() == backend
 
 
@@ -197,11 +199,11 @@ def test_t2_t2_map_result_forms_and_figure():
     assert d["mixing_time_us"] == pytest.approx(0.002)
     assert {len(v) for v in r.table().values()} == {r.t2_s.size ** 2}
     assert 0.0 <= r.cross_fraction(float(np.median(r.t2_s))) <= 1.0
-    fig = dm.plot_t2_t2(r)
+    fig = figures.plot_t2_t2(r)
     assert isinstance(fig, Figure)
     f2 = Figure()
     ax = f2.add_subplot(1, 1, 1)
-    assert dm.plot_t2_t2(r, ax=ax) is f2
+    assert figures.plot_t2_t2(r, ax=ax) is f2
     assert matplotlib.get_backend() == backend
     several = dm.t2_t2_map(g, mixing_time_us=[0.0, 0.001], n_walkers=200, n_times=6,
                            rho2_nm_per_us=200.0, invert=False)
@@ -210,3 +212,24 @@ def test_t2_t2_map_result_forms_and_figure():
         dm.t2_t2_map(g, mixing_time_us=-1.0)
     with pytest.raises(OptionError, match="n_times"):
         dm.t2_t2_map(g, mixing_time_us=1.0, n_times=2)
+
+
+def test_walk_measures_run_through_measure():
+    """The opt-in registry measures `water_walk` and `transport` run through
+    `sheetview.measure`, add their headline to the summary, and write their tables and
+    figures in a report folder."""
+    import sheetview as sv
+    lab = np.full((24, 24, 24), GEL, np.uint8)
+    lab[:, :, 10:14] = SOLID
+    g = PhaseGrid(lab, spacing=0.5, periodic=True)
+    m = sv.measure(g, only="water_walk,transport", n_walkers=600)
+    s = m.summary()
+    assert s["water_walk"]["t2_logmean_ms"] > 0
+    assert s["transport"]["d_eff_over_d0"]["x"] == pytest.approx(1.0, abs=0.15)
+    assert s["transport"]["d_eff_over_d0"]["z"] < 0.2  # across the wall
+    assert "water_walk" in s["basis"]
+    import tempfile
+    from pathlib import Path
+    with tempfile.TemporaryDirectory() as d:
+        names = {p.name for p in m.write(Path(d) / "r")}
+    assert {"walk_decay.csv", "transport_msd.csv", "walk_decay.png", "transport_msd.png"} <= names

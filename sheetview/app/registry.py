@@ -152,3 +152,10 @@ register("scattering", f"{_M}.scattering:scattering_measure", "grid",
 register("relaxation", f"{_A}:relaxation", "grid",
          "predicted NMR T2 distribution per pore class, fast exchange (opt-in; "
          "`sheetview relax` for other parameters)", default=False)
+register("water_walk", f"{_M}.diffusion:relaxation_walk", "grid",
+         "random-walk NMR relaxation beyond fast exchange: M(t), T2 spectrum by start class, "
+         "class-to-class exchange, beside the fast-diffusion spectrum (opt-in; costly; "
+         "`sheetview waterwalk` for other parameters)", default=False)
+register("transport", f"{_M}.diffusion:transport_walk", "grid",
+         "effective diffusivity, tortuosity and formation factor of the water from random "
+         "walkers (opt-in; costly)", default=False)

@@ -178,6 +178,7 @@ class Run:
             fn = spec.function
             subject = self.structure if spec.needs == "structure" else self.grid
             kw = {p: self.input(p) for p in spec.parameters() if self.provides(p)}
+            kw = {k: v for k, v in kw.items() if v is not None}  # None: the function's default
             if spec.needs == "structure" and "spacing" in inspect.signature(fn).parameters:
                 kw.setdefault("spacing", subject.spacing)
             self.results[name] = self.stage(name, fn, subject, **kw)

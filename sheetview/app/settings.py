@@ -97,6 +97,10 @@ class Settings:
     lines: int = _f(20000, "", "Isotropic random lines of the chord measure.", metavar="N",
                     group="chords")
     seed: int = _f(0, "", "Seed of the random lines.", metavar="N", group="chords")
+    # random walkers (sheetview.measures.diffusion; the opt-in water_walk and transport)
+    n_walkers: int | None = _f(None, "", "Walkers of the opt-in random-walk measures (default "
+                               "20,000 for water_walk, 10,000 for transport).", metavar="N",
+                               group="walk")
     # two-point correlation (sheetview.measures.correlation)
     s2_block: int | None = _f(None, "voxels", "Compute the two-point correlation on the "
                               "central block of this many voxels per side instead of the whole "
@@ -152,6 +156,11 @@ class Settings:
             if not 8 <= self.s2_block <= 4096:
                 raise OptionError(f"must be between 8 and 4096 voxels, got {self.s2_block}",
                                   param="s2_block")
+        if self.n_walkers is not None:
+            set_("n_walkers", _whole("n_walkers", self.n_walkers))
+            if not 1 <= self.n_walkers <= 100_000_000:
+                raise OptionError(f"must be between 1 and 100,000,000, got {self.n_walkers}",
+                                  param="n_walkers")
         if self.s2_rmax is not None:
             r = _number("s2_rmax", self.s2_rmax)
             if not r > 0:

@@ -6,7 +6,10 @@ the command exits with status 2, without a traceback.
 """
 from __future__ import annotations
 
+import os
+import signal
 import sys
+import warnings
 
 import click
 
@@ -45,6 +48,18 @@ def shown_error(e: SheetviewError, command=None) -> str:
     return e.format(lambda p: names.get(p) or _option_style(p))
 
 
+def _sigterm(signum, frame):
+    """SIGTERM ends a run like Ctrl-C: temporary folders are removed on the way out."""
+    raise KeyboardInterrupt
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    """Warnings meant for the user (sheetview's own) as one ``sheetview: warning:`` line;
+    library warnings are not shown."""
+    if category.__module__.startswith("sheetview"):
+        click.echo(f"sheetview: warning: {message}", err=True)
+
+
 class _Group(click.Group):
     def main(self, *args, **kwargs):
         kwargs.pop("standalone_mode", None)
@@ -62,6 +77,11 @@ class _Group(click.Group):
             sys.exit(e.exit_code)
 
     def invoke(self, ctx):
+        try:
+            signal.signal(signal.SIGTERM, _sigterm)
+        except ValueError:  # not the main thread (a test runner's worker)
+            pass
+        warnings.showwarning = _show_warning
         try:
             return super().invoke(ctx)
         except SheetviewError as e:
@@ -103,7 +123,8 @@ def main():
 
 #: Command modules registered when present; each defines its commands and a list
 #: ``COMMANDS`` (or a command named like the module).
-_MODULES = ("synth", "measure", "batch", "experiment", "sections", "micrograph", "kinetics")
+_MODULES = ("synth", "measure", "batch", "experiment", "sections", "micrograph", "kinetics",
+            "beside")
 
 
 def _register():
@@ -121,3 +142,24 @@ def _register():
 
 
 _register()
+
+
+def run() -> None:
+    """The ``sheetview`` program: :data:`main`, then the process ends at once with its exit
+    status once the output is flushed. (A library's worker threads still alive at
+    interpreter exit, such as Apache Arrow's pool, can otherwise abort the process with
+    status 134 after a run that succeeded.)"""
+    try:
+        code = main.main(standalone_mode=False)
+        code = 0 if code is None else int(code)
+    except SystemExit as e:
+        code = e.code if isinstance(e.code, int) else (0 if e.code is None else 1)
+    except click.ClickException as e:
+        e.show()
+        code = e.exit_code
+    except click.exceptions.Abort:
+        click.echo("sheetview: interrupted", err=True)
+        code = 130
+    sys.stdout.flush()
+    sys.stderr.flush()
+    os._exit(code)

@@ -197,7 +197,7 @@ def measure(file, only, as_json, output, force, no_plots, quiet, at_progress, at
     if outdir is not None:
         if progress:
             progress("report", False)
-        write_report(outdir, doc, run.results, force=force, plots=not no_plots,
+        write_report(outdir, doc, run.results, force=force, plots=not no_plots, protect=[file],
                      grid=run.__dict__.get("grid"))
     if as_json:
         click.echo(dumps(doc))

@@ -776,8 +776,20 @@ class RelaxationWalkResult:
         return d
 
     def tables(self) -> dict:
-        return {"decay": self.table(), "t2_spectrum": self.spectrum_table(),
-                "exchange": self.exchange.table()}
+        return {"walk_decay": self.table(), "walk_t2_spectrum": self.spectrum_table(),
+                "walk_exchange": self.exchange.table()}
+
+    def headline(self) -> dict:
+        c = self.comparison().get("all", {})
+        return {"water_walk": {"t2_logmean_ms": c.get("walk_ms"),
+                               "fast_diffusion_t2_logmean_ms": c.get("fast_diffusion_ms"),
+                               "shift_decades": c.get("shift_decades"),
+                               "m_end": float(self.m[-1]), "t_end_us": self.t_end_us}}
+
+    def basis(self) -> dict:
+        return {"water_walk": "random-walk prediction of the water's T2 for the stated "
+                              "relaxivity and diffusivities, beside the fast-diffusion one; a "
+                              "prediction for the simulated structure, not a measurement"}
 
     def comparison(self) -> dict:
         """Geometric-mean T2 (ms) per class from the walk and from the fast-diffusion model,
@@ -824,7 +836,8 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
                     t_max_us: float | None = None, max_steps: int = DEFAULT_MAX_STEPS,
                     invert: bool = True, alpha: float | None = None,
                     t2_range_s=(1e-6, 10.0), per_decade: int = 20,
-                    compare_fast: bool = True, interlayer_width_nm: float | None = None,
+                    compare_fast: bool = True, interlayer_width: float | None = None,
+                    thickness=None,
                     accelerate: bool = True, max_memory: int | None = None,
                     progress=None) -> RelaxationWalkResult:
     """Magnetisation decay M(t), its T2 spectrum, and the class-to-class exchange, from
@@ -859,7 +872,9 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
     invert, alpha, t2_range_s, per_decade : the T2 inversion (:func:`invert_t2`); the bins
         are those of ``relax``
     compare_fast : also compute ``relax``'s fast-diffusion spectrum on the same bins
-    interlayer_width_nm : passed to ``relax`` as its interlayer width
+    interlayer_width : passed to ``relax`` as its interlayer width (nm)
+    thickness : local thickness map of the gel pores passed to ``relax`` (as the
+        ``relaxation`` measure gets it), computed there when None
     max_memory : bytes allowed (default half the available memory); over it
         :class:`~sheetview.errors.MemoryLimitError` names the walkers that would fit
     progress : callable ``progress(done_fraction, message)``, optional
@@ -960,7 +975,7 @@ def relaxation_walk(grid, *, n_walkers: int = DEFAULT_WALKERS, seed: int = 0,
                          per_decade=per_decade)
     fast = None
     if compare_fast:
-        fast = relaxation_spectrum(grid, interlayer_width=interlayer_width_nm,
+        fast = relaxation_spectrum(grid, thickness, interlayer_width=interlayer_width,
                                    rho2=rho2_nm_per_us if rho2_nm_per_us > 0 else 1e-12,
                                    t2_bulk=t2_bulk_s,
                                    bins=spec.edges_s if spec is not None else
@@ -1086,6 +1101,20 @@ class TransportResult:
         d["msd_xz_nm2"] = self.msd_nm2[:, 0, 2].tolist()
         d["msd_yz_nm2"] = self.msd_nm2[:, 1, 2].tolist()
         return d
+
+    def tables(self) -> dict:
+        return {"transport_msd": self.table()}
+
+    def headline(self) -> dict:
+        d = np.diag(self.d_eff_nm2_per_us) / self.d0_nm2_per_us
+        return {"transport": {"d_eff_over_d0": {ax: float(v) for ax, v in zip("xyz", d)},
+                              "tortuosity": {ax: _finite(v) for ax, v in
+                                             zip("xyz", self.tortuosity)}}}
+
+    def basis(self) -> dict:
+        return {"transport": "long-time effective diffusivity of the water from walkers "
+                             "without relaxation, per axis, over the free diffusivity D0; "
+                             "tortuosity D0/Deff"}
 
     def to_dict(self) -> dict:
         diag = np.diag(self.d_eff_nm2_per_us)
@@ -1521,97 +1550,3 @@ def _replace_xtab(eng):
 
 
 # ============================================================== figures
-def _axes(ax, size=(5.0, 3.6)):
-    if ax is not None:
-        return ax.figure, ax
-    from matplotlib.figure import Figure
-    fig = Figure(figsize=size, dpi=110)
-    return fig, fig.add_subplot(1, 1, 1)
-
-
-def plot_decay(result: RelaxationWalkResult, ax=None):
-    """M(t) of a relaxation walk, total and by start class (log scale). Returns the Figure."""
-    fig, ax = _axes(ax)
-    t = result.t_us * 1e-3
-    ax.semilogy(t, np.maximum(result.m, 1e-6), "k-", lw=1.6, label="all water")
-    for k, v in result.m_by_class.items():
-        ax.semilogy(t, np.maximum(v, 1e-6), lw=1.0, label=f"started in {k}")
-    ax.set_xlabel("t (ms)")
-    ax.set_ylabel("M(t) / M(0)")
-    ax.set_title("Predicted decay (random walk)", fontsize=9)
-    ax.legend(fontsize=7)
-    fig.tight_layout()
-    return fig
-
-
-def plot_t2_spectrum(result: RelaxationWalkResult, ax=None):
-    """The walk's T2 spectrum by start class beside the fast-diffusion one of ``relax``.
-    Returns the Figure."""
-    fig, ax = _axes(ax)
-    sp = result.spectrum
-    if sp is not None:
-        x = sp.t2_s * 1e3
-        ax.semilogx(x, sp.amplitude, "k-", lw=1.6, label="walk, all water")
-        for k, v in sp.amplitude_by_class.items():
-            ax.semilogx(x, v, lw=1.0, label=f"walk, started in {k}")
-    if result.fast is not None:
-        ax.semilogx(result.fast.t2 * 1e3, result.fast.total, "k--", lw=1.0,
-                    label="fast diffusion (relax)")
-    ax.set_xlabel("T2 (ms)")
-    ax.set_ylabel("signal fraction per bin")
-    ax.set_title("Predicted T2 spectra (not measurements)", fontsize=9)
-    ax.legend(fontsize=7)
-    fig.tight_layout()
-    return fig
-
-
-def plot_exchange(result, ax=None):
-    """Share of the walkers of each start class found in another class against time
-    (an :class:`ExchangeResult` or a :class:`RelaxationWalkResult`). Returns the Figure."""
-    ex = result.exchange if isinstance(result, RelaxationWalkResult) else result
-    fig, ax = _axes(ax)
-    t = np.maximum(ex.t_us, 1e-12)
-    for i, a in enumerate(ex.classes):
-        for j, b in enumerate(ex.classes):
-            if i != j:
-                ax.semilogx(t[1:], ex.fraction[1:, i, j], lw=1.0, label=f"{a} → {b}")
-    ax.set_xlabel("mixing time (µs)")
-    ax.set_ylabel("fraction of the walkers of the start class")
-    ax.set_title("Exchange between pore classes", fontsize=9)
-    if len(ex.classes) > 1:
-        ax.legend(fontsize=7)
-    fig.tight_layout()
-    return fig
-
-
-def plot_msd(result: TransportResult, ax=None):
-    """MSD per axis against time with the free-water line 2 D0 t. Returns the Figure."""
-    fig, ax = _axes(ax)
-    t = result.t_us
-    for a, axn in enumerate("xyz"):
-        ax.plot(t, result.msd_nm2[:, a, a], lw=1.2, label=f"<Δ{axn}²>")
-    ax.plot(t, 2 * result.d0_nm2_per_us * t, "k:", lw=1.0, label="free water 2 D0 t")
-    ax.set_xlabel("t (µs)")
-    ax.set_ylabel("mean-square displacement (nm²)")
-    ax.set_title("Transport (random walk)", fontsize=9)
-    ax.legend(fontsize=7)
-    fig.tight_layout()
-    return fig
-
-
-def plot_t2_t2(result: T2T2Result, ax=None):
-    """The T2–T2 exchange map: amplitude against T2 during encoding (x) and detection
-    (y), log axes, with the diagonal. Returns the Figure (made without pyplot)."""
-    fig, ax = _axes(ax, size=(4.6, 4.0))
-    e = result.edges_s * 1e3
-    F = np.asarray(result.amplitude, float)
-    mesh = ax.pcolormesh(e, e, F.T, cmap="viridis", shading="flat")
-    ax.set_xscale("log")
-    ax.set_yscale("log")
-    ax.plot([e[0], e[-1]], [e[0], e[-1]], "w:", lw=0.8)
-    ax.set_xlabel("T2 during encoding (ms)")
-    ax.set_ylabel("T2 during detection (ms)")
-    ax.set_title(f"Predicted T2–T2 map, mixing {result.mixing_time_us:.3g} µs", fontsize=9)
-    fig.colorbar(mesh, ax=ax, label="signal fraction per bin")
-    fig.tight_layout()
-    return fig

@@ -28,7 +28,7 @@ import numpy as np
 
 from ..errors import OptionError, positive
 from ..threads import budget
-from .pores import _prefix_max
+from .pores import prefix_max
 
 PHASES = ("solid", "pore")
 DIRECTIONS = ("rows", "cols", "random")
@@ -670,7 +670,7 @@ def _containment_table_2d(kmax):
             if v1 > A[1, q]:
                 A[1, q] = v1
     M = np.full((9, kmax + 2), np.iinfo(np.int64).max, dtype=np.int64)
-    _prefix_max(A, M[:2])
+    prefix_max(A, M[:2])
     return M
 
 

@@ -450,12 +450,12 @@ def _containment_table(kmax, types):
                     if v > A[t, q]:
                         A[t, q] = v
     M = np.full((nt, kmax + 2), -1, dtype=np.int64)
-    _prefix_max(A, M)
+    prefix_max(A, M)
     return M
 
 
 @numba.njit(cache=True)
-def _prefix_max(A, M):
+def prefix_max(A, M):
     """``M[t, K] = max(A[t, :K])`` for ``K >= 1`` (``M[t, 0]`` left as it is): the table
     of :func:`_containment_table` from the per-radius maxima ``A``."""
     for t in range(A.shape[0]):
