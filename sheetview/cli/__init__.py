@@ -101,7 +101,11 @@ class _Group(click.Group):
 
 def _usage_error(e: click.ClickException):
     """A usage error of click (unknown option, bad value, missing argument) in the same
-    one-line form as every other error, with where to look."""
+    one-line form as every other error, with where to look. The program called without a
+    command prints its help (on stderr, status 2)."""
+    if type(e).__name__ == "NoArgsIsHelpError":
+        click.echo(e.format_message(), err=True)
+        sys.exit(2)
     msg = " ".join(e.format_message().split())
     ctx = getattr(e, "ctx", None)
     hint = f" (see `{ctx.command_path} --help`)" if ctx is not None else ""

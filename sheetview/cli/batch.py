@@ -74,7 +74,7 @@ def batch(inputs, out, only, workers, threads, cluster, no_plots, no_html, quiet
 
 
 @command("trend")
-@click.argument("summary", type=click.Path(dir_okay=False))
+@click.argument("summary", metavar="SUMMARY", type=click.Path(dir_okay=False))
 @click.option("--x", "x", required=True, metavar="COLUMN", help="Column on the x axis.")
 @click.option("--y", "y", required=True, metavar="COLUMN", help="Numeric column on the y axis.")
 @click.option("--group", default=None, metavar="COLUMN", help="One line per value of this column.")

@@ -135,8 +135,9 @@ def output_option(kind: str, help: str, *, required: bool = False, dest: str = "
     file."""
     if kind not in ("folder", "file"):
         raise ValueError(kind)
-    return click.option("-o", "--output", dest, metavar=kind.upper(), default=None,
-                        required=required, type=click.Path(), help=help)
+    kw = {} if required else {"default": None}  # an explicit default satisfies `required`
+    return click.option("-o", "--output", dest, metavar=kind.upper(), required=required,
+                        type=click.Path(), help=help, **kw)
 
 
 def json_option(help: str = "Print the result document as JSON on stdout (nothing else "

@@ -16,8 +16,8 @@ from .conventions import command, force_option, max_memory_option, voxel_option
 
 
 @command()
-@click.argument("source", type=click.Path(dir_okay=False))
-@click.argument("target", type=click.Path(dir_okay=False))
+@click.argument("source", metavar="SOURCE", type=click.Path(dir_okay=False))
+@click.argument("target", metavar="TARGET", type=click.Path(dir_okay=False))
 @read_options
 @voxel_option("Voxel edge in nm of the phase grid written when prisms or a solid body go "
               "to a volume (.tif, .vti, .npy); default as for `sheetview measure`.")

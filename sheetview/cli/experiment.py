@@ -145,7 +145,7 @@ class _JsonFileCommand(Command):
 
 
 @click.command(cls=_JsonFileCommand)
-@click.argument("file", type=click.Path(exists=True, dir_okay=False))
+@click.argument("file", metavar="FILE", type=click.Path(exists=True, dir_okay=False))
 @read_options
 @voxel_option()
 @click.option("--probe", type=click.Choice(["neutron", "xray"]), default="neutron",
@@ -303,7 +303,7 @@ def _solid_fraction(grid):
 
 
 @click.command(cls=_JsonFileCommand)
-@click.argument("file", type=click.Path(exists=True, dir_okay=False))
+@click.argument("file", metavar="FILE", type=click.Path(exists=True, dir_okay=False))
 @read_options
 @voxel_option()
 @click.option("--rho2", type=float, default=None, metavar="NM/US",

@@ -32,7 +32,7 @@ def _fmt_domain(d):
 
 
 @command()
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
 @read_options
 @json_option("Print one JSON document on stdout instead of text.")
 def info(file, as_json, **read_opts):

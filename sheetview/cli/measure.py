@@ -158,7 +158,7 @@ def only_help(first: str = "Comma-separated measures to run (default: all that a
 
 
 @command("measure")
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
 @click.option("--only", default=None, metavar="NAMES", help=only_help())
 @json_option("Print only the JSON summary on stdout (progress goes to stderr).")
 @output_option("folder", "Write a report folder: summary.json, CSV tables, PNG figures.")
@@ -173,8 +173,8 @@ def measure(file, only, as_json, output, force, no_plots, quiet, at_progress, at
     chords and the two-point correlation.
 
     Lengths in nm, angles in degrees. Without --json a short summary is printed;
-    -o FOLDER writes the full tables and figures. Opt-in measures (scattering,
-    relaxation) run when named in --only. Prisms are rasterized to a phase grid
+    -o FOLDER writes the full tables and figures. Opt-in measures (listed under
+    --only) run when named in --only. Prisms are rasterized to a phase grid
     (solid, interlayer, gel pore, outside) for the grid measures; voxel volumes are
     measured as they are.
     """

@@ -366,7 +366,7 @@ def legacy_png(output, command_name: str):
 
 @command("compare")
 @click.argument("path", metavar="FILE", type=click.Path(dir_okay=False))
-@click.argument("image", type=click.Path(dir_okay=False))
+@click.argument("image", metavar="IMAGE", type=click.Path(dir_okay=False))
 @click.option("--pixel", "pixel_size", type=float, default=None, metavar="NM",
               help="Pixel edge of IMAGE in nm (needed unless its TIFF resolution tags say).")
 @click.option("--threshold", default="otsu", show_default=True, metavar="otsu|VALUE",

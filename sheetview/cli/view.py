@@ -89,7 +89,7 @@ def _export(structure, export_dir, grid, voxel, force, cache):
 
 
 @command()
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
 @read_options
 @_plane_options
 @click.option("--step", type=float, default=None, metavar="NM",
@@ -132,7 +132,7 @@ def view(file, axis, at, normal, origin, voxel, colour_by, export_dir, step, for
 
 
 @command()
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
 @output_option("file", "The picture to write (PNG).", required=True)
 @read_options
 @_plane_options
@@ -173,7 +173,7 @@ def render(file, output, axis, at, normal, origin, voxel, colour_by, export_dir,
 
 
 @command()
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
 @output_option("file", "The contact sheet to write (PNG).", required=True)
 @read_options
 @click.option("--axis", type=click.Choice(["x", "y", "z"]), default="z", show_default=True,
