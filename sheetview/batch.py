@@ -39,13 +39,15 @@ import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .app.document import file_document, file_sha256, flatten
+from ._version import __version__
+from .app.document import file_document, file_sha256, flatten, provenance
 from .app.load import at_moment, load
 from .app.applies import check_settings
 from .app.registry import check_inputs, parse_only, select
 from .app.run import Run
-from .app.settings import Settings
+from .app.settings import Settings, fields_info
 from .errors import OptionError, OutputExistsError, SheetviewError
+from .io.columns import unit_of
 from .io.output import atomic_path, json_default
 from .io.safety import check_input_file
 from .measures.kinetics import check_moment
@@ -831,7 +833,8 @@ def row_of(rec: dict, doc: dict | None) -> dict:
     row = {"input": rec["path"], "status": "failed" if rec["status"] == "failed" else "ok",
            "error": rec["error"] or "", "result": f"runs/{rec['name']}" if doc else ""}
     if doc:
-        flat = flatten({k: v for k, v in doc.items() if k not in ("timings_s", "note", "file")})
+        flat = flatten({k: v for k, v in doc.items()
+                        if k not in ("timings_s", "note", "file", "provenance")})
         row.update(flat)
     return row
 
@@ -877,6 +880,23 @@ def _arrow_table(cols):
     return pa.table(arrays)
 
 
+def parquet_metadata(names) -> dict:
+    """The ``sheetview`` key of summary.parquet's schema metadata: the ``units`` of the
+    columns that have one (from their names, :func:`sheetview.io.columns.unit_of`), the
+    sheetview version and the provenance of the batch run (time, command line, library
+    versions)."""
+    setting_units = {name: meta.get("unit") for name, _, meta in fields_info()}
+    units = {}
+    for n in names:
+        parts = n.split(".")
+        u = (setting_units.get(parts[-1]) if len(parts) > 1 and parts[-2] == "settings"
+             else None) or unit_of(n)
+        if u:
+            units[n] = u
+    return {"sheetview_version": __version__, "units": units, "provenance": provenance(),
+            "note": "columns without a unit are counts, fractions, ratios or text"}
+
+
 def write_tables(out, records) -> tuple[Path, Path]:
     """Write ``summary.csv`` and ``summary.parquet`` (one row per input), atomically."""
     import csv
@@ -892,8 +912,11 @@ def write_tables(out, records) -> tuple[Path, Path]:
             w.writerow(names)
             for i in range(n):
                 w.writerow([_csv_cell(cols[k][i]) for k in names])
+    table = _arrow_table(cols)
+    table = table.replace_schema_metadata({**(table.schema.metadata or {}),
+                                           b"sheetview": json.dumps(parquet_metadata(names))})
     with atomic_path(out / "summary.parquet", force=True) as tmp:
-        pq.write_table(_arrow_table(cols), tmp)
+        pq.write_table(table, tmp)
     return out / "summary.csv", out / "summary.parquet"
 
 
@@ -959,7 +982,7 @@ def structure_page(folder) -> str:
     metadata and every PNG of the folder inlined as base64."""
     folder = Path(folder)
     doc = json.loads((folder / "summary.json").read_text())
-    flat = flatten({k: v for k, v in doc.items() if k not in ("timings_s",)})
+    flat = flatten({k: v for k, v in doc.items() if k not in ("timings_s", "provenance")})
     e = html.escape
     parts = [f"<!DOCTYPE html><html><head><meta charset='utf-8'><title>{e(folder.name)}</title>"
              f"<style>{_CSS}</style></head><body>",
