@@ -112,7 +112,7 @@ def _only(options, allowed, path, fam):
 
 
 def write(obj, path, *, force: bool = False):
-    """Write a Structure (prism table or VTK PolyData), a SurfaceBody (mesh) or a
+    """Write a Structure (prism table, VTK PolyData or VTK wedge cells), a SurfaceBody (mesh) or a
     PhaseGrid (.vti/.npy/.tif), chosen by suffix. Refuses to overwrite unless ``force``."""
     from ..grid import PhaseGrid
     from ..structure import Structure
@@ -123,11 +123,13 @@ def write(obj, path, *, force: bool = False):
         from . import prisms
         if suffix in prisms.WRITERS:
             return prisms.WRITERS[suffix](obj, path, force=force)
-        if suffix in {".vtp", ".vtk"}:
+        if suffix in {".vtp", ".vtk", ".vtu"}:
             from . import meshes
             return meshes.write_prisms_vtk(obj, path, force=force)
         raise OptionError(f"cannot write prisms as {suffix or '(no suffix)'!r}; use .csv, .npz, "
-                          f".parquet, or .vtp/.vtk for general-purpose viewers", path=path)
+                          f".parquet, .vtp/.vtk (closed surfaces) or .vtu (wedge cells) for "
+                          f"general-purpose viewers, or a volume (.tif, .vti, .npy) for the "
+                          f"phase grid", path=path)
     if isinstance(obj, PhaseGrid):
         from . import volumes
         return volumes.write_volume(obj, path, force=force)
