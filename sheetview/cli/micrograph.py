@@ -182,7 +182,7 @@ def overview_figure(mg, desc):
     ax4.set_xlim(0, 180)
     ax4.set_xticks([0, 45, 90, 135, 180])
     ax4.set_xlabel("layer angle (deg from +x)")
-    ax4.set_ylabel("energy fraction")
+    ax4.set_ylabel("fraction (squared-gradient weighted)")
     ax4.set_title(f"orientation: order {o.order:.2f}, coherence {o.coherence:.2f}",
                   fontsize=9)
     fig.suptitle(f"sheetview micrograph  |  pixel {mg.pixel:g} nm, {L} x {M} pixels",
