@@ -5,10 +5,14 @@ and license, and CHANGELOG.md has a section for the current version."""
 from __future__ import annotations
 
 import re
-import tomllib
 from pathlib import Path
 
 import pytest
+
+try:
+    import tomllib
+except ImportError:  # Python 3.10
+    tomllib = pytest.importorskip("tomli")
 
 from sheetview import __version__
 
