@@ -12,6 +12,7 @@ import sys
 from pathlib import Path
 
 import click
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
@@ -200,3 +201,21 @@ def test_a_missing_required_output_is_a_usage_error(name):
     r = CliRunner().invoke(main, [name] + ([] if name == "synth" else [PRISMS]) + extra)
     assert r.exit_code == 2 and r.exception is None or isinstance(r.exception, SystemExit)
     assert "Missing option '-o'" in r.stderr and len(r.stderr.strip().splitlines()) == 1
+
+
+def test_messages_show_current_spellings_and_settings(tmp_path):
+    """A message written below the command line with an old spelling shows the current
+    option (micrograph: --pixel); an error of the grid's voxel size is shown as --voxel,
+    not as a field of the file."""
+    from matplotlib.image import imsave
+
+    from sheetview.cli import shown_error
+    from sheetview.cli.measure import measure
+    from sheetview.errors import OptionError
+    png = tmp_path / "g.png"
+    imsave(png, np.random.default_rng(0).random((32, 32)), cmap="gray")
+    r = CliRunner().invoke(main, ["micrograph", str(png)])
+    assert r.exit_code == 2 and "--pixel " in r.stderr and "--pixel-size" not in r.stderr
+    e = OptionError("the closed surface encloses no volume", path="b.stl", field="voxel_size")
+    text = shown_error(e, measure)
+    assert text.startswith("b.stl: --voxel:") and "field" not in text

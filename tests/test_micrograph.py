@@ -288,13 +288,13 @@ def test_cli_failure_while_writing_leaves_nothing(grey_png, tmp_path, monkeypatc
 
 
 @pytest.mark.parametrize("args, fragment", [
-    ((), "--pixel-size"),
-    (("--pixel-size", "-1"), "positive"),
-    (("--pixel-size", "nan"), "positive"),
-    (("--pixel-size", "5e7"), "not a micrograph"),
-    (("--pixel-size", "1", "--threshold", "mid"), "--threshold"),
-    (("--pixel-size", "1", "--threshold", "9999"), "one phase"),
-    (("--pixel-size", "1", "--lines", "0"), "--lines"),
+    ((), "--pixel"),
+    (("--pixel", "-1"), "positive"),
+    (("--pixel", "nan"), "positive"),
+    (("--pixel", "5e7"), "not a micrograph"),
+    (("--pixel", "1", "--threshold", "mid"), "--threshold"),
+    (("--pixel", "1", "--threshold", "9999"), "one phase"),
+    (("--pixel", "1", "--lines", "0"), "--lines"),
 ])
 def test_cli_bad_options_exit_2(grey_png, args, fragment):
     r = run("micrograph", grey_png, *args)

@@ -7,6 +7,7 @@ the command exits with status 2, without a traceback.
 from __future__ import annotations
 
 import os
+import re
 import signal
 import sys
 import warnings
@@ -15,6 +16,7 @@ import click
 
 from .._version import __version__
 from ..errors import SheetviewError
+from .conventions import ALIASES
 from .convert import convert
 from .info import info
 from .view import render, slices, view
@@ -37,14 +39,24 @@ def _option_style(p: str) -> str:
     return "--" + p.rstrip("_").replace("_", "-")
 
 
+#: ``field`` values the measures give for a setting (not a column of a file): the setting.
+_FIELD_SETTINGS = {"voxel_size": "voxel", "pixel_size": "pixel_size"}
+
+
 def shown_error(e: SheetviewError, command=None) -> str:
     """The one line the command line prints for ``e``: parameters shown as the options of
     ``command`` (:func:`option_names`); a parameter the command has no option for is shown
     in option style (``--max-memory``). An error whose ``field`` is one of the command's
     parameters (and names no file) is about that option and shown as such."""
     names = option_names(command)
+    if e.param is None and e.field in _FIELD_SETTINGS:  # the grid's voxel, not a file column
+        e.param, e.field = _FIELD_SETTINGS[e.field], None
     if e.param is None and e.path is None and e.field in names:
         e.param, e.field = e.field, None
+    current = set(names.values())
+    for old, new in ALIASES.items():  # a message written with a deprecated spelling
+        if new in current:
+            e.detail = re.sub(rf"(?<![\w-]){re.escape(old)}(?![\w-])", new, e.detail)
     return e.format(lambda p: names.get(p) or _option_style(p))
 
 
