@@ -125,7 +125,7 @@ def test_volumes_round_trip(tmp_path, suffix):
     assert back.spacing == pytest.approx(v.spacing)
 
 
-@pytest.mark.parametrize("suffix", [".stl", ".ply", ".obj", ".off", ".vtp", ".vtk"])
+@pytest.mark.parametrize("suffix", [".stl", ".ply", ".obj", ".off", ".glb", ".vtp", ".vtk"])
 def test_solid_bodies_round_trip(tmp_path, suffix):
     """A closed body (a trimesh icosphere, volume checked by trimesh) converted to each mesh
     format reads back as a solid of the same volume."""
