@@ -328,7 +328,7 @@ class OrderResult(Result):
                       "histogram": _local_hist(ls)},
             "distribution": {"frame": self.frame, "axis": [float(v) for v in self.axis],
                              "cos_theta_edges": self.cos_edges.tolist(),
-                             "phi_edges": self.phi_edges.tolist(),
+                             "phi_edges_deg": np.degrees(self.phi_edges).tolist(),
                              "fraction": self.hist.tolist(),
                              "polar_fraction": self.hist.sum(axis=1).tolist()},
             "pole_figure": {"projection": "Lambert azimuthal equal-area, upper hemisphere",
