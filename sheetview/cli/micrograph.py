@@ -22,6 +22,7 @@ from .conventions import (command, force_option, json_option, lines_option, outp
 from ..io.images import read_micrograph
 from ..io.output import atomic_path
 from ..measures.planar import describe
+from ..io.columns import with_units
 from ..report import atomic_folder, check_folder, write_csv, write_json
 from ..view import nice_length
 
@@ -198,10 +199,10 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
 
     with atomic_folder(outdir, force, kind="micrograph") as (tmp, final):
         write_json(tmp / "descriptors.json", doc)
-        write_csv(tmp / "chords.csv", desc.chords.table())
-        write_csv(tmp / "thickness.csv", desc.thickness.table())
-        write_csv(tmp / "s2.csv", desc.s2.table())
-        write_csv(tmp / "orientation.csv", desc.orientation.table())
+        write_csv(tmp / "chords.csv", with_units("chords", desc.chords.table()))
+        write_csv(tmp / "thickness.csv", with_units("thickness", desc.thickness.table()))
+        write_csv(tmp / "s2.csv", with_units("s2", desc.s2.table()))
+        write_csv(tmp / "orientation.csv", with_units("orientation", desc.orientation.table()))
         fig = overview_figure(mg, desc)
         with atomic_path(tmp / "overview.png") as p:
             fig.savefig(str(p), format="png", dpi=100)

@@ -25,7 +25,7 @@ RENAME = {
                "wall_distance": "wall_distance_nm", "wall_angle": "wall_angle_deg"},
 }
 #: Columns of a table holding counts, written as integers.
-COUNTS = {"s2_solid": ("pairs",), "minkowski": ("euler", "euler_6"),
+COUNTS = {"s2_solid": ("pairs",), "s2": ("pairs",), "minkowski": ("euler", "euler_6"),
           "stacks": ("prisms", "layers", "column")}
 #: Minkowski densities per reference volume: their units.
 _DENSITY_UNITS = {"V_V": "", "S_V": "_nm-1", "M_V": "_nm-2", "chi_V": "_nm-3"}
