@@ -69,10 +69,14 @@ def test_project_json_and_files(born_file, tmp_path):
 
 @pytest.mark.parametrize("args,needle", [
     (["section", "{f}", "--offset", "50"], "outside the sample"),
+    (["section", "{f}", "--at", "500"], "outside the sample"),
+    (["section", "{f}", "--normal", "1,0,0", "--origin", "500,0,0"], "outside the sample"),
+    (["section", "{f}", "--at", "1", "--offset", "1"], "once"),
     (["section", "{f}", "--normal", "0,0,0"], "non-zero"),
     (["section", "{f}", "--pixel", "-1"], "positive"),
     (["section", "{f}", "--axis", "z", "--normal", "0,0,1"], "not both"),
     (["project", "{f}", "--slab", "2", "--offset", "40"], "misses the sample"),
+    (["project", "{f}", "--slab", "2", "--at", "500"], "misses the sample"),
     (["project", "{f}", "--mfp", "0"], "--mfp"),
     (["project", "{f}", "--pixel", "0.0001"], "largest side"),
     (["project", "{f}", "--threshold", "dark"], "--threshold"),
@@ -204,7 +208,7 @@ def test_project_and_compare_a_voxel_volume(tmp_path):
     from matplotlib.image import imsave
     m = np.where(np.random.default_rng(0).random((64, 64)) < 0.1, 20, 230).astype(np.uint8)
     imsave(tmp_path / "mg.png", m, cmap="gray", vmin=0, vmax=255)
-    r = _run(["compare", SAMPLE_TIF, tmp_path / "mg.png", "--pixel-size", "0.5", "--count", "2",
+    r = _run(["compare", SAMPLE_TIF, tmp_path / "mg.png", "--pixel", "0.5", "--count", "2",
               "--lines", "200", "--json"])
     assert r.exit_code == 0, r.output
 
