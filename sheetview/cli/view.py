@@ -149,7 +149,7 @@ def render(file, output, axis, at, normal, origin, voxel, colour_by, export_dir,
            flat, force, at_progress, at_time, **read_opts):
     """Draw the prisms of FILE to a PNG without a window (for batch use and documents).
 
-    With --slice-axis/--slice-at or --slice-normal/--slice-origin the prisms are cut at
+    With --axis/--at or --normal/--origin the prisms are cut at
     that plane and the phases (solid, interlayer, gel pore, outside) are drawn on it.
     """
 

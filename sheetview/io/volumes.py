@@ -23,7 +23,8 @@ the TIFF description's sheetview marker; else the widely used description keys `
 resolution tags, or TIFF resolution tags in inch or cm with a description ``spacing`` for
 z. Lengths in a file without a unit
 (VTI) are nm unless ``units`` says otherwise; ``units`` also overrides a unit the file
-states. A file that gives no voxel size is refused with a request for ``--voxel-size``.
+states. A file that gives no voxel size is refused with a request for ``voxel_size``
+(``--volume-voxel`` on the command line).
 
 Phases
 ------
