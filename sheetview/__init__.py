@@ -19,8 +19,10 @@ from .domain import Box, Sphere
 from .errors import InputError, OptionError, SheetviewError
 from .grid import PhaseGrid
 from .io import read, write
+from .particles import ParticleSet
 from .structure import Structure, SurfaceBody
 
-__all__ = ["Box", "Sphere", "Structure", "SurfaceBody", "PhaseGrid", "read", "write", "measure",
-           "Measurement", "compare_structures", "Comparison", "Settings", "SheetviewError", "InputError", "OptionError",
+__all__ = ["Box", "Sphere", "Structure", "SurfaceBody", "ParticleSet", "PhaseGrid", "read",
+           "write", "measure", "Measurement", "compare_structures", "Comparison", "Settings",
+           "SheetviewError", "InputError", "OptionError",
            "__version__"]

@@ -24,6 +24,7 @@ from .app.settings import Settings
 from .app.sidebyside import SideBySide, profiles_of, side_by_side
 from .errors import OptionError
 from .grid import PhaseGrid
+from .particles import ParticleSet
 from .structure import Structure, SurfaceBody
 from .figures import figure_of
 from .overlay import plot_side_by_side
@@ -182,7 +183,7 @@ def measure(obj, only=None, settings=None, *, progress=None, at_progress=None, a
     if isinstance(obj, (str, Path)):
         source = str(obj)
         obj = load(obj, **(read_options or {}))
-    elif not isinstance(obj, (Structure, SurfaceBody, PhaseGrid)):
+    elif not isinstance(obj, (Structure, SurfaceBody, ParticleSet, PhaseGrid)):
         raise OptionError(f"expected a path, Structure, SurfaceBody or PhaseGrid, got "
                           f"{type(obj).__name__}", param="obj")
     else:

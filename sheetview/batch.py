@@ -25,10 +25,8 @@ written. Temporary ``.*.part`` entries a kill leaves behind are removed by the n
 """
 from __future__ import annotations
 
-import base64
 import glob
 import hashlib
-import html
 import json
 import math
 import os
@@ -52,7 +50,8 @@ from .io.output import atomic_path, json_default
 from .io.safety import check_input_file
 from .measures.kinetics import check_moment
 from .figures import new_figure
-from .report import write_json, write_report
+from .report import index_page, write_json, write_report
+from .report import structure_page as report_page
 
 #: Scalar headline keys shown first in the HTML pages.
 HEADLINE = ("n_prisms", "voxel_size_nm", "volume_fractions.solid", "volume_fractions.interlayer",
@@ -180,7 +179,7 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         t1 = time.perf_counter()
         try:
             write_report(out_folder, doc, run.results, force=False, plots=plots, protect=[path],
-                         grid=run.__dict__.get("grid"))
+                         grid=run.__dict__.get("grid"), page=False)
         except (OutputExistsError, OSError):
             # another process (a worker of a killed run) finished the same key meanwhile:
             # same content and settings, so its result stands
@@ -966,65 +965,17 @@ def _num(s):
 
 
 # ------------------------------------------------------------------ HTML pages
-_CSS = ("body{font-family:sans-serif;margin:2em;max-width:70em}table{border-collapse:collapse}"
-        "td,th{border:1px solid #bbb;padding:2px 8px;text-align:left}"
-        "img{max-width:100%;border:1px solid #ddd;margin:4px 0}.err{color:#a00}")
-
-
-def _fmtv(v):
-    if isinstance(v, float):
-        return f"{v:.6g}"
-    return "" if v is None else str(v)
-
-
 def structure_page(folder) -> str:
-    """Self-contained HTML of one result folder: headline numbers, settings, header
-    metadata and every PNG of the folder inlined as base64."""
-    folder = Path(folder)
-    doc = json.loads((folder / "summary.json").read_text())
-    flat = flatten({k: v for k, v in doc.items() if k not in ("timings_s", "provenance")})
-    e = html.escape
-    parts = [f"<!DOCTYPE html><html><head><meta charset='utf-8'><title>{e(folder.name)}</title>"
-             f"<style>{_CSS}</style></head><body>",
-             f"<h1>{e(str(doc.get('file')))}</h1>",
-             f"<p>input SHA-256 {e(str(doc.get('input_sha256')))}; sheetview "
-             f"{e(str(doc.get('sheetview_version')))}. {e(str(doc.get('note', '')))}</p>",
-             "<h2>Headline numbers</h2><table>"]
-    for k in HEADLINE:
-        if k in flat:
-            parts.append(f"<tr><th>{e(k)}</th><td>{e(_fmtv(flat[k]))}</td></tr>")
-    parts.append("</table><h2>Settings</h2><table>")
-    for k, v in flat.items():
-        if k.startswith("settings."):
-            parts.append(f"<tr><th>{e(k[9:])}</th><td>{e(_fmtv(v))}</td></tr>")
-    parts.append("</table>")
-    meta = {k: v for k, v in flat.items() if k.startswith("input_metadata.")}
-    if meta:
-        parts.append("<h2>File header metadata</h2><table>")
-        for k, v in meta.items():
-            parts.append(f"<tr><th>{e(k[15:])}</th><td>{e(_fmtv(v))}</td></tr>")
-        parts.append("</table>")
-    pngs = sorted(folder.glob("*.png"))
-    if pngs:
-        parts.append("<h2>Figures</h2>")
-    for p in pngs:
-        b64 = base64.b64encode(p.read_bytes()).decode("ascii")
-        parts.append(f"<h3>{e(p.stem.replace('_', ' '))}</h3>"
-                     f"<img alt='{e(p.name)}' src='data:image/png;base64,{b64}'>")
-    parts.append("<h2>All scalar values</h2><table>")
-    for k, v in flat.items():
-        if not k.startswith(("settings.", "input_metadata.")):
-            parts.append(f"<tr><th>{e(k)}</th><td>{e(_fmtv(v))}</td></tr>")
-    parts.append("</table></body></html>\n")
-    return "".join(parts)
+    """Self-contained HTML of one result folder (:func:`sheetview.report.structure_page`),
+    linked back to the batch's index."""
+    return report_page(folder, index_href="../../index.html")
 
 
 def write_pages(out, records) -> Path:
     """Write ``report.html`` in every finished result folder (if missing) and
-    ``index.html`` linking them, with the failures and their errors."""
+    ``index.html`` linking them, with the failures and their errors
+    (:func:`sheetview.report.index_page`)."""
     out = Path(out)
-    e = html.escape
-    rows = []
     done = set()
     for rec in records:
         folder = out / "runs" / rec["name"]
@@ -1035,22 +986,9 @@ def write_pages(out, records) -> Path:
                 with atomic_path(page, force=True) as tmp:
                     Path(tmp).write_text(text)
             done.add(rec["name"])
-            doc = json.loads((folder / "summary.json").read_text())
-            flat = flatten(doc)
-            cells = "".join(f"<td>{e(_fmtv(flat.get(k)))}</td>" for k in HEADLINE[:8])
-            rows.append(f"<tr><td><a href='runs/{e(rec['name'])}/report.html'>"
-                        f"{e(rec['path'])}</a></td><td>ok</td>{cells}</tr>")
-        else:
-            rows.append(f"<tr><td>{e(rec['path'])}</td><td class='err'>failed: "
-                        f"{e((rec['error'] or '').splitlines()[0] if rec['error'] else '')}"
-                        f"</td>{'<td></td>' * 8}</tr>")
-    head = "".join(f"<th>{e(k)}</th>" for k in HEADLINE[:8])
-    text = (f"<!DOCTYPE html><html><head><meta charset='utf-8'><title>sheetview batch</title>"
-            f"<style>{_CSS}</style></head><body><h1>sheetview batch: {len(records)} input(s)"
-            f"</h1><p>Tables: <a href='summary.csv'>summary.csv</a>, "
-            f"<a href='summary.parquet'>summary.parquet</a>; log: "
-            f"<a href='batch.log'>batch.log</a>.</p><table><tr><th>input</th><th>status</th>"
-            f"{head}</tr>{''.join(rows)}</table></body></html>\n")
+    text = index_page(out, records, extra_links=(("summary.csv", "summary.csv"),
+                                                 ("summary.parquet", "summary.parquet"),
+                                                 ("batch.log", "batch.log")))
     with atomic_path(out / "index.html", force=True) as tmp:
         Path(tmp).write_text(text)
     return out / "index.html"

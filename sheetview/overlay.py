@@ -12,6 +12,7 @@ import textwrap
 import numpy as np
 
 from .app.sidebyside import CURVES
+from .figures import PAGE_WIDTH
 from .style import GROUP_PALETTE, TEXT_COLOUR
 
 #: Line styles cycled with the colours, so that structures stay apart in greyscale print.
@@ -20,12 +21,13 @@ LINE_STYLES = ("-", "--", "-.", ":")
 PANELS = ("stacking", "pore_sizes", "chords_solid", "chords_pore", "s2", "scattering", "t2")
 
 
-def plot_side_by_side(cmp, *, width: float = 13.0):
-    """The comparison figure: a 2 x 4 grid of panels, the last one naming the structures,
-    the reference and the settings that differ. Panels of curves no structure has say so."""
+def plot_side_by_side(cmp, *, width: float = PAGE_WIDTH):
+    """The comparison figure, a journal page wide (183 mm): a 4 x 2 grid of panels, the
+    last one naming the structures, the reference and the settings that differ. Panels of
+    curves no structure has say so."""
     from matplotlib.figure import Figure
-    fig = Figure(figsize=(width, width * 0.52), layout="constrained")
-    axes = fig.subplots(2, 4).ravel()
+    fig = Figure(figsize=(width, width * 1.25), layout="constrained")
+    axes = fig.subplots(4, 2).ravel()
     labels = cmp.labels
     look = {lab: (GROUP_PALETTE[i % len(GROUP_PALETTE)], LINE_STYLES[i % len(LINE_STYLES)])
             for i, lab in enumerate(labels)}
@@ -100,8 +102,8 @@ def _measured(ax, name, meas, cmp, look):
             colour, _ = look[lab]
             ax.plot(c["x"], fit["scale"] * np.asarray(c["y"]) + (fit["background_cm-1"] or 0),
                     ":", color=colour, lw=1.0)
-        ax.text(0.03, 0.03, "dotted: scale x model + background fitted to the measured curve",
-                transform=ax.transAxes, fontsize=6, color="0.3")
+        ax.text(0.03, 0.03, "dotted: scale x model + background\nfitted to the measured curve",
+                transform=ax.transAxes, fontsize=6.5, color="0.3")
     else:
         # T2 in s -> ms; amplitudes as a density per log10 T2 with unit area
         t_ms = x * 1e3
@@ -135,5 +137,5 @@ def _legend_panel(ax, cmp, look):
                 lines.append(f"{lab}: T2 overlap {fit['overlap']:.2f}, shift "
                              f"{fit['shift_decades']:+.2f} decades")
     lines.append("Simulated structures; not measurements of real material.")
-    text = "\n".join(textwrap.fill(t, 48, subsequent_indent="   ") for t in lines)
-    ax.text(0.0, 0.45, text, transform=ax.transAxes, va="top", fontsize=7, color=TEXT_COLOUR)
+    text = "\n".join(textwrap.fill(t, 60, subsequent_indent="   ") for t in lines)
+    ax.text(0.0, 0.5, text, transform=ax.transAxes, va="top", fontsize=7, color=TEXT_COLOUR)

@@ -1,10 +1,12 @@
 """2D pictures with a scale bar: virtual sections and projections as PNG and TIFF.
 
 A picture is drawn at its own pixel grid (each image pixel one or more screen pixels,
-never resampled between neighbours), with a scale bar of a round length in the lower
-right corner and its label. Three files per picture:
+never resampled between neighbours); below it a white strip holds a scale bar of a round
+length (lower right), its label, a caption and the legend, so that nothing covers the
+data. Three files per picture:
 
-* ``STEM.png``: the picture with the scale bar (8-bit RGB);
+* ``STEM.png``: the picture with the scale bar (8-bit RGB), with its screen pixel size in
+  the pHYs chunk and a JSON ``Description`` (which rows hold the data, the enlargement);
 * ``STEM.tif``: the same picture with the scale bar (8-bit RGB TIFF, for slides and
   papers), with the pixel size in the TIFF resolution tags;
 * ``STEM_data.tif``: the numbers without a bar (phase codes as uint8 for a section;
@@ -47,50 +49,76 @@ def nice_bar(width_nm: float) -> float:
 
 def render(rgb: np.ndarray, pixel: float, *, bar_nm: float | None = None,
            caption: str | None = None, legend=None) -> np.ndarray:
-    """The picture ``rgb`` (rows x cols x 3, uint8) enlarged by a whole factor to at least
-    :data:`MIN_SIDE` screen pixels on its short side, with a scale bar, an optional
-    caption in the lower left and an optional legend (a list of (colour, label)) in the
-    upper left. Returns the RGB uint8 array drawn (matplotlib Agg)."""
+    """The picture ``rgb`` (rows x cols x 3, uint8) enlarged by a whole factor ``k`` to at
+    least :data:`MIN_SIDE` screen pixels on its short side (each image pixel a k x k block,
+    never interpolated), above a white strip holding a scale bar of a round length (lower
+    right), an optional caption (lower left) and an optional legend (a list of (colour,
+    label)). Nothing is drawn over the data: rows ``0 .. rows * k`` of the result are the
+    picture itself (:func:`layout` gives the numbers). Returns the RGB uint8 array drawn
+    (matplotlib Agg)."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
-    from matplotlib.patches import Rectangle
+    from matplotlib.patches import Patch, Rectangle
 
     rgb = np.asarray(rgb)
     nr, nc = rgb.shape[:2]
-    k = max(1, int(math.ceil(MIN_SIDE / max(1, min(nr, nc)))))
-    k = min(k, max(1, 4096 // max(nr, nc)))
-    H, W = nr * k, nc * k
+    lay = layout(nr, nc, n_legend=len(legend or ()))
+    k, W, H, S = lay["k"], lay["width"], lay["data_rows"], lay["strip"]
     dpi = 100
-    fig = Figure(figsize=(W / dpi, H / dpi), dpi=dpi)
+    fig = Figure(figsize=(W / dpi, (H + S) / dpi), dpi=dpi)
     FigureCanvasAgg(fig)
-    ax = fig.add_axes([0, 0, 1, 1])
-    ax.imshow(rgb, interpolation="nearest", resample=False, extent=(0, nc * pixel, 0, nr * pixel),
-              aspect="auto")
-    ax.set_xlim(0, nc * pixel)
-    ax.set_ylim(0, nr * pixel)
+    ax = fig.add_axes([0, S / (H + S), 1, H / (H + S)])
+    big = np.repeat(np.repeat(rgb, k, axis=0), k, axis=1)
+    ax.imshow(big, interpolation="nearest", resample=False, extent=(0, W, H, 0), aspect="auto")
+    ax.set_xlim(0, W)
+    ax.set_ylim(H, 0)
     ax.axis("off")
+    st = fig.add_axes([0, 0, 1, S / (H + S)])
+    st.set_xlim(0, W)
+    st.set_ylim(0, S)
+    st.axis("off")
+    fs = lay["font_pt"]
+    lh = lay["line_px"]
+    px_screen = pixel / k  # nm per screen pixel
     width = nc * pixel
     bar = nice_bar(width) if bar_nm is None else float(bar_nm)
-    fs = max(7.0, min(14.0, 0.045 * min(H, W) * 72 / dpi))
-    pad = 0.04 * width
-    bh = max(0.012 * nr * pixel, 2.5 * pixel / k, 0.012 * width)
-    x1 = nc * pixel - pad
-    y0 = 0.05 * nr * pixel
-    ax.add_patch(Rectangle((x1 - bar, y0), bar, bh, facecolor=BAR_COLOUR, edgecolor=BAR_EDGE, lw=1.0))
-    ax.text(x1 - bar / 2, y0 + bh * 1.6, f"{bar:g} nm", ha="center", va="bottom", fontsize=fs,
-            color=BAR_COLOUR, fontweight="bold",
-            path_effects=_outline())
+    bar_px = bar / px_screen
+    pad = max(6.0, 0.03 * W)
+    top = S - 0.35 * lh  # baseline region of the first line
+    bh = max(3.0, 0.28 * lh)
+    x1 = W - pad
+    st.add_patch(Rectangle((x1 - bar_px, top - 0.95 * lh), bar_px, bh, facecolor=BAR_EDGE,
+                           edgecolor=BAR_EDGE, lw=0))
+    st.text(x1 - bar_px / 2, top - 0.95 * lh + bh + 2, f"{bar:g} nm", ha="center",
+            va="bottom", fontsize=fs, color=BAR_EDGE, fontweight="bold")
     if caption:
-        ax.text(pad, y0, caption, ha="left", va="bottom", fontsize=fs * 0.8, color=BAR_COLOUR,
-                path_effects=_outline())
+        st.text(pad, top - 0.95 * lh, caption, ha="left", va="bottom", fontsize=fs * 0.85,
+                color=BAR_EDGE)
     if legend:
-        from matplotlib.patches import Patch
         handles = [Patch(facecolor=c, edgecolor=BAR_EDGE, label=lab) for c, lab in legend]
-        ax.legend(handles=handles, loc="upper left", fontsize=fs * 0.75, framealpha=0.85,
-                  borderpad=0.4, handlelength=1.0)
+        st.legend(handles=handles, loc="lower left", bbox_to_anchor=(0, 0), fontsize=fs * 0.8,
+                  frameon=False, ncol=lay["legend_cols"], handlelength=1.0, borderaxespad=0.3,
+                  columnspacing=1.2)
     fig.canvas.draw()
     img = np.asarray(fig.canvas.buffer_rgba())[..., :3].copy()
     return img
+
+
+def layout(rows: int, cols: int, n_legend: int = 0) -> dict:
+    """The geometry of a picture drawn by :func:`render` for an image of ``rows`` x
+    ``cols`` pixels: ``k`` (enlargement), ``width``, ``data_rows`` (screen rows of the
+    picture, from the top), ``strip`` (screen rows of the strip below it), the font size
+    and line height, the legend's columns."""
+    k = max(1, int(math.ceil(MIN_SIDE / max(1, min(rows, cols)))))
+    k = min(k, max(1, 4096 // max(rows, cols)))
+    W, H = cols * k, rows * k
+    fs = max(7.0, min(13.0, 0.032 * W * 72 / 100))
+    lh = fs * 100 / 72 * 1.5
+    ncol = max(1, min(n_legend, int(W // (9 * fs * 100 / 72)) or 1))
+    lines = 2 + (math.ceil(n_legend / ncol) if n_legend else 0)
+    S = int(math.ceil(lines * lh + 0.4 * lh))
+    return {"k": k, "width": W, "data_rows": H, "strip": S, "font_pt": fs, "line_px": lh,
+            "legend_cols": ncol}
 
 
 def _outline():
@@ -137,13 +165,28 @@ def _resolution(pixel_nm: float) -> dict:
     return {"resolution": (per_cm, per_cm), "resolutionunit": 3}  # RESUNIT.CENTIMETER
 
 
+def _png_dpi(pixel_nm: float) -> dict:
+    """Pillow's ``dpi`` keyword for a PNG pHYs chunk (pixels per metre, an unsigned 32-bit
+    number: PNG specification, 11.3.5.3), or none where the pixel is too fine for it."""
+    per_m = 1e9 / pixel_nm
+    if not per_m < 2.0 ** 32 - 1:
+        return {}
+    return {"dpi": (per_m * 0.0254, per_m * 0.0254)}
+
+
 def write_picture(stem, picture: np.ndarray, data_pages: dict, pixel: float, description: dict,
                   *, force: bool = False) -> dict:
     """Write STEM.png, STEM.tif (the picture with its bar) and STEM_data.tif (the pages of
     ``data_pages``, name -> 2D array, in order). All three names are checked before any is
-    written; each is written under a temporary name and renamed."""
+    written; each is written under a temporary name and renamed.
+
+    The pictures carry their screen pixel size (PNG pHYs chunk, TIFF resolution tags) and a
+    JSON description (PNG ``Description`` text chunk, TIFF ImageDescription) that also says
+    which rows hold the data (``picture.data_rows``) and the enlargement ``k``, so that
+    :func:`sheetview.io.images.read_micrograph` reads the data rows at the right scale."""
     import tifffile
-    from matplotlib.image import imsave
+    from PIL import Image
+    from PIL.PngImagePlugin import PngInfo
 
     files = outputs(stem)
     for p in files.values():
@@ -152,16 +195,22 @@ def write_picture(stem, picture: np.ndarray, data_pages: dict, pixel: float, des
         raise OptionError(f"pixel size must be positive, got {pixel!r}")
     desc = dict(description)
     desc.update({"pixel_nm": pixel, "pages": list(data_pages), "software": "sheetview"})
-    # the bar is drawn at the enlarged scale: its resolution is that of the drawn picture
-    k = picture.shape[1] / max(1, next(iter(data_pages.values())).shape[1])
+    first = next(iter(data_pages.values()))
+    # the picture is drawn at the enlarged scale: its resolution is that of the drawn picture
+    k = picture.shape[1] / max(1, first.shape[1])
+    shown = {**desc, "pixel_nm": pixel / k, "pages": ["picture with scale bar"],
+             "picture": {"enlargement": k, "data_pixel_nm": pixel,
+                         "data_rows": [0, int(round(first.shape[0] * k))],
+                         "below": "scale bar, caption and legend on a white strip"}}
     # all three are written under temporary names and renamed only when all are complete
     with contextlib.ExitStack() as stack:
         tmps = {key: stack.enter_context(atomic_path(files[key], force)) for key in files}
-        imsave(str(tmps["png"]), np.ascontiguousarray(picture), format="png")
+        info = PngInfo()
+        info.add_itxt("Description", json.dumps(shown))
+        Image.fromarray(np.ascontiguousarray(picture)).save(
+            str(tmps["png"]), format="PNG", pnginfo=info, **_png_dpi(pixel / k))
         tifffile.imwrite(str(tmps["tif"]), np.ascontiguousarray(picture), photometric="rgb",
-                         description=json.dumps({**desc, "pixel_nm": pixel / k,
-                                                 "pages": ["picture with scale bar"]}),
-                         **_resolution(pixel / k))
+                         description=json.dumps(shown), **_resolution(pixel / k))
         with tifffile.TiffWriter(str(tmps["data"])) as tw:
             for i, (name, arr) in enumerate(data_pages.items()):
                 tw.write(np.ascontiguousarray(arr), photometric="minisblack",

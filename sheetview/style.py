@@ -52,6 +52,12 @@ OUTLINE_COLOUR = "#404040"
 NAN_COLOUR = "#b0b0b0"
 TEXT_COLOUR = "#202020"
 
+#: Colours of the HTML report pages (sheetview.report): headings ruled in the solid's umber,
+#: links in the deepest pore blue, errors in a dark red, rules and muted text in greys.
+PAGE_COLOURS = {"accent": PHASE_COLOURS[SOLID], "link": PHASE_COLOURS[GEL + 3],
+                "error": "#a00000", "rule": "#cccccc", "muted": "#555555",
+                "frame": "#dddddd"}
+
 
 def rgb(colour) -> np.ndarray:
     """A colour (name or hex) as floats in [0, 1]."""

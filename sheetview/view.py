@@ -723,8 +723,10 @@ class Scene:
             p.remove_scalar_bar(title)
         bar = None
         if dsp.title and self.decorations:
+            wh = max(int(p.window_size[1]), 1)
             bar = dict(title=dsp.title, n_labels=dsp.n_labels, fmt=dsp.fmt, vertical=False,
-                       position_x=0.52, position_y=0.86, width=0.44, height=0.09,
+                       position_x=0.52, position_y=max(0.5, 1.0 - 80.0 / wh), width=0.44,
+                       height=min(0.3, 70.0 / wh),
                        color=TEXT_COLOUR, title_font_size=12, label_font_size=10)
             if self.colouring.kind == "integer":
                 lo, hi = int(round(dsp.clim[0] + 0.5)), int(round(dsp.clim[1] - 0.5))
@@ -840,31 +842,107 @@ class Scene:
         plotter.add_text("\n".join(help_lines), position="lower_right", font_size=7,
                          color=TEXT_COLOUR, name="help")
 
-    def camera(self, view: str = "iso", size=(800, 600)) -> None:
-        """Point the camera: ``iso``, ``cut`` (facing the cut, tilted), ``+x`` ... ``-z``
-        (from that side), parallel projection fitted to the domain."""
-        p = self.plotter
+    def margins(self, size=(800, 600)) -> dict:
+        """Parts of the window (fractions of its width and height) kept free of the
+        structure for the decorations: the colour bar on top, the legend on the left, the
+        status line and the scale bar at the bottom."""
+        w, h = (max(int(v), 1) for v in size)
+        if not self.decorations:
+            return {"top": 0.02, "bottom": 0.02, "left": 0.02, "right": 0.02}
+        top = min(0.3, 92.0 / h) if self.display.title else 0.03
+        n_legend = len(self.display.legend) + (4 if self.section_on else 0)
+        left = min(0.25, 190.0 / w) if n_legend else 0.02
+        bottom = min(0.2, 58.0 / h)
+        return {"top": top, "bottom": bottom, "left": left, "right": 0.02}
+
+    def content_points(self) -> np.ndarray:
+        """Points whose picture must fit the window: the prisms' corners and the traced
+        outline of the domain."""
+        pts = [np.asarray(self.mesh.points, float)]
+        try:
+            pts.append(np.asarray(outline_mesh(self.structure.domain).points, float))
+        except Exception:  # noqa: BLE001  # an outline is only decoration
+            pass
+        return np.concatenate([p.reshape(-1, 3) for p in pts if p.size])
+
+    def _extent(self, view: str):
+        """``(centre, right, up, half_w, half_h, d, up_vector)`` of the content seen from
+        ``view`` (parallel projection)."""
         d, up = camera_direction(view, self.plane_normal)
         lo, hi = self.bounds
         c = 0.5 * (lo + hi)
-        dist = 3.0 * float(np.linalg.norm(hi - lo))
-        cam = p.camera
-        cam.focal_point = tuple(c)
-        cam.position = tuple(c + dist * d)
-        cam.up = tuple(up)
-        cam.parallel_projection = True
-        p.renderer.ResetCameraClippingRange()
-        # fit the domain's box tightly in the window
         right = np.cross(-d, up)
         right /= np.linalg.norm(right)
         upv = np.cross(right, -d)
-        corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1])
-                            for z in (lo[2], hi[2])]) - c
-        half_w = np.abs(corners @ right).max()
-        half_h = np.abs(corners @ upv).max()
+        pts = self.content_points() - c
+        u, v = pts @ right, pts @ upv
+        ulo, uhi, vlo, vhi = float(u.min()), float(u.max()), float(v.min()), float(v.max())
+        centre = c + 0.5 * (ulo + uhi) * right + 0.5 * (vlo + vhi) * upv
+        return (centre, right, upv, max(0.5 * (uhi - ulo), 1e-9), max(0.5 * (vhi - vlo), 1e-9),
+                d, up)
+
+    def fitted_size(self, view: str, width: int) -> tuple[int, int]:
+        """``(width, height)``: the picture height at which the structure seen from
+        ``view`` fills the free part of the window in both directions (between 0.45 and
+        1.6 times the width)."""
+        *_, half_w, half_h, _, _ = self._extent(view)
+        h = 0.75 * width
+        for _ in range(3):
+            m = self.margins((width, h))
+            fw = 1.0 - m["left"] - m["right"]
+            fh = 1.0 - m["top"] - m["bottom"]
+            # width / height such that the scale set by the height equals that by the width
+            h = width * (half_h / fh) / (half_w / fw)
+            h = min(max(h, 0.45 * width), 1.6 * width)
+        return int(width), int(round(h))
+
+    def camera(self, view: str = "iso", size=(800, 600)) -> None:
+        """Point the camera: ``iso``, ``cut`` (facing the cut, tilted), ``+x`` ... ``-z``
+        (from that side), parallel projection. The picture of the prisms and the domain's
+        outline is fitted to the part of the window the decorations leave free
+        (:meth:`margins`), with 3 % to spare; :attr:`nm_per_pixel` is its scale."""
+        p = self.plotter
+        centre, right, upv, half_w, half_h, d, up = self._extent(view)
+        lo, hi = self.bounds
+        dist = 3.0 * float(np.linalg.norm(hi - lo))
+        m = self.margins(size)
+        fw = max(1.0 - m["left"] - m["right"], 0.3)
+        fh = max(1.0 - m["top"] - m["bottom"], 0.3)
         aspect = size[0] / size[1]
-        cam.parallel_scale = 1.04 * max(half_h, half_w / aspect)
+        scale = 1.03 * max(half_h / fh, half_w / (aspect * fw))
+        # put the content's centre at the centre of the free part of the window
+        dx = (m["left"] - m["right"]) * scale * aspect
+        dy = (m["bottom"] - m["top"]) * scale
+        focal = centre - dx * right - dy * upv
+        cam = p.camera
+        cam.focal_point = tuple(focal)
+        cam.position = tuple(focal + dist * d)
+        cam.up = tuple(up)
+        cam.parallel_projection = True
+        p.renderer.ResetCameraClippingRange()
+        cam.parallel_scale = scale
         cam.clipping_range = (0.01 * dist, 3.0 * dist)
+        self.nm_per_pixel = 2.0 * scale / size[1]
+        self.view = view
+
+    def draw_scale_bar(self, size=(800, 600)) -> float:
+        """A scale bar of a round length in the lower right corner, above the status line
+        (after :meth:`camera`: parallel projection, so it measures every length across the
+        line of sight). Returns its length in nm."""
+        p = self.plotter
+        w, h = (int(v) for v in size)
+        px = self.nm_per_pixel
+        bar = nice_length(0.8 * w * px)
+        bw = bar / px / w
+        bh = max(4.0, 0.008 * h) / h
+        x1 = 1.0 - max(0.02, 12.0 / w)
+        y0 = 24.0 / h  # above the status line
+        p.add_actor(_square_actor(x1 - bw, y0, bw, bh, colour_rgb(TEXT_COLOUR)),
+                    name="scale_bar", pickable=False)
+        label = f"{bar:g} nm"
+        p.add_text(label, position=((x1 - bw / 2) * w - 3.5 * len(label), (y0 + bh) * h + 3),
+                   font_size=9, color=TEXT_COLOUR, name="scale_bar_label")
+        return bar
 
 
 CAMERA_VIEWS = ("iso", "cut", "+x", "-x", "+y", "-y", "+z", "-z")
@@ -903,14 +981,18 @@ def write_png(img: np.ndarray, path, force: bool = False) -> Path:
     return Path(path)
 
 
-def parse_size(text) -> tuple[int, int]:
-    """``"800x600"`` -> (800, 600)."""
+def parse_size(text) -> tuple[int, int | None]:
+    """``"800x600"`` -> (800, 600); ``"1200"`` -> (1200, None): the height follows the
+    structure's shape (:func:`render`)."""
+    parts = str(text).lower().replace(",", "x").split("x")
     try:
-        w, h = (int(v) for v in str(text).lower().replace(",", "x").split("x"))
+        w, h = (int(v) for v in parts) if len(parts) == 2 else (int(parts[0]), None)
     except ValueError:
-        raise OptionError(f"--size: expected WIDTHxHEIGHT in pixels such as 800x600, got {text!r}",
-                          param="size") from None
-    if not (16 <= w <= 8192 and 16 <= h <= 8192):
+        raise OptionError(f"--size: expected WIDTHxHEIGHT in pixels such as 800x600, or a "
+                          f"width alone, got {text!r}", param="size") from None
+    if h is None and 16 <= w <= 8192:
+        return w, None
+    if not (16 <= w <= 8192 and h is not None and 16 <= h <= 8192):
         raise OptionError(f"--size: width and height must be 16 to 8192 pixels, got {text!r}",
                           param="size")
     return w, h
@@ -952,7 +1034,8 @@ def slice_plane(domain, *, axis=None, at=None, normal=None, origin=None):
 def render(structure, path=None, *, colour_by: str = "stacking", plane=None, grid=None,
            voxel_size=None, camera: str | None = None, size=(800, 600), force: bool = False,
            lighting: bool = True, decorations: bool = True, cache: dict | None = None,
-           scene: Scene | None = None) -> np.ndarray:
+           scene: Scene | None = None, caption: str | None = None,
+           scale_bar: bool = True) -> np.ndarray:
     """Draw the scene off-screen; write a PNG to ``path`` (if given); return the image.
 
     Parameters
@@ -968,11 +1051,20 @@ def render(structure, path=None, *, colour_by: str = "stacking", plane=None, gri
         Phase grid for the section (rasterized at ``voxel_size`` if not given).
     camera : str, optional
         One of :data:`CAMERA_VIEWS`; default ``cut`` with a plane, ``iso`` without.
-    size : (width, height) in pixels
+    size : (width, height) in pixels; a height of None (or 0) follows the structure's
+        shape (:meth:`Scene.fitted_size`)
     lighting : bool
         False draws flat, unshaded colours (exact colormap colours).
     decorations : bool
         Scalar bar, legend and status line.
+    caption : str, optional
+        Added to the status line (the moment of growth drawn, for instance).
+    scale_bar : bool
+        With decorations: a scale bar (lower right). The picture is a parallel projection,
+        so the bar holds for every length across the line of sight; the status line says so.
+
+    The structure and the domain's outline are fitted to the part of the picture the
+    decorations leave free (:meth:`Scene.camera`).
 
     Returns
     -------
@@ -990,11 +1082,20 @@ def render(structure, path=None, *, colour_by: str = "stacking", plane=None, gri
                       decorations=decorations, cache=cache)
     view = camera or ("cut" if scene.section_on else "iso")
     camera_direction(view, scene.plane_normal)  # validate before opening a window
+    if not h:
+        w, h = scene.fitted_size(view, int(w))
     p = pv.Plotter(off_screen=True, window_size=(int(w), int(h)))  # no global flag set
     try:
         p.disable_anti_aliasing()
         scene.attach(p)
         scene.camera(view, (w, h))
+        extra = [caption] if caption else []
+        if decorations and scale_bar:
+            bar = scene.draw_scale_bar((w, h))
+            extra.append(f"parallel projection: the {bar:g} nm bar holds across the line "
+                         "of sight")
+        if extra:
+            scene._update_status(extra="; ".join(extra))
         img = p.screenshot(return_img=True)
     finally:
         scene.plotter = None

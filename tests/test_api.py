@@ -4,6 +4,7 @@ ValueErrors naming the parameter, and no global state changes."""
 from __future__ import annotations
 
 import json
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -126,3 +127,44 @@ def test_progress_reaches_the_python_api():
                progress=lambda stage, done, seconds=None: seen.append((stage, done)))
     assert ("stacking", False) in seen and ("stacking", True) in seen
     assert ("phases", True) in seen
+
+
+def test_first_run_says_it_compiles(tmp_path):
+    """With an empty kernel cache the run tells its progress callback that it compiles the
+    kernels (first run only); once a kernel is cached it does not."""
+    code = ("from sheetview.app.run import kernels_cold; import sheetview.measures.phases; "
+            "print(kernels_cold())")
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True)
+    assert out.stdout.strip() == "True", out.stderr
+    from sheetview.app.run import COMPILING, kernels_cold
+    told = []
+    sv.measure("sample_structures/single_stack.csv", only="stacking",
+               progress=lambda stage, done, seconds=None: told.append(stage))
+    assert not kernels_cold()
+    told.clear()
+    sv.measure("sample_structures/single_stack.csv", only="stacking",
+               progress=lambda stage, done, seconds=None: told.append(stage))
+    assert COMPILING not in told and "stacking" in told
+
+
+def test_progress_within_long_stages():
+    """A progress callback that takes ``fraction`` hears the progress within a long stage
+    (the random walk) between its start and end; one without it hears only the stages."""
+    from sheetview.grid import GEL, SOLID, PhaseGrid
+    lab = np.full((16, 16, 16), GEL, np.uint8)
+    lab[:, :, 6:8] = SOLID
+    g = PhaseGrid(lab, 0.3, periodic=True)
+    heard = []
+    sv.measure(g, only="water_walk", n_walkers=200,
+               progress=lambda stage, done, seconds=None, fraction=None:
+               heard.append((stage, done, fraction)))
+    walk = [h for h in heard if h[0] == "water_walk"]
+    assert walk[0] == ("water_walk", False, None) and walk[-1][1] is True
+    inner = [f for _, d, f in walk if not d and f is not None]
+    assert len(inner) >= 2 and all(0.0 <= f <= 1.0 for f in inner) and inner[-1] == 1.0
+    plain = []
+    sv.measure(g, only="water_walk", n_walkers=200,
+               progress=lambda stage, done, seconds=None: plain.append((stage, done)))
+    assert ("water_walk", False) in plain and ("water_walk", True) in plain
+    assert len([p for p in plain if p[0] == "water_walk"]) == 2

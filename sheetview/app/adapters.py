@@ -12,7 +12,6 @@ import numpy as np
 
 from ..grid import INTERLAYER, OUTSIDE, SOLID, PhaseGrid
 from ..measures.pores import default_reservoir, intrusion_diameter, local_thickness, size_distribution
-from ..measures.relaxation import relaxation_spectrum
 
 
 @dataclass
@@ -87,9 +86,3 @@ def pores(grid: PhaseGrid, *, thickness=None, intrusion: bool = False):
             parts["intrusion"] = size_distribution(d, voxel_size=g.spacing, method="intrusion",
                                                    phases=names)
     return PoreSizes(parts, notes=notes)
-
-
-def relaxation(grid: PhaseGrid, *, thickness=None, interlayer_width=None):
-    """Predicted T2 distribution (fast exchange, Brownstein & Tarr 1979) of the phase grid
-    (each size class apart) with the default surface relaxivity and bulk T2."""
-    return relaxation_spectrum(grid, thickness, interlayer_width=interlayer_width)

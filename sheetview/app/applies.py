@@ -19,12 +19,13 @@ import dataclasses
 
 from ..errors import OptionError
 from ..grid import PhaseGrid
+from ..particles import ParticleSet
 from ..structure import Structure, SurfaceBody
 from .settings import Settings
 
 #: The words for an input in messages, by its type.
 KIND_WORDS = {Structure: "prisms", SurfaceBody: "a solid body (a closed mesh)",
-              PhaseGrid: "a voxel volume"}
+              PhaseGrid: "a voxel volume", ParticleSet: "a particle packing"}
 
 
 def kind_words(obj) -> str:

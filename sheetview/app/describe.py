@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..grid import PhaseGrid
+from ..particles import ParticleSet
 from ..structure import Structure, SurfaceBody
 
 
@@ -42,6 +43,8 @@ def describe(obj) -> dict:
         return _describe_body(obj)
     if isinstance(obj, PhaseGrid):
         return _describe_grid(obj)
+    if isinstance(obj, ParticleSet):
+        return _describe_particles(obj)
     raise TypeError(f"cannot describe {type(obj).__name__}")
 
 
@@ -83,6 +86,28 @@ def _describe_structure(s: Structure) -> dict:
         "orientation": order,
         "outside": out,
         "duplicates": dup,
+        "warnings": warnings,
+    }
+
+
+def _describe_particles(p: ParticleSet) -> dict:
+    lo, hi = p.bounds()
+    warnings = []
+    if p.domain.inferred:
+        warnings.append("the file gives no domain: using the padded bounding box of the "
+                        "particles (1.4 nm on every side)")
+    return {
+        "kind": f"particles ({p.kind})",
+        "source": p.source,
+        "n_particles": len(p),
+        "domain": _domain_dict(p.domain),
+        "bounds_nm": {"min": lo.tolist(), "max": hi.tolist()},
+        "semi_axes_nm": _stats(p.semi_axes.ravel()),
+        "total_particle_volume_nm3": p.volume,
+        "total_particle_surface_nm2": p.area,
+        "particle_volume_fraction_of_domain": p.volume_fraction(),
+        "columns": {k: _stats(v.astype(float)) for k, v in p.columns.items()},
+        "metadata": p.metadata,
         "warnings": warnings,
     }
 

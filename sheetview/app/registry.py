@@ -16,6 +16,7 @@ from dataclasses import dataclass
 
 from ..errors import OptionError
 from ..grid import PhaseGrid
+from ..particles import ParticleSet
 from ..structure import Structure, SurfaceBody
 
 
@@ -70,7 +71,7 @@ def names(*, optional: bool = True) -> list[str]:
 def kind_of(obj) -> str:
     if isinstance(obj, Structure):
         return "structure"
-    if isinstance(obj, (PhaseGrid, SurfaceBody)):
+    if isinstance(obj, (PhaseGrid, SurfaceBody, ParticleSet)):
         return "grid"
     return type(obj).__name__
 
@@ -124,7 +125,8 @@ def check_inputs(selected, obj, source=None) -> None:
         need = sorted({REGISTRY[n].needs for n in bad})
         what = " and ".join(NEEDS[k] for k in need)
         kind = {"Structure": "prism structure", "SurfaceBody": "closed surface (solid body)",
-                "PhaseGrid": "voxel volume"}.get(type(obj).__name__, type(obj).__name__)
+                "PhaseGrid": "voxel volume",
+                "ParticleSet": "packing of solid particles (no sheets to stack or orient)"}.get(type(obj).__name__, type(obj).__name__)
         raise OptionError(f"measure(s) {', '.join(bad)} need {what}, but the input is a {kind}",
                           path=source, param="only")
 
@@ -149,7 +151,7 @@ register("scattering", f"{_M}.scattering:scattering_measure", "grid",
          "predicted SANS curve I(q) (neutrons, C-S-H in H2O): slopes, Porod, Guinier, "
          "invariant, Bragg peaks (opt-in; `sheetview scatter` for other contrasts)",
          default=False)
-register("relaxation", f"{_A}:relaxation", "grid",
+register("relaxation", f"{_M}.relaxation:relaxation_measure", "grid",
          "predicted NMR T2 distribution per pore class, fast exchange (opt-in; "
          "`sheetview relax` for other parameters)", default=False)
 register("water_walk", f"{_M}.diffusion:relaxation_walk", "grid",

@@ -11,6 +11,8 @@ science is in the measure's own function.
 from __future__ import annotations
 
 import inspect
+import os
+import sys
 import time
 from functools import cached_property
 
@@ -18,6 +20,7 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import INTERLAYER, OUTSIDE, SOLID, PhaseGrid, rasterize_body
+from ..particles import ParticleSet, rasterize_particles
 from ..structure import Structure, SurfaceBody
 from .registry import REGISTRY, check_inputs
 from .settings import SPLIT_NAMES, Settings
@@ -27,7 +30,8 @@ from ..measures.stacking import StackingSettings, stacking_graph
 
 #: Inputs a measure function may ask for by parameter name, besides the settings.
 SHARED = {
-    "geometry": "the exact geometry: the Structure or SurfaceBody (None for a voxel volume)",
+    "geometry": "the exact geometry: the Structure, SurfaceBody or ParticleSet (None for a voxel "
+                "volume)",
     "structure": "the Structure (None for other inputs)",
     "grid": "the phase grid the grid measures use (size classes split when pore_split is set)",
     "base_grid": "the phase grid before any split of the gel pores",
@@ -41,6 +45,44 @@ SHARED = {
 
 def _noop(stage: str, done: bool, seconds: float | None = None) -> None:
     pass
+
+
+def _takes_fraction(callback) -> bool:
+    if callback is None:
+        return False
+    try:
+        params = inspect.signature(callback).parameters.values()
+    except (TypeError, ValueError):
+        return False
+    return any(p.name == "fraction" or p.kind == p.VAR_KEYWORD for p in params)
+
+
+#: The stage told (not timed) before a run whose kernels are not compiled yet.
+COMPILING = "compiling kernels (first run only)"
+
+
+def kernels_cold() -> bool:
+    """True when numba's on-disk cache holds none of sheetview's compiled kernels (a first
+    run after installing or after a change of the code): the run then spends most of its
+    first minute compiling. Unknown (a numba without these internals): False."""
+    try:
+        from numba.core.registry import CPUDispatcher
+    except ImportError:  # pragma: no cover
+        return False
+    seen = False
+    for name, mod in list(sys.modules.items()):
+        if not name.startswith("sheetview.") or mod is None:
+            continue
+        for v in list(vars(mod).values()):
+            if isinstance(v, CPUDispatcher):
+                try:
+                    index = v._cache._cache_file._index_path
+                except AttributeError:
+                    continue
+                seen = True
+                if os.path.exists(index):
+                    return False
+    return seen
 
 
 def phase_grid(obj, settings: Settings | None = None, *, graph=None,
@@ -59,21 +101,41 @@ def phase_grid(obj, settings: Settings | None = None, *, graph=None,
         return classify(obj, s.voxel, graph=graph, max_memory=s.max_memory)
     if isinstance(obj, SurfaceBody):
         return rasterize_body(obj, s.voxel, max_memory=s.max_memory)
+    if isinstance(obj, ParticleSet):
+        return rasterize_particles(obj, s.voxel, max_memory=s.max_memory)
     raise OptionError(f"cannot build a phase grid of a {type(obj).__name__}")
 
 
 class Run:
     """One measure run: the input, the settings, shared intermediate results.
 
-    ``progress(stage, done, seconds=None)`` is told when each stage starts and ends.
+    ``progress(stage, done, seconds=None)`` is told when each stage starts and ends; a
+    callback that also takes ``fraction`` (``progress(stage, done, seconds=None,
+    fraction=None)``) is told the progress within long stages as well (``done`` False,
+    ``fraction`` in [0, 1]), by the measures that report it (a ``progress`` parameter).
+    ``options``: measure name -> keyword arguments of its function beyond the settings
+    (``{"water_walk": {"rho2_nm_per_us": 5e-3}}``), given after the settings and shared
+    inputs (a command with parameters of its own, such as ``waterwalk``).
     """
 
-    def __init__(self, obj, settings: Settings | None = None, progress=None):
+    def __init__(self, obj, settings: Settings | None = None, progress=None, options=None):
         self.obj = obj
         self.settings = settings if settings is not None else Settings()
         self.results: dict = {}
         self.timings: dict = {}
         self.progress = progress or _noop
+        self._fractions = _takes_fraction(progress)
+        self.options = {k: dict(v) for k, v in (options or {}).items()}
+
+    def within(self, stage: str):
+        """``tell(fraction, message="")`` reporting progress within ``stage`` to the
+        callback, or None when the callback does not take fractions."""
+        if not self._fractions:
+            return None
+
+        def tell(fraction, message=""):
+            self.progress(stage, False, None, fraction=float(min(1.0, max(0.0, fraction))))
+        return tell
 
     def stage(self, name, fn, /, *args, **kw):
         """Run ``fn`` as a named stage, timing it and telling the progress callback."""
@@ -92,7 +154,7 @@ class Run:
 
     @property
     def geometry(self):
-        return self.obj if isinstance(self.obj, (Structure, SurfaceBody)) else None
+        return self.obj if isinstance(self.obj, (Structure, SurfaceBody, ParticleSet)) else None
 
     @property
     def domain(self):
@@ -158,8 +220,12 @@ class Run:
         base grid."""
         g = self.base_grid
         mask = np.isin(g.labels, [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)])
+        kw = {}
+        tell = self.within("local thickness")
+        if tell is not None and "progress" in inspect.signature(local_thickness).parameters:
+            kw["progress"] = tell
         return self.stage("local thickness", local_thickness, mask, g.spacing,
-                          periodic=g.periodic)
+                          periodic=g.periodic, **kw)
 
     def provides(self, name: str) -> bool:
         return name in SHARED or name in Settings.__dataclass_fields__
@@ -179,6 +245,11 @@ class Run:
             subject = self.structure if spec.needs == "structure" else self.grid
             kw = {p: self.input(p) for p in spec.parameters() if self.provides(p)}
             kw = {k: v for k, v in kw.items() if v is not None}  # None: the function's default
+            kw.update(self.options.get(name, {}))
+            if "progress" in spec.parameters() and kw.get("progress") is None:
+                tell = self.within(name)
+                if tell is not None:
+                    kw["progress"] = tell
             if spec.needs == "structure" and "spacing" in inspect.signature(fn).parameters:
                 kw.setdefault("spacing", subject.spacing)
             self.results[name] = self.stage(name, fn, subject, **kw)
@@ -186,6 +257,8 @@ class Run:
 
     def run(self, selected) -> "Run":
         check_inputs(selected, self.obj, getattr(self.obj, "source", None))
+        if self.progress is not _noop and kernels_cold():
+            self.progress(COMPILING, False)
         for name in selected:
             self.result(name)
         return self

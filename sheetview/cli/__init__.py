@@ -140,7 +140,7 @@ def main():
 #: Command modules registered when present; each defines its commands and a list
 #: ``COMMANDS`` (or a command named like the module).
 _MODULES = ("synth", "measure", "batch", "experiment", "sections", "micrograph", "kinetics",
-            "beside")
+            "beside", "waterwalk")
 
 
 def _register():

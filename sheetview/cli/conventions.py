@@ -43,6 +43,9 @@ METAVARS = {
     "TIME": "a time in the unit of the file's 'born' column",
     "BINS": "a width in histogram bins",
     "X,Y,Z": "three numbers: a direction, or a point in nm",
+    "X0,Y0,X1,Y1": "a rectangle of an image in pixels",
+    "US": "a time in microseconds",
+    "CLASS=NM2/US,...": "a diffusivity in nm^2/us per water class",
     "LX,LY,LZ": "three lengths in nm",
     "NX,NY,NZ": "three whole numbers of voxels",
     "QMIN:QMAX": "a range of q in nm^-1",
@@ -63,7 +66,8 @@ METAVARS = {
     "otsu|VALUE": "Otsu's threshold or a value",
 }
 #: The unit a metavar implies: an option showing it says the unit in its help.
-UNIT_OF = {"NM": "nm", "NM,NM": "nm", "DEG": "deg", "G/CM3": "g/cm3", "S": " s",
+UNIT_OF = {"NM": "nm", "NM,NM": "nm", "DEG": "deg", "G/CM3": "g/cm3", "S": " s", "US": "us",
+           "CLASS=NM2/US,...": "nm^2/us",
            "NM/US": "nm/us", "LX,LY,LZ": "nm", "QMIN:QMAX": "nm^-1"}
 
 

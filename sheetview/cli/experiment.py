@@ -217,7 +217,9 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
              f"valid q {lo:.4g} to {hi:.4g} nm^-1; I(q) = |FT(delta rho)|^2 / V in cm^-1",
              "a model's predicted curve, not a measurement"]
     doc["notes"] = notes
-    figure = lambda: plot_scattering(res, comparison=cmp_, notes=notes)  # noqa: E731
+    figure = lambda: plot_scattering(  # noqa: E731
+        res, comparison=cmp_, notes=notes, features=doc["features"],
+        experiment=(exp.x, exp.y, exp.sigma) if exp else None)
     written = _write_outputs(folder, "scattering", res.table(), doc, figure, force,
                              csv_out, plot_out, json_file, notes)
     if as_json:

@@ -73,6 +73,14 @@ def info(file, as_json, **read_opts):
             f"domain        {_fmt_domain(d['domain'])}",
             f"volume        {d['volume_nm3']:.6g} nm^3, surface {d['area_nm2']:.6g} nm^2",
         ]
+    elif d["kind"].startswith("particles"):
+        lines += [
+            f"content       {d['n_particles']:,} {d['kind']}",
+            f"domain        {_fmt_domain(d['domain'])}",
+            f"volume        {d['total_particle_volume_nm3']:.6g} nm^3 = "
+            f"{100 * d['particle_volume_fraction_of_domain']:.3g}% of the domain, surface "
+            f"{d['total_particle_surface_nm2']:.6g} nm^2 (overlaps counted twice)",
+        ]
     else:
         sh = " x ".join(str(v) for v in d["shape"])
         vs = " x ".join(f"{v:.4g}" for v in d["voxel_size_nm"])

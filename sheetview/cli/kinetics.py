@@ -140,38 +140,11 @@ def _cell(v):
 
 
 def _plot(kin, path, force, title):
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
+    from ..figures import plot_kinetics
 
-    fig = Figure(figsize=(7, 4.6), dpi=110)
-    FigureCanvasAgg(fig)
-    ax = fig.add_subplot(111)
-    ax.step(kin.times, kin.alpha, where="post", color="#2f5d8a", lw=1.6, label="progress alpha")
-    if kin.avrami is not None:
-        t = np.linspace(kin.times[0], kin.times[-1], 400)
-        ax.plot(t, kin.avrami.alpha(t), "--", color="#8a2f5d", lw=1.0,
-                label=f"Avrami n={kin.avrami.n:.2f}")
-    for k, v in kin.marks.items():
-        ax.axvline(v, color="#999999", lw=0.7, ls=":")
-        ax.text(v, 1.02, k, ha="center", va="bottom", fontsize=7, color="#555555")
-    ax.set_ylim(0, 1.08)
-    u = f" ({kin.unit})" if kin.unit else ""
-    ax.set_xlabel("time" + u)
-    ax.set_ylabel("alpha (volume fraction born)")
-    if len(kin.rate):
-        ax2 = ax.twinx()
-        ax2.plot(kin.bin_centres, kin.rate, color="#d08a2f", lw=1.2, label="rate (smoothed)")
-        ax2.set_ylabel("d alpha / dt" + (f" (per {kin.unit})" if kin.unit else ""))
-        ax2.set_ylim(bottom=0)
-        h1, l1 = ax.get_legend_handles_labels()
-        h2, l2 = ax2.get_legend_handles_labels()
-        ax.legend(h1 + h2, l1 + l2, loc="center right", fontsize=8)
-    else:
-        ax.legend(loc="center right", fontsize=8)
-    ax.set_title(title, fontsize=9)
-    fig.tight_layout()
+    fig = plot_kinetics(kin, title=title)
     with atomic_path(path, force) as tmp:
-        fig.savefig(str(tmp), format="png")
+        fig.savefig(str(tmp), format="png", dpi=110)
 
 
 COMMANDS = [kinetics]

@@ -34,15 +34,15 @@ SOLID_COLOUR = (0.93, 0.47, 0.20)
 INVALID_COLOUR = (0.35, 0.55, 0.85)
 
 
-def run_micrograph(path, *, pixel_size=None, threshold="otsu", solid="bright", channel=None,
-                   lines: int = 2000, seed: int = 0):
+def run_micrograph(path, *, pixel_size=None, threshold="otsu", solid=None, channel=None,
+                   lines: int = 2000, seed: int = 0, crop=None, scale_bar: str = "auto"):
     """Read and segment the image, measure it. Returns (Micrograph, PlanarDescriptors,
     JSON document)."""
 
     if isinstance(lines, bool) or int(lines) != lines or not 1 <= lines <= 10_000_000:
         raise OptionError(f"must be between 1 and 10,000,000, got {lines}", param="lines")
     mg = read_micrograph(path, pixel_size=pixel_size, threshold=threshold, solid=solid,
-                         channel=channel)
+                         channel=channel, crop=crop, scale_bar=scale_bar)
     desc = describe(mg.mask, mg.pixel, valid=None if mg.valid.all() else mg.valid,
                     seed=seed, n_lines=int(lines))
     doc = {"sheetview_version": __version__, "image": mg.to_dict(),
@@ -66,6 +66,9 @@ def summary_lines(mg, desc) -> list[str]:
         f"pixel        {mg.pixel:g} nm  (field of view {L * mg.pixel:.4g} x {M * mg.pixel:.4g} nm)",
         f"threshold    {thr}; solid = {mg.solid}",
     ]
+    if mg.crop is not None and tuple(mg.crop) != (0, 0, L, M):
+        lines.append(f"region       columns {mg.crop[0]} to {mg.crop[2] - 1}, rows {mg.crop[1]} "
+                     f"to {mg.crop[3] - 1} of the file")
     lines += [f"note         {n}" for n in mg.notes]
     lines += [
         f"solid area   {h['area_fraction']:.4f}",
@@ -213,11 +216,21 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
 @command("micrograph")
 @click.argument("image", metavar="IMAGE", type=click.Path(dir_okay=False))
 @click.option("--pixel", "pixel_size", type=float, default=None, metavar="NM",
-              help="Edge of one pixel in nm (required unless a TIFF resolution tag gives it).")
+              help="Edge of one pixel in nm (required unless the file gives it: TIFF "
+                   "resolution tags, PNG pHYs, or a sheetview description).")
 @click.option("--threshold", default="otsu", show_default=True, metavar="otsu|VALUE",
               help="Grey value separating solid from pore, in the image's own scale, or otsu.")
-@click.option("--solid", type=click.Choice(["bright", "dark"]), default="bright",
-              show_default=True, help="Which side of the threshold is solid.")
+@click.option("--solid", type=click.Choice(["bright", "dark"]), default=None,
+              help="Which side of the threshold is solid (default bright; dark for a "
+                   "projection written by sheetview).")
+@click.option("--crop", default=None, metavar="X0,Y0,X1,Y1",
+              help="Measure only columns X0..X1-1 and rows Y0..Y1-1 (pixels, from the top "
+                   "left corner).")
+@click.option("--scale-bar", "scale_bar", type=click.Choice(["auto", "exclude", "keep"]),
+              default="auto", show_default=True,
+              help="A burned-in scale bar or information strip at the top or bottom edge: auto "
+                   "leaves it out when found in a grey image, exclude looks in every image, "
+                   "keep measures every pixel.")
 @click.option("--channel", default=None, type=click.Choice(["r", "g", "b"]),
               help="Colour images: use one channel instead of the BT.709 luma.")
 @lines_option(2000, "Isotropic random lines for the chord lengths.")
@@ -226,8 +239,8 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
 @output_option("folder", "Write descriptors.json, CSV tables and overview.png into FOLDER.")
 @force_option("Write into an existing output folder.")
 @quiet_option("Print no summary.")
-def micrograph(image, pixel_size, threshold, solid, channel, lines, seed, as_json, output,
-               force, quiet):
+def micrograph(image, pixel_size, threshold, solid, crop, scale_bar, channel, lines, seed,
+               as_json, output, force, quiet):
     """Segment a micrograph (PNG, TIFF, JPEG) into solid and pore and measure it: area
     fraction, chord lengths (rows, columns, isotropic random lines), local thickness,
     two-point probability S2 and layer orientation. Lengths are nm."""
@@ -235,7 +248,10 @@ def micrograph(image, pixel_size, threshold, solid, channel, lines, seed, as_jso
     if outdir is not None:
         check_folder(outdir, force)  # refuse before the work
     mg, desc, doc = run_micrograph(image, pixel_size=pixel_size, threshold=threshold,
-                                   solid=solid, channel=channel, lines=lines, seed=seed)
+                                   solid=solid, channel=channel, lines=lines, seed=seed,
+                                   crop=crop, scale_bar=scale_bar)
+    for w in mg.warnings:
+        click.echo(f"sheetview: warning: {w}", err=True)
     written = []
     if outdir is not None:
         written = write_folder(outdir, mg, desc, doc, force=force)

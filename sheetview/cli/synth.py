@@ -108,11 +108,18 @@ def _domain(sphere, box, periodic):
 @click.option("--truth", type=click.Path(dir_okay=False), default=None, metavar="FILE",
               help="Also write the per-prism ground truth (stack, layer, tilted, "
                    "stacking number) as CSV.")
+@click.option("--particles", type=click.Choice(["spheres", "layered"]), default=None,
+              help="Write a particle packing instead of sheet stacks: polydisperse spheres "
+                   "(--radius) or layered particles (--layers, --lateral, --repeat, "
+                   "--thickness), packed to --target-fraction [default 0.55] of the domain.")
+@click.option("--radius", default="lognormal:1.5,0.2", show_default=True, metavar="SPEC",
+              help="With --particles spheres: sphere radius in nm (fixed:R, uniform:A,B or "
+                   "lognormal:MEDIAN,SIGMA).")
 @force_option()
 def synth(output, sphere, box, periodic, n_stacks, target_fraction, fill_voxel, fill_tries,
           seeding, orientation, kappa, normal, layers, lateral, edge, repeat, thickness,
           clearance, wall_gap, tilt_angle, tilt_probability, born, max_attempts, seed, truth,
-          force):
+          particles, radius, force):
     """Write an invented demonstration structure: stacks of triangulated sheets packed at
     random into a sphere or box, with known ground truth.
 
@@ -144,6 +151,10 @@ def synth(output, sphere, box, periodic, n_stacks, target_fraction, fill_voxel, 
             raise OptionError("<<truth>> must differ from <<output>>", path=truth, param="truth")
         check_writable(truth, force)
     check_writable(output, force)
+    if particles is not None:
+        _particles(particles, dom, output, target_fraction, radius, layers, lateral, repeat,
+                   thickness, clearance, n_stacks, seed, truth, force)
+        return
     if n_stacks is None and target_fraction is None:
         n_stacks = 100
     t0 = time.perf_counter()
@@ -169,3 +180,28 @@ def synth(output, sphere, box, periodic, n_stacks, target_fraction, fill_voxel, 
     click.echo(f"sheetview synth: {res.n_stacks} stacks{short}, {len(res.structure)} prisms, "
                f"{int(res.stacks.has_tilt.sum())} tilted layers, {time.perf_counter() - t0:.2f} s "
                f"-> {output}", err=True)
+
+
+def _particles(kind, dom, output, target_fraction, radius, layers, lateral, repeat, thickness,
+               clearance, n_stacks, seed, truth, force):
+    """``--particles``: a random dense packing (sheetview.synth.pack_particles)."""
+    from ..synth import pack_particles
+    ctx = click.get_current_context()
+    if truth is not None or n_stacks is not None:
+        raise OptionError("--truth and --stacks apply to sheet stacks; a particle table carries "
+                          "its ground truth in its header ('generator')")
+    given = ctx.get_parameter_source("clearance") != click.core.ParameterSource.DEFAULT
+    t0 = time.perf_counter()
+    res = pack_particles(dom, 0.55 if target_fraction is None else target_fraction, kind=kind,
+                         radius=radius, layers=layers, lateral=lateral, repeat=repeat,
+                         thickness=thickness, clearance=clearance if given else 0.0, seed=seed)
+    res.write(output, force=force)
+    extra = ("" if res.structure is None else
+             f", solid {res.solid_fraction:.4f}, interlayer "
+             f"{res.interlayer_volume / dom.volume:.4f} of the domain, {len(res.structure)} prisms")
+    what = "spheres" if kind == "spheres" else "layered particles in spheres"
+    click.echo(f"sheetview synth: {res.n_particles} {what}, spheres "
+               f"{res.sphere_fraction:.4f} of the domain (target "
+               f"{res.settings['target_fraction']:g}"
+               f"{'' if res.settings['stopped'] == 'target' else ': jammed before it'})"
+               f"{extra}, {time.perf_counter() - t0:.2f} s -> {output}", err=True)

@@ -63,7 +63,7 @@ def _check_export(structure, export_dir, force):
         check_writable(folder / name, force)
 
 
-def _structure(file, read_opts, what, at_progress=None, at_time=None):
+def _structure(file, read_opts, what, at_progress=None, at_time=None, with_moment=False):
 
     obj = load(file, **read_opts)
     if not isinstance(obj, Structure):
@@ -75,7 +75,15 @@ def _structure(file, read_opts, what, at_progress=None, at_time=None):
                           f"{kind_words(obj)}; {hint}", path=file)
     obj, moment = apply_at(obj, at_progress, at_time)
     echo_moment(moment)
-    return obj
+    return (obj, moment) if with_moment else obj
+
+
+def moment_caption(moment) -> str | None:
+    """The moment of growth drawn, in words (None for the whole structure)."""
+    if moment is None:
+        return None
+    return (f"as it stood at {moment.requested}: time {moment.time:g}, progress "
+            f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms")
 
 
 def _plane(structure, axis, at, normal, origin):
@@ -139,8 +147,9 @@ def view(file, axis, at, normal, origin, voxel, colour_by, export_dir, step, for
 @click.option("--camera", type=click.Choice(_CAMERAS), default=None,
               help="Viewpoint: iso, cut (facing the cut), or from a side such as +x or -z "
                    "[default: cut with a cut, iso without].")
-@click.option("--size", default="1200x900", show_default=True, metavar="WIDTHxHEIGHT",
-              help="Picture size in pixels.")
+@click.option("--size", default="1200", show_default=True, metavar="WIDTHxHEIGHT",
+              help="Picture size in pixels, or WIDTH alone: the height then follows the shape "
+                   "of the structure seen from the camera.")
 @click.option("--flat", is_flag=True,
               help="Unshaded colours (each prism exactly its colormap colour).")
 @force_option("Overwrite the picture (and exported files).")
@@ -155,7 +164,7 @@ def render(file, output, axis, at, normal, origin, voxel, colour_by, export_dir,
 
     check_writable(output, force)
     wh = parse_size(size)
-    s = _structure(file, read_opts, "render", at_progress, at_time)
+    s, moment = _structure(file, read_opts, "render", at_progress, at_time, with_moment=True)
     _check_export(s, export_dir, force)
     plane = _plane(s, axis, at, normal, origin)
     if voxel is not None:
@@ -166,7 +175,7 @@ def render(file, output, axis, at, normal, origin, voxel, colour_by, export_dir,
     if export_dir or plane is not None:
         grid = phase_grid(s, voxel, cache)
     draw(s, output, colour_by=colour_by, plane=plane, grid=grid, camera=camera, size=wh,
-         force=force, lighting=not flat, cache=cache)
+         force=force, lighting=not flat, cache=cache, caption=moment_caption(moment))
     click.echo(f"wrote {output}", err=True)
     if export_dir:
         _export(s, export_dir, grid, voxel, force, cache)

@@ -40,7 +40,9 @@ def read(path, **options):
 
     Options by family (others are refused with a clear message):
 
-    * prisms: ``thickness``, ``spacing`` (nm) and ``units`` override the header;
+    * prisms: ``thickness``, ``spacing`` (nm) and ``units`` override the header; a table
+      with particle columns (``x, y, z``...) is a particle table
+      (:mod:`sheetview.io.particles`): a ParticleSet, or the prisms of layered particles;
     * meshes: ``thickness``, ``spacing``, ``units``, ``as_`` ("sheets", "solid" or None
       for automatic);
     * volumes: ``voxel_size`` (nm), ``phases`` (mapping of file value -> phase name),
@@ -58,6 +60,9 @@ def read(path, **options):
         _only(options, {"thickness", "spacing", "units"}, path, fam)
         prisms.check_options(options.get("thickness"), options.get("spacing"))
         reader = prisms.READERS[path.suffix.lower()]
+        from . import particles
+        if particles.is_particle_table(path):  # same suffixes; told apart by the columns
+            reader = particles.READERS[path.suffix.lower()]
     elif fam == "meshes":
         from . import meshes
         _only(options, {"thickness", "spacing", "units", "as_"}, path, fam)
@@ -115,6 +120,7 @@ def write(obj, path, *, force: bool = False):
     """Write a Structure (prism table, VTK PolyData or VTK wedge cells), a SurfaceBody (mesh) or a
     PhaseGrid (.vti/.npy/.tif), chosen by suffix. Refuses to overwrite unless ``force``."""
     from ..grid import PhaseGrid
+    from ..particles import ParticleSet
     from ..structure import Structure
 
     path = Path(path)
@@ -130,6 +136,9 @@ def write(obj, path, *, force: bool = False):
                           f".parquet, .vtp/.vtk (closed surfaces) or .vtu (wedge cells) for "
                           f"general-purpose viewers, or a volume (.tif, .vti, .npy) for the "
                           f"phase grid", path=path)
+    if isinstance(obj, ParticleSet):
+        from . import particles
+        return particles.write_particles(obj, path, force=force)
     if isinstance(obj, PhaseGrid):
         from . import volumes
         return volumes.write_volume(obj, path, force=force)

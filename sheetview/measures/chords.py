@@ -41,6 +41,7 @@ import numpy as np
 from ..domain import Box, Sphere
 from ..errors import OptionError
 from ..grid import OUTSIDE, SOLID, PhaseGrid
+from ..particles import ParticleSet, periodic_images as particle_images
 from ..structure import Structure, SurfaceBody
 from ._rays import domain_interval, grow, periodic_images, prism_planes, push, regroup
 from ._result import Result
@@ -730,8 +731,9 @@ def exact_chords(body, n_lines: int = 10000, seed=None, *, volume=None, surface=
     are averaged and ``S`` includes the wall part of the phase's boundary.
     """
     _check_lines(n_lines, seed)
-    if not isinstance(body, (Structure, SurfaceBody)):
-        raise OptionError(f"exact chords need a Structure or a SurfaceBody, got {type(body).__name__}")
+    if not isinstance(body, (Structure, SurfaceBody, ParticleSet)):
+        raise OptionError(f"exact chords need a Structure or a SurfaceBody (or a ParticleSet), "
+                          f"got {type(body).__name__}")
     dom = body.domain
     periodic = isinstance(dom, Box) and dom.periodic
     if periodic and isinstance(body, SurfaceBody):
@@ -745,13 +747,18 @@ def exact_chords(body, n_lines: int = 10000, seed=None, *, volume=None, surface=
             raise OptionError(f"line_length must be positive, got {line_length!r}")
         o, u, tl, li, off = _periodic_pieces(dom, int(n_lines), length, seed)
         tlo = np.zeros(len(o))
-        v, nrm, th = periodic_images(body, dom)
-        il, is_, ie = _prisms_run(o, u, tlo, tl, v, nrm, th, eps, n_threads)
+        if isinstance(body, ParticleSet):
+            cen, M, _ids = particle_images(body)
+            il, is_, ie = _particles_run(o, u, tlo, tl, cen, M, eps, n_threads)
+            method = "iur-periodic-particles"
+        else:
+            v, nrm, th = periodic_images(body, dom)
+            il, is_, ie = _prisms_run(o, u, tlo, tl, v, nrm, th, eps, n_threads)
+            method = "iur-periodic-prisms"
         il, is_, ie = merge_intervals(li[il], is_ + off[il], ie + off[il], eps)
         tlo_l = np.zeros(int(n_lines))
         thi_l = np.full(int(n_lines), length)
         lengths, cut, line = _chords_from_intervals(il, is_, ie, tlo_l, thi_l, eps)
-        method = "iur-periodic-prisms"
         bad = 0
     else:
         lo, hi = dom.bounds
@@ -766,6 +773,10 @@ def exact_chords(body, n_lines: int = 10000, seed=None, *, volume=None, surface=
             il, is_, ie = _prisms_run(o, u, tlo, thi, body.vertices, body.normals, body.thickness,
                                       eps, n_threads)
             method, bad = "iur-prisms", 0
+        elif isinstance(body, ParticleSet):
+            il, is_, ie = _particles_run(o, u, tlo, thi, body.centers, body.shape_matrices,
+                                         eps, n_threads)
+            method, bad = "iur-particles", 0
         else:
             il, is_, ie, badmask = _mesh_run(o, u, tlo, thi, tseg, body, eps, n_threads)
             bad = int(badmask.sum())
@@ -824,6 +835,155 @@ def _prisms_run(o, u, tlo, thi, vertices, normals, thickness, eps, n_threads):
                                  g.dims, g.start, g.items, isph, eps), n_threads)
     il, is_, ie = (np.concatenate([r[k] for r in res]) for k in range(3))
     return regroup(il, is_, ie, len(ids))
+
+
+def _particles_run(o, u, tlo, thi, cen, M, eps, n_threads):
+    """Merged solid intervals of lines through ellipsoids (centres ``cen``, shape matrices
+    ``M``: inside iff ``d^T M d <= 1``)."""
+    cen = np.ascontiguousarray(cen, dtype=np.float64)
+    M = np.ascontiguousarray(M, dtype=np.float64)
+    if len(cen) == 0:
+        z = np.zeros(0)
+        return regroup(np.zeros(0, np.int64), z, z, len(o))
+    # half extents of the bounding boxes: sqrt of the diagonal of M^-1
+    h = np.sqrt(np.diagonal(np.linalg.inv(M), axis1=1, axis2=2))
+    r2 = 1.0 / np.linalg.eigvalsh(M)[:, 0] * (1 + 1e-9) + 1e-18  # largest semi-axis squared
+    spheres = np.ascontiguousarray(np.concatenate([cen, r2[:, None]], axis=1))
+    g = _build_grid(cen - h, cen + h)
+    isph = np.empty((len(g.items), 4))
+    _fill_spheres(g.items, spheres, isph)
+    ids = _line_order(o, u, cen)
+    o = np.ascontiguousarray(o[ids])
+    u = np.ascontiguousarray(u[ids])
+    tlo_s = np.ascontiguousarray(tlo[ids])
+    thi_s = np.ascontiguousarray(thi[ids])
+    res = _run_chunks(_ellipsoid_intervals, len(o),
+                      lambda s: (o[s], u[s], tlo_s[s], thi_s[s], ids[s], cen, M, g.lo, g.h,
+                                 g.dims, g.start, g.items, isph, eps), n_threads)
+    il, is_, ie = (np.concatenate([r[k] for r in res]) for k in range(3))
+    return regroup(il, is_, ie, len(ids))
+
+
+@numba.njit(cache=True, nogil=True)
+def _ellipsoid_intervals(o, u, tlo, thi, line_ids, cen, M, glo, h, dims, start, items, isph,
+                         eps):
+    """Merged solid intervals (line, start, end) of lines against ellipsoids, clipped to
+    [tlo, thi]: the grid walk of :func:`_prism_intervals` (3D DDA, bounding-sphere pretest),
+    then the exact entry and exit of each ellipsoid, the roots of
+    ``(w + t u)^T M (w + t u) = 1`` with ``w = o - c`` (ray-quadric intersection)."""
+    n = o.shape[0]
+    stamp = np.full(cen.shape[0], -1, np.int64)
+    bs = np.empty(64)
+    be = np.empty(64)
+    out_l = np.empty(256, np.int64)
+    out_s = np.empty(256)
+    out_e = np.empty(256)
+    no = 0
+    nx = dims[0]
+    ny = dims[1]
+    nz = dims[2]
+    for i in range(n):
+        if not tlo[i] < thi[i]:
+            continue
+        ox = o[i, 0]
+        oy = o[i, 1]
+        oz = o[i, 2]
+        ux = u[i, 0]
+        uy = u[i, 1]
+        uz = u[i, 2]
+        tn = tlo[i]
+        tf = thi[i]
+        empty = False
+        for a in range(3):
+            oa = (ox, oy, oz)[a]
+            ua = (ux, uy, uz)[a]
+            lo = glo[a]
+            hi = glo[a] + dims[a] * h
+            if abs(ua) < 1e-300:
+                if oa < lo or oa > hi:
+                    empty = True
+            else:
+                ta = (lo - oa) / ua
+                tb = (hi - oa) / ua
+                if ta > tb:
+                    ta, tb = tb, ta
+                tn = max(tn, ta)
+                tf = min(tf, tb)
+        if empty or tn > tf:
+            continue
+        ix, sx, tmx, tdx = _dda_axis(ox, ux, tn, glo[0], h, nx)
+        iy, sy, tmy, tdy = _dda_axis(oy, uy, tn, glo[1], h, ny)
+        iz, sz, tmz, tdz = _dda_axis(oz, uz, tn, glo[2], h, nz)
+        m = 0
+        while True:
+            c = (ix * ny + iy) * nz + iz
+            for q in range(start[c], start[c + 1]):
+                wx = isph[q, 0] - ox
+                wy = isph[q, 1] - oy
+                wz = isph[q, 2] - oz
+                pr = wx * ux + wy * uy + wz * uz
+                if wx * wx + wy * wy + wz * wz - pr * pr > isph[q, 3]:
+                    continue
+                p = items[q]
+                if stamp[p] == i:
+                    continue
+                stamp[p] = i
+                # w = o - c; Mu, Mw
+                wx = -wx
+                wy = -wy
+                wz = -wz
+                mux = M[p, 0, 0] * ux + M[p, 0, 1] * uy + M[p, 0, 2] * uz
+                muy = M[p, 1, 0] * ux + M[p, 1, 1] * uy + M[p, 1, 2] * uz
+                muz = M[p, 2, 0] * ux + M[p, 2, 1] * uy + M[p, 2, 2] * uz
+                A = ux * mux + uy * muy + uz * muz
+                B = wx * mux + wy * muy + wz * muz
+                mwx = M[p, 0, 0] * wx + M[p, 0, 1] * wy + M[p, 0, 2] * wz
+                mwy = M[p, 1, 0] * wx + M[p, 1, 1] * wy + M[p, 1, 2] * wz
+                mwz = M[p, 2, 0] * wx + M[p, 2, 1] * wy + M[p, 2, 2] * wz
+                C = wx * mwx + wy * mwy + wz * mwz - 1.0
+                disc = B * B - A * C
+                if disc <= 0.0:
+                    continue
+                r = math.sqrt(disc)
+                # numerically stable roots (no cancellation): q = -(B + sign(B) r)
+                qq = -(B + r) if B >= 0.0 else -(B - r)
+                if qq == 0.0:
+                    continue
+                ra = qq / A
+                rb = C / qq
+                t0 = min(ra, rb)
+                t1 = max(ra, rb)
+                t0 = max(t0, tlo[i])
+                t1 = min(t1, thi[i])
+                if t0 < t1:
+                    bs = grow(bs, m)
+                    be = grow(be, m)
+                    bs[m] = t0
+                    be[m] = t1
+                    m += 1
+            if tmx <= tmy and tmx <= tmz:
+                if tmx > tf:
+                    break
+                ix += sx
+                if ix < 0 or ix >= nx:
+                    break
+                tmx += tdx
+            elif tmy <= tmz:
+                if tmy > tf:
+                    break
+                iy += sy
+                if iy < 0 or iy >= ny:
+                    break
+                tmy += tdy
+            else:
+                if tmz > tf:
+                    break
+                iz += sz
+                if iz < 0 or iz >= nz:
+                    break
+                tmz += tdz
+        out_l, out_s, out_e, no = _merge_append(bs, be, m, eps, line_ids[i], out_l, out_s, out_e, no)
+    return out_l[:no], out_s[:no], out_e[:no]
 
 
 def _line_order(o, u, cen):
@@ -1902,7 +2062,7 @@ def chord_measure(grid: PhaseGrid, *, geometry=None, lines: int = 20000,
                   seed: int = 0) -> ChordMeasure:
     """Chords of solid and pore under isotropic uniform random lines (``lines``, ``seed``),
     one definition for every input: exact chords of prisms or a closed body
-    (``geometry``: a Structure or SurfaceBody), or the same kind of lines through the voxel
+    (``geometry``: a Structure, SurfaceBody or ParticleSet), or the same kind of lines through the voxel
     grid (volumes; a body in a periodic box). Volumes also get the axis-row run lengths as
     a named extra (:func:`voxel_rows`). The Cauchy figures 4V/S come from the phase grid
     alone (:func:`cauchy_figures`, box walls included), whatever other measures run: the
@@ -1920,7 +2080,8 @@ def chord_measure(grid: PhaseGrid, *, geometry=None, lines: int = 20000,
         if geometry is None:
             rows = voxel_rows(grid)
     if exact is not None:
-        what = "prisms" if exact.method.endswith("prisms") else "closed mesh"
+        what = {"prisms": "prisms", "particles": "particle"}.get(exact.method.rsplit("-", 1)[-1],
+                                                                 "closed mesh")
         source = f"isotropic random lines, exact {what} geometry"
     else:
         source = "voxel grid: isotropic random lines, boundary at the interpolated signed distance"

@@ -272,3 +272,11 @@ def compare_t2(res: RelaxationResult, t2_exp, amp_exp, *, source=None) -> T2Comp
     lm_m = res.logmean()
     ov = float(trap(np.minimum(p, m), x)) if notes_ok else 0.0
     return T2Comparison(t, p, m, lm_e, lm_m, float(np.log10(lm_m / lm_e)), ov)
+
+
+def relaxation_measure(grid, *, thickness=None, interlayer_width=None) -> RelaxationResult:
+    """The registry's ``relaxation`` measure: :func:`relaxation_spectrum` of the phase grid
+    (each size class apart) with the default surface relaxivity and bulk T2, given the run's
+    local thickness of the gel pores (``thickness``) and the interlayer gap of prisms
+    (``interlayer_width``)."""
+    return relaxation_spectrum(grid, thickness, interlayer_width=interlayer_width)

@@ -39,6 +39,7 @@ from ..domain import Box
 from ..errors import OptionError, positive
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
 from ..grid import PHASE_NAMES as NAME_OF
+from ..particles import ParticleSet
 from ..structure import Structure, SurfaceBody
 from ._rays import domain_interval, periodic_images, prism_planes, push, regroup
 
@@ -402,7 +403,7 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
     if isinstance(obj, Structure):
         g = None
         centre, span = centre_and_span(obj)
-    elif isinstance(obj, (PhaseGrid, SurfaceBody)):
+    elif isinstance(obj, (PhaseGrid, SurfaceBody, ParticleSet)):
         g = _grid_of(obj, grid)
         centre, span = grid_centre_and_span(g)
     else:

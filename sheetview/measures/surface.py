@@ -589,6 +589,7 @@ class SurfaceMeasure(Result):
     interfaces: SurfaceResult
     minkowski_solid: MinkowskiResult
     minkowski_pore: MinkowskiResult
+    exact: dict | None = None
 
     def headline(self) -> dict:
         """The summary's headline figures."""
@@ -609,9 +610,12 @@ class SurfaceMeasure(Result):
         return {"specific_surface_nm-1": b["nm-1"], "specific_surface_m2_per_g": b["m2_per_g"]}
 
     def to_dict(self) -> dict:
-        return {"interfaces": self.interfaces.to_dict(),
-                "minkowski_solid": self.minkowski_solid.to_dict(),
-                "minkowski_pore": self.minkowski_pore.to_dict()}
+        d = {"interfaces": self.interfaces.to_dict(),
+             "minkowski_solid": self.minkowski_solid.to_dict(),
+             "minkowski_pore": self.minkowski_pore.to_dict()}
+        if self.exact is not None:
+            d["exact"] = dict(self.exact)
+        return d
 
     def tables(self) -> dict:
         mk = {"solid": self.minkowski_solid.to_dict(), "pore": self.minkowski_pore.to_dict()}
@@ -627,16 +631,33 @@ class SurfaceMeasure(Result):
                 f"{sf.specific_surface_m2_per_g:.4g} m^2/g, {len(sf.areas) - 1} pore classes")
 
 
-def surface_measure(grid: PhaseGrid, *, hydrate: Hydrate | None = None) -> SurfaceMeasure:
+def surface_measure(grid: PhaseGrid, *, hydrate: Hydrate | None = None,
+                    geometry=None) -> SurfaceMeasure:
     """Interfaces, specific surfaces (:func:`surfaces`) and the Minkowski functionals of
     the solid and of the pore space (:func:`minkowski_functionals`, densities per domain
-    volume) of a phase grid: the ``surface`` measure of ``sheetview measure``."""
+    volume) of a phase grid: the ``surface`` measure of ``sheetview measure``. For a
+    particle packing (``geometry`` a ParticleSet), ``exact`` also holds the exact solid
+    surface (the sum of the particles' surfaces: 4 pi R^2, Carlson's form for ellipsoids)
+    when the particles are proven apart and inside the domain, else says why not."""
     base = surfaces(grid, hydrate)
     solid = minkowski_functionals(grid.labels == SOLID, grid.spacing, grid.periodic,
                                   reference_volume=base.domain_volume)
     pore = minkowski_functionals(np.isin(grid.labels, pore_codes(grid)), grid.spacing,
                                  grid.periodic, reference_volume=base.domain_volume)
-    return SurfaceMeasure(base, solid, pore)
+    exact = None
+    if geometry is not None and hasattr(geometry, "exact_surface"):
+        area = geometry.exact_surface()
+        dom = geometry.domain
+        vol = None if getattr(dom, "inferred", False) else float(dom.volume)
+        exact = {"solid_surface_nm2": area,
+                 "solid_surface_per_domain_volume_nm-1":
+                     None if area is None or vol is None else area / vol,
+                 "basis": ("sum of the exact particle surfaces (the particles do not overlap "
+                           "and lie inside the domain)") if area is not None else
+                          ("not available: particles overlap or cross the wall (or, for "
+                           "ellipsoids, their bounding spheres do), so the solid's surface "
+                           "is not the sum of the particles'; the voxel estimate stands")}
+    return SurfaceMeasure(base, solid, pore, exact)
 
 
 def _finite(x):
