@@ -146,6 +146,8 @@ NOT_APPLICABLE = [
     (["measure", PRISMS, "--volume-voxel", "1"], "--volume-voxel", "a prism table"),
     (["info", VOLUME, "--thickness", "1"], "--thickness", "a voxel volume"),
     (["info", PRISMS, "--as", "solid"], "--as", "a prism table"),
+    (["info", str(ROOT / "sample_structures" / "sphere_packing.csv"), "--repeat", "1.2"],
+     "--repeat", "a table of spheres"),
     (["measure", "{periodic}", "--intrusion", "--only", "pores"], "--intrusion", "periodic"),
     (["measure", VOLUME, "--at-progress", "0.5"], "--at-progress", "a voxel volume"),
     (["section", PRISMS, "--normal", "1,1,0", "--at", "3"], "--at", "--normal"),
