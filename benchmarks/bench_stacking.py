@@ -93,6 +93,7 @@ def reference_graph(s) -> float:
     from sheetview.measures.stacking import (StackingSettings, _box_lengths,
                                              _candidate_pairs_kdtree, _classify_pairs,
                                              candidate_radius)
+    from sheetview.threads import run_chunks
     st = StackingSettings(spacing=s.spacing)
     t = time.perf_counter()
     C = np.ascontiguousarray(s.centroids)
@@ -100,10 +101,10 @@ def reference_graph(s) -> float:
     periodic, L = _box_lengths(s.domain)
     code = np.empty(len(pi), np.int8)
     angle = np.empty(len(pi))
-    _classify_pairs(pi, pj, np.ascontiguousarray(s.vertices), C, np.ascontiguousarray(s.normals),
-                    L, periodic, math.cos(math.radians(st.angle_tol)),
-                    math.cos(math.radians(st.tilt_limit)), st.gap_tol, st.spacing, st.overlap,
-                    st.edge_tol, code, angle)
+    run_chunks(_classify_pairs, len(pi), pi, pj, np.ascontiguousarray(s.vertices), C,
+               np.ascontiguousarray(s.normals), L, periodic, math.cos(math.radians(st.angle_tol)),
+               math.cos(math.radians(st.tilt_limit)), float(st.gap_tol), float(st.spacing),
+               float(st.overlap), float(st.edge_tol), code, angle)
     return time.perf_counter() - t
 
 

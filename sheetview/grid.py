@@ -15,6 +15,7 @@ import numba
 import numpy as np
 
 from .errors import InputError, MemoryLimitError, OptionError, SheetviewError
+from .threads import run_chunks
 
 #: Phase codes shared by every measure and writer.
 OUTSIDE, SOLID, INTERLAYER, GEL = 0, 1, 2, 3
@@ -397,18 +398,20 @@ def kernel_checks(enabled: bool = True):
         _KERNEL_CHECKS[0] = old
 
 
-def _kernel(parallel: bool = False):
-    """A numba kernel in two builds: the fast one (cached, parallel where asked) and a
-    bounds-checked one (:func:`kernel_checks`); calls go to the build switched on."""
+def _kernel(parallel: bool = False, nogil: bool = False):
+    """A numba kernel in two builds: the fast one (cached, parallel or releasing the GIL
+    where asked) and a bounds-checked one (:func:`kernel_checks`); calls go to the build
+    switched on."""
     def wrap(fn):
-        fast = numba.njit(cache=True, parallel=parallel, error_model="numpy")(fn)
+        fast = numba.njit(cache=True, parallel=parallel, nogil=nogil,
+                          error_model="numpy")(fn)
         checked = []
 
         def call(*args):
             if not _KERNEL_CHECKS[0]:
                 return fast(*args)
             if not checked:
-                checked.append(numba.njit(cache=False, boundscheck=True,
+                checked.append(numba.njit(cache=False, boundscheck=True, nogil=nogil,
                                           error_model="numpy")(fn))
             return checked[0](*args)
 
@@ -447,10 +450,12 @@ def _last(x, lo, hi):
     return int(x)
 
 
-@_kernel(parallel=True)
-def _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, x0, out,
+@_kernel(nogil=True)
+def _mark_prisms(p0, p1, nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, x0, out,
                  value, keep):
-    """Write ``value`` into every voxel of ``out`` whose centre is inside a prism.
+    """Write ``value`` into every voxel of ``out`` whose centre is inside one of the prisms
+    ``p0 <= p < p1`` (ranges of prisms run on threads, :func:`sheetview.threads.run_chunks`:
+    every write is the same ``value``, so the result does not depend on their order).
 
     ``out`` is the window ``[x0, x0 + out.shape[0])`` (x index) of a grid of shape
     ``full``; voxels holding ``keep`` are left alone. For each prism the columns along
@@ -464,10 +469,9 @@ def _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, x0,
     converted to an integer, so no prism, however large, far or thick, can make the kernel
     visit an index outside ``out``.
     """
-    n_prisms = nrm.shape[0]
     wx1 = x0 + out.shape[0]
     big = _PERIODIC_INDEX_LIMIT
-    for p in numba.prange(n_prisms):
+    for p in range(p0, p1):
         m = axis[p]
         u = (m + 1) % 3
         w = (m + 2) % 3
@@ -780,8 +784,8 @@ def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=No
     if not nonempty:
         raise OptionError("the domain contains no voxel centre at this voxel size "
                           f"({v:g} nm): the domain is empty; use a finer --voxel", path=src)
-    _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, sp, full, periodic, 0, labels,
-                 np.uint8(SOLID), np.uint8(OUTSIDE))
+    run_chunks(_mark_prisms, nrm.shape[0], nrm, d0, half, G, C, lo, hi, axis, org, sp, full,
+               periodic, 0, labels, np.uint8(SOLID), np.uint8(OUTSIDE))
     frac = None
     if s > 1:
         frac = _solid_fraction(labels, s, nrm, d0, half, G, C, lo, hi, axis, org, sp, full,
@@ -806,8 +810,8 @@ def _solid_fraction(labels, s, nrm, d0, half, G, C, lo, hi, axis, org, sp, full,
         nx = min(step, n0 - c0)
         b = buf[: nx * s]
         b.fill(0)
-        _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, org, fine_sp, fine_full, periodic,
-                     c0 * s, b, np.uint8(1), np.uint8(255))
+        run_chunks(_mark_prisms, nrm.shape[0], nrm, d0, half, G, C, lo, hi, axis, org,
+                   fine_sp, fine_full, periodic, c0 * s, b, np.uint8(1), np.uint8(255))
         cnt = b.reshape(nx, s, n1, s, n2, s).sum(axis=(1, 3, 5), dtype=np.int32)
         frac[c0:c0 + nx] = cnt * np.float32(1.0 / s ** 3)
     frac[labels == OUTSIDE] = 0.0
@@ -848,10 +852,10 @@ def _column_hits(tri, org, sp, nx, ny, count_only, start, zs):
             continue  # seen edge-on from z: no column crosses it
         xmin = min(x0, min(x1, x2)); xmax = max(x0, max(x1, x2))
         ymin = min(y0, min(y1, y2)); ymax = max(y0, max(y1, y2))
-        i0 = _first(math.ceil((xmin - org[0]) / sp[0] - 0.5 - jit), 0, nx - 1)
-        i1 = _last(math.floor((xmax - org[0]) / sp[0] - 0.5 - jit), 0, nx - 1)
-        j0 = _first(math.ceil((ymin - org[1]) / sp[1] - 0.5 - jit), 0, ny - 1)
-        j1 = _last(math.floor((ymax - org[1]) / sp[1] - 0.5 - jit), 0, ny - 1)
+        i0 = _first(math.ceil((xmin - org[0]) / sp[0] - 0.5 - jit), np.int64(0), nx - 1)
+        i1 = _last(math.floor((xmax - org[0]) / sp[0] - 0.5 - jit), np.int64(0), nx - 1)
+        j0 = _first(math.ceil((ymin - org[1]) / sp[1] - 0.5 - jit), np.int64(0), ny - 1)
+        j1 = _last(math.floor((ymax - org[1]) / sp[1] - 0.5 - jit), np.int64(0), ny - 1)
         for i in range(i0, i1 + 1):
             x = org[0] + (i + 0.5 + jit) * sp[0]
             for j in range(j0, j1 + 1):
@@ -883,8 +887,8 @@ def _fill_columns(labels, start, zs, org2, sp2, code, keep):
                 continue
             z = np.sort(zs[a:b])
             for p in range(0, b - a - 1, 2):
-                k0 = _first(math.ceil((z[p] - org2) / sp2 - 0.5), 0, nz - 1)
-                k1 = _last(math.floor((z[p + 1] - org2) / sp2 - 0.5), 0, nz - 1)
+                k0 = _first(math.ceil((z[p] - org2) / sp2 - 0.5), np.int64(0), nz - 1)
+                k1 = _last(math.floor((z[p + 1] - org2) / sp2 - 0.5), np.int64(0), nz - 1)
                 for k in range(k0, k1 + 1):
                     if labels[i, j, k] == keep:
                         labels[i, j, k] = code

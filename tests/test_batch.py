@@ -388,7 +388,7 @@ def test_key_hashes_exactly_the_number_settings():
              "local_radius": 4.0, "frame": "director", "density": 2.6,
              "composition": "(CaO)1.5(SiO2)(H2O)2", "water_density": 1.0, "pore_split": "5,20",
              "edge_tol": 0.04, "s2_block": 100, "s2_rmax": 3.0, "n_walkers": 500,
-             "intrusion": True, "lines": 1000, "seed": 1}
+             "intrusion": True, "lines": 1000, "seed": 1, "pore_method": "subvoxel"}
     assert set(other) == set(SETTINGS) - set(NO_NUMBER_SETTINGS)
     keys = {name: key(**{name: v}) for name, v in other.items()}
     assert k0 not in keys.values() and len(set(keys.values())) == len(other)

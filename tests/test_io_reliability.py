@@ -375,7 +375,7 @@ def _kernel_labels(structure, shape, spacing, origin, periodic):
     nrm, d0, half, G, C, lo, hi, axis, keep = _prism_coefficients(structure)
     out = np.zeros(shape, np.uint8)
     with kernel_checks():
-        _mark_prisms(nrm, d0, half, G, C, lo, hi, axis, np.asarray(origin, float),
+        _mark_prisms(0, len(nrm), nrm, d0, half, G, C, lo, hi, axis, np.asarray(origin, float),
                      np.asarray(spacing, float), np.asarray(shape, np.int64), periodic, 0, out,
                      np.uint8(SOLID), np.uint8(255))
     return out == SOLID

@@ -225,7 +225,7 @@ def test_fused_graph_matches_kdtree_and_pairwise_classification(periodic, jitter
     per, L = _box_lengths(dom)
     code = np.empty(len(pi), np.int8)
     ang = np.empty(len(pi))
-    _classify_pairs(pi, pj, np.ascontiguousarray(s.vertices), C, np.ascontiguousarray(s.normals),
+    _classify_pairs(0, len(pi), pi, pj, np.ascontiguousarray(s.vertices), C, np.ascontiguousarray(s.normals),
                     L, per, math.cos(math.radians(st.angle_tol)), math.cos(math.radians(st.tilt_limit)),
                     st.gap_tol, st.spacing, st.overlap, st.edge_tol, code, ang)
     assert g.n_candidates == len(pi)

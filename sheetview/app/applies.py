@@ -61,6 +61,9 @@ SETTING_RULES = {
     "voxel": (lambda o: not isinstance(o, PhaseGrid),
               "prisms and solid bodies, which are rasterized at it (a voxel volume is measured "
               "at its own voxel; one whose file gives none takes <<voxel_size>>)"),
+    "pore_method": (lambda o: isinstance(o, (PhaseGrid, ParticleSet)),
+                    "voxel volumes and particle packings (the local thickness of prisms and "
+                    "meshes comes from their exact geometry)"),
     "intrusion": (lambda o: not _periodic(o),
                   "inputs with a boundary for the intrusion to enter from (a periodic box has "
                   "none; its local-thickness pore sizes are measured without it)"),

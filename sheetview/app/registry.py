@@ -132,7 +132,6 @@ def check_inputs(selected, obj, source=None) -> None:
 
 
 _M = "sheetview.measures"
-_A = "sheetview.app.adapters"
 register("stacking", f"{_M}.stacking:stacking", "structure",
          "layers, stacks, stacking numbers, per-stack table, tilted contacts")
 register("order", f"{_M}.orientation:orientation", "structure",
@@ -141,7 +140,7 @@ register("phases", f"{_M}.phases:volume_fractions", "grid",
          "volume fractions of solid, interlayer, gel pores (and size classes), water of each class")
 register("surface", f"{_M}.surface:surface_measure", "grid",
          "interface areas, S/V per pore class, specific surface, Minkowski functionals")
-register("pores", f"{_A}:pores", "grid",
+register("pores", f"{_M}.pores:pores_measure", "grid",
          "pore sizes: local thickness and simulated intrusion, d10/d50/d90")
 register("chords", f"{_M}.chords:chord_measure", "grid",
          "chord lengths of solid and pore on isotropic random lines, Cauchy 4V/S")

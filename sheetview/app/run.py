@@ -25,7 +25,7 @@ from ..structure import Structure, SurfaceBody
 from .registry import REGISTRY, check_inputs
 from .settings import SPLIT_NAMES, Settings
 from ..measures.phases import classify, split_pores_by_size
-from ..measures.pores import local_thickness
+from ..measures.pores import exact_local_thickness, local_thickness
 from ..measures.stacking import StackingSettings, stacking_graph
 
 #: Inputs a measure function may ask for by parameter name, besides the settings.
@@ -217,15 +217,22 @@ class Run:
     @cached_property
     def thickness(self) -> np.ndarray:
         """Local thickness (nm; NaN off the pores) of the non-interlayer pore space of the
-        base grid."""
+        base grid: from exact distances to the prisms or mesh and the domain wall when the
+        input is a Structure or SurfaceBody
+        (:func:`~sheetview.measures.pores.exact_local_thickness`; walls that are not
+        geometry, such as the interlayer class, from the voxels), else from the voxels
+        (:func:`~sheetview.measures.pores.local_thickness` with the ``pore_method``
+        setting)."""
         g = self.base_grid
-        mask = np.isin(g.labels, [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)])
-        kw = {}
+        codes = [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)]
         tell = self.within("local thickness")
-        if tell is not None and "progress" in inspect.signature(local_thickness).parameters:
-            kw["progress"] = tell
+        kw = {} if tell is None else {"progress": tell}
+        if isinstance(self.geometry, (Structure, SurfaceBody)):  # particles: voxels
+            return self.stage("local thickness", exact_local_thickness, g, self.geometry,
+                              codes, **kw)
+        mask = np.isin(g.labels, codes)
         return self.stage("local thickness", local_thickness, mask, g.spacing,
-                          periodic=g.periodic, **kw)
+                          periodic=g.periodic, method=self.settings.pore_method, **kw)
 
     def provides(self, name: str) -> bool:
         return name in SHARED or name in Settings.__dataclass_fields__

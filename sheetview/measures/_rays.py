@@ -71,7 +71,10 @@ def grow(a, n):
     if n < a.shape[0]:
         return a
     b = np.empty(max(2 * a.shape[0], 16), a.dtype)
-    b[:a.shape[0]] = a
+    # a loop, not b[:n] = a: numba's slice assignment compiles its shape-mismatch error
+    # message (str() of tuples, about 3 s of a first run) into every caller
+    for q in range(a.shape[0]):
+        b[q] = a[q]
     return b
 
 
@@ -127,3 +130,59 @@ def regroup(il, is_, ie, n):
         os_[q] = is_[k]
         oe[q] = ie[k]
     return ol, os_, oe
+
+
+@numba.njit(cache=True)
+def argsort_stable(x, n, idx, tmp):
+    """Write into ``idx[:n]`` the indices of ``x[:n]`` in ascending order, equal values in
+    their original order (the result of ``np.argsort(x[:n], kind="stable")``); ``tmp``
+    is scratch of at least ``n`` int64.
+
+    Insertion sort of runs of 16, then bottom-up merges. Written out because numba's own
+    ``np.argsort``/``np.sort`` (quicksort, mergesort) cost seconds of compile time per
+    specialisation on a first run, for lists that here hold tens of values."""
+    run = 16
+    for i in range(n):
+        idx[i] = i
+    for s0 in range(0, n, run):
+        e0 = min(s0 + run, n)
+        for i in range(s0 + 1, e0):
+            v = idx[i]
+            xv = x[v]
+            j = i - 1
+            while j >= s0 and x[idx[j]] > xv:
+                idx[j + 1] = idx[j]
+                j -= 1
+            idx[j + 1] = v
+    width = run
+    in_tmp = False
+    while width < n:
+        src = tmp if in_tmp else idx
+        dst = idx if in_tmp else tmp
+        for lo in range(0, n, 2 * width):
+            mid = min(lo + width, n)
+            hi = min(lo + 2 * width, n)
+            i = lo
+            j = mid
+            k = lo
+            while i < mid and j < hi:
+                if x[src[j]] < x[src[i]]:
+                    dst[k] = src[j]
+                    j += 1
+                else:
+                    dst[k] = src[i]
+                    i += 1
+                k += 1
+            while i < mid:
+                dst[k] = src[i]
+                i += 1
+                k += 1
+            while j < hi:
+                dst[k] = src[j]
+                j += 1
+                k += 1
+        in_tmp = not in_tmp
+        width *= 2
+    if in_tmp:
+        for i in range(n):
+            idx[i] = tmp[i]

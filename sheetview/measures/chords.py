@@ -43,7 +43,9 @@ from ..errors import OptionError
 from ..grid import OUTSIDE, SOLID, PhaseGrid
 from ..particles import ParticleSet, periodic_images as particle_images
 from ..structure import Structure, SurfaceBody
-from ._rays import domain_interval, grow, periodic_images, prism_planes, push, regroup
+from ..threads import run_chunks
+from ._rays import (argsort_stable, domain_interval, grow, periodic_images, prism_planes,
+                    push, regroup)
 from ._result import Result
 from .surface import DIRECTIONS_13, direction_weights, interface_areas_with
 
@@ -218,7 +220,8 @@ def _merge_append(s, e, m, eps, line, out_l, out_s, out_e, no):
     """Sort intervals s, e (first m) and append their union to the outputs."""
     if m == 0:
         return out_l, out_s, out_e, no
-    order = np.argsort(s[:m])
+    order = np.empty(m, np.int64)
+    argsort_stable(s, m, order, np.empty(m, np.int64))  # any order of ties: the same union
     cs = s[order[0]]
     ce = e[order[0]]
     for q in range(1, m):
@@ -259,7 +262,7 @@ def _prism_intervals(o, u, tlo, thi, line_ids, planes, glo, h, dims, start, item
     out_l = np.empty(256, np.int64)
     out_s = np.empty(256)
     out_e = np.empty(256)
-    no = 0
+    no = np.int64(0)  # not a literal 0: one specialisation of _merge_append/push
     nx = dims[0]
     ny = dims[1]
     nz = dims[2]
@@ -297,7 +300,7 @@ def _prism_intervals(o, u, tlo, thi, line_ids, planes, glo, h, dims, start, item
         ix, sx, tmx, tdx = _dda_axis(ox, ux, tn, glo[0], h, nx)
         iy, sy, tmy, tdy = _dda_axis(oy, uy, tn, glo[1], h, ny)
         iz, sz, tmz, tdz = _dda_axis(oz, uz, tn, glo[2], h, nz)
-        m = 0
+        m = np.int64(0)
         while True:
             c = (ix * ny + iy) * nz + iz
             for q in range(start[c], start[c + 1]):
@@ -393,14 +396,15 @@ def _mesh_intervals(o, u, tlo, thi, tseg, line_ids, tri, glo, h, dims, start, it
     out_s = np.empty(256)
     out_e = np.empty(256)
     bad = np.zeros(n, np.bool_)
-    no = 0
+    no = np.int64(0)
     bs = np.empty(64)
     be = np.empty(64)
     for i in range(n):
         if not tlo[i] < thi[i]:
             continue
         cand, nc = _dda_candidates(o[i, 0], o[i, 1], o[i, 2], u[i, 0], u[i, 1], u[i, 2],
-                                   0.0, tseg[i], glo, h, dims, start, items, stamp, i, cand, 0)
+                                   0.0, tseg[i], glo, h, dims, start, items, stamp, i, cand,
+                                   np.int64(0))
         m = 0
         for q in range(nc):
             p = cand[q]
@@ -439,7 +443,7 @@ def _mesh_intervals(o, u, tlo, thi, tseg, line_ids, tri, glo, h, dims, start, it
             bad[i] = True
             continue
         hs = np.sort(hits[:m])
-        k = 0
+        k = np.int64(0)
         for q in range(0, m, 2):
             a0 = max(hs[q], tlo[i])
             a1 = min(hs[q + 1], thi[i])
@@ -576,6 +580,8 @@ def _pore_chords(il, is_, ie, tlo, thi, eps):
     out_line = np.empty(cap, np.int64)
     buf_len = np.empty(64)
     buf_cut = np.empty(64, np.bool_)
+    o = np.empty(64, np.int64)
+    o_tmp = np.empty(64, np.int64)
     w = 0
     k = 0
     for line in range(n):
@@ -593,6 +599,8 @@ def _pore_chords(il, is_, ie, tlo, thi, eps):
         if k1 - k + 1 > buf_len.shape[0]:
             buf_len = np.empty(2 * (k1 - k + 1))
             buf_cut = np.empty(2 * (k1 - k + 1), np.bool_)
+            o = np.empty(2 * (k1 - k + 1), np.int64)
+            o_tmp = np.empty(2 * (k1 - k + 1), np.int64)
         for q in range(k, k1 - 1):
             g = is_[q + 1] - ie[q]
             if g > eps:
@@ -609,7 +617,7 @@ def _pore_chords(il, is_, ie, tlo, thi, eps):
             buf_len[c] = g
             buf_cut[c] = True
             c += 1
-        o = np.argsort(buf_len[:c], kind="mergesort")
+        argsort_stable(buf_len, c, o, o_tmp)  # = np.argsort(buf_len[:c], kind="mergesort")
         for q in range(c):
             out_len[w] = buf_len[o[q]]
             out_cut[w] = buf_cut[o[q]]
@@ -1047,18 +1055,19 @@ def _solid_lut(solid) -> np.ndarray:
     return lut
 
 
-@numba.njit(cache=True, parallel=True)
-def _capped_sq_dist_yz(labels, lut, K, periodic, g2p, g2s):
+@numba.njit(cache=True, nogil=True)
+def _capped_sq_dist_yz(lo, hi, labels, lut, K, periodic, g2p, g2s):
     """First two passes of a separable Euclidean distance transform (Saito & Toriwaki,
     Pattern Recognition 27 (1994) 1551), capped at ``K`` voxels: for each voxel the least
     ``dy^2 + dz^2`` to a pore voxel (``g2p``) and to a solid voxel (``g2s``) in its x-plane,
-    as uint8 values capped at (K + 1)^2. OUTSIDE voxels are neither."""
+    as uint8 values capped at (K + 1)^2. OUTSIDE voxels are neither. Planes
+    ``lo <= i < hi`` (ranges of planes run on threads)."""
     nx, ny, nz = labels.shape
     cap = K + 1
     cap2 = cap * cap
-    for i in numba.prange(nx):
-        g1p = np.empty((ny, nz), np.uint8)
-        g1s = np.empty((ny, nz), np.uint8)
+    g1p = np.empty((ny, nz), np.uint8)
+    g1s = np.empty((ny, nz), np.uint8)
+    for i in range(lo, hi):
         # pass 1, along z: distance to the nearest pore / solid voxel of the row
         for j in range(ny):
             dp = cap
@@ -1119,16 +1128,20 @@ def _capped_sq_dist_yz(labels, lut, K, periodic, g2p, g2s):
                         g2s[i, j, k] = v
 
 
-@numba.njit(cache=True, parallel=True)
-def _signed_from_sq(labels, lut, K, periodic, g2p, g2s, fmax, F):
+@numba.njit(cache=True, nogil=True)
+def _signed_from_sq(lo, hi, labels, lut, K, periodic, g2p, g2s, fmax, F):
     """Pass 3, along x: the least squared distance over |dx| <= K, then the signed
     distance ``sqrt(d_p^2) - 1/2`` (solid), ``1/2 - sqrt(d_s^2)`` (pore), 0 (OUTSIDE),
-    clamped to +-fmax."""
+    clamped to +-fmax; planes ``lo <= i < hi`` (ranges of planes run on threads)."""
     nx, ny, nz = labels.shape
     cap = K + 1
-    for i in numba.prange(nx):
-        bp = np.full((ny, nz), cap * cap, np.int64)
-        bs = np.full((ny, nz), cap * cap, np.int64)
+    bp = np.empty((ny, nz), np.int64)
+    bs = np.empty((ny, nz), np.int64)
+    for i in range(lo, hi):
+        for j in range(ny):
+            for k in range(nz):
+                bp[j, k] = cap * cap
+                bs[j, k] = cap * cap
         for dx in range(-K, K + 1):
             ii = i + dx
             if periodic:
@@ -1174,9 +1187,9 @@ def signed_distance(grid: PhaseGrid, solid=(SOLID,)) -> np.ndarray:
     K = _EDT_MARGIN
     g2p = np.empty(lab.shape, np.uint8)
     g2s = np.empty(lab.shape, np.uint8)
-    _capped_sq_dist_yz(lab, lut, K, per, g2p, g2s)
+    run_chunks(_capped_sq_dist_yz, lab.shape[0], lab, lut, K, per, g2p, g2s)
     F = np.empty(lab.shape, np.float32)
-    _signed_from_sq(lab, lut, K, per, g2p, g2s, _FMAX, F)
+    run_chunks(_signed_from_sq, lab.shape[0], lab, lut, K, per, g2p, g2s, _FMAX, F)
     return F
 
 
@@ -1873,47 +1886,46 @@ def _phase_volume_surface(grid: PhaseGrid, lut) -> tuple[float, float]:
     return float(counts[lut].sum() * grid.voxel_volume), S + _edge_area(grid, lut)
 
 
-@numba.njit(cache=True, parallel=True)
-def _class_pairs(lab, cls, dirs, periodic):
+@numba.njit(cache=True, nogil=True)
+def _class_pairs(lo, hi, lab, cls, dirs, periodic):
     """Lattice-neighbour pairs ``x, x + d_q`` (13 directions, one of each +- pair) whose
     classes (``cls``: 0 outside, 1 solid, 2 pore) differ, as (3, 13) counts of the pairs
-    outside-solid, outside-pore, solid-pore; and the voxel count of each class. Pairs
-    across the grid edge count only for periodic grids."""
+    outside-solid, outside-pore, solid-pore; and the voxel count of each class; over the
+    voxels ``lo <= i < hi`` along x (counts of disjoint ranges add up). Pairs across the
+    grid edge count only for periodic grids."""
     nx, ny, nz = lab.shape
     nd = dirs.shape[0]
-    nchunk = min(nx, 64)
-    out = np.zeros((nchunk, 3, nd), np.int64)
-    cnt = np.zeros((nchunk, 3), np.int64)
-    for ch in numba.prange(nchunk):
-        for i in range(ch * nx // nchunk, (ch + 1) * nx // nchunk):
-            for j in range(ny):
-                for k in range(nz):
-                    a = cls[lab[i, j, k]]
-                    cnt[ch, a] += 1
-                    for q in range(nd):
-                        i2 = i + dirs[q, 0]
-                        j2 = j + dirs[q, 1]
-                        k2 = k + dirs[q, 2]
-                        if periodic:
-                            if i2 < 0:
-                                i2 += nx
-                            elif i2 >= nx:
-                                i2 -= nx
-                            if j2 < 0:
-                                j2 += ny
-                            elif j2 >= ny:
-                                j2 -= ny
-                            if k2 < 0:
-                                k2 += nz
-                            elif k2 >= nz:
-                                k2 -= nz
-                        elif (i2 < 0 or j2 < 0 or k2 < 0 or i2 >= nx or j2 >= ny
-                              or k2 >= nz):
-                            continue
-                        b = cls[lab[i2, j2, k2]]
-                        if a != b:
-                            out[ch, a + b - 1, q] += 1
-    return out.sum(axis=0), cnt.sum(axis=0)
+    out = np.zeros((3, nd), np.int64)
+    cnt = np.zeros(3, np.int64)
+    for i in range(lo, hi):
+        for j in range(ny):
+            for k in range(nz):
+                a = cls[lab[i, j, k]]
+                cnt[a] += 1
+                for q in range(nd):
+                    i2 = i + dirs[q, 0]
+                    j2 = j + dirs[q, 1]
+                    k2 = k + dirs[q, 2]
+                    if periodic:
+                        if i2 < 0:
+                            i2 += nx
+                        elif i2 >= nx:
+                            i2 -= nx
+                        if j2 < 0:
+                            j2 += ny
+                        elif j2 >= ny:
+                            j2 -= ny
+                        if k2 < 0:
+                            k2 += nz
+                        elif k2 >= nz:
+                            k2 -= nz
+                    elif (i2 < 0 or j2 < 0 or k2 < 0 or i2 >= nx or j2 >= ny
+                          or k2 >= nz):
+                        continue
+                    b = cls[lab[i2, j2, k2]]
+                    if a != b:
+                        out[a + b - 1, q] += 1
+    return out, cnt
 
 
 @dataclass
@@ -1967,7 +1979,7 @@ def cauchy_figures(grid: PhaseGrid, solid=(SOLID,)) -> CauchyFigures:
     if not isinstance(grid, PhaseGrid):
         raise OptionError(f"expected a PhaseGrid, got {type(grid).__name__}")
     lut = _solid_lut(solid)
-    lab = np.ascontiguousarray(grid.labels)
+    lab = np.ascontiguousarray(grid.labels, dtype=np.uint8)
     pore = ~lut.copy()
     pore[OUTSIDE] = False
     # one pass over the grid: lattice-neighbour pairs of the three classes, per direction,
@@ -1976,8 +1988,10 @@ def cauchy_figures(grid: PhaseGrid, solid=(SOLID,)) -> CauchyFigures:
     cls[OUTSIDE] = 0
     vec, w = direction_weights(grid.spacing)
     f = 2.0 * w * grid.voxel_volume / np.linalg.norm(vec, axis=1)
-    pairs, counts = _class_pairs(lab, cls, np.asarray(DIRECTIONS_13, np.int64),
-                                 bool(grid.periodic))
+    parts = run_chunks(_class_pairs, lab.shape[0], lab, cls,
+                       np.ascontiguousarray(DIRECTIONS_13, np.int64), bool(grid.periodic))
+    pairs = np.add.reduce([p[0] for p in parts])
+    counts = np.add.reduce([p[1] for p in parts])
     a_so, a_po, a_sp = (float(x) for x in pairs @ f)
     e_s, e_p = _edge_area(grid, lut), _edge_area(grid, pore)
     vv = grid.voxel_volume

@@ -33,7 +33,7 @@ import numpy as np
 
 from ..errors import MemoryLimitError, OptionError
 from ..grid import OUTSIDE, SOLID, PhaseGrid
-from ..threads import budget
+from ..threads import budget, run_chunks
 from ._result import Result
 from .surface import phase_codes
 
@@ -259,10 +259,10 @@ def _slab_rows(shape, m) -> int:
     return int(max(1, min(shape[0], 2 ** 23 // max(1, shape[1] * m[2]))))
 
 
-@numba.njit(cache=True, parallel=True)
-def _abs2(a):
-    """``a <- |a|^2`` in place (a flat complex array)."""
-    for i in numba.prange(a.shape[0]):
+@numba.njit(cache=True, nogil=True)
+def _abs2(lo, hi, a):
+    """``a[lo:hi] <- |a[lo:hi]|^2`` in place (a flat complex array)."""
+    for i in range(lo, hi):
         a[i] = a[i].real * a[i].real + a[i].imag * a[i].imag
 
 
@@ -310,7 +310,8 @@ def _autocorrelation(fill, shape, m, rch, workers) -> np.ndarray:
         A[:, n0:, :] = 0
         _inplace(sfft.fft, A[:, :n0, :], axis=2, workers=workers)
         _inplace(sfft.fft, A, axis=1, workers=workers)
-        _abs2(A.reshape(-1))
+        flat = A.reshape(-1)
+        run_chunks(_abs2, flat.shape[0], flat)
         _inplace(sfft.ifft, A, axis=1, workers=workers)
         B = A[:, k0] if len(k0) < m[0] else A.copy()
         _inplace(sfft.ifft, B, axis=2, workers=workers)
@@ -364,22 +365,24 @@ def _symmetric_autocorrelation(w, m, rch, workers) -> np.ndarray:
     return np.rint(o, out=o)
 
 
-@numba.njit(cache=True, parallel=True)
-def _window_mirror_symmetric(labels):
-    """True when the inside voxels (label != OUTSIDE) are mirror-symmetric along each axis."""
+@numba.njit(cache=True, nogil=True)
+def _mirror_rows(lo, hi, labels):
+    """True when, in the planes ``lo <= i < hi``, the inside voxels (label != OUTSIDE) are
+    mirror-symmetric along each axis."""
     n0, n1, n2 = labels.shape
-    bad = np.zeros(n0, np.bool_)
-    for i in numba.prange(n0):
+    for i in range(lo, hi):
         for j in range(n1):
             for k in range(n2):
                 v = labels[i, j, k] == 0
                 if (v != (labels[n0 - 1 - i, j, k] == 0) or v != (labels[i, n1 - 1 - j, k] == 0)
                         or v != (labels[i, j, n2 - 1 - k] == 0)):
-                    bad[i] = True
-                    break
-            if bad[i]:
-                break
-    return not bad.any()
+                    return False
+    return True
+
+
+def _window_mirror_symmetric(labels) -> bool:
+    """True when the inside voxels (label != OUTSIDE) are mirror-symmetric along each axis."""
+    return all(run_chunks(_mirror_rows, labels.shape[0], labels))
 
 
 def _fill_from(arr):
@@ -388,29 +391,34 @@ def _fill_from(arr):
     return fill
 
 
-@numba.njit(cache=True, parallel=True)
-def _lut_rows(labels, lut, i0, out):
-    for i in numba.prange(out.shape[0]):
+@numba.njit(cache=True, nogil=True)
+def _lut_rows(lo, hi, labels, lut, i0, out):
+    for i in range(lo, hi):
         for j in range(out.shape[1]):
             for k in range(out.shape[2]):
                 out[i, j, k] = lut[labels[i0 + i, j, k]]
 
 
-@numba.njit(cache=True, parallel=True)
-def _label_counts(labels):
-    """Number of voxels of each label value (uint8)."""
-    n0 = labels.shape[0]
-    part = np.zeros((n0, 256), np.int64)
-    for i in numba.prange(n0):
+@numba.njit(cache=True, nogil=True)
+def _label_count_rows(lo, hi, labels):
+    """Number of voxels of each label value (uint8) in the planes ``lo <= i < hi``."""
+    part = np.zeros(256, np.int64)
+    for i in range(lo, hi):
         for j in range(labels.shape[1]):
             for k in range(labels.shape[2]):
-                part[i, labels[i, j, k]] += 1
-    return part.sum(axis=0)
+                part[labels[i, j, k]] += 1
+    return part
+
+
+def _label_counts(labels) -> np.ndarray:
+    """Number of voxels of each label value (uint8)."""
+    parts = run_chunks(_label_count_rows, labels.shape[0], labels)
+    return np.add.reduce(parts) if parts else np.zeros(256, np.int64)
 
 
 def _fill_lut(labels, lut):
     def fill(i0, i1, out):
-        _lut_rows(labels, lut.astype(out.dtype), i0, out)
+        run_chunks(_lut_rows, out.shape[0], labels, lut.astype(out.dtype), i0, out)
     return fill
 
 
@@ -488,16 +496,12 @@ def s2_map(mask: np.ndarray, window: np.ndarray | None = None, periodic: bool = 
 
 
 # --------------------------------------------------------------- slope at the origin
-@numba.njit(cache=True, parallel=True)
-def _block_flags(labels, inphase, b):
-    """For each block of ``b^3`` voxels: whether it holds an OUTSIDE voxel, and whether it
-    holds a phase voxel."""
+@numba.njit(cache=True, nogil=True)
+def _block_flag_rows(lo, hi, labels, inphase, b, out, ph):
+    """For each block of ``b^3`` voxels in the block rows ``lo <= bi < hi``: whether it
+    holds an OUTSIDE voxel (``out``), and whether it holds a phase voxel (``ph``)."""
     n0, n1, n2 = labels.shape
-    nb0 = (n0 + b - 1) // b
-    shp = (nb0, (n1 + b - 1) // b, (n2 + b - 1) // b)
-    out = np.zeros(shp, np.bool_)
-    ph = np.zeros(shp, np.bool_)
-    for bi in numba.prange(nb0):
+    for bi in range(lo, hi):
         for i in range(bi * b, min(n0, bi * b + b)):
             for j in range(n1):
                 for k in range(n2):
@@ -506,20 +510,34 @@ def _block_flags(labels, inphase, b):
                         out[bi, j // b, k // b] = True
                     elif inphase[v]:
                         ph[bi, j // b, k // b] = True
+
+
+def _block_flags(labels, inphase, b):
+    """For each block of ``b^3`` voxels: whether it holds an OUTSIDE voxel, and whether it
+    holds a phase voxel."""
+    n0, n1, n2 = labels.shape
+    shp = ((n0 + b - 1) // b, (n1 + b - 1) // b, (n2 + b - 1) // b)
+    out = np.zeros(shp, np.bool_)
+    ph = np.zeros(shp, np.bool_)
+    run_chunks(_block_flag_rows, shp[0], labels, inphase, int(b), out, ph)
     return out, ph
 
 
-@numba.njit(cache=True, parallel=True)
-def _lag_misses(labels, inphase, lags, blocks, b, periodic):
+#: Groups of blocks of :func:`_lag_misses` (block q goes to group q % _LAG_GROUPS).
+_LAG_GROUPS = 64
+
+
+@numba.njit(cache=True, nogil=True)
+def _lag_misses(lo, hi, labels, inphase, lags, blocks, b, periodic):
     """For each lag ``k``: the number of phase voxels ``x`` in the listed blocks (corner
-    indices ``blocks * b``) whose partner ``x + k`` is off the grid (non-periodic) or
-    OUTSIDE."""
+    indices ``blocks * b``) of the groups ``lo <= g < hi`` (block q in group q % 64)
+    whose partner ``x + k`` is off the grid (non-periodic) or OUTSIDE."""
     n0, n1, n2 = labels.shape
     nl = lags.shape[0]
     nbk = blocks.shape[0]
-    ng = 64
-    part = np.zeros((ng, nl), np.int64)
-    for g in numba.prange(ng):
+    ng = _LAG_GROUPS
+    part = np.zeros(nl, np.int64)
+    for g in range(lo, hi):
         for q0 in range(g, nbk, ng):
             bi = blocks[q0, 0] * b
             bj = blocks[q0, 1] * b
@@ -538,11 +556,11 @@ def _lag_misses(labels, inphase, lags, blocks, b, periodic):
                                 c %= n1
                                 e %= n2
                             elif a < 0 or a >= n0 or c < 0 or c >= n1 or e < 0 or e >= n2:
-                                part[g, q] += 1
+                                part[q] += 1
                                 continue
                             if labels[a, c, e] == 0:
-                                part[g, q] += 1
-    return part.sum(axis=0)
+                                part[q] += 1
+    return part
 
 
 def _cross_counts(labels, inphase, lags, periodic, n_phase):
@@ -567,8 +585,9 @@ def _cross_counts(labels, inphase, lags, periodic, n_phase):
     # only phase voxels of blocks with an OUTSIDE voxel or a grid face within reach can
     # miss a partner
     blocks = np.argwhere(dirty & has_phase).astype(np.int64)
-    miss = _lag_misses(labels, inphase, np.ascontiguousarray(lags, np.int64), blocks, b,
-                       bool(periodic))
+    miss = np.add.reduce(run_chunks(_lag_misses, _LAG_GROUPS, labels, inphase,
+                                    np.ascontiguousarray(lags, np.int64), blocks, int(b),
+                                    bool(periodic)))
     return n_phase - miss.astype(np.float64)
 
 
@@ -671,8 +690,8 @@ def two_point_correlation(grid: PhaseGrid, phases, r_max: float | None = None,
     # lags that can fall in a bin: |k_a| sp_a <= rmax + bw / 2; at least those of the slope
     reach = np.ceil((rmax + 0.5 * bw) / sp + 1e-9)
     reach = tuple(int(v) for v in np.minimum(np.maximum(reach, 2), shape - 1))
-    lab = grid.labels
-    counts = _label_counts(np.ascontiguousarray(lab))
+    lab = np.ascontiguousarray(grid.labels)  # one layout for every kernel below
+    counts = _label_counts(lab)
     n_in = int(counts.sum() - counts[OUTSIDE])
     if n_in == 0:
         raise OptionError("the grid has no voxel inside the domain")

@@ -24,6 +24,7 @@ import numpy as np
 
 from ..errors import OptionError, positive
 from ._result import Result
+from ..threads import run_chunks
 from .cells import cell_list
 from .stacking import check_structure
 
@@ -97,29 +98,31 @@ def _axis_cells(c, n, periodic, length, out, shift):
     return m
 
 
-@numba.njit(cache=True, parallel=True)
-def _local_moments(P, T, W, cells, cell_start, ncell, size, radius, periodic, L):
+@numba.njit(cache=True, nogil=True)
+def _local_moments(lo_cell, hi_cell, P, T, W, cells, cell_start, ncell, size, radius,
+                   periodic, L, out):
     """Sum of w n n^T (6 components) and of w over the points within ``radius`` of each
-    point (itself included). Points are sorted by cell; cells (edges ``size``) are at
-    least ``radius`` wide; ``cells`` lists the non-empty cells. Parallel over cells.
+    point (itself included), written to the rows of ``out`` (n, 7) of the points of the
+    cells ``cells[lo_cell:hi_cell]``. Points are sorted by cell; cells (edges ``size``)
+    are at least ``radius`` wide; ``cells`` lists the non-empty cells. Ranges of cells
+    run on threads (:func:`sheetview.threads.run_chunks`; each point is in one cell).
     A neighbour cell whose box lies farther than ``radius`` from the point is skipped
     (it holds no neighbour), which leaves the order of the sums unchanged."""
-    n = P.shape[0]
-    out = np.zeros((n, 7))
     r2 = radius * radius
     r2_skip = r2 * (1.0 + 1e-9) + 1e-300
     nx, ny, nz = ncell[0], ncell[1], ncell[2]
-    for q in numba.prange(cells.shape[0]):
+    gx = np.empty(3, np.int64)
+    gy = np.empty(3, np.int64)
+    gz = np.empty(3, np.int64)
+    sx = np.empty(3)
+    sy = np.empty(3)
+    sz = np.empty(3)
+    acc = np.zeros(7)
+    for q in range(lo_cell, hi_cell):
         c = cells[q]
         cz = c % nz
         cy = (c // nz) % ny
         cx = c // (ny * nz)
-        gx = np.empty(3, np.int64)
-        gy = np.empty(3, np.int64)
-        gz = np.empty(3, np.int64)
-        sx = np.empty(3)
-        sy = np.empty(3)
-        sz = np.empty(3)
         mx = _axis_cells(cx, nx, periodic, L[0], gx, sx)
         my = _axis_cells(cy, ny, periodic, L[1], gy, sy)
         mz = _axis_cells(cz, nz, periodic, L[2], gz, sz)
@@ -127,7 +130,6 @@ def _local_moments(P, T, W, cells, cell_start, ncell, size, radius, periodic, L)
         mx = abs(mx)
         my = abs(my)
         mz = abs(mz)
-        acc = np.zeros(7)
         for i in range(cell_start[c], cell_start[c + 1]):
             for k in range(7):
                 acc[k] = 0.0
@@ -169,7 +171,6 @@ def _local_moments(P, T, W, cells, cell_start, ncell, size, radius, periodic, L)
                                 acc[6] += W[j]
             for k in range(7):
                 out[i, k] = acc[k]
-    return out
 
 
 def _moments6(normals, weights):
@@ -207,8 +208,9 @@ def local_order(centroids, normals, weights, radius, domain=None) -> np.ndarray:
     cl = cell_list(P, radius, domain, sparse=8.0)
     order = cl.order
     T = np.ascontiguousarray(_moments6(nrm, w)[order])
-    mom = _local_moments(cl.P, T, np.ascontiguousarray(w[order]), cl.cells, cl.start,
-                         cl.ncell, cl.size, float(radius), cl.periodic, cl.L)
+    mom = np.zeros((n, 7))
+    run_chunks(_local_moments, len(cl.cells), cl.P, T, np.ascontiguousarray(w[order]),
+               cl.cells, cl.start, cl.ncell, cl.size, float(radius), cl.periodic, cl.L, mom)
     S = np.empty(n)
     S[order] = _largest_eig(mom[:, :6], mom[:, 6])
     return S

@@ -25,6 +25,7 @@ import numpy as np
 
 from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid, rasterize
+from ..threads import run_chunks
 from ..material import Hydrate, MaterialSplit, interlayer_share
 from ._result import Result
 from .stacking import (StackingSettings, clip_polygon_buf, pair_frame, plane_basis,
@@ -40,144 +41,143 @@ def _dot(a0, a1, a2, b0, b1, b2):
     return a0 * b0 + a1 * b1 + a2 * b2
 
 
-@numba.njit(cache=True, parallel=True)
-def _paint_gaps(pairs, V, C, Nrm, T, periodic, L, org, sp, shape, labels):
+@numba.njit(cache=True, nogil=True)
+def _paint_gaps(lo, hi, pairs, V, C, Nrm, T, periodic, L, org, sp, shape, labels):
     """Mark GEL voxels inside the gap of each stacked pair as INTERLAYER.
 
     For the pair (i, j) with mean normal m (oriented from i to j), a voxel centre p is in
     the gap when it lies above the top face of i, below the bottom face of j, and its
     projection on the common plane lies in the intersection polygon of the two projected
     triangles. Positions are taken relative to the centroid of i (minimum image in
-    periodic boxes). Returns the number of voxels marked (for diagnostics).
+    periodic boxes). Serial over the pairs ``lo <= p < hi`` (threads run ranges of pairs
+    at once: every write sets a voxel to INTERLAYER, so the result does not depend on
+    their order).
     """
-    npair = pairs.shape[0]
-    nchunk = max(1, min(256, npair // 64))
     nx, ny, nz = shape[0], shape[1], shape[2]
-    for ch in numba.prange(nchunk):
-        buf = np.empty((4, 12))
-        ax = np.empty(3)
-        ay = np.empty(3)
-        bx = np.empty(3)
-        by = np.empty(3)
-        for p in range(ch * npair // nchunk, (ch + 1) * npair // nchunk):
-            i = pairs[p, 0]
-            j = pairs[p, 1]
-            m0, m1, m2, d0, d1, d2 = pair_frame(i, j, C, Nrm, L, periodic)
-            h = _dot(m0, m1, m2, d0, d1, d2)
-            if h < 0.0:
-                m0, m1, m2, h = -m0, -m1, -m2, -h
-            # normals of i and j oriented along m
-            si = 1.0 if _dot(Nrm[i, 0], Nrm[i, 1], Nrm[i, 2], m0, m1, m2) >= 0.0 else -1.0
-            sjm = 1.0 if _dot(Nrm[j, 0], Nrm[j, 1], Nrm[j, 2], m0, m1, m2) >= 0.0 else -1.0
-            ni0, ni1, ni2 = si * Nrm[i, 0], si * Nrm[i, 1], si * Nrm[i, 2]
-            nj0, nj1, nj2 = sjm * Nrm[j, 0], sjm * Nrm[j, 1], sjm * Nrm[j, 2]
-            u0, u1, u2, v0, v1, v2 = plane_basis(m0, m1, m2)
-            for k in range(3):
-                x0 = V[i, k, 0] - C[i, 0]
-                x1 = V[i, k, 1] - C[i, 1]
-                x2 = V[i, k, 2] - C[i, 2]
-                ax[k] = _dot(x0, x1, x2, u0, u1, u2)
-                ay[k] = _dot(x0, x1, x2, v0, v1, v2)
-                y0 = V[j, k, 0] - C[j, 0] + d0
-                y1 = V[j, k, 1] - C[j, 1] + d1
-                y2 = V[j, k, 2] - C[j, 2] + d2
-                bx[k] = _dot(y0, y1, y2, u0, u1, u2)
-                by[k] = _dot(y0, y1, y2, v0, v1, v2)
-            for tri_x, tri_y in ((ax, ay), (bx, by)):
-                a = 0.5 * ((tri_x[1] - tri_x[0]) * (tri_y[2] - tri_y[0])
-                           - (tri_x[2] - tri_x[0]) * (tri_y[1] - tri_y[0]))
-                if a < 0.0:
-                    tx = tri_x[1]
-                    tri_x[1] = tri_x[2]
-                    tri_x[2] = tx
-                    ty = tri_y[1]
-                    tri_y[1] = tri_y[2]
-                    tri_y[2] = ty
-            npoly = clip_polygon_buf(ax, ay, bx, by, buf)
-            if npoly < 3:
+    buf = np.empty((4, 12))
+    ax = np.empty(3)
+    ay = np.empty(3)
+    bx = np.empty(3)
+    by = np.empty(3)
+    for p in range(lo, hi):
+        i = pairs[p, 0]
+        j = pairs[p, 1]
+        m0, m1, m2, d0, d1, d2 = pair_frame(i, j, C, Nrm, L, periodic)
+        h = _dot(m0, m1, m2, d0, d1, d2)
+        if h < 0.0:
+            m0, m1, m2, h = -m0, -m1, -m2, -h
+        # normals of i and j oriented along m
+        si = 1.0 if _dot(Nrm[i, 0], Nrm[i, 1], Nrm[i, 2], m0, m1, m2) >= 0.0 else -1.0
+        sjm = 1.0 if _dot(Nrm[j, 0], Nrm[j, 1], Nrm[j, 2], m0, m1, m2) >= 0.0 else -1.0
+        ni0, ni1, ni2 = si * Nrm[i, 0], si * Nrm[i, 1], si * Nrm[i, 2]
+        nj0, nj1, nj2 = sjm * Nrm[j, 0], sjm * Nrm[j, 1], sjm * Nrm[j, 2]
+        u0, u1, u2, v0, v1, v2 = plane_basis(m0, m1, m2)
+        for k in range(3):
+            x0 = V[i, k, 0] - C[i, 0]
+            x1 = V[i, k, 1] - C[i, 1]
+            x2 = V[i, k, 2] - C[i, 2]
+            ax[k] = _dot(x0, x1, x2, u0, u1, u2)
+            ay[k] = _dot(x0, x1, x2, v0, v1, v2)
+            y0 = V[j, k, 0] - C[j, 0] + d0
+            y1 = V[j, k, 1] - C[j, 1] + d1
+            y2 = V[j, k, 2] - C[j, 2] + d2
+            bx[k] = _dot(y0, y1, y2, u0, u1, u2)
+            by[k] = _dot(y0, y1, y2, v0, v1, v2)
+        for tri_x, tri_y in ((ax, ay), (bx, by)):
+            a = 0.5 * ((tri_x[1] - tri_x[0]) * (tri_y[2] - tri_y[0])
+                       - (tri_x[2] - tri_x[0]) * (tri_y[1] - tri_y[0]))
+            if a < 0.0:
+                tx = tri_x[1]
+                tri_x[1] = tri_x[2]
+                tri_x[2] = tx
+                ty = tri_y[1]
+                tri_y[1] = tri_y[2]
+                tri_y[2] = ty
+        npoly = clip_polygon_buf(ax, ay, bx, by, buf)
+        if npoly < 3:
+            continue
+        px = buf[0]
+        py = buf[1]
+        # drop vertices repeating their predecessor: where the two triangles share an
+        # edge (layers that are exact copies) the clipping leaves near-duplicates, and
+        # an edge ~1e-16 nm long has a direction set by rounding that would cut the
+        # polygon along a random line in the inside test below
+        m = 0
+        for k in range(npoly):
+            if m > 0 and (px[k] - px[m - 1]) ** 2 + (py[k] - py[m - 1]) ** 2 <= _DUP2:
                 continue
-            px = buf[0]
-            py = buf[1]
-            # drop vertices repeating their predecessor: where the two triangles share an
-            # edge (layers that are exact copies) the clipping leaves near-duplicates, and
-            # an edge ~1e-16 nm long has a direction set by rounding that would cut the
-            # polygon along a random line in the inside test below
-            m = 0
-            for k in range(npoly):
-                if m > 0 and (px[k] - px[m - 1]) ** 2 + (py[k] - py[m - 1]) ** 2 <= _DUP2:
-                    continue
-                px[m] = px[k]
-                py[m] = py[k]
-                m += 1
-            while m > 1 and (px[m - 1] - px[0]) ** 2 + (py[m - 1] - py[0]) ** 2 <= _DUP2:
-                m -= 1
-            npoly = m
-            if npoly < 3:
-                continue
-            # faces: top of i  {r : r.ni >= t_i/2}; bottom of j {r : (r - d).nj <= -t_j/2}
-            ci = 0.5 * T[i]
-            cj = _dot(d0, d1, d2, nj0, nj1, nj2) - 0.5 * T[j]
-            # bounding box of the gap: polygon corners lifted to both faces
-            lo0 = lo1 = lo2 = np.inf
-            hi0 = hi1 = hi2 = -np.inf
-            mi = _dot(m0, m1, m2, ni0, ni1, ni2)
-            mj = _dot(m0, m1, m2, nj0, nj1, nj2)
-            for k in range(npoly):
-                base0 = px[k] * u0 + py[k] * v0
-                base1 = px[k] * u1 + py[k] * v1
-                base2 = px[k] * u2 + py[k] * v2
-                zi = (ci - _dot(base0, base1, base2, ni0, ni1, ni2)) / mi
-                zj = (cj - _dot(base0, base1, base2, nj0, nj1, nj2)) / mj
-                for z in (zi, zj):
-                    q0 = base0 + z * m0
-                    q1 = base1 + z * m1
-                    q2 = base2 + z * m2
-                    lo0 = min(lo0, q0)
-                    lo1 = min(lo1, q1)
-                    lo2 = min(lo2, q2)
-                    hi0 = max(hi0, q0)
-                    hi1 = max(hi1, q1)
-                    hi2 = max(hi2, q2)
-            # voxel index ranges (centres inside the box)
-            i0 = int(math.ceil((C[i, 0] + lo0 - org[0]) / sp[0] - 0.5))
-            i1 = int(math.floor((C[i, 0] + hi0 - org[0]) / sp[0] - 0.5))
-            j0 = int(math.ceil((C[i, 1] + lo1 - org[1]) / sp[1] - 0.5))
-            j1 = int(math.floor((C[i, 1] + hi1 - org[1]) / sp[1] - 0.5))
-            k0 = int(math.ceil((C[i, 2] + lo2 - org[2]) / sp[2] - 0.5))
-            k1 = int(math.floor((C[i, 2] + hi2 - org[2]) / sp[2] - 0.5))
-            if not periodic:
-                i0 = max(i0, 0)
-                j0 = max(j0, 0)
-                k0 = max(k0, 0)
-                i1 = min(i1, nx - 1)
-                j1 = min(j1, ny - 1)
-                k1 = min(k1, nz - 1)
-            for ii in range(i0, i1 + 1):
-                r0 = org[0] + (ii + 0.5) * sp[0] - C[i, 0]
-                wi = ii % nx
-                for jj in range(j0, j1 + 1):
-                    r1 = org[1] + (jj + 0.5) * sp[1] - C[i, 1]
-                    wj = jj % ny
-                    for kk in range(k0, k1 + 1):
-                        wk = kk % nz
-                        if labels[wi, wj, wk] != GEL_CODE:
-                            continue
-                        r2 = org[2] + (kk + 0.5) * sp[2] - C[i, 2]
-                        if _dot(r0, r1, r2, ni0, ni1, ni2) < ci:
-                            continue
-                        if _dot(r0, r1, r2, nj0, nj1, nj2) > cj:
-                            continue
-                        x = _dot(r0, r1, r2, u0, u1, u2)
-                        y = _dot(r0, r1, r2, v0, v1, v2)
-                        inside = True
-                        for e in range(npoly):
-                            e1 = e + 1 if e + 1 < npoly else 0
-                            if ((px[e1] - px[e]) * (y - py[e])
-                                    - (py[e1] - py[e]) * (x - px[e])) < 0.0:
-                                inside = False
-                                break
-                        if inside:
-                            labels[wi, wj, wk] = INTERLAYER_CODE
+            px[m] = px[k]
+            py[m] = py[k]
+            m += 1
+        while m > 1 and (px[m - 1] - px[0]) ** 2 + (py[m - 1] - py[0]) ** 2 <= _DUP2:
+            m -= 1
+        npoly = m
+        if npoly < 3:
+            continue
+        # faces: top of i  {r : r.ni >= t_i/2}; bottom of j {r : (r - d).nj <= -t_j/2}
+        ci = 0.5 * T[i]
+        cj = _dot(d0, d1, d2, nj0, nj1, nj2) - 0.5 * T[j]
+        # bounding box of the gap: polygon corners lifted to both faces
+        lo0 = lo1 = lo2 = np.inf
+        hi0 = hi1 = hi2 = -np.inf
+        mi = _dot(m0, m1, m2, ni0, ni1, ni2)
+        mj = _dot(m0, m1, m2, nj0, nj1, nj2)
+        for k in range(npoly):
+            base0 = px[k] * u0 + py[k] * v0
+            base1 = px[k] * u1 + py[k] * v1
+            base2 = px[k] * u2 + py[k] * v2
+            zi = (ci - _dot(base0, base1, base2, ni0, ni1, ni2)) / mi
+            zj = (cj - _dot(base0, base1, base2, nj0, nj1, nj2)) / mj
+            for z in (zi, zj):
+                q0 = base0 + z * m0
+                q1 = base1 + z * m1
+                q2 = base2 + z * m2
+                lo0 = min(lo0, q0)
+                lo1 = min(lo1, q1)
+                lo2 = min(lo2, q2)
+                hi0 = max(hi0, q0)
+                hi1 = max(hi1, q1)
+                hi2 = max(hi2, q2)
+        # voxel index ranges (centres inside the box)
+        i0 = int(math.ceil((C[i, 0] + lo0 - org[0]) / sp[0] - 0.5))
+        i1 = int(math.floor((C[i, 0] + hi0 - org[0]) / sp[0] - 0.5))
+        j0 = int(math.ceil((C[i, 1] + lo1 - org[1]) / sp[1] - 0.5))
+        j1 = int(math.floor((C[i, 1] + hi1 - org[1]) / sp[1] - 0.5))
+        k0 = int(math.ceil((C[i, 2] + lo2 - org[2]) / sp[2] - 0.5))
+        k1 = int(math.floor((C[i, 2] + hi2 - org[2]) / sp[2] - 0.5))
+        if not periodic:
+            i0 = max(i0, 0)
+            j0 = max(j0, 0)
+            k0 = max(k0, 0)
+            i1 = min(i1, nx - 1)
+            j1 = min(j1, ny - 1)
+            k1 = min(k1, nz - 1)
+        for ii in range(i0, i1 + 1):
+            r0 = org[0] + (ii + 0.5) * sp[0] - C[i, 0]
+            wi = ii % nx
+            for jj in range(j0, j1 + 1):
+                r1 = org[1] + (jj + 0.5) * sp[1] - C[i, 1]
+                wj = jj % ny
+                for kk in range(k0, k1 + 1):
+                    wk = kk % nz
+                    if labels[wi, wj, wk] != GEL_CODE:
+                        continue
+                    r2 = org[2] + (kk + 0.5) * sp[2] - C[i, 2]
+                    if _dot(r0, r1, r2, ni0, ni1, ni2) < ci:
+                        continue
+                    if _dot(r0, r1, r2, nj0, nj1, nj2) > cj:
+                        continue
+                    x = _dot(r0, r1, r2, u0, u1, u2)
+                    y = _dot(r0, r1, r2, v0, v1, v2)
+                    inside = True
+                    for e in range(npoly):
+                        e1 = e + 1 if e + 1 < npoly else 0
+                        if ((px[e1] - px[e]) * (y - py[e])
+                                - (py[e1] - py[e]) * (x - px[e])) < 0.0:
+                            inside = False
+                            break
+                    if inside:
+                        labels[wi, wj, wk] = INTERLAYER_CODE
 
 
 GEL_CODE = np.uint8(GEL)
@@ -196,11 +196,14 @@ def paint_interlayer(grid: PhaseGrid, structure, stacked_pairs: np.ndarray) -> N
     dom = structure.domain
     periodic = bool(getattr(dom, "periodic", False))
     L = np.asarray(dom.lengths, dtype=np.float64) if periodic else np.ones(3)
-    _paint_gaps(pairs, np.ascontiguousarray(structure.vertices),
-                np.ascontiguousarray(structure.centroids), np.ascontiguousarray(structure.normals),
-                np.ascontiguousarray(structure.thickness), periodic, L,
-                np.asarray(grid.origin, dtype=np.float64), np.asarray(grid.spacing, dtype=np.float64),
-                np.asarray(grid.shape, dtype=np.int64), grid.labels)
+    f64 = np.float64
+    run_chunks(_paint_gaps, len(pairs), pairs,
+               np.ascontiguousarray(structure.vertices, dtype=f64),
+               np.ascontiguousarray(structure.centroids, dtype=f64),
+               np.ascontiguousarray(structure.normals, dtype=f64),
+               np.ascontiguousarray(structure.thickness, dtype=f64), periodic, L,
+               np.asarray(grid.origin, dtype=f64), np.asarray(grid.spacing, dtype=f64),
+               np.asarray(grid.shape, dtype=np.int64), grid.labels)
 
 
 def classify(structure, voxel_size=None, *, graph=None, settings: StackingSettings | None = None,

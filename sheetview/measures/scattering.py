@@ -38,7 +38,7 @@ from ..errors import OptionError
 from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID
 from ..material import Hydrate, interlayer_share
 from ..sld import preset_sld
-from ..threads import budget
+from ..threads import budget, run_chunks
 from ._result import Result
 from ..errors import MemoryLimitError
 from ..grid import phase_code, available_memory
@@ -133,7 +133,7 @@ def _sld_field(labels, sld_by_phase, names):
     if not np.isnan(lut[GEL]):
         extra = np.isnan(lut) & (np.arange(256) > GEL)
         lut[extra] = lut[GEL]
-    counts = _count_codes(labels, max(1, min(labels.shape[0], 8)))
+    counts = _count_codes(labels)
     present = np.flatnonzero(counts)
     missing = [int(c) for c in present if np.isnan(lut[c])]
     if missing:
@@ -142,25 +142,29 @@ def _sld_field(labels, sld_by_phase, names):
     return lut, counts
 
 
-@numba.njit(cache=True, parallel=True)
-def _count_codes(labels, nchunks):
+@numba.njit(cache=True, nogil=True)
+def _count_code_rows(lo, hi, labels):
+    """Voxel count of each label value 0-255 in the planes ``lo <= i < hi``."""
+    nx, ny, nz = labels.shape
+    acc = np.zeros(256, np.int64)
+    for i in range(lo, hi):
+        for j in range(ny):
+            for k in range(nz):
+                acc[labels[i, j, k]] += 1
+    return acc
+
+
+def _count_codes(labels):
     """Voxel count of each label value 0-255."""
-    nx, ny, nz = labels.shape
-    acc = np.zeros((nchunks, 256), np.int64)
-    step = (nx + nchunks - 1) // nchunks
-    for c in numba.prange(nchunks):
-        for i in range(c * step, min(nx, (c + 1) * step)):
-            for j in range(ny):
-                for k in range(nz):
-                    acc[c, labels[i, j, k]] += 1
-    return acc.sum(axis=0)
+    parts = run_chunks(_count_code_rows, labels.shape[0], labels)
+    return np.add.reduce(parts) if parts else np.zeros(256, np.int64)
 
 
-@numba.njit(cache=True, parallel=True)
-def _fill_field(labels, lut, out):
-    """``out[:nx, :ny, :nz] = lut[labels]`` (the rest of ``out`` untouched)."""
+@numba.njit(cache=True, nogil=True)
+def _fill_field(lo, hi, labels, lut, out):
+    """``out[lo:hi, :ny, :nz] = lut[labels[lo:hi]]`` (the rest of ``out`` untouched)."""
     nx, ny, nz = labels.shape
-    for i in numba.prange(nx):
+    for i in range(lo, hi):
         for j in range(ny):
             for k in range(nz):
                 out[i, j, k] = lut[labels[i, j, k]]
@@ -180,19 +184,19 @@ def _mode_axes(shape_full, spacing):
     return qx, qy, qz, w
 
 
-@numba.njit(cache=True, parallel=True)
-def _radial_kernel(F, qx, qy, qz, w, e2, nchunks):
+@numba.njit(cache=True, nogil=True)
+def _radial_kernel(c0, c1, F, qx, qy, qz, w, e2, step, acc):
     """Per-bin weighted mode counts, Σ w|F|², Σ w|q|, Σ w|F|²|q| and Σ w|F|⁴ over the
     modes of a real FFT.
 
     A mode belongs to bin b when ``e[b] <= |q| < e[b+1]`` (compared as squares). Along
     each (i, j) row |q| grows with kz, so the bin index only moves forward: no search or
-    logarithm per mode. Rows are split into ``nchunks`` blocks of i with private sums."""
+    logarithm per mode. Rows are split into blocks of ``step`` values of i with private
+    sums ``acc[c]``; this call fills the blocks ``c0 <= c < c1`` (blocks run on threads,
+    :func:`sheetview.threads.run_chunks`, and are added in block order)."""
     nx, ny, nzr = F.shape
     nb = e2.size - 1
-    acc = np.zeros((nchunks, 5, nb))
-    step = (nx + nchunks - 1) // nchunks
-    for c in numba.prange(nchunks):
+    for c in range(c0, c1):
         for i in range(c * step, min(nx, (c + 1) * step)):
             for j in range(ny):
                 b2 = qx[i] * qx[i] + qy[j] * qy[j]
@@ -213,18 +217,21 @@ def _radial_kernel(F, qx, qy, qz, w, e2, nchunks):
                         acc[c, 2, b] += ww * qq
                         acc[c, 3, b] += p * qq
                         acc[c, 4, b] += p * (v.real * v.real + v.imag * v.imag)
-    out = np.zeros((5, nb))
-    for c in range(nchunks):
-        out += acc[c]
-    return out[0], out[1], out[2], out[3], out[4]
 
 
 def _radial_sums(F, spacing, nz_full, edges):
     """Numba path: see :func:`_radial_kernel`."""
     qx, qy, qz, w = _mode_axes((F.shape[0], F.shape[1], nz_full), spacing)
     e2 = np.asarray(edges, dtype=np.float64) ** 2
-    nchunks = max(1, min(F.shape[0], 4 * numba.get_num_threads()))
-    return _radial_kernel(F, qx, qy, qz, w, e2, nchunks)
+    nchunks = max(1, min(F.shape[0], 4 * budget()))
+    step = (F.shape[0] + nchunks - 1) // nchunks
+    nb = e2.size - 1
+    acc = np.zeros((nchunks, 5, nb))
+    run_chunks(_radial_kernel, nchunks, F, qx, qy, qz, w, e2, step, acc)
+    out = np.zeros((5, nb))
+    for c in range(nchunks):  # in block order, as the parallel kernel did
+        out += acc[c]
+    return out[0], out[1], out[2], out[3], out[4]
 
 
 #: Intensities below this fraction of the mean intensity per Fourier mode are float32
@@ -320,7 +327,7 @@ def scattering_curve(grid, sld_by_phase: dict, *, pad: int = 2, window: str | No
             f"{limit / 2**30:.2f} GiB{hint}; a voxel size of {coarser:.3g} nm would fit",
             field="voxel_size")
     f = np.empty(shape_pad, dtype=np.float32) if pad == 1 else np.zeros(shape_pad, np.float32)
-    _fill_field(labels, lut_c, f)
+    run_chunks(_fill_field, labels.shape[0], labels, lut_c, f)
     notes = []
     if not periodic and window is None:
         faces = [labels[0], labels[-1], labels[:, 0], labels[:, -1], labels[:, :, 0],

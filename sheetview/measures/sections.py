@@ -41,6 +41,8 @@ from ..grid import GEL, INTERLAYER, OUTSIDE, SOLID, PhaseGrid
 from ..grid import PHASE_NAMES as NAME_OF
 from ..particles import ParticleSet
 from ..structure import Structure, SurfaceBody
+from ..threads import budget as thread_budget
+from ..threads import run_chunks
 from ._rays import domain_interval, periodic_images, prism_planes, push, regroup
 
 AXES = {"x": 0, "y": 1, "z": 2}
@@ -514,7 +516,7 @@ def _project_prisms(s: Structure, a, ra, ua, left, top, px, nr, nc, z0, z1):
         idx = np.flatnonzero(keep)
         v, nrm, th, blo, bhi = v[idx], nrm[idx], np.ascontiguousarray(th[idx]), blo[idx], bhi[idx]
         # area-weighted column volumes of every prism, summed per pixel
-        nparts = numba.get_num_threads()
+        nparts = thread_budget()
         if nparts * nr * nc > 2 ** 26 or len(v) < 1000:
             nparts = 1  # per-part accumulators only while they stay small
         _area_columns(np.ascontiguousarray(v), np.ascontiguousarray(nrm), th, a, ra, ua,
@@ -627,23 +629,32 @@ def _clamped_integral(xs, ys, n, h0, gx, gy, lo, hi, bx, by, cx, cy):
     return total
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, nogil=True)
+def _area_columns_parts(q0, q1, v, nrm, th, a, ra, ua, left, top, px, nr, nc, z0, tlo, thi,
+                        acc, nparts):
+    """Parts ``q0 <= q < q1`` of :func:`_area_columns`: prisms ``q n / nparts`` to
+    ``(q + 1) n / nparts`` into their own accumulator ``acc[q]``."""
+    n = v.shape[0]
+    for q in range(q0, q1):
+        _area_columns_range(v, nrm, th, a, ra, ua, left, top, px, nr, nc, z0, tlo, thi,
+                            acc[q], q * n // nparts, (q + 1) * n // nparts)
+
+
 def _area_columns(v, nrm, th, a, ra, ua, left, top, px, nr, nc, z0, tlo, thi, out, nparts):
     """Add to ``out[pixel]`` the volume of each prism inside the pixel's column between
     heights ``z0 + tlo`` and ``z0 + thi`` (per pixel), divided by the pixel area; the
-    prisms in ``nparts`` parallel parts, each with its own accumulator."""
+    prisms in ``nparts`` parts run on threads, each with its own accumulator, added in
+    part order."""
     n = v.shape[0]
     if nparts <= 1:
-        _area_columns_range(v, nrm, th, a, ra, ua, left, top, px, nr, nc, z0, tlo, thi, out,
-                            0, n)
+        _area_columns_parts(0, 1, v, nrm, th, a, ra, ua, left, top, px, nr, nc, z0, tlo, thi,
+                            out.reshape(1, -1), 1)
         return
     acc = np.zeros((nparts, out.shape[0]))
-    for q in numba.prange(nparts):
-        _area_columns_range(v, nrm, th, a, ra, ua, left, top, px, nr, nc, z0, tlo, thi,
-                            acc[q], q * n // nparts, (q + 1) * n // nparts)
+    run_chunks(_area_columns_parts, nparts, v, nrm, th, a, ra, ua, left, top, px, nr, nc, z0,
+               tlo, thi, acc, nparts)
     for q in range(nparts):
-        for i in range(out.shape[0]):
-            out[i] += acc[q, i]
+        out += acc[q]
 
 
 @numba.njit(cache=True)
@@ -799,7 +810,7 @@ def _footprint_intervals(planes, c0, c1, r0, r1, a, ra, ua, left, top, px, nc, z
     out_l = np.empty(1024, np.int64)
     out_s = np.empty(1024)
     out_e = np.empty(1024)
-    no = 0
+    no = np.int64(0)  # not a literal 0: one specialisation of push
     for p in range(planes.shape[0]):
         for r in range(r0[p], r1[p] + 1):
             y = top - (r + 0.5) * px

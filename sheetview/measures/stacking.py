@@ -34,6 +34,7 @@ import numpy as np
 from ..errors import InputError, OptionError
 from ._result import Result
 from .cells import cell_list
+from ..threads import run_chunks
 from ..structure import Structure
 
 #: Default tolerances. See docs/measures.md for the reasoning behind each.
@@ -180,7 +181,7 @@ def clip_polygon_buf(ax, ay, bx, by, buf):
 @numba.njit(cache=True)
 def _ccw(x, y):
     """Make a 2D triangle counter-clockwise in place; return its (positive) area."""
-    a = _shoelace(x, y, 3)
+    a = _shoelace(x, y, np.int64(3))  # not a literal 3: one specialisation
     if a < 0.0:
         tx = x[1]
         ty = y[1]
@@ -234,21 +235,19 @@ def _shares_edge(ax, ay, bx, by, tol):
     return False
 
 
-@numba.njit(cache=True, parallel=True)
-def _classify_pairs(pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol, spacing,
-                    overlap, edge_tol, code, angle):
-    """Classify candidate pairs: 0 none, 1 in-plane, 2 stacked, 3 tilted contact.
+@numba.njit(cache=True, nogil=True)
+def _classify_pairs(lo, hi, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol,
+                    spacing, overlap, edge_tol, code, angle):
+    """Classify the candidate pairs ``lo <= p < hi``: 0 none, 1 in-plane, 2 stacked,
+    3 tilted contact (run over all pairs by :func:`sheetview.threads.run_chunks`).
 
-    Work is split into chunks, each with its own scratch buffers (no allocation per pair).
+    One set of scratch buffers per call (no allocation per pair).
     """
-    npair = pi.shape[0]
-    nchunk = max(1, min(1024, npair // 4096))
-    for ch in numba.prange(nchunk):
-        buf = np.empty((4, 12))
-        tri = np.empty((4, 3))
-        for p in range(ch * npair // nchunk, (ch + 1) * npair // nchunk):
-            _classify_one(p, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol,
-                          spacing, overlap, edge_tol, code, angle, buf, tri)
+    buf = np.empty((4, 12))
+    tri = np.empty((4, 3))
+    for p in range(lo, hi):
+        _classify_one(p, pi, pj, V, C, Nrm, L, periodic, cos_tol, cos_tilt, gap_tol,
+                      spacing, overlap, edge_tol, code, angle, buf, tri)
 
 
 @numba.njit(cache=True)
@@ -421,8 +420,8 @@ def _axis_may_overlap(kind, i, j, V, C, Rad, Area, c, m0, m1, m2, d0, d1, d2, gd
     return 2.0 * w * min(Rad[i], Rad[j]) >= need * (1.0 - 1e-9) - 1e-300
 
 
-@numba.njit(cache=True, parallel=True)
-def _cell_pairs(P, start, cells, ncell, radius, periodic, L, chunk_bounds, offsets, mode,
+@numba.njit(cache=True, nogil=True)
+def _cell_pairs(c0, c1, P, start, cells, ncell, radius, periodic, L, chunk_bounds, offsets, mode,
                 classify, order, V, C, Nrm, Rad, Area, cos_tol, cos_tilt, gap_tol, spacing, overlap, edge_tol,
                 n_cand, n_kept, out_i, out_j, out_code, out_angle):
     """Cell-list pair search over points ``P`` sorted by cell (cells at least ``radius``
@@ -437,11 +436,11 @@ def _cell_pairs(P, start, cells, ncell, radius, periodic, L, chunk_bounds, offse
     False every pair within ``radius`` is kept (plain neighbour search). ``Rad`` is
     each prism's largest centroid-to-corner distance of its mid-plane triangle and
     ``Area`` its area (exact pretests before the overlap test, see
-    :func:`_axis_may_overlap`).
+    :func:`_axis_may_overlap`). Serial over the chunks ``c0 <= ch < c1`` (run over all
+    chunks by :func:`sheetview.threads.run_chunks`; each chunk writes its own outputs).
     """
     r2 = radius * radius
-    nchunk = chunk_bounds.shape[0] - 1
-    for ch in numba.prange(nchunk):
+    for ch in range(c0, c1):
         shift = np.zeros(3)
         buf = np.empty((4, 12))
         tri = np.empty((4, 3))
@@ -559,8 +558,8 @@ def _fused_graph(structure, settings, radius):
     args = (math.cos(math.radians(settings.angle_tol)), math.cos(math.radians(settings.tilt_limit)),
             settings.gap_tol, settings.spacing, settings.overlap, settings.edge_tol)
     zi = np.zeros(0, np.int64)
-    _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, zi, 0, True, order,
-                V, C, Nrm, Rad, Area, *args, n_cand, n_kept, zi, zi, np.zeros(0, np.int8), np.zeros(0))
+    run_chunks(_cell_pairs, k, P, start, cells, ncell, float(radius), periodic, L, bounds, zi, 0, True, order,
+               V, C, Nrm, Rad, Area, *args, n_cand, n_kept, zi, zi, np.zeros(0, np.int8), np.zeros(0))
     offsets = np.zeros(k + 1, np.int64)
     np.cumsum(n_kept, out=offsets[1:])
     m = int(offsets[-1])
@@ -568,8 +567,8 @@ def _fused_graph(structure, settings, radius):
     pj = np.empty(m, np.int64)
     code = np.empty(m, np.int8)
     angle = np.empty(m, np.float64)
-    _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, offsets, 1, True,
-                order, V, C, Nrm, Rad, Area, *args, n_cand, n_kept, pi, pj, code, angle)
+    run_chunks(_cell_pairs, k, P, start, cells, ncell, float(radius), periodic, L, bounds, offsets, 1, True,
+               order, V, C, Nrm, Rad, Area, *args, n_cand, n_kept, pi, pj, code, angle)
     return pi, pj, code, angle, int(n_cand.sum())
 
 
@@ -784,16 +783,16 @@ def candidate_pairs(centroids, radius, domain):
     z = np.zeros((0, 3))
     zi = np.zeros(0, np.int64)
     rest = (z, z, np.zeros(0), np.zeros(0), 1.0, 0.0, 0.0, 1.0, 1.0, 1.0)
-    _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, zi, 0, False, order,
-                np.zeros((0, 3, 3)), *rest, n_cand, n_kept, zi, zi, np.zeros(0, np.int8),
-                np.zeros(0))
+    run_chunks(_cell_pairs, k, P, start, cells, ncell, float(radius), periodic, L, bounds, zi, 0, False, order,
+               np.zeros((0, 3, 3)), *rest, n_cand, n_kept, zi, zi, np.zeros(0, np.int8),
+               np.zeros(0))
     offsets = np.zeros(k + 1, np.int64)
     np.cumsum(n_kept, out=offsets[1:])
     pi = np.empty(int(offsets[-1]), np.int64)
     pj = np.empty(int(offsets[-1]), np.int64)
-    _cell_pairs(P, start, cells, ncell, float(radius), periodic, L, bounds, offsets, 1, False,
-                order, np.zeros((0, 3, 3)), *rest, n_cand, n_kept, pi, pj, np.zeros(0, np.int8),
-                np.zeros(0))
+    run_chunks(_cell_pairs, k, P, start, cells, ncell, float(radius), periodic, L, bounds, offsets, 1, False,
+               order, np.zeros((0, 3, 3)), *rest, n_cand, n_kept, pi, pj, np.zeros(0, np.int8),
+               np.zeros(0))
     return pi, pj
 
 
@@ -870,18 +869,19 @@ def stacking_graph(structure, settings: StackingSettings | None = None) -> Stack
     if fused is not None:
         pi, pj, code, angle, n_cand = fused
     else:
-        C = np.ascontiguousarray(structure.centroids)
+        C = np.ascontiguousarray(structure.centroids, dtype=np.float64)
         pi, pj = _candidate_pairs_kdtree(C, radius, structure.domain)
         n_cand = int(pi.shape[0])
         periodic, L = _box_lengths(structure.domain)
         code = np.empty(pi.shape[0], np.int8)
         angle = np.empty(pi.shape[0], np.float64)
-        _classify_pairs(pi, pj, np.ascontiguousarray(structure.vertices), C,
-                        np.ascontiguousarray(structure.normals), L, periodic,
-                        math.cos(math.radians(settings.angle_tol)),
-                        math.cos(math.radians(settings.tilt_limit)),
-                        settings.gap_tol, settings.spacing, settings.overlap, settings.edge_tol,
-                        code, angle)
+        run_chunks(_classify_pairs, len(pi), pi, pj,
+                   np.ascontiguousarray(structure.vertices, dtype=np.float64), C,
+                   np.ascontiguousarray(structure.normals, dtype=np.float64), L, periodic,
+                   math.cos(math.radians(settings.angle_tol)),
+                   math.cos(math.radians(settings.tilt_limit)),
+                   float(settings.gap_tol), float(settings.spacing), float(settings.overlap),
+                   float(settings.edge_tol), code, angle)
 
     def pick(c):
         k = np.flatnonzero(code == c)

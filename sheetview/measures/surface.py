@@ -34,6 +34,7 @@ import numpy as np
 from ..errors import OptionError
 from ..grid import OUTSIDE, SOLID, PhaseGrid
 from ..material import MASS_BASIS, Hydrate, MaterialSplit, interlayer_share
+from ..threads import run_chunks
 from ._result import Result
 
 # cell vertex k = (bit0 -> x, bit1 -> y, bit2 -> z)
@@ -54,33 +55,33 @@ def _as_mask(x) -> np.ndarray:
     return m.astype(bool, copy=False)
 
 
-@numba.njit(cache=True, parallel=True)
-def _config_hist_kernel(m, periodic):
-    """2x2x2 configuration histogram; cells start at -1 (padding) unless periodic."""
+@numba.njit(cache=True, nogil=True)
+def _config_hist_kernel(lo, hi, m, periodic):
+    """2x2x2 configuration histogram of the cells ``lo <= ci < hi`` along x; cells start
+    at -1 (padding) unless periodic. The histograms of disjoint ranges add up
+    (:func:`sheetview.threads.run_chunks`)."""
     nx, ny, nz = m.shape
     off = 0 if periodic else 1
-    cx, cy, cz = nx + 1 - periodic, ny + 1 - periodic, nz + 1 - periodic
-    nchunk = min(cx, 64)
-    hist = np.zeros((nchunk, 256), np.int64)
-    for ch in numba.prange(nchunk):
-        for ci in range(ch * cx // nchunk, (ch + 1) * cx // nchunk):
-            for cj in range(cy):
-                for ck in range(cz):
-                    code = 0
-                    for v in range(8):
-                        i = ci - off + (v & 1)
-                        j = cj - off + ((v >> 1) & 1)
-                        k = ck - off + ((v >> 2) & 1)
-                        if periodic:
-                            i %= nx
-                            j %= ny
-                            k %= nz
-                        elif i < 0 or j < 0 or k < 0 or i >= nx or j >= ny or k >= nz:
-                            continue
-                        if m[i, j, k]:
-                            code |= 1 << v
-                    hist[ch, code] += 1
-    return hist.sum(axis=0)
+    cy, cz = ny + 1 - periodic, nz + 1 - periodic
+    hist = np.zeros(256, np.int64)
+    for ci in range(lo, hi):
+        for cj in range(cy):
+            for ck in range(cz):
+                code = 0
+                for v in range(8):
+                    i = ci - off + (v & 1)
+                    j = cj - off + ((v >> 1) & 1)
+                    k = ck - off + ((v >> 2) & 1)
+                    if periodic:
+                        i %= nx
+                        j %= ny
+                        k %= nz
+                    elif i < 0 or j < 0 or k < 0 or i >= nx or j >= ny or k >= nz:
+                        continue
+                    if m[i, j, k]:
+                        code |= 1 << v
+                hist[code] += 1
+    return hist
 
 
 def configuration_histogram(mask, periodic: bool = False) -> np.ndarray:
@@ -92,7 +93,9 @@ def configuration_histogram(mask, periodic: bool = False) -> np.ndarray:
     periodic volumes wrap around, giving one cell per voxel.
     """
     m = np.ascontiguousarray(_as_mask(mask))
-    return _config_hist_kernel(m, bool(periodic))
+    periodic = bool(periodic)
+    parts = run_chunks(_config_hist_kernel, m.shape[0] + 1 - periodic, m, periodic)
+    return np.add.reduce(parts) if parts else np.zeros(256, np.int64)
 
 
 def _configuration_histogram_numpy(mask, periodic: bool = False) -> np.ndarray:
@@ -400,35 +403,34 @@ def interface_area(grid: PhaseGrid, a, b) -> float:
     return float(sum(interface_areas_with(grid, int(c))[cb].sum() for c in ca))
 
 
-@numba.njit(cache=True, parallel=True)
-def _pair_table_kernel(lab, a, dirs, periodic):
-    """table[L, q] = #{x : one of x, x + d_q has label a and the other label L != a}."""
+@numba.njit(cache=True, nogil=True)
+def _pair_table_kernel(lo, hi, lab, a, dirs, periodic):
+    """table[L, q] = #{x : one of x, x + d_q has label a and the other label L != a}, over
+    the voxels ``lo <= i < hi`` along x (tables of disjoint ranges add up)."""
     nx, ny, nz = lab.shape
     nd = dirs.shape[0]
-    nchunk = min(nx, 64)
-    out = np.zeros((nchunk, 256, nd), np.int64)
-    for ch in numba.prange(nchunk):
-        for i in range(ch * nx // nchunk, (ch + 1) * nx // nchunk):
-            for j in range(ny):
-                for k in range(nz):
-                    la = lab[i, j, k]
-                    for q in range(nd):
-                        i2 = i + dirs[q, 0]
-                        j2 = j + dirs[q, 1]
-                        k2 = k + dirs[q, 2]
-                        if periodic:
-                            i2 %= nx
-                            j2 %= ny
-                            k2 %= nz
-                        elif i2 < 0 or j2 < 0 or k2 < 0 or i2 >= nx or j2 >= ny or k2 >= nz:
-                            continue
-                        lb = lab[i2, j2, k2]
-                        if la == a:
-                            if lb != a:
-                                out[ch, lb, q] += 1
-                        elif lb == a:
-                            out[ch, la, q] += 1
-    return out.sum(axis=0)
+    out = np.zeros((256, nd), np.int64)
+    for i in range(lo, hi):
+        for j in range(ny):
+            for k in range(nz):
+                la = lab[i, j, k]
+                for q in range(nd):
+                    i2 = i + dirs[q, 0]
+                    j2 = j + dirs[q, 1]
+                    k2 = k + dirs[q, 2]
+                    if periodic:
+                        i2 %= nx
+                        j2 %= ny
+                        k2 %= nz
+                    elif i2 < 0 or j2 < 0 or k2 < 0 or i2 >= nx or j2 >= ny or k2 >= nz:
+                        continue
+                    lb = lab[i2, j2, k2]
+                    if la == a:
+                        if lb != a:
+                            out[lb, q] += 1
+                    elif lb == a:
+                        out[la, q] += 1
+    return out
 
 
 def interface_areas_with(grid: PhaseGrid, a: int) -> np.ndarray:
@@ -436,8 +438,10 @@ def interface_areas_with(grid: PhaseGrid, a: int) -> np.ndarray:
     array indexed by L, from one pass over the grid (the same Crofton sum as
     :func:`interface_area`, which it equals for ``interface_area(grid, [a], [L])``)."""
     _check_grid(grid)
-    table = _pair_table_kernel(np.ascontiguousarray(grid.labels), np.uint8(a),
-                               np.asarray(DIRECTIONS_13, dtype=np.int64), bool(grid.periodic))
+    lab = np.ascontiguousarray(grid.labels, dtype=np.uint8)
+    parts = run_chunks(_pair_table_kernel, lab.shape[0], lab, np.uint8(a),
+                       np.ascontiguousarray(DIRECTIONS_13, dtype=np.int64), bool(grid.periodic))
+    table = np.add.reduce(parts) if parts else np.zeros((256, len(DIRECTIONS_13)), np.int64)
     vec, w = direction_weights(grid.spacing)
     f = 2.0 * w * grid.voxel_volume / np.linalg.norm(vec, axis=1)
     return table @ f
