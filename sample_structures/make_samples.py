@@ -108,8 +108,10 @@ def voxelize(structure, shape: int, voxel: float) -> np.ndarray:
 
 def make_small_volume_tif(path: Path, force: bool) -> float:
     """A 64^3 two-phase uint8 TIFF (0 = gel pore, 1 = solid), voxel 0.5 nm, from an
-    isotropic packing in a 32 nm box. Pages along z (array stored z, y, x), ImageJ
-    metadata ``unit = nm``, ``spacing`` = z voxel size, X/Y resolution 2 pixels per nm.
+    isotropic packing in a 32 nm box. Pages along z (array stored z, y, x), written in the
+    widely used hyperstack convention that other programs write (description keys
+    ``unit = nm``, ``spacing`` = z voxel size, X/Y resolution 2 pixels per nm): the sample
+    of a volume made elsewhere.
     Returns the solid fraction."""
     import tifffile
 

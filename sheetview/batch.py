@@ -37,12 +37,15 @@ import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .app.document import file_document, file_sha256, flatten
+from ._version import __version__
+from .app.document import file_document, file_sha256, flatten, provenance
 from .app.load import at_moment, load
+from .app.applies import check_settings
 from .app.registry import check_inputs, parse_only, select
 from .app.run import Run
-from .app.settings import Settings
+from .app.settings import Settings, fields_info
 from .errors import OptionError, OutputExistsError, SheetviewError
+from .io.columns import unit_of
 from .io.output import atomic_path, json_default
 from .io.safety import check_input_file
 from .measures.kinetics import check_moment
@@ -162,9 +165,11 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         _set_threads(numba_threads)
     try:
         obj, moment = at_moment(load(path, **read_kw), *_moment_args(at))
+        settings = Settings.of(settings)
+        check_settings(obj, settings, path=path)
         selected = select(only or None, obj)
         check_inputs(selected, obj, path)
-        run = Run(obj, Settings.of(settings)).run(selected)
+        run = Run(obj, settings).run(selected)
         doc = file_document(path, run)
         if moment is not None:
             doc["at"] = moment.to_dict()
@@ -183,7 +188,8 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
         t2 = time.perf_counter()
         return {"status": "ok", "error": None, "seconds": t1 - t0, "write_seconds": t2 - t1}
     except SheetviewError as e:
-        msg = str(e) if e.path else f"{path}: {e}"
+        text = e.format(_option_style)
+        msg = text if e.path else f"{path}: {text}"
     except MemoryError:
         msg = f"{path}: out of memory; use a coarser voxel or a lower max_memory"
     except Exception as e:  # a bug: record it and let the batch go on
@@ -191,6 +197,12 @@ def measure_one(path, out_folder, settings: dict, read_kw: dict, only=None, plot
                + "".join(traceback.format_exception(e)[-3:]))
     return {"status": "failed", "error": msg, "seconds": time.perf_counter() - t0,
             "write_seconds": 0.0}
+
+
+def _option_style(param: str) -> str:
+    """A parameter as the batch command's option (``max_memory`` -> ``--max-memory``)."""
+    return {"voxel_size": "--volume-voxel", "spacing": "--repeat"}.get(
+        param, "--" + param.rstrip("_").replace("_", "-"))
 
 
 def _moment_args(at: dict | None) -> tuple:
@@ -820,7 +832,8 @@ def row_of(rec: dict, doc: dict | None) -> dict:
     row = {"input": rec["path"], "status": "failed" if rec["status"] == "failed" else "ok",
            "error": rec["error"] or "", "result": f"runs/{rec['name']}" if doc else ""}
     if doc:
-        flat = flatten({k: v for k, v in doc.items() if k not in ("timings_s", "note", "file")})
+        flat = flatten({k: v for k, v in doc.items()
+                        if k not in ("timings_s", "note", "file", "provenance")})
         row.update(flat)
     return row
 
@@ -866,6 +879,23 @@ def _arrow_table(cols):
     return pa.table(arrays)
 
 
+def parquet_metadata(names) -> dict:
+    """The ``sheetview`` key of summary.parquet's schema metadata: the ``units`` of the
+    columns that have one (from their names, :func:`sheetview.io.columns.unit_of`), the
+    sheetview version and the provenance of the batch run (time, command line, library
+    versions)."""
+    setting_units = {name: meta.get("unit") for name, _, meta in fields_info()}
+    units = {}
+    for n in names:
+        parts = n.split(".")
+        u = (setting_units.get(parts[-1]) if len(parts) > 1 and parts[-2] == "settings"
+             else None) or unit_of(n)
+        if u:
+            units[n] = u
+    return {"sheetview_version": __version__, "units": units, "provenance": provenance(),
+            "note": "columns without a unit are counts, fractions, ratios or text"}
+
+
 def write_tables(out, records) -> tuple[Path, Path]:
     """Write ``summary.csv`` and ``summary.parquet`` (one row per input), atomically."""
     import csv
@@ -881,8 +911,11 @@ def write_tables(out, records) -> tuple[Path, Path]:
             w.writerow(names)
             for i in range(n):
                 w.writerow([_csv_cell(cols[k][i]) for k in names])
+    table = _arrow_table(cols)
+    table = table.replace_schema_metadata({**(table.schema.metadata or {}),
+                                           b"sheetview": json.dumps(parquet_metadata(names))})
     with atomic_path(out / "summary.parquet", force=True) as tmp:
-        pq.write_table(_arrow_table(cols), tmp)
+        pq.write_table(table, tmp)
     return out / "summary.csv", out / "summary.parquet"
 
 

@@ -10,7 +10,12 @@ status 2.
 """
 from __future__ import annotations
 
+import re
 from pathlib import Path
+
+#: A parameter named inside a message: ``<<voxel>>`` (shown as ``--voxel`` on the command
+#: line, ``voxel`` in Python).
+_REF = re.compile(r"<<([A-Za-z_][A-Za-z0-9_]*)>>")
 
 
 class SheetviewError(Exception):
@@ -39,7 +44,9 @@ class SheetviewError(Exception):
 
     def format(self, name_of=None) -> str:
         """The one-line message; ``name_of(param)`` gives the name the parameter is shown
-        by (the command line passes its option names), default the parameter itself."""
+        by (the command line passes its option names), default the parameter itself.
+        Other parameters the message speaks of are written ``<<name>>`` in it and shown
+        the same way."""
         where = []
         if self.path is not None:
             where.append(self.path)
@@ -47,9 +54,10 @@ class SheetviewError(Exception):
             where.append(f"line {self.line}")
         if self.field is not None:
             where.append(f"field '{self.field}'")
-        text = self.detail
+        show = name_of if name_of is not None else (lambda p: p)
+        text = _REF.sub(lambda m: show(m.group(1)) or m.group(1), self.detail)
         if self.param is not None:
-            shown = name_of(self.param) if name_of is not None else self.param
+            shown = show(self.param)
             if shown and not text.startswith((f"{shown}:", f"{shown} ")):
                 text = f"{shown}: {text}"
         prefix = ", ".join(where)

@@ -47,7 +47,8 @@ import numpy as np
 
 from .errors import OutputExistsError, SheetviewError
 from .figures import FIGURES, plot_sections
-from .io.output import atomic_path
+from .io.output import atomic_path, user_mode
+from .io.columns import with_units
 from .app.document import dumps
 from .app.sidebyside import CURVES
 from .overlay import plot_side_by_side
@@ -189,6 +190,7 @@ def atomic_folder(outdir, force: bool = False, kind: str = "report", protect=())
     try:
         tmp = Path(tempfile.mkdtemp(prefix=f".{final.name}.{os.getpid()}.", suffix=".part",
                                     dir=parent))
+        os.chmod(tmp, user_mode(folder=True))  # mkdtemp makes 0700; give the usual mode
     except OSError as e:
         raise SheetviewError(f"cannot write beside the output folder ({e.strerror})",
                              path=final) from None
@@ -286,7 +288,7 @@ def _move_into_place(tmp: Path, final: Path, kind: str = "report", protect=()) -
 def _write_all(out: Path, doc, results, plots, grid) -> list[str]:
     written = [write_json(out / "summary.json", doc)]
     for name, table in collect_tables(results).items():
-        written.append(write_csv(out / f"{name}.csv", table))
+        written.append(write_csv(out / f"{name}.csv", with_units(name, table)))
     if plots:
         written.extend(_write_figures(out, results, grid))
     return [Path(p).name for p in written]

@@ -1005,17 +1005,17 @@ def slice_plane(domain, *, axis=None, at=None, normal=None, origin=None):
     lo, hi = (np.asarray(b, float) for b in domain.bounds)
     centre = 0.5 * (lo + hi)
     if axis is not None and normal is not None:
-        raise OptionError("give the plane either by --slice-axis/--slice-at or by "
-                          "--slice-normal/--slice-origin, not both", param="slice")
+        raise OptionError("give the plane either by <<axis>>/<<at>> or by <<normal>>/<<origin>>, "
+                          "not both", param="normal")
     if axis is None and normal is None:
         if at is not None or origin is not None:
-            raise OptionError("--slice-at needs --slice-axis and --slice-origin needs "
-                              "--slice-normal", param="slice")
+            raise OptionError("<<at>> needs <<axis>> and <<origin>> needs <<normal>>",
+                              param="at" if at is not None else "origin")
         return None
     if axis is not None:
         if origin is not None:
-            raise OptionError("--slice-origin goes with --slice-normal; with --slice-axis "
-                              "give the position by --slice-at", param="slice")
+            raise OptionError("<<origin>> goes with <<normal>>; with <<axis>> give the position "
+                              "by <<at>>", param="origin")
         a = "xyz".index(str(axis).lower())
         n = np.zeros(3)
         n[a] = 1.0
@@ -1024,10 +1024,10 @@ def slice_plane(domain, *, axis=None, at=None, normal=None, origin=None):
             o[a] = float(at)
         return o, n
     if at is not None:
-        raise OptionError("--slice-at goes with --slice-axis; with --slice-normal give "
-                          "--slice-origin", param="slice")
-    n = parse_vector(normal, "--slice-normal")
-    o = centre if origin is None else parse_vector(origin, "--slice-origin")
+        raise OptionError("<<at>> goes with <<axis>>; with <<normal>> give <<origin>>",
+                          param="at")
+    n = parse_vector(normal, "<<normal>>")
+    o = centre if origin is None else parse_vector(origin, "<<origin>>")
     return o, plane_basis(n)[0]
 
 

@@ -29,7 +29,7 @@ def measured():
 
 def test_summary_equals_the_cli_document(measured, tmp_path):
     """`.summary()` is `summary.json` of `sheetview measure` with the same settings, less the
-    file's provenance (file, input_sha256) and the run-specific timings."""
+    file's provenance (file, input_sha256, provenance) and the run-specific timings."""
     out = tmp_path / "rep"
     r = CliRunner().invoke(main, ["measure", str(SAMPLE), "--voxel", "0.25", "--lines", "1500",
                                   "-o", str(out), "-q"])
@@ -37,7 +37,7 @@ def test_summary_equals_the_cli_document(measured, tmp_path):
     cli = json.loads((out / "summary.json").read_text())
     mine = json.loads(json.dumps(measured.summary(), default=float))
     for d in (cli, mine):
-        for k in ("file", "input_sha256", "timings_s"):
+        for k in ("file", "input_sha256", "timings_s", "provenance"):
             d.pop(k, None)
     from sheetview.app.document import dumps
     assert json.loads(dumps(mine)) == cli

@@ -94,8 +94,10 @@ def test_bad_input_exits_2_without_traceback(tmp_path, content):
 
 
 def test_option_that_does_not_apply(tmp_path, sample_csv):
-    r = CliRunner().invoke(main, ["info", str(sample_csv), "--voxel-size", "1"])
-    assert r.exit_code == 2 and "do(es) not apply to prisms files" in r.output
+    r = CliRunner().invoke(main, ["info", str(sample_csv), "--volume-voxel", "1"])
+    assert r.exit_code == 2
+    assert "--volume-voxel does not apply to a prism table; it applies to voxel volumes" in r.output
+    assert "made at --voxel" in r.output
 
 
 def test_thickness_option_fills_a_plain_csv(tmp_path):
@@ -106,4 +108,4 @@ def test_thickness_option_fills_a_plain_csv(tmp_path):
     r = CliRunner().invoke(main, ["info", str(p), "--thickness", "0.5", "--json"])
     assert json.loads(r.stdout)["thickness_nm"]["mean"] == 0.5
     r = CliRunner().invoke(main, ["info", str(p), "--thickness", "-1"])
-    assert r.exit_code == 2 and "--thickness must be a positive" in r.output
+    assert r.exit_code == 2 and "--thickness: must be a positive" in r.output

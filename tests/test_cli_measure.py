@@ -117,7 +117,7 @@ def test_volume_input_refused(tmp_path):
     pytest.importorskip("sheetview.io.volumes")
     p = tmp_path / "v.npy"
     np.save(p, np.zeros((4, 4, 4), np.uint8))
-    r = run(p, "--voxel-size", "1", "--phases", "0=gel", "--only", "stacking")
+    r = run(p, "--volume-voxel", "1", "--phases", "0=gel", "--only", "stacking")
     assert r.exit_code == 2 and "need prisms" in r.output
 
 

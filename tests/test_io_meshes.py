@@ -159,7 +159,7 @@ def _expect(path, *words, **opts):
 def test_open_surface_without_thickness_asks_for_it(tmp_path):
     p = tmp_path / "plane.obj"
     trimesh.Trimesh([[0, 0, 0], [1, 0, 0], [0, 1, 0]], [[0, 1, 2]], process=False).export(p)
-    _expect(p, "--thickness")
+    _expect(p, "thickness (nm)")
 
 
 def test_solid_forced_on_open_surface(tmp_path):
@@ -235,7 +235,10 @@ def test_prism_vtp_content_and_volume(tmp_path):
         tm = trimesh.Trimesh(tri.points, tri.regular_faces, process=True)
         assert tm.is_watertight
         assert tm.volume == pytest.approx(s.total_volume, rel=1e-9)
-        body = sv.read(p)
+        again = sv.read(p)  # sheetview's own file: the same prisms, not a solid body
+        assert isinstance(again, sv.Structure)
+        np.testing.assert_allclose(again.vertices, s.vertices, atol=1e-12)
+        body = sv.read(p, as_="solid")
         assert isinstance(body, SurfaceBody)
         assert body.volume == pytest.approx(s.total_volume, rel=1e-9)
     with pytest.raises(OutputExistsError):
@@ -335,9 +338,11 @@ def test_prism_vtk_gives_back_domain_spacing_and_metadata(tmp_path, domain):
     for suffix in (".vtp", ".vtk"):
         p = tmp_path / f"prisms{suffix}"
         sv.write(s, p)
-        raw = json.loads(str(np.asarray(pv.read(p).field_data["sheetview"]).ravel()[0]))
+        fd = np.asarray(pv.read(p).field_data["sheetview"])  # the header's UTF-8 bytes
+        raw = json.loads(fd.astype(np.uint8).tobytes().decode("utf-8"))
         assert raw["format"] == "sheetview mesh v1" and raw["domain"] == domain.to_dict()
-        body = sv.read(p)
+        assert raw["content"] == "prisms"
+        body = sv.read(p, as_="solid")
         assert isinstance(body, SurfaceBody)
         assert body.domain == domain and not body.domain.inferred
         assert {k: body.metadata[k] for k in s.metadata} == s.metadata

@@ -5,6 +5,8 @@ pyvista/VTK (Sullivan & Kaszynski, JOSS 4 (2019) 1450, doi:10.21105/joss.01450) 
 the foreign files that sheetview must read; NumPy's ``np.load`` reads what sheetview
 writes.
 """
+import json
+
 import numpy as np
 import pytest
 import pyvista as pv
@@ -70,8 +72,10 @@ def test_written_files_are_plain_for_other_readers(tmp_path, grid):
     zyx = tifffile.imread(tmp_path / "g.tif")
     np.testing.assert_array_equal(zyx, grid.labels.transpose(2, 1, 0))
     with tifffile.TiffFile(tmp_path / "g.tif") as t:
-        assert t.imagej_metadata["unit"] == "nm"
-        assert t.imagej_metadata["spacing"] == pytest.approx(0.53)
+        desc = json.loads(t.pages[0].description)
+        assert desc["unit"] == "nm" and desc["spacing"][2] == pytest.approx(0.53)
+        x = t.pages[0].tags["XResolution"].value  # pixels per cm
+        assert 1e7 * x[1] / x[0] == pytest.approx(grid.spacing[0])
     sv.write(grid, tmp_path / "g.vti")
     img = pv.read(tmp_path / "g.vti")
     np.testing.assert_array_equal(img.cell_data["phase"].reshape(grid.shape, order="F"),
@@ -102,7 +106,7 @@ def test_tiff_without_unit_needs_voxel_size(tmp_path):
                      photometric="minisblack")
     with pytest.raises(InputError) as ei:
         sv.read(p)
-    assert str(p) in str(ei.value) and "--voxel-size" in str(ei.value)
+    assert str(p) in str(ei.value) and "voxel_size" in str(ei.value)
     assert sv.read(p, voxel_size=2.0).spacing == (2.0, 2.0, 2.0)
 
 

@@ -233,29 +233,29 @@ def test_fully_transparent_image_is_refused(tmp_path):
 # ========================================================================== CLI
 
 def test_cli_summary_json_and_quiet(grey_png):
-    r = run("micrograph", grey_png, "--pixel-size", 2, "--lines", 300)
+    r = run("micrograph", grey_png, "--pixel", 2, "--lines", 300)
     assert r.exit_code == 0, r.output
     assert "solid area" in r.output and "chords" in r.output and "orientation" in r.output
-    r = run("micrograph", grey_png, "--pixel-size", 2, "--lines", 300, "--json")
+    r = run("micrograph", grey_png, "--pixel", 2, "--lines", 300, "--json")
     assert r.exit_code == 0
     doc = json.loads(r.stdout)
     assert doc["image"]["pixel_nm"] == 2.0 and doc["settings"] == {"lines": 300, "seed": 0}
     d = doc["descriptors"]
     assert 0 < d["area_fraction"] < 1 and d["mean_chord_solid_nm"] > 0
     assert d["chords"]["n_lines"]["random"] == 300
-    r = run("micrograph", grey_png, "--pixel-size", 2, "--lines", 300, "-q")
+    r = run("micrograph", grey_png, "--pixel", 2, "--lines", 300, "-q")
     assert r.exit_code == 0 and r.stdout == ""
 
 
 def test_cli_writes_the_folder_atomically(grey_png, tmp_path):
     out = tmp_path / "res"
-    r = run("micrograph", grey_png, "--pixel-size", 2, "--lines", 200, "-o", out, "--seed", 7)
+    r = run("micrograph", grey_png, "--pixel", 2, "--lines", 200, "-o", out, "--seed", 7)
     assert r.exit_code == 0, r.output
     names = {p.name for p in out.iterdir()}
     assert names == {"descriptors.json", "chords.csv", "thickness.csv", "s2.csv",
                      "orientation.csv", "overview.png", ".sheetview-files"}
     doc = json.loads((out / "descriptors.json").read_text())
-    again = json.loads(run("micrograph", grey_png, "--pixel-size", 2, "--lines", 200,
+    again = json.loads(run("micrograph", grey_png, "--pixel", 2, "--lines", 200,
                            "--seed", 7, "--json").stdout)
     assert doc == again
     assert (out / "chords.csv").read_text().splitlines()[0] == \
@@ -266,11 +266,11 @@ def test_cli_writes_the_folder_atomically(grey_png, tmp_path):
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".res")]
     # an existing folder is refused without --force, its files untouched
     before = (out / "descriptors.json").read_bytes()
-    r = run("micrograph", grey_png, "--pixel-size", 3, "--lines", 200, "-o", out)
+    r = run("micrograph", grey_png, "--pixel", 3, "--lines", 200, "-o", out)
     assert r.exit_code == 2 and "--force" in r.output and str(out) in r.output
     assert "Traceback" not in r.output
     assert (out / "descriptors.json").read_bytes() == before
-    r = run("micrograph", grey_png, "--pixel-size", 3, "--lines", 200, "-o", out, "--force")
+    r = run("micrograph", grey_png, "--pixel", 3, "--lines", 200, "-o", out, "--force")
     assert r.exit_code == 0
     assert json.loads((out / "descriptors.json").read_text())["image"]["pixel_nm"] == 3.0
 
@@ -282,19 +282,19 @@ def test_cli_failure_while_writing_leaves_nothing(grey_png, tmp_path, monkeypatc
         raise RuntimeError("disk on fire")
 
     monkeypatch.setattr(cm, "overview_figure", boom)
-    r = run("micrograph", grey_png, "--pixel-size", 2, "--lines", 100, "-o", tmp_path / "o")
+    r = run("micrograph", grey_png, "--pixel", 2, "--lines", 100, "-o", tmp_path / "o")
     assert r.exit_code != 0
     assert sorted(p.name for p in tmp_path.iterdir()) == ["grey.png"]
 
 
 @pytest.mark.parametrize("args, fragment", [
-    ((), "--pixel-size"),
-    (("--pixel-size", "-1"), "positive"),
-    (("--pixel-size", "nan"), "positive"),
-    (("--pixel-size", "5e7"), "not a micrograph"),
-    (("--pixel-size", "1", "--threshold", "mid"), "--threshold"),
-    (("--pixel-size", "1", "--threshold", "9999"), "one phase"),
-    (("--pixel-size", "1", "--lines", "0"), "--lines"),
+    ((), "--pixel"),
+    (("--pixel", "-1"), "positive"),
+    (("--pixel", "nan"), "positive"),
+    (("--pixel", "5e7"), "not a micrograph"),
+    (("--pixel", "1", "--threshold", "mid"), "--threshold"),
+    (("--pixel", "1", "--threshold", "9999"), "one phase"),
+    (("--pixel", "1", "--lines", "0"), "--lines"),
 ])
 def test_cli_bad_options_exit_2(grey_png, args, fragment):
     r = run("micrograph", grey_png, *args)
@@ -306,6 +306,6 @@ def test_cli_bad_files_exit_2_naming_the_file(tmp_path, grey_png):
     _truncate(grey_png, tmp_path / "broken.png")
     Image.fromarray(np.zeros((8, 100), np.uint8)).save(tmp_path / "thin.png")
     for name in ("broken.png", "thin.png", "absent.tif"):
-        r = run("micrograph", tmp_path / name, "--pixel-size", 1)
+        r = run("micrograph", tmp_path / name, "--pixel", 1)
         assert r.exit_code == 2 and name in r.output and "Traceback" not in r.output
         assert r.output.startswith("sheetview: error:")

@@ -50,9 +50,9 @@ def test_project_data_tiff_is_read_as_written(grown, tmp_path):
     Otsu's threshold (scikit-image) applied to the intensity page read with tifffile."""
     from skimage.filters import threshold_otsu
 
-    stem = tmp_path / "tem"
+    stem = tmp_path / "tem" / "projection"  # -o FOLDER writes projection*.{png,tif}
     r = run("project", grown, "--slab", "4", "--pixel", "0.1", "--describe", "--lines", "300",
-            "--json", "-o", stem)
+            "--json", "-o", stem.parent)
     assert r.exit_code == 0, r.output
     proj = json.loads(r.stdout)
     r = run("micrograph", f"{stem}_data.tif", "--json", "--lines", "300")
@@ -75,8 +75,8 @@ def test_section_data_tiff_reads_solid_and_interlayer_as_solid(grown, tmp_path):
     """section -o writes the phase codes; micrograph reads solid and interlayer as solid and
     leaves the outside of the domain out, so its area fraction is the section's solid +
     interlayer fraction (the numbers the section command prints)."""
-    stem = tmp_path / "cut"
-    r = run("section", grown, "--voxel", "0.2", "--json", "-o", stem)
+    stem = tmp_path / "cut" / "section"  # -o FOLDER writes section*.{png,tif}
+    r = run("section", grown, "--voxel", "0.2", "--json", "-o", stem.parent)
     assert r.exit_code == 0, r.output
     sec = json.loads(r.stdout)
     mg = read_micrograph(f"{stem}_data.tif")
@@ -92,8 +92,8 @@ def test_section_data_tiff_reads_solid_and_interlayer_as_solid(grown, tmp_path):
 def test_project_picture_png_reads_its_data_rows_and_warns(grown, tmp_path):
     """The PNG picture: only the rows above the scale-bar strip are read, its pixel is the
     data pixel over the enlargement, and a warning says the picture is enlarged."""
-    stem = tmp_path / "tem"
-    r = run("project", grown, "--slab", "4", "--pixel", "0.1", "-o", stem, "-q")
+    stem = tmp_path / "tem" / "projection"
+    r = run("project", grown, "--slab", "4", "--pixel", "0.1", "-o", stem.parent, "-q")
     assert r.exit_code == 0, r.output
     with Image.open(f"{stem}.png") as im:
         desc = json.loads(im.info["Description"])
@@ -151,7 +151,7 @@ def test_crop_measures_the_rectangle(tmp_path):
     mg = read_micrograph(p, pixel_size=1.0, crop="10,20,110,90")
     assert mg.shape == (70, 100) and mg.crop == (10, 20, 110, 90)
     np.testing.assert_array_equal(mg.grey, np.asarray(Image.open(p), float)[20:90, 10:110])
-    r = run("micrograph", p, "--pixel-size", "1", "--crop", "10,20,110,90", "--json")
+    r = run("micrograph", p, "--pixel", "1", "--crop", "10,20,110,90", "--json")
     assert r.exit_code == 0, r.output
     assert json.loads(r.stdout)["image"]["crop_px"] == [10, 20, 110, 90]
     # beyond the edge: cut to the image and warned
@@ -167,7 +167,7 @@ def test_bad_crops_are_refused(tmp_path, crop, needle):
     p = _save(tmp_path / "g.png", grey_texture((64, 64)))
     with pytest.raises(OptionError, match=needle):
         read_micrograph(p, pixel_size=1.0, crop=crop)
-    r = run("micrograph", p, "--pixel-size", "1", "--crop", crop)
+    r = run("micrograph", p, "--pixel", "1", "--crop", crop)
     assert r.exit_code == 2 and "--crop" in r.output
 
 

@@ -308,5 +308,5 @@ def test_kernel_in_bounds_and_same_voxels_as_numpy(periodic):
 
 def test_sheet_options_refused_for_solid_particles(tmp_path):
     p = _csv(tmp_path, "x,y,z,radius\n0,0,0,1\n")
-    with pytest.raises(OptionError, match="not to a table of spheres"):
+    with pytest.raises(OptionError, match="does not apply to a table of spheres"):
         sv.read(p, thickness=0.5)

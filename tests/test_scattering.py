@@ -170,7 +170,7 @@ def test_scatter_cli(tmp_path):
                                   "--probe", "xray", "--slope", "1:5"])
     assert r.exit_code == 0, r.output
     lines = [ln for ln in (tmp_path / "c.csv").read_text().splitlines() if not ln.startswith("#")]
-    assert lines[0] == "q_nm-1,intensity_cm-1"
+    assert lines[0] == "q_nm-1,intensity_cm-1,modes"
     d = json.loads((tmp_path / "c.json").read_text())
     assert d["comparison"]["q_unit"] == "Å^-1"
     assert d["features"]["slope_1-5"]["slope"] < 0

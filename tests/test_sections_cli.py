@@ -27,17 +27,16 @@ def _run(args):
 
 
 def test_section_writes_picture_and_data(born_file, tmp_path):
-    stem = tmp_path / "cut"
-    r = _run(["section", born_file, "--axis", "z", "--offset", "1.5", "--voxel", "0.2", "-o", stem,
-              "--json"])
+    folder = tmp_path / "cut"
+    r = _run(["section", born_file, "--axis", "z", "--voxel", "0.2", "-o", folder, "--json"])
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
     assert doc["pixel_nm"] == pytest.approx(0.2)
     assert set(doc["area_fractions"]) <= {"solid", "interlayer", "gel"}
     assert sum(doc["area_fractions"].values()) == pytest.approx(1.0)
-    for suffix in (".png", ".tif", "_data.tif"):
-        assert (tmp_path / f"cut{suffix}").stat().st_size > 0
-    with tifffile.TiffFile(tmp_path / "cut_data.tif") as tf:
+    for suffix in (".png", ".tif", "_data.tif", ".json"):
+        assert (folder / f"section{suffix}").stat().st_size > 0
+    with tifffile.TiffFile(folder / "section_data.tif") as tf:
         page = tf.pages[0]
         lab = page.asarray()
         xres = page.tags["XResolution"].value
@@ -47,10 +46,10 @@ def test_section_writes_picture_and_data(born_file, tmp_path):
     assert desc["kind"] == "section" and desc["pixel_nm"] == pytest.approx(0.2)
     assert lab.shape == tuple(doc["shape_rows_cols"])
     # existing outputs are refused and left alone
-    before = (tmp_path / "cut.png").read_bytes()
-    r = _run(["section", born_file, "--voxel", "0.2", "-o", stem])
-    assert r.exit_code == 2 and "already exists" in r.output
-    assert (tmp_path / "cut.png").read_bytes() == before
+    before = (folder / "section.png").read_bytes()
+    r = _run(["section", born_file, "--voxel", "0.2", "-o", folder])
+    assert r.exit_code == 2 and "exists" in r.output
+    assert (folder / "section.png").read_bytes() == before
 
 
 def test_project_json_and_files(born_file, tmp_path):
@@ -60,7 +59,7 @@ def test_project_json_and_files(born_file, tmp_path):
     doc = json.loads(r.stdout)
     assert doc["slab_thickness_nm"] == pytest.approx(4.0)
     assert doc["right"] == "y" and doc["up"] == "z"
-    with tifffile.TiffFile(tmp_path / "tem_data.tif") as tf:
+    with tifffile.TiffFile(tmp_path / "tem" / "projection_data.tif") as tf:
         assert len(tf.pages) == 3
         inten = tf.pages[0].asarray()
         thick = tf.pages[1].asarray()
@@ -70,10 +69,14 @@ def test_project_json_and_files(born_file, tmp_path):
 
 @pytest.mark.parametrize("args,needle", [
     (["section", "{f}", "--offset", "50"], "outside the sample"),
+    (["section", "{f}", "--at", "500"], "outside the sample"),
+    (["section", "{f}", "--normal", "1,0,0", "--origin", "500,0,0"], "outside the sample"),
+    (["section", "{f}", "--at", "1", "--offset", "1"], "once"),
     (["section", "{f}", "--normal", "0,0,0"], "non-zero"),
     (["section", "{f}", "--pixel", "-1"], "positive"),
     (["section", "{f}", "--axis", "z", "--normal", "0,0,1"], "not both"),
     (["project", "{f}", "--slab", "2", "--offset", "40"], "misses the sample"),
+    (["project", "{f}", "--slab", "2", "--at", "500"], "misses the sample"),
     (["project", "{f}", "--mfp", "0"], "--mfp"),
     (["project", "{f}", "--pixel", "0.0001"], "largest side"),
     (["project", "{f}", "--threshold", "dark"], "--threshold"),
@@ -198,14 +201,14 @@ def test_project_and_compare_a_voxel_volume(tmp_path):
     doc = json.loads(r.stdout)
     zyx = tf.imread(SAMPLE_TIF)            # pages along z, rows y, columns x; 1 = solid
     expected = (zyx == 1).sum(axis=0)[::-1] * 0.5   # picture rows run down y
-    with tf.TiffFile(tmp_path / "v_data.tif") as t:
+    with tf.TiffFile(tmp_path / "v" / "projection_data.tif") as t:
         thick = t.pages[1].asarray()
     np.testing.assert_allclose(thick, expected, atol=1e-6)
     assert doc["pixel_nm"] == 0.5
     from matplotlib.image import imsave
     m = np.where(np.random.default_rng(0).random((64, 64)) < 0.1, 20, 230).astype(np.uint8)
     imsave(tmp_path / "mg.png", m, cmap="gray", vmin=0, vmax=255)
-    r = _run(["compare", SAMPLE_TIF, tmp_path / "mg.png", "--pixel-size", "0.5", "--count", "2",
+    r = _run(["compare", SAMPLE_TIF, tmp_path / "mg.png", "--pixel", "0.5", "--count", "2",
               "--lines", "200", "--json"])
     assert r.exit_code == 0, r.output
 

@@ -404,7 +404,7 @@ def test_cli_render_and_slices(stack_file, tmp_path):
     r = CliRunner()
     out = tmp_path / "r.png"
     res = r.invoke(g, ["render", str(stack_file), "-o", str(out), "--size", "240x180",
-                       "--slice-axis", "y", "--voxel", "0.15", "--colour-by", "stack",
+                       "--axis", "y", "--voxel", "0.15", "--colour-by", "stack",
                        "--export", str(tmp_path)])
     assert res.exit_code == 0, res.output
     assert imread(str(out)).shape[:2] == (180, 240)
@@ -414,8 +414,8 @@ def test_cli_render_and_slices(stack_file, tmp_path):
     res = r.invoke(g, ["render", str(stack_file), "-o", str(tmp_path / "x.png"), "--size", "big"])
     assert res.exit_code == 2 and "WIDTHxHEIGHT" in res.output
     res = r.invoke(g, ["render", str(stack_file), "-o", str(tmp_path / "y.png"),
-                       "--slice-at", "3"])
-    assert res.exit_code == 2 and "--slice-axis" in res.output
+                       "--at", "3"])
+    assert res.exit_code == 2 and "--at needs --axis" in res.output
     sheet = tmp_path / "s.png"
     res = r.invoke(g, ["slices", str(stack_file), "-o", str(sheet), "--axis", "x",
                        "--count", "4", "--voxel", "0.15"])

@@ -51,9 +51,38 @@ def file_sha256(path) -> str:
 def file_document(path, run, *, timings: bool = True) -> dict:
     """:func:`document` with the input file's provenance in front (``file``,
     ``input_sha256``): what ``summary.json`` holds."""
-    doc = {"sheetview_version": __version__, "file": str(path), "input_sha256": file_sha256(path)}
+    doc = {"sheetview_version": __version__, "file": str(path), "input_sha256": file_sha256(path),
+           "provenance": provenance()}
     doc.update(document(run, timings=timings))
     return doc
+
+
+#: The libraries whose versions a summary records (those installed).
+LIBRARIES = ("numpy", "scipy", "numba", "scikit-image", "trimesh", "pyarrow", "tifffile",
+             "meshio", "pyvista", "vtk", "matplotlib", "click", "h5py", "manifold3d", "shapely",
+             "dask")
+
+
+def provenance(command_line=None) -> dict:
+    """When and how a document was made: ``created`` (UTC, ISO 8601), ``command_line``
+    (the program's arguments; default ``sys.argv``), ``python`` and the ``libraries``
+    installed with their versions (docs/summary.schema.json)."""
+    import datetime
+    import platform
+    import sys
+    from importlib import metadata
+    libs = {}
+    for name in LIBRARIES:
+        try:
+            libs[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            continue
+    argv = list(sys.argv if command_line is None else command_line)
+    if argv:
+        argv[0] = "sheetview" if argv[0].endswith(("sheetview", "__main__.py")) else argv[0]
+    return {"created": datetime.datetime.now(datetime.timezone.utc).isoformat(
+                timespec="seconds"),
+            "command_line": argv, "python": platform.python_version(), "libraries": libs}
 
 
 def headline(run) -> dict:

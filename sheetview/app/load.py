@@ -11,6 +11,7 @@ Examples
 from __future__ import annotations
 
 from ..errors import OptionError
+from .applies import kind_words, not_applicable
 from ..io import family_of, read
 from ..structure import Structure
 from ..measures.kinetics import structure_at
@@ -22,6 +23,21 @@ READ_OPTIONS = {
     "voxel_size": ("volumes",), "phases": ("volumes",), "shape": ("volumes",),
     "dtype": ("volumes",), "byte_order": ("volumes",),
 }
+
+
+#: How messages speak of each family of files.
+FAMILY_WORDS = {"prisms": "a prism table", "meshes": "a mesh", "volumes": "a voxel volume"}
+#: What each reading option applies to, in words.
+APPLIES_TO = {
+    "thickness": "prism tables without a thickness column and meshes read as sheets",
+    "spacing": "prism tables and meshes", "units": "every file that does not state its units",
+    "as_": "meshes", "voxel_size": "voxel volumes", "phases": "voxel volumes",
+    "shape": "raw voxel volumes", "dtype": "raw voxel volumes", "byte_order": "raw voxel volumes",
+}
+#: A pointer to the option that does the job for another family.
+HINTS = {("voxel_size", "prisms"): "; the phase grid of prisms is made at <<voxel>>",
+         ("voxel_size", "meshes"): "; the phase grid of a mesh is made at <<voxel>>",
+         ("thickness", "volumes"): "; a voxel volume's solid is its labelled voxels"}
 
 
 def parse_phases(value) -> dict | None:
@@ -68,9 +84,11 @@ def load(path, *, thickness=None, spacing=None, units=None, as_="auto", voxel_si
              "phases": phases, "shape": shape, "dtype": dtype, "byte_order": byte_order}
     wrong = [k for k, v in given.items() if v is not None and fam not in READ_OPTIONS[k]]
     if wrong:
-        fits = [k for k, fams in READ_OPTIONS.items() if fam in fams]
-        raise OptionError(f"{', '.join(wrong)} do(es) not apply to {fam} files (these do: "
-                          f"{', '.join(fits)})", path=path, param=wrong[0])
+        k = wrong[0]
+        fits = ", ".join(f"<<{n}>>" for n, fams in READ_OPTIONS.items() if fam in fams)
+        hint = HINTS.get((k, fam), "")
+        raise not_applicable(k, FAMILY_WORDS[fam], f"{APPLIES_TO[k]} (for {FAMILY_WORDS[fam]}: "
+                             f"{fits}){hint}", path=path)
     opts = {k: v for k, v in given.items() if v is not None}
     if "phases" in opts:
         opts["phases"] = parse_phases(opts["phases"])
@@ -85,7 +103,7 @@ def at_moment(obj, progress=None, time=None):
     if progress is None and time is None:
         return obj, None
     if not isinstance(obj, Structure):
-        raise OptionError("a moment of growth needs prisms with a 'born' column, but the input "
-                          f"is a {type(obj).__name__}", path=getattr(obj, "source", None),
-                          param="at_progress" if progress is not None else "at_time")
+        raise not_applicable("at_progress" if progress is not None else "at_time",
+                             kind_words(obj), "prisms with a 'born' column (a grown structure)",
+                             path=getattr(obj, "source", None))
     return structure_at(obj, progress=progress, time=time)

@@ -44,8 +44,8 @@ class MeasureSpec:
 
 REGISTRY: dict[str, MeasureSpec] = {}
 
-NEEDS = {"structure": "prisms (a Structure: a prism table or a sheet mesh)",
-         "grid": "a voxel volume (a PhaseGrid)"}
+NEEDS = {"structure": "prisms (a prism table or a mesh read as sheets)",
+         "grid": "a phase grid (a voxel volume, or prisms or a solid body rasterized)"}
 
 #: The word in ``only`` that stands for the default selection (``"default,scattering"``).
 DEFAULT_WORD = "default"

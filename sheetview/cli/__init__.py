@@ -7,6 +7,7 @@ the command exits with status 2, without a traceback.
 from __future__ import annotations
 
 import os
+import re
 import signal
 import sys
 import warnings
@@ -15,6 +16,7 @@ import click
 
 from .._version import __version__
 from ..errors import SheetviewError
+from .conventions import ALIASES
 from .convert import convert
 from .info import info
 from .view import render, slices, view
@@ -33,6 +35,31 @@ def option_names(command) -> dict:
     return out
 
 
+def _option_style(p: str) -> str:
+    return "--" + p.rstrip("_").replace("_", "-")
+
+
+#: ``field`` values the measures give for a setting (not a column of a file): the setting.
+_FIELD_SETTINGS = {"voxel_size": "voxel", "pixel_size": "pixel_size"}
+
+
+def shown_error(e: SheetviewError, command=None) -> str:
+    """The one line the command line prints for ``e``: parameters shown as the options of
+    ``command`` (:func:`option_names`); a parameter the command has no option for is shown
+    in option style (``--max-memory``). An error whose ``field`` is one of the command's
+    parameters (and names no file) is about that option and shown as such."""
+    names = option_names(command)
+    if e.param is None and e.field in _FIELD_SETTINGS:  # the grid's voxel, not a file column
+        e.param, e.field = _FIELD_SETTINGS[e.field], None
+    if e.param is None and e.path is None and e.field in names:
+        e.param, e.field = e.field, None
+    current = set(names.values())
+    for old, new in ALIASES.items():  # a message written with a deprecated spelling
+        if new in current:
+            e.detail = re.sub(rf"(?<![\w-]){re.escape(old)}(?![\w-])", new, e.detail)
+    return e.format(lambda p: names.get(p) or _option_style(p))
+
+
 def _sigterm(signum, frame):
     """SIGTERM ends a run like Ctrl-C: temporary folders are removed on the way out."""
     raise KeyboardInterrupt
@@ -46,6 +73,21 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
 
 
 class _Group(click.Group):
+    def main(self, *args, **kwargs):
+        kwargs.pop("standalone_mode", None)
+        try:
+            return super().main(*args, standalone_mode=False, **kwargs)
+        except click.exceptions.Exit as e:
+            sys.exit(e.exit_code)
+        except click.exceptions.Abort:
+            click.echo("sheetview: interrupted", err=True)
+            sys.exit(130)
+        except click.ClickException as e:
+            _usage_error(e)
+        except SheetviewError as e:
+            click.echo(f"sheetview: error: {shown_error(e)}", err=True)
+            sys.exit(e.exit_code)
+
     def invoke(self, ctx):
         try:
             signal.signal(signal.SIGTERM, _sigterm)
@@ -56,9 +98,10 @@ class _Group(click.Group):
             return super().invoke(ctx)
         except SheetviewError as e:
             cmd = self.get_command(ctx, ctx.invoked_subcommand) if ctx.invoked_subcommand else None
-            names = option_names(cmd)
-            click.echo(f"sheetview: error: {e.format(lambda p: names.get(p, p))}", err=True)
+            click.echo(f"sheetview: error: {shown_error(e, cmd)}", err=True)
             sys.exit(e.exit_code)
+        except click.ClickException as e:
+            _usage_error(e)
         except MemoryError:
             click.echo("sheetview: error: out of memory; use a coarser voxel size (--voxel) or "
                        "a lower --max-memory", err=True)
@@ -66,6 +109,20 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             click.echo("sheetview: interrupted", err=True)
             sys.exit(130)
+
+
+def _usage_error(e: click.ClickException):
+    """A usage error of click (unknown option, bad value, missing argument) in the same
+    one-line form as every other error, with where to look. The program called without a
+    command prints its help (on stderr, status 2)."""
+    if type(e).__name__ == "NoArgsIsHelpError":
+        click.echo(e.format_message(), err=True)
+        sys.exit(2)
+    msg = " ".join(e.format_message().split())
+    ctx = getattr(e, "ctx", None)
+    hint = f" (see `{ctx.command_path} --help`)" if ctx is not None else ""
+    click.echo(f"sheetview: error: {msg}{hint}", err=True)
+    sys.exit(e.exit_code if e.exit_code else 2)
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"],

@@ -7,19 +7,21 @@ import click
 
 from ..errors import OptionError
 from .common import at_options, read_kwargs, read_options
-from .measure import SETTINGS, measure_options, measure_settings
+from .conventions import command, force_option, output_option, quiet_option
+from .measure import SETTINGS, measure_options, measure_settings, only_help
 from ..batch import run_batch, trend_plot
 
 
-@click.command("batch")
+@command("batch")
 @click.argument("inputs", nargs=-1, required=True, metavar="PATHS_OR_GLOBS...")
-@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False),
-              help="Batch folder: per-structure reports, summary tables, index.html, log. "
-                   "Reusing it resumes: finished structures are skipped.")
+@output_option("folder", "Batch folder: per-structure reports, summary tables, index.html, "
+               "log. Reusing it resumes: finished structures are skipped.", required=True,
+               dest="out")
 @click.option("--only", default=None, metavar="NAMES",
-              help="Comma-separated measures (default: all that apply to each input).")
+              help=only_help("Comma-separated measures (default: all that apply to each "
+                             "input)."))
 @measure_options
-@click.option("--workers", type=int, default=1, show_default=True,
+@click.option("--workers", type=int, default=1, show_default=True, metavar="N",
               help="Structures measured at once: this process and N - 1 worker processes "
                    "(numba threads per worker: cores / N); with --cluster local, the number "
                    "of Dask workers.")
@@ -32,7 +34,7 @@ from ..batch import run_batch, trend_plot
                    "be visible to the workers at the same paths.")
 @click.option("--no-plots", is_flag=True, help="Tables only in the report folders, no PNG.")
 @click.option("--no-html", is_flag=True, help="No HTML pages (report.html, index.html).")
-@click.option("-q", "--quiet", is_flag=True, help="No progress on stderr (the log is kept).")
+@quiet_option("No progress on stderr (the log is kept).")
 @at_options
 @read_options
 def batch(inputs, out, only, workers, threads, cluster, no_plots, no_html, quiet, at_progress,
@@ -56,9 +58,9 @@ def batch(inputs, out, only, workers, threads, cluster, no_plots, no_html, quiet
     read_kw = read_kwargs(kw)
     settings = measure_settings(**opts, spacing=read_kw.get("spacing"))
     if workers < 1:
-        raise OptionError(f"--workers: must be at least 1, got {workers}")
+        raise OptionError(f"must be at least 1, got {workers}", param="workers")
     if threads is not None and threads < 1:
-        raise OptionError(f"--threads: must be at least 1, got {threads}")
+        raise OptionError(f"must be at least 1, got {threads}", param="threads")
     res = run_batch(list(inputs), out, settings, read_kw, only=only, plots=not no_plots,
                     workers=workers, cluster=cluster, html_pages=not no_html, quiet=quiet,
                     echo=lambda m: click.echo(m, err=True), threads=threads,
@@ -71,14 +73,13 @@ def batch(inputs, out, only, workers, threads, cluster, no_plots, no_html, quiet
         sys.exit(1)
 
 
-@click.command("trend")
-@click.argument("summary", type=click.Path(dir_okay=False))
+@command("trend")
+@click.argument("summary", metavar="SUMMARY", type=click.Path(dir_okay=False))
 @click.option("--x", "x", required=True, metavar="COLUMN", help="Column on the x axis.")
 @click.option("--y", "y", required=True, metavar="COLUMN", help="Numeric column on the y axis.")
 @click.option("--group", default=None, metavar="COLUMN", help="One line per value of this column.")
-@click.option("-o", "--output", "out", required=True, type=click.Path(dir_okay=False),
-              help="PNG file to write.")
-@click.option("--force", is_flag=True, help="Overwrite an existing PNG.")
+@output_option("file", "The plot to write (PNG).", required=True, dest="out")
+@force_option("Overwrite an existing plot.")
 def trend(summary, x, y, group, out, force):
     """Plot column Y of a batch SUMMARY (summary.csv or .parquet) against column X.
 

@@ -9,10 +9,11 @@ from ..app.document import dumps
 from ..errors import OptionError
 from ..report import check_folder, write_comparison
 from .common import read_kwargs, read_options
+from .conventions import command, force_option, json_option, output_option, quiet_option
 from .measure import SETTINGS, measure_options, measure_settings
 
 
-@click.command("beside")
+@command("beside")
 @click.argument("inputs", nargs=-1, required=True,
                 type=click.Path(exists=True, dir_okay=True), metavar="STRUCTURE_OR_REPORT...")
 @click.option("--labels", default=None, metavar="NAMES",
@@ -34,14 +35,12 @@ from .measure import SETTINGS, measure_options, measure_settings
                    "with, as `relax --compare` does.")
 @click.option("--t2-unit", type=click.Choice(["s", "ms", "us"]), default=None,
               help="Unit of T2 in --measured-t2 when its header does not say.")
-@click.option("-o", "--output", "outdir", type=click.Path(file_okay=False), default=None,
-              metavar="FOLDER",
-              help="Write a comparison folder: comparison.json, headline.csv, curve_*.csv, "
-                   "side_by_side.png.")
-@click.option("--json", "as_json", is_flag=True, help="Print only the comparison as JSON.")
-@click.option("--force", is_flag=True, help="Write into an existing non-empty folder.")
+@output_option("folder", "Write a comparison folder: comparison.json, headline.csv, "
+               "curve_*.csv, side_by_side.png.", dest="outdir")
+@json_option("Print only the comparison as JSON on stdout.")
+@force_option("Write into an existing non-empty folder.")
 @click.option("--no-plots", is_flag=True, help="With -o: tables only, no figure.")
-@click.option("-q", "--quiet", is_flag=True, help="No progress messages on stderr.")
+@quiet_option("No progress messages on stderr.")
 @measure_options
 @read_options
 def beside(inputs, labels, only, measured_scattering, q_unit, measured_t2, t2_unit, outdir,

@@ -11,26 +11,33 @@ from ..app.settings import parse_size as _parse
 def read_options(f):
     """Decorator adding the options that steer reading to a command."""
     opts = [
-        click.option("--thickness", type=float, default=None,
-                     help="Prism thickness in nm where the file gives none (meshes, plain CSV)."),
-        click.option("--spacing", type=float, default=None,
-                     help="Nominal interlayer repeat in nm (overrides the file; default 1.4)."),
-        click.option("--units", default=None,
-                     help='Length units of the file when it does not say: nm, A (angstrom), um.'),
+        click.option("--thickness", type=float, default=None, metavar="NM",
+                     help="Prism thickness in nm, for files that give none (a prism table "
+                          "without a thickness column; a mesh read as sheets, where it "
+                          "overrides a per-face array)."),
+        click.option("--repeat", "spacing", type=float, default=None, metavar="NM",
+                     help="Interlayer repeat in nm, the distance between the mid-planes of "
+                          "stacked sheets (overrides the file's; default 1.4)."),
+        click.option("--units", default=None, metavar="UNIT",
+                     help="Length unit of a file that does not state it: nm, A (angstrom) "
+                          "or um."),
         click.option("--as", "as_", type=click.Choice(["auto", "sheets", "solid"]), default="auto",
                      show_default=True,
                      help="Meshes: read open surfaces as sheet mid-surfaces and closed ones as "
                           "solid bodies (auto), or force one reading."),
-        click.option("--voxel-size", type=float, default=None,
-                     help="Volumes: voxel edge in nm (required where the file does not say)."),
-        click.option("--phases", default=None,
-                     help="Volumes: map file values to phases, e.g. 0=gel,1=solid,2=interlayer."),
-        click.option("--shape", "raw_shape", default=None,
-                     help="Raw volumes: NX,NY,NZ."),
-        click.option("--dtype", "raw_dtype", default=None,
-                     help="Raw volumes: numpy dtype such as uint8, <u2, float32."),
+        click.option("--volume-voxel", "voxel_size", type=float, default=None, metavar="NM",
+                     help="Voxel volumes: the voxel edge in nm (overrides the file's; needed "
+                          "where the file gives none)."),
+        click.option("--phases", default=None, metavar="V=PHASE,...",
+                     help="Voxel volumes: file values to phases, e.g. 0=gel,1=solid,2=interlayer "
+                          "(phases: outside, solid, interlayer, gel)."),
+        click.option("--shape", "raw_shape", default=None, metavar="NX,NY,NZ",
+                     help="Raw voxel volumes: voxels along x, y and z."),
+        click.option("--dtype", "raw_dtype", default=None, metavar="DTYPE",
+                     help="Raw voxel volumes: numpy dtype of the values, such as uint8, <u2, "
+                          "float32."),
         click.option("--byte-order", "raw_byte_order", type=click.Choice(["little", "big"]),
-                     default=None, help="Raw volumes: byte order of multi-byte values."),
+                     default=None, help="Raw voxel volumes: byte order of multi-byte values."),
     ]
     for o in reversed(opts):
         f = o(f)
@@ -69,12 +76,13 @@ def parse_size(text):
 
 def at_options(f):
     """Decorator adding ``--at-progress`` / ``--at-time`` (the structure as it stood then)."""
-    f = click.option("--at-time", type=float, default=None, metavar="T",
-                     help="Use the structure as it stood at time T: the prisms born at or "
-                          "before T (needs a 'born' column).")(f)
-    f = click.option("--at-progress", type=float, default=None, metavar="P",
+    f = click.option("--at-time", type=float, default=None, metavar="TIME",
+                     help="Use the structure as it stood at TIME (in the unit of the file's "
+                          "'born' column): the prisms born at or before it.")(f)
+    f = click.option("--at-progress", type=float, default=None, metavar="FRACTION",
                      help="Use the structure as it stood when its progress (solid volume born "
-                          "over the final) first reached P, a fraction in (0, 1].")(f)
+                          "over the final) first reached FRACTION, in (0, 1]; needs a 'born' "
+                          "column.")(f)
     return f
 
 

@@ -12,8 +12,12 @@ import numpy as np
 from ..errors import OptionError
 from ..io.curves import read_experimental
 from ..figures import plot_relaxation, plot_scattering
-from ..report import save_figure
+from ..report import atomic_folder, check_folder, save_figure, write_csv, write_json
+from ..app.applies import check_option
 from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
+from .conventions import (Command, deprecated_option, force_option, json_option,
+                          max_memory_option, output_option, voxel_option, warn)
+from .sections import legacy_png
 from ..app.run import Run
 from ..app.settings import Settings
 from ..grid import INTERLAYER, PhaseGrid, SOLID
@@ -31,7 +35,7 @@ def _check_outputs(paths, force):
         if q is None:
             continue
         if str(q) in seen:
-            raise OptionError(f"output {q} is given twice")
+            raise OptionError(f"output {q} is given twice", param="output")
         seen.add(str(q))
         check_writable(q, force)
 
@@ -80,57 +84,117 @@ def _solid_sld(formula, density, probe, grid, interlayer_contrast=True):
     return split.layer_sld(probe), describe_sheets(split)
 
 
-@click.command()
-@click.argument("file", type=click.Path(exists=True, dir_okay=False))
+def _grid_checked(obj, voxel, max_memory):
+    """``(run, grid)`` of :func:`_grid_of`, refusing ``--voxel`` for a voxel volume (the one
+    rule, :mod:`sheetview.app.applies`)."""
+    if voxel is not None:
+        check_option(not isinstance(obj, PhaseGrid), "voxel", obj,
+                     "prisms and solid bodies, which are rasterized at it (a voxel volume is "
+                     "its own grid)")
+    return _grid_of(obj, voxel, max_memory)
+
+
+def _outputs(output, csv_out, json_file, force, command_name):
+    """``(folder, legacy plot file)`` of ``-o`` (a folder; ``-o PLOT.png`` is the deprecated
+    plot file), the deprecated ``--csv`` and ``--json FILE`` checked before any work."""
+    plot_out = output if legacy_png(output, command_name) else None
+    folder = None if plot_out is not None else output
+    _check_outputs([csv_out, plot_out, json_file], force)
+    if folder is not None:
+        check_folder(folder, force)
+    return folder, plot_out
+
+
+def _experiment_options(f):
+    """The output options shared by ``scatter`` and ``relax``, and their deprecated forms."""
+    for o in reversed([
+        json_option(),
+        deprecated_option("--json-file", "json_file", type=click.Path(dir_okay=False),
+                          default=None, metavar="FILE", use="--json (stdout) or -o FOLDER",
+                          help="Deprecated (--json FILE): write the JSON document to FILE."),
+        deprecated_option("--csv", "csv_out", type=click.Path(dir_okay=False), default=None,
+                          metavar="FILE", use="-o FOLDER",
+                          help="Deprecated: write the table to FILE."),
+        force_option(),
+    ]):
+        f = o(f)
+    return f
+
+
+#: ``--json FILE`` of the release before (``--json`` is a flag now): rewritten to the
+#: hidden ``--json-file FILE`` with a warning when the word after ``--json`` ends in .json.
+class _JsonFileCommand(Command):
+    def parse_args(self, ctx, args):
+        out, i = [], 0
+        args = list(args)
+        while i < len(args):
+            a = args[i]
+            if a == "--json" and i + 1 < len(args) and args[i + 1].lower().endswith(".json"):
+                warn("--json FILE is deprecated, use --json (stdout) or -o FOLDER")
+                out += ["--json-file", args[i + 1]]
+                i += 2
+                continue
+            if a.startswith("--json=") and len(a) > 7:
+                warn("--json FILE is deprecated, use --json (stdout) or -o FOLDER")
+                out += ["--json-file", a[7:]]
+                i += 1
+                continue
+            out.append(a)
+            i += 1
+        return super().parse_args(ctx, out)
+
+
+@click.command(cls=_JsonFileCommand)
+@click.argument("file", metavar="FILE", type=click.Path(exists=True, dir_okay=False))
 @read_options
-@click.option("--voxel", type=float, default=None, help="Voxel edge (nm) of the phase grid.")
+@voxel_option()
 @click.option("--probe", type=click.Choice(["neutron", "xray"]), default="neutron",
-              show_default=True)
-@click.option("--fluid", default="h2o", show_default=True,
+              show_default=True, help="Radiation: neutrons or X-rays (sets the SLDs).")
+@click.option("--fluid", default="h2o", show_default=True, metavar="FLUID",
               help="Pore fluid: h2o, d2o, or a D2O volume fraction (0.3 or 30%).")
-@click.option("--solid-formula", default=None,
+@click.option("--composition", "solid_formula", default=None, metavar="FORMULA",
               help="C-S-H composition with its interlayer water, e.g. '(CaO)1.7(SiO2)(H2O)1.8' "
                    "(the default, Allen et al. 2007); the sheets get it less the interlayer "
                    "water the grid resolves.")
-@click.option("--solid-density", type=float, default=None,
-              help="Density (g/cm3) of that composition (default 2.604, Allen et al. 2007).")
+@click.option("--density", "solid_density", type=float, default=None, metavar="G/CM3",
+              help="Density in g/cm3 of that composition (default 2.604, Allen et al. 2007).")
 @click.option("--no-interlayer-contrast", is_flag=True,
               help="Give the interlayer the solid's SLD (sheets and interlayer as one particle).")
-@click.option("--pad", type=int, default=2, show_default=True,
-              help="Zero-padding factor (non-periodic grids).")
-@click.option("--window", type=click.Choice(["none", "hann"]), default="none", show_default=True)
-@click.option("--csv", "csv_out", type=click.Path(dir_okay=False), required=True,
-              help="Curve to write: columns q_nm-1,intensity_cm-1.")
-@click.option("-o", "--output", "plot_out", type=click.Path(dir_okay=False), default=None,
-              help="Plot (PNG).")
-@click.option("--json", "json_out", type=click.Path(dir_okay=False), default=None,
-              help="Features (slopes, Porod, Guinier, invariant, peaks, fit) as JSON.")
+@click.option("--pad", type=int, default=2, show_default=True, metavar="N",
+              help="Zero-padding factor of the transform (non-periodic grids).")
+@click.option("--window", type=click.Choice(["none", "hann"]), default="none", show_default=True,
+              help="Window applied to the grid before the transform (non-periodic grids).")
+@output_option("folder", "Write scattering.csv (q_nm-1, intensity_cm-1, modes), "
+                         "scattering.png and scattering.json into FOLDER.")
+@_experiment_options
 @click.option("--slope", "slopes", multiple=True, metavar="QMIN:QMAX",
-              help="Power-law slope over this q range (nm^-1); repeatable. Default: the "
+              help="Power-law slope over this q range in nm^-1; repeatable. Default: the "
                    "lowest and highest half decade of the valid range.")
 @click.option("--compare", type=click.Path(exists=True, dir_okay=False), default=None,
-              help="Experimental curve (q, I[, error]) to fit scale and background to.")
+              metavar="FILE",
+              help="Measured curve to fit scale and background to: columns q, I[, error] "
+                   "(text), canSAS XML (.xml) or NXcanSAS (.h5, .nxs).")
 @click.option("--q-unit", type=click.Choice(["nm", "A"]), default=None,
-              help="Unit of q in --compare when its header does not say.")
-@click.option("--columns", default=None, help="Columns of --compare: Q,I[,ERR] (numbers or names).")
-@click.option("--max-memory", default=None, metavar="SIZE",
-              help="Memory allowed for the grid and transform, e.g. 8G (default half the "
+              help="Unit of q in --compare (nm^-1 or A^-1) when the file does not say.")
+@click.option("--columns", default=None, metavar="COLUMNS",
+              help="Columns of a text --compare: Q,I[,ERR] (numbers or names).")
+@max_memory_option("Memory allowed for the grid and transform, e.g. 8G (default half the "
                    "available memory).")
-@click.option("--force", is_flag=True, help="Overwrite existing outputs.")
 @at_options
 def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlayer_contrast, pad,
-            window, csv_out, plot_out, json_out, slopes, compare, q_unit, columns, max_memory,
-            force, at_progress, at_time, **read_kw):
-    """Predicted small-angle scattering curve I(q) (cm^-1) of FILE."""
-    _check_outputs([csv_out, plot_out, json_out], force)
+            window, output, as_json, json_file, csv_out, force, slopes, compare, q_unit, columns,
+            max_memory, at_progress, at_time, **read_kw):
+    """Predicted small-angle scattering curve I(q) (cm^-1) of FILE; with --compare, fitted
+    to a measured curve."""
+    folder, plot_out = _outputs(output, csv_out, json_file, force, "scatter")
     ranges = [_parse_range(t) for t in slopes]
     exp = read_experimental(compare, "scattering", q_unit, columns) if compare else None
     for w in (exp.warnings if exp else []):
-        click.echo(f"sheetview: warning: {w}", err=True)
+        warn(w)
     mem = parse_size(max_memory)
     obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
     echo_moment(moment)
-    _, grid = _grid_of(obj, voxel, mem)
+    _, grid = _grid_checked(obj, voxel, mem)
     s_sld, s_desc = _solid_sld(solid_formula, solid_density, probe, grid,
                                not no_interlayer_contrast)
     f_sld = preset_sld(fluid, probe)
@@ -145,22 +209,24 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     doc["features"] = curve_features(res, _solid_fraction(grid), ranges)
     cmp_ = compare_curve(res, exp.x, exp.y, exp.sigma, source=compare) if exp else None
     if cmp_ is not None:
-        doc["comparison"] = {**cmp_.to_dict(), "file": str(compare), "q_unit": exp.unit_found}
+        doc["comparison"] = {**cmp_.to_dict(), "file": str(compare), "q_unit": exp.unit_found,
+                             "format": exp.format}
     notes = [f"probe {probe}; solid {s_desc}: SLD {s_sld:.3g}e-6 A^-2; fluid {fluid}: "
              f"{f_sld:.3g}e-6 A^-2; interlayer {'fluid' if not no_interlayer_contrast else 'solid'} "
              f"SLD; outside = fluid",
              f"valid q {lo:.4g} to {hi:.4g} nm^-1; I(q) = |FT(delta rho)|^2 / V in cm^-1",
              "a model's predicted curve, not a measurement"]
-    _write_csv(csv_out, {"q_nm-1": res.q.tolist(), "intensity_cm-1": res.intensity.tolist()},
-               force, notes)
-    if json_out:
-        with atomic_path(json_out, force) as tmp:
-            Path(tmp).write_text(dumps(doc), encoding="utf-8")
-    if plot_out:
-        save_figure(plot_scattering(res, comparison=cmp_, notes=notes, features=doc["features"],
-                                    experiment=(exp.x, exp.y, exp.sigma) if exp else None),
-                    plot_out, force)
-    click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1 -> {csv_out}")
+    doc["notes"] = notes
+    figure = lambda: plot_scattering(  # noqa: E731
+        res, comparison=cmp_, notes=notes, features=doc["features"],
+        experiment=(exp.x, exp.y, exp.sigma) if exp else None)
+    written = _write_outputs(folder, "scattering", res.table(), doc, figure, force,
+                             csv_out, plot_out, json_file, notes)
+    if as_json:
+        click.echo(dumps(doc))
+        return
+    click.echo(f"I(q): {res.q.size} bins, valid q {lo:.4g}-{hi:.4g} nm^-1"
+               + (f" -> {', '.join(written)}" if written else ""))
     for line in _feature_lines(doc["features"]):
         click.echo(line)
     for note in res.notes:
@@ -168,6 +234,30 @@ def scatter(file, voxel, probe, fluid, solid_formula, solid_density, no_interlay
     if cmp_ is not None:
         click.echo(f"fit to {compare}: scale {cmp_.scale:.4g}, background {cmp_.background:.4g} "
                    f"cm^-1, reduced chi2 {cmp_.chi2_reduced:.4g} ({cmp_.weighting})")
+
+
+def _write_outputs(folder, name, table, doc, figure, force, csv_out, plot_out, json_file, notes,
+                   table_name=None):
+    """Write the folder (``TABLE_NAME.csv``, default ``NAME.csv``; ``NAME.png``,
+    ``NAME.json``) and the deprecated single files; returns what was written."""
+    written = []
+    if csv_out:
+        _write_csv(csv_out, table, force, notes)
+        written.append(str(csv_out))
+    if json_file:
+        with atomic_path(json_file, force) as tmp:
+            Path(tmp).write_text(dumps(doc), encoding="utf-8")
+        written.append(str(json_file))
+    if plot_out:
+        save_figure(figure(), plot_out, force)
+        written.append(str(plot_out))
+    if folder is not None:
+        with atomic_folder(folder, force, kind=name) as (tmp, final):
+            write_csv(tmp / f"{table_name or name}.csv", table)
+            save_figure(figure(), tmp / f"{name}.png")
+            write_json(tmp / f"{name}.json", doc)
+        written.append(f"{folder}/")
+    return written
 
 
 def _feature_lines(feats):
@@ -204,9 +294,9 @@ def _parse_range(text):
     try:
         a, b = (float(x) for x in str(text).split(":"))
     except ValueError:
-        raise OptionError(f"--slope: expected QMIN:QMAX in nm^-1, got {text!r}") from None
+        raise OptionError(f"expected QMIN:QMAX in nm^-1, got {text!r}", param="slopes") from None
     if not (0 < a < b and math.isfinite(b)):
-        raise OptionError(f"--slope: need 0 < QMIN < QMAX, got {text!r}")
+        raise OptionError(f"need 0 < QMIN < QMAX, got {text!r}", param="slopes")
     return a, b
 
 
@@ -214,53 +304,50 @@ def _solid_fraction(grid):
     return float(np.count_nonzero(grid.labels == SOLID) / grid.labels.size)
 
 
-@click.command()
-@click.argument("file", type=click.Path(exists=True, dir_okay=False))
+@click.command(cls=_JsonFileCommand)
+@click.argument("file", metavar="FILE", type=click.Path(exists=True, dir_okay=False))
 @read_options
-@click.option("--voxel", type=float, default=None, help="Voxel edge (nm) of the phase grid.")
-@click.option("--rho2", type=float, default=None,
+@voxel_option()
+@click.option("--rho2", type=float, default=None, metavar="NM/US",
               help="Surface relaxivity in nm/us (default 3.7e-3; McDonald et al. 2005, from "
                    "memory, low confidence).")
-@click.option("--t2-bulk", type=float, default=None,
+@click.option("--t2-bulk", type=float, default=None, metavar="S",
               help="Bulk water T2 in s (default 2.5, from memory); 0 switches the bulk term off.")
 @click.option("--pore-shape", "shape", type=click.Choice(["slit", "cylinder", "sphere"]), default="slit",
               show_default=True, help="Gel pores of local thickness d: S/V = 2/d, 4/d, 6/d.")
-@click.option("--interlayer-width", type=float, default=None,
-              help="Interlayer gap (nm). Default: repeat - median sheet thickness for prism "
+@click.option("--interlayer-width", type=float, default=None, metavar="NM",
+              help="Interlayer gap in nm. Default: repeat - median sheet thickness for prism "
                    "files, the measured local thickness of the interlayer for volumes.")
-@click.option("--csv", "csv_out", type=click.Path(dir_okay=False), required=True,
-              help="Distribution to write (T2 in s and ms, fractions per class).")
-@click.option("-o", "--output", "plot_out", type=click.Path(dir_okay=False), default=None,
-              help="Plot (PNG).")
-@click.option("--json", "json_out", type=click.Path(dir_okay=False), default=None,
-              help="Class fractions, mean T2, settings and comparison as JSON.")
+@output_option("folder", "Write t2_distribution.csv (T2 in s and ms, fractions per class), "
+                         "relaxation.png and relaxation.json into FOLDER.")
+@_experiment_options
 @click.option("--compare", type=click.Path(exists=True, dir_okay=False), default=None,
-              help="Experimental T2 distribution (T2, amplitude).")
+              metavar="FILE", help="Measured T2 distribution: columns T2, amplitude.")
 @click.option("--t2-unit", type=click.Choice(["s", "ms", "us"]), default=None,
               help="Unit of T2 in --compare when its header does not say.")
-@click.option("--columns", default=None, help="Columns of --compare: T2,AMPLITUDE.")
-@click.option("--max-memory", default=None, metavar="SIZE",
-              help="Memory allowed for the grid and transform, e.g. 8G (default half the "
+@click.option("--columns", default=None, metavar="COLUMNS",
+              help="Columns of --compare: T2,AMPLITUDE (numbers or names).")
+@max_memory_option("Memory allowed for the grid and transform, e.g. 8G (default half the "
                    "available memory).")
-@click.option("--force", is_flag=True, help="Overwrite existing outputs.")
 @at_options
-def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out, json_out,
-          compare, t2_unit, columns, max_memory, force, at_progress, at_time, **read_kw):
+def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, output, as_json, json_file,
+          csv_out, force, compare, t2_unit, columns, max_memory, at_progress, at_time, **read_kw):
     """Predicted NMR T2 distribution of the pore water of FILE (fast exchange)."""
-    _check_outputs([csv_out, plot_out, json_out], force)
+    folder, plot_out = _outputs(output, csv_out, json_file, force, "relax")
     exp = read_experimental(compare, "t2", t2_unit, columns) if compare else None
     for w in (exp.warnings if exp else []):
-        click.echo(f"sheetview: warning: {w}", err=True)
+        warn(w)
     rho2 = DEFAULT_RHO2_NM_PER_US if rho2 is None else rho2
     if t2_bulk is None:
         t2_bulk = DEFAULT_T2_BULK_S
     elif t2_bulk == 0:
         t2_bulk = None
     elif t2_bulk < 0:
-        raise OptionError(f"--t2-bulk must be positive (or 0 for no bulk term), got {t2_bulk}")
+        raise OptionError(f"must be positive (or 0 for no bulk term), got {t2_bulk}",
+                          param="t2_bulk")
     obj, moment = apply_at(load(file, **read_kw), at_progress, at_time)
     echo_moment(moment)
-    ctx, grid = _grid_of(obj, voxel, parse_size(max_memory))
+    ctx, grid = _grid_checked(obj, voxel, parse_size(max_memory))
     if interlayer_width is None and isinstance(obj, Structure):
         gap = float(obj.spacing) - float(np.median(obj.thickness))
         if gap > 0:
@@ -278,15 +365,17 @@ def relax(file, voxel, rho2, t2_bulk, shape, interlayer_width, csv_out, plot_out
              f"{'off' if t2_bulk is None else f'{t2_bulk:g} s'}; gel pores as {shape}s; "
              f"interlayer: {res.settings['interlayer_width']}",
              "a model's predicted distribution, not a measurement"]
-    _write_csv(csv_out, res.table(), force, notes)
-    if json_out:
-        with atomic_path(json_out, force) as tmp:
-            Path(tmp).write_text(dumps(doc), encoding="utf-8")
-    if plot_out:
-        save_figure(plot_relaxation(res, comparison=cmp_, notes=notes), plot_out, force)
+    doc["notes"] = notes
+    figure = lambda: plot_relaxation(res, comparison=cmp_, notes=notes)  # noqa: E731
+    # the table keeps the name it has in a measure report
+    written = _write_outputs(folder, "relaxation", res.table(), doc, figure, force, csv_out,
+                             plot_out, json_file, notes, table_name="t2_distribution")
+    if as_json:
+        click.echo(dumps(doc))
+        return
     fr = ", ".join(f"{k} {v:.3f} (T2 {res.class_t2_logmean[k] * 1e3:.3g} ms)"
                    for k, v in res.class_fraction.items())
-    click.echo(f"T2 distribution: {fr} -> {csv_out}")
+    click.echo(f"T2 distribution: {fr}" + (f" -> {', '.join(written)}" if written else ""))
     if cmp_ is not None:
         click.echo(f"against {compare}: log-mean T2 model {cmp_.logmean_model_s * 1e3:.4g} ms, "
                    f"experiment {cmp_.logmean_experiment_s * 1e3:.4g} ms, shift "

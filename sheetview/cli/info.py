@@ -6,6 +6,7 @@ import json
 import click
 
 from .common import dumps, load, read_options
+from .conventions import command, json_option
 from ..app.describe import describe
 
 
@@ -30,10 +31,10 @@ def _fmt_domain(d):
     return f"{text}, volume {d['volume_nm3']:.6g} nm^3{tag}"
 
 
-@click.command()
-@click.argument("file", type=click.Path(dir_okay=False))
+@command()
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
 @read_options
-@click.option("--json", "as_json", is_flag=True, help="Print one JSON document instead of text.")
+@json_option("Print one JSON document on stdout instead of text.")
 def info(file, as_json, **read_opts):
     """Describe FILE: counts, domain, bounds, sizes, orientation, and warnings.
 

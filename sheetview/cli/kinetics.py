@@ -7,64 +7,83 @@ import numpy as np
 
 from ..errors import OptionError
 from .common import dumps, load, read_options
+from .conventions import (command, deprecated_option, force_option, json_option, output_option,
+                          quiet_option, voxel_option)
+from .sections import legacy_png
+from ..app.applies import check_option
 from ..app.track import track as track_fn
 from ..io.output import atomic_path, check_writable
 from ..measures.kinetics import progress
-from ..report import write_csv
+from ..report import atomic_folder, check_folder, write_csv, write_json
 
 
 def _floats(text, what):
     try:
         vals = [float(x) for x in str(text).split(",") if x.strip()]
     except ValueError:
-        raise OptionError(f"{what}: expected numbers separated by commas, got {text!r}") from None
+        raise OptionError(f"expected numbers separated by commas, got {text!r}",
+                          param=what) from None
     if not vals:
-        raise OptionError(f"{what}: expected at least one number")
+        raise OptionError("expected at least one number", param=what)
     return vals
 
 
-@click.command("kinetics")
-@click.argument("path", type=click.Path(dir_okay=False))
-@click.option("--bins", type=int, default=None,
+@command("kinetics")
+@click.argument("path", metavar="FILE", type=click.Path(dir_okay=False))
+@click.option("--bins", type=int, default=None, metavar="N",
               help="Time bins of the rate (default about the square root of the number of birth "
                    "times, 10 to 200).")
-@click.option("--smooth", type=float, default=2.0, show_default=True,
+@click.option("--smooth", type=float, default=2.0, show_default=True, metavar="BINS",
               help="Gaussian smoothing of the rate, in bins (0: none).")
 @click.option("--no-fit", is_flag=True, help="Skip the Avrami fit.")
-@click.option("--t0", type=float, default=None, help="Time origin of the Avrami fit (default: "
-                                                       "the first birth).")
-@click.option("--track", default=None, metavar="P1,P2,...",
-              help="Run measures on the structure as it stood at these progress values.")
-@click.option("--only", default="stacking,order", show_default=True,
+@click.option("--t0", type=float, default=None, metavar="TIME",
+              help="Time origin of the Avrami fit, in the unit of the 'born' column (default: "
+                   "the first birth).")
+@click.option("--track", default=None, metavar="FRACTIONS",
+              help="Run measures on the structure as it stood at these progress values "
+                   "(fractions in (0, 1], comma separated).")
+@click.option("--only", default="stacking,order", show_default=True, metavar="NAMES",
               help="Measures run at each --track progress (names as for measure --only).")
-@click.option("--keys", default=None,
+@click.option("--keys", default=None, metavar="WORDS",
               help="Keep only tracked columns whose names contain one of these (comma separated), "
                    "e.g. mean,order_parameter.")
-@click.option("--voxel", type=float, default=None, help="Voxel edge (nm) of grid measures in --track.")
-@click.option("--csv", "csv_out", type=click.Path(dir_okay=False), default=None,
-              help="Write the progress curve: columns time, alpha.")
-@click.option("--rate-csv", type=click.Path(dir_okay=False), default=None,
-              help="Write the rate: columns time, rate_per_time, rate_raw_per_time.")
-@click.option("--track-csv", type=click.Path(dir_okay=False), default=None,
-              help="Write the --track table.")
-@click.option("-o", "--output", "plot_out", type=click.Path(dir_okay=False), default=None,
-              help="Plot of alpha(t) and the rate (PNG).")
-@click.option("--json", "as_json", is_flag=True, help="Print the result as JSON on stdout.")
-@click.option("--force", is_flag=True, help="Overwrite existing outputs.")
-@click.option("-q", "--quiet", is_flag=True, help="Print nothing but errors (and --json).")
+@voxel_option("Voxel edge in nm of the phase grid of grid measures in --track (default as "
+              "for `sheetview measure`).")
+@output_option("folder", "Write progress.csv (time, alpha), rate.csv, track.csv (with "
+                         "--track), kinetics.png and kinetics.json into FOLDER.")
+@deprecated_option("--csv", "csv_out", type=click.Path(dir_okay=False), default=None,
+                   metavar="FILE", use="-o FOLDER (writes progress.csv)",
+                   help="Deprecated: write the progress curve to FILE.")
+@deprecated_option("--rate-csv", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+                   use="-o FOLDER (writes rate.csv)", help="Deprecated: write the rate to FILE.")
+@deprecated_option("--track-csv", type=click.Path(dir_okay=False), default=None, metavar="FILE",
+                   use="-o FOLDER (writes track.csv)",
+                   help="Deprecated: write the --track table to FILE.")
+@json_option()
+@force_option()
+@quiet_option()
 @read_options
-def kinetics(path, bins, smooth, no_fit, t0, track, only, keys, voxel, csv_out, rate_csv,
-             track_csv, plot_out, as_json, force, quiet, **read_kw):
+def kinetics(path, bins, smooth, no_fit, t0, track, only, keys, voxel, output, csv_out, rate_csv,
+             track_csv, as_json, force, quiet, **read_kw):
     """Growth kinetics of a structure from its 'born' column: progress alpha(t) (solid
     volume born by t over the final), the smoothed rate, t10/t50/t90 and an Avrami fit."""
+    plot_out = output if legacy_png(output, "kinetics") else None
+    folder = None if plot_out is not None else output
     outs = [p for p in (csv_out, rate_csv, track_csv, plot_out) if p]
     if len(set(map(str, outs))) != len(outs):
-        raise OptionError("two outputs name the same file")
+        raise OptionError("two outputs name the same file", param="output")
     for p in outs:
         check_writable(p, force)
-    if track_csv and not track:
-        raise OptionError("--track-csv needs --track")
-    ps = _floats(track, "--track") if track else []
+    if folder is not None:
+        check_folder(folder, force)
+    for name, value in (("track_csv", track_csv), ("keys", keys), ("voxel", voxel)):
+        if value is not None:
+            check_option(bool(track), name, "a run without --track",
+                         "the measures run at the --track progress values")
+    if only != "stacking,order":
+        check_option(bool(track), "only", "a run without --track",
+                     "the measures run at the --track progress values")
+    ps = _floats(track, "track") if track else []
     obj = load(path, **read_kw)
     kin = progress(obj, bins=bins, smooth=smooth, avrami=not no_fit, t0=t0)
     doc = {"file": str(path), **kin.to_dict()}
@@ -75,15 +94,26 @@ def kinetics(path, bins, smooth, no_fit, t0, track, only, keys, voxel, csv_out, 
             lambda p, m: click.echo(f"  progress {p:g}: time {m.time:g}, {m.n_prisms} prisms", err=True))
         table = track_fn(obj, ps, only=only, settings={"voxel": voxel}, keys=keylist, progress_cb=cb)
         doc["track"] = table
+    track_cols = None if table is None else {
+        k: np.asarray([np.nan if v is None else v for v in vals], float)
+        for k, vals in table.items()}
     if csv_out:
         write_csv(csv_out, kin.table(), force=force)
     if rate_csv:
         write_csv(rate_csv, kin.rate_table(), force=force)
     if track_csv:
-        write_csv(track_csv, {k: np.asarray([np.nan if v is None else v for v in vals], float)
-                                 for k, vals in table.items()}, force=force)
+        write_csv(track_csv, track_cols, force=force)
     if plot_out:
         _plot(kin, plot_out, force, str(path))
+    if folder is not None:
+        with atomic_folder(folder, force, kind="kinetics") as (tmp, final):
+            write_csv(tmp / "progress.csv", kin.table())
+            write_csv(tmp / "rate.csv", kin.rate_table())
+            if track_cols is not None:
+                write_csv(tmp / "track.csv", track_cols)
+            _plot(kin, tmp / "kinetics.png", False, str(path))
+            write_json(tmp / "kinetics.json", doc)
+        outs.append(f"{folder}/")
     if as_json:
         click.echo(dumps(doc))
     elif not quiet:

@@ -3,11 +3,13 @@ from __future__ import annotations
 
 import click
 
+from ..app.applies import check_settings
 from ..app.document import file_document
-from ..app.registry import check_inputs, select
+from ..app.registry import DEFAULT_WORD, check_inputs, names, select
 from ..app.run import Run
 from ..app.settings import Settings, fields_info
 from .common import at_options, dumps, echo_moment, load_input, read_options
+from .conventions import command, force_option, json_option, output_option, quiet_option
 from ..measures.stacking import StackingSettings
 from ..report import check_folder, write_report
 
@@ -28,7 +30,7 @@ def option_name(param: str) -> str:
 def _option(name, default, meta):
     unit = meta["unit"]
     helptext = meta["help"] + (f" Unit: {unit}." if unit and unit != "bytes" else "")
-    metavar = meta["metavar"] or (unit.upper().replace("/", "_") if unit else None)
+    metavar = meta["metavar"] or (unit.upper() if unit else None)
     opt = option_name(name)
     if isinstance(default, bool):
         return click.option(f"{opt}/--no-{opt[2:]}", default=default, show_default=True,
@@ -145,37 +147,45 @@ def _print_summary(doc):
             for k, v in rx["class_fraction"].items() if rx["class_t2_logmean_ms"].get(k)))
 
 
-@click.command("measure")
-@click.argument("file", type=click.Path(dir_okay=False))
-@click.option("--only", default=None, metavar="NAMES",
-              help="Comma-separated measures to run (default: all that apply to the input). "
-                   "Default: stacking, order, phases, surface, pores, chords, correlation; "
-                   "opt-in: scattering, relaxation; 'default' stands for the default set "
-                   "(--only default,scattering).")
-@click.option("--json", "as_json", is_flag=True, help="Print only the JSON summary to stdout.")
-@click.option("-o", "--output", "outdir", type=click.Path(file_okay=False), default=None,
-              help="Write a report folder: summary.json, CSV tables, PNG figures.")
-@click.option("--force", is_flag=True, help="Write into an existing non-empty report folder.")
+def only_help(first: str = "Comma-separated measures to run (default: all that apply to "
+                             "the input).") -> str:
+    """The help of ``--only``: the default measures and the opt-in ones, from the registry."""
+    default = names(optional=False)
+    optin = [n for n in names() if n not in default]
+    return (f"{first} Default: {', '.join(default)}; opt-in: {', '.join(optin) or 'none'}; "
+            f"'{DEFAULT_WORD}' stands for the default set (--only {DEFAULT_WORD},"
+            f"{optin[0] if optin else default[0]}).")
+
+
+@command("measure")
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
+@click.option("--only", default=None, metavar="NAMES", help=only_help())
+@json_option("Print only the JSON summary on stdout (progress goes to stderr).")
+@output_option("folder", "Write a report folder: summary.json, CSV tables, PNG figures.")
+@force_option("Write into an existing non-empty report folder.")
 @measure_options
 @click.option("--no-plots", is_flag=True, help="With -o: write tables only, no PNG figures.")
-@click.option("-q", "--quiet", is_flag=True, help="No progress messages on stderr.")
+@quiet_option("No progress messages on stderr.")
 @at_options
 @read_options
-def measure(file, only, as_json, outdir, force, no_plots, quiet, at_progress, at_time, **kw):
+def measure(file, only, as_json, output, force, no_plots, quiet, at_progress, at_time, **kw):
     """Measure FILE: stacks, orientation order, phase fractions, surfaces, pore sizes,
     chords and the two-point correlation.
 
     Lengths in nm, angles in degrees. Without --json a short summary is printed;
-    -o DIR writes the full tables and figures. Prisms are rasterized to a phase grid
+    -o FOLDER writes the full tables and figures. Opt-in measures (listed under
+    --only) run when named in --only. Prisms are rasterized to a phase grid
     (solid, interlayer, gel pore, outside) for the grid measures; voxel volumes are
     measured as they are.
     """
     # check options before reading (the file's spacing is checked again below)
     opts = {k: kw.pop(k) for k in SETTINGS}
     settings = measure_settings(**opts, spacing=kw.get("spacing"))
+    outdir = output
     if outdir is not None:
         check_folder(outdir, force)
     obj, moment = load_input(file, kw, at_progress, at_time)
+    check_settings(obj, settings, path=file)
     echo_moment(moment, quiet)
     selected = select(only, obj)
     check_inputs(selected, obj, file)

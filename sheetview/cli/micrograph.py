@@ -17,9 +17,12 @@ import numpy as np
 from .._version import __version__
 from ..errors import OptionError
 from .common import dumps
+from .conventions import (command, force_option, json_option, lines_option, output_option,
+                          quiet_option, seed_option)
 from ..io.images import read_micrograph
 from ..io.output import atomic_path
 from ..measures.planar import describe
+from ..io.columns import with_units
 from ..report import atomic_folder, check_folder, write_csv, write_json
 from ..view import nice_length
 
@@ -37,7 +40,7 @@ def run_micrograph(path, *, pixel_size=None, threshold="otsu", solid=None, chann
     JSON document)."""
 
     if isinstance(lines, bool) or int(lines) != lines or not 1 <= lines <= 10_000_000:
-        raise OptionError(f"--lines: must be between 1 and 10,000,000, got {lines}")
+        raise OptionError(f"must be between 1 and 10,000,000, got {lines}", param="lines")
     mg = read_micrograph(path, pixel_size=pixel_size, threshold=threshold, solid=solid,
                          channel=channel, crop=crop, scale_bar=scale_bar)
     desc = describe(mg.mask, mg.pixel, valid=None if mg.valid.all() else mg.valid,
@@ -183,7 +186,7 @@ def overview_figure(mg, desc):
     ax4.set_xlim(0, 180)
     ax4.set_xticks([0, 45, 90, 135, 180])
     ax4.set_xlabel("layer angle (deg from +x)")
-    ax4.set_ylabel("energy fraction")
+    ax4.set_ylabel("fraction (squared-gradient weighted)")
     ax4.set_title(f"orientation: order {o.order:.2f}, coherence {o.coherence:.2f}",
                   fontsize=9)
     fig.suptitle(f"sheetview micrograph  |  pixel {mg.pixel:g} nm, {L} x {M} pixels",
@@ -199,10 +202,10 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
 
     with atomic_folder(outdir, force, kind="micrograph") as (tmp, final):
         write_json(tmp / "descriptors.json", doc)
-        write_csv(tmp / "chords.csv", desc.chords.table())
-        write_csv(tmp / "thickness.csv", desc.thickness.table())
-        write_csv(tmp / "s2.csv", desc.s2.table())
-        write_csv(tmp / "orientation.csv", desc.orientation.table())
+        write_csv(tmp / "chords.csv", with_units("chords", desc.chords.table()))
+        write_csv(tmp / "thickness.csv", with_units("thickness", desc.thickness.table()))
+        write_csv(tmp / "s2.csv", with_units("s2", desc.s2.table()))
+        write_csv(tmp / "orientation.csv", with_units("orientation", desc.orientation.table()))
         fig = overview_figure(mg, desc)
         with atomic_path(tmp / "overview.png") as p:
             fig.savefig(str(p), format="png", dpi=100)
@@ -210,9 +213,9 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
 
 
 # ====================================================================== command
-@click.command("micrograph")
-@click.argument("image", metavar="IMAGE")
-@click.option("--pixel-size", type=float, default=None, metavar="NM",
+@command("micrograph")
+@click.argument("image", metavar="IMAGE", type=click.Path(dir_okay=False))
+@click.option("--pixel", "pixel_size", type=float, default=None, metavar="NM",
               help="Edge of one pixel in nm (required unless the file gives it: TIFF "
                    "resolution tags, PNG pHYs, or a sheetview description).")
 @click.option("--threshold", default="otsu", show_default=True, metavar="otsu|VALUE",
@@ -228,22 +231,20 @@ def write_folder(outdir, mg, desc, doc, *, force: bool = False) -> list[Path]:
               help="A burned-in scale bar or information strip at the top or bottom edge: auto "
                    "leaves it out when found in a grey image, exclude looks in every image, "
                    "keep measures every pixel.")
-@click.option("--channel", default=None, metavar="r|g|b",
+@click.option("--channel", default=None, type=click.Choice(["r", "g", "b"]),
               help="Colour images: use one channel instead of the BT.709 luma.")
-@click.option("--lines", type=int, default=2000, show_default=True,
-              help="Isotropic random lines for the chord lengths.")
-@click.option("--seed", type=int, default=0, show_default=True,
-              help="Seed of the random lines.")
-@click.option("--json", "as_json", is_flag=True, help="Print the result document as JSON.")
-@click.option("-o", "--output", "outdir", default=None, metavar="FOLDER",
-              help="Write descriptors.json, CSV tables and overview.png to this folder.")
-@click.option("--force", is_flag=True, help="Write into an existing output folder.")
-@click.option("-q", "--quiet", is_flag=True, help="Print no summary.")
+@lines_option(2000, "Isotropic random lines for the chord lengths.")
+@seed_option()
+@json_option()
+@output_option("folder", "Write descriptors.json, CSV tables and overview.png into FOLDER.")
+@force_option("Write into an existing output folder.")
+@quiet_option("Print no summary.")
 def micrograph(image, pixel_size, threshold, solid, crop, scale_bar, channel, lines, seed,
-               as_json, outdir, force, quiet):
+               as_json, output, force, quiet):
     """Segment a micrograph (PNG, TIFF, JPEG) into solid and pore and measure it: area
     fraction, chord lengths (rows, columns, isotropic random lines), local thickness,
     two-point probability S2 and layer orientation. Lengths are nm."""
+    outdir = output
     if outdir is not None:
         check_folder(outdir, force)  # refuse before the work
     mg, desc, doc = run_micrograph(image, pixel_size=pixel_size, threshold=threshold,

@@ -1,6 +1,8 @@
-"""``sheetview section`` and ``sheetview project``: virtual micrographs of a structure."""
+"""``sheetview section``, ``project`` and ``compare``: virtual micrographs of a structure,
+and their comparison with a real micrograph."""
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import click
@@ -8,16 +10,22 @@ import numpy as np
 
 from ..errors import OptionError
 from .common import apply_at, at_options, dumps, echo_moment, load, parse_size, read_options
+from .conventions import (command, deprecated_option, force_option, json_option, lines_option,
+                          max_memory_option, output_option, quiet_option, seed_option, voxel_option,
+                          warn)
 from .. import pictures
+from ..app.applies import check_option
 from ..app.run import phase_grid
 from ..app.settings import Settings
+from ..grid import PhaseGrid
 from ..io.images import read_micrograph
 from ..io.output import atomic_path, check_writable
 from ..measures.compare import compare, virtual_images
 from ..measures.planar import describe
-from ..measures.sections import parse_axis_or_normal, projection, section, segment_projection
+from ..measures.sections import (centre_and_span, grid_centre_and_span, parse_axis_or_normal,
+                                 parse_vector, projection, section, segment_projection)
 from ..pictures import grey_rgb
-from ..report import write_csv
+from ..report import atomic_folder, check_folder, write_csv, write_json
 from ..structure import Structure
 from ..style import BACKGROUND, PHASE_COLOURS, PHASE_LABELS, PHASE_ORDER, section_rgb
 
@@ -28,14 +36,23 @@ def _parse_phases(text):
     names = [t.strip().lower() for t in str(text).split(",") if t.strip()]
     bad = [n for n in names if n not in _PHASE_CHOICES]
     if not names or bad:
-        raise OptionError(f"--solid-phases: expected names from {', '.join(_PHASE_CHOICES)}, "
-                          f"got {text!r}", param="solid_phases")
+        raise OptionError(f"expected names from {', '.join(_PHASE_CHOICES)}, got {text!r}",
+                          param="solid_phases")
     return tuple(names)
 
 
 def _grid_of(obj, voxel, max_memory, *, needed=True):
     """The phase grid of ``obj`` with the measure settings (``sheetview.app.run.phase_grid``,
-    the one builder); None when ``needed`` is False (prisms projected exactly)."""
+    the one builder); None when ``needed`` is False (prisms projected exactly). ``--voxel``
+    and ``--max-memory`` are refused where no grid is made (the one rule,
+    :mod:`sheetview.app.applies`)."""
+    for name, value in (("voxel", voxel), ("max_memory", max_memory)):
+        if value is not None:
+            check_option(needed and not isinstance(obj, PhaseGrid), name, obj,
+                         "prisms and solid bodies, which are rasterized at it (a voxel volume "
+                         "is its own grid)" if needed else
+                         "solid bodies and the sections of prisms, which are rasterized at it "
+                         "(prisms are projected exactly, without a grid)")
     if not needed:
         return None
     return phase_grid(obj, Settings(voxel=voxel, max_memory=parse_size(max_memory)))
@@ -45,14 +62,31 @@ def _describe(mask, valid, pixel, lines, seed):
     return describe(mask, pixel, valid=valid, seed=seed, n_lines=lines)
 
 
-def _open(path, out, force, read_kw, at_progress, at_time):
-    """Check the output names (before any work), read the input and take the moment."""
-    if out is not None:
-        for p in pictures.outputs(out).values():
+def _check_outputs(output, stem, force, kind):
+    """Check the outputs before any work: the folder of ``-o`` or the names of the
+    deprecated ``--out STEM``."""
+    if output is not None and stem is not None:
+        raise OptionError("give -o FOLDER (or the deprecated --out STEM), not both",
+                          param="output")
+    if output is not None:
+        check_folder(output, force)
+    if stem is not None:
+        for p in pictures.outputs(stem).values():
             check_writable(p, force)
-    obj, moment = apply_at(load(path, **read_kw), at_progress, at_time)
-    echo_moment(moment)
-    return obj, moment
+
+
+def _write_pictures(output, stem, force, kind, pic, pages, pixel, description, doc):
+    """Write the picture files: into the folder ``output`` (``KIND.png``, ``KIND.tif``,
+    ``KIND_data.tif``, ``KIND.json``), or the deprecated STEM files. Returns name -> path."""
+    if stem is not None:
+        files = pictures.write_picture(stem, pic, pages, pixel, description, force=force)
+        return {k: str(v) for k, v in files.items()}
+    with atomic_folder(output, force, kind=kind) as (tmp, final):
+        files = pictures.write_picture(tmp / kind, pic, pages, pixel, description)
+        out = {k: str(final / Path(v).name) for k, v in files.items()}
+        out["json"] = str(final / f"{kind}.json")
+        write_json(tmp / f"{kind}.json", {**doc, "files": out})
+    return out
 
 
 def _finish(doc, moment, notes, as_json, quiet, headline):
@@ -80,11 +114,12 @@ def _at(moment) -> dict:
 def _threshold(text, unit_range=False):
     if str(text).lower() == "otsu":
         return None
-    v = _number(text, "--threshold")
+    v = _number(text, "threshold")
     if unit_range and not 0 < v < 1:
-        raise OptionError(f"--threshold: a transmitted fraction between 0 and 1, got {text!r}")
+        raise OptionError(f"a transmitted fraction between 0 and 1, got {text!r}",
+                          param="threshold")
     if not np.isfinite(v):
-        raise OptionError(f"--threshold: must be finite, got {text!r}")
+        raise OptionError(f"must be finite, got {text!r}", param="threshold")
     return v
 
 
@@ -93,79 +128,135 @@ def _fmt_frac(d):
 
 
 def _common(f):
-    f = click.option("-q", "--quiet", is_flag=True, help="Print nothing but errors (and --json).")(f)
-    f = click.option("--seed", type=int, default=0, show_default=True,
-                     help="Seed of the random lines of --describe.")(f)
-    f = click.option("--lines", type=int, default=2000, show_default=True,
-                     help="Random lines of the chord distributions of --describe.")(f)
+    f = quiet_option()(f)
+    f = seed_option("Seed of the random lines of --describe.")(f)
+    f = lines_option(2000, "Random lines of the chord distributions of --describe.")(f)
     f = click.option("--describe", is_flag=True,
                      help="Add the 2D descriptors of the binary image (area fraction, chords, "
                           "local thickness, S2, orientation) to the output.")(f)
-    f = click.option("--json", "as_json", is_flag=True, help="Print the result as JSON on stdout.")(f)
-    f = click.option("--force", is_flag=True, help="Overwrite existing output files.")(f)
-    f = click.option("-o", "--out", "out", default=None, metavar="STEM",
-                     help="Write STEM.png and STEM.tif (picture with scale bar) and STEM_data.tif "
-                          "(the numbers).")(f)
-    f = click.option("--max-memory", default=None,
-                     help="Refuse a phase grid needing more than this (e.g. 8G).")(f)
-    f = click.option("--voxel", type=float, default=None,
-                     help="Voxel edge (nm) of the phase grid (default as for measure).")(f)
+    f = json_option()(f)
+    f = force_option()(f)
+    f = deprecated_option("--out", "stem", default=None, metavar="STEM", use="-o FOLDER",
+                          help="Deprecated: write STEM.png, STEM.tif and STEM_data.tif.")(f)
+    f = output_option("folder", "Write KIND.png and KIND.tif (the picture with a scale bar), "
+                                "KIND_data.tif (the numbers, pixel size in the resolution "
+                                "tags) and KIND.json into FOLDER (KIND: section or "
+                                "projection).")(f)
+    f = max_memory_option()(f)
+    f = voxel_option()(f)
     return f
 
 
 def _look(f):
     """The contrast options of a virtual transmission micrograph."""
-    f = click.option("--resolution", type=float, default=0.0, show_default=True,
+    f = click.option("--resolution", type=float, default=0.0, show_default=True, metavar="NM",
                      help="Projections: Gaussian blur, full width at half maximum in nm "
                           "(0: none).")(f)
-    f = click.option("--mfp", type=float, default=100.0, show_default=True,
-                     help="Projections: transmission length lambda (nm) of exp(-t / lambda); "
+    f = click.option("--mfp", type=float, default=100.0, show_default=True, metavar="NM",
+                     help="Projections: transmission length lambda in nm of exp(-t / lambda); "
                           "sets the contrast.")(f)
     return f
 
 
-@click.command("section")
-@click.argument("path", type=click.Path(dir_okay=False))
+def _finite(value, param):
+    v = float(value)
+    if not math.isfinite(v):
+        raise OptionError(f"must be a finite number of nm, got {value!r}", param=param)
+    return v
+
+
+def _section_offset(obj, grid, n, by_normal, at, origin, legacy_offset):
+    """The plane's signed distance from the sample's centre along ``n`` (what
+    :func:`sheetview.measures.sections.section` takes) from the absolute position: ``--at``
+    (a coordinate along ``--axis``) or ``--origin`` (a point of the plane), default the
+    centre; the deprecated ``--offset`` is that distance itself. Refuses a plane outside
+    the sample."""
+    given = [k for k, v in (("at", at), ("origin", origin), ("offset", legacy_offset))
+             if v is not None]
+    if len(given) > 1:
+        raise OptionError(f"give the plane's position once (got {', '.join('<<' + g + '>>' for g in given)})",
+                          param=given[0])
+    centre, span = centre_and_span(obj, grid)
+    if at is not None:
+        check_option(not by_normal, "at", "a plane given by --normal",
+                     "a plane across --axis (the coordinate along it, in nm); a plane given "
+                     "by --normal takes <<origin>>")
+        off = _finite(at, "at") - float(centre @ n)
+        param = "at"
+    elif origin is not None:
+        check_option(by_normal, "origin", "a plane across --axis",
+                     "a plane given by --normal (a point of it, X,Y,Z in nm); across --axis "
+                     "the plane's coordinate is <<at>>")
+        off = float((parse_vector(origin, "<<origin>>") - centre) @ n)
+        param = "origin"
+    elif legacy_offset is not None:
+        off, param = _finite(legacy_offset, "offset"), "offset"
+    else:
+        return 0.0
+    half = 0.5 * float(np.abs(span) @ np.abs(n))
+    if abs(off) > half:
+        lo, hi = float(centre @ n) - half, float(centre @ n) + half
+        raise OptionError(f"puts the plane outside the sample (it spans {lo:.4g} to {hi:.4g} nm "
+                          f"along the normal)", param=param)
+    return off
+
+
+@command("section")
+@click.argument("path", metavar="FILE", type=click.Path(dir_okay=False))
 @click.option("--axis", default=None, type=click.Choice(["x", "y", "z"], case_sensitive=False),
-              help="Plane perpendicular to this axis (default z).")
-@click.option("--normal", default=None, metavar="NX,NY,NZ", help="Plane normal (instead of --axis).")
-@click.option("--offset", type=float, default=0.0, show_default=True,
-              help="Signed distance (nm) of the plane from the domain's centre along the normal.")
-@click.option("--pixel", type=float, default=None, help="Pixel edge in nm (default: the voxel edge).")
-@click.option("--solid-phases", default="solid,interlayer", show_default=True,
+              help="Plane across this axis (default z).")
+@click.option("--at", type=float, default=None, metavar="NM",
+              help="Position of the plane along --axis: its coordinate in nm (default: the "
+                   "domain's centre).")
+@click.option("--normal", default=None, metavar="X,Y,Z",
+              help="Plane normal (instead of --axis).")
+@click.option("--origin", default=None, metavar="X,Y,Z",
+              help="A point of the plane given by --normal, in nm (default: the domain's "
+                   "centre).")
+@deprecated_option("--offset", "legacy_offset", type=float, default=None, metavar="NM",
+                   use="--at (a coordinate) or --origin (a point)",
+                   help="Deprecated: distance of the plane from the domain's centre, nm.")
+@click.option("--pixel", type=float, default=None, metavar="NM",
+              help="Pixel edge of the picture in nm (default: the voxel edge).")
+@click.option("--solid-phases", default="solid,interlayer", show_default=True, metavar="NAMES",
               help="Phases counted as solid in the binary image of --describe (a micrograph "
                    "rarely resolves interlayer water from the sheets).")
 @_common
 @at_options
 @read_options
-def section_cmd(path, axis, normal, offset, pixel, solid_phases, voxel, max_memory, out, force,
-                as_json, describe, lines, seed, quiet, at_progress, at_time, **read_kw):
+def section_cmd(path, axis, at, normal, origin, legacy_offset, pixel, solid_phases, voxel,
+                max_memory, output, stem, force, as_json, describe, lines, seed, quiet,
+                at_progress, at_time, **read_kw):
     """A virtual section: the phase image (solid, interlayer, gel pore) of any plane of a
-    structure or volume, as PNG/TIFF with a scale bar."""
+    structure or volume, as PNG/TIFF with a scale bar. Positions are coordinates in nm."""
 
     phases = _parse_phases(solid_phases)
     n = parse_axis_or_normal(axis, normal)
-    obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
-    img = section(obj, n, offset, pixel=pixel, grid=_grid_of(obj, voxel, max_memory))
+    _check_outputs(output, stem, force, "section")
+    obj, moment = apply_at(load(path, **read_kw), at_progress, at_time)
+    echo_moment(moment)
+    grid = _grid_of(obj, voxel, max_memory)
+    offset = _section_offset(obj, grid, n, normal is not None, at, origin, legacy_offset)
+    img = section(obj, n, offset, pixel=pixel, grid=grid)
     doc = {"file": str(path), **img.to_dict()}
     if describe:
         mask = img.mask(phases) & img.valid
         doc["solid_phases"] = list(phases)
         doc["descriptors"] = _describe(mask, img.valid, img.pixel, lines, seed).to_dict()
-    if out is not None:
+    if output is not None or stem is not None:
         present = set(np.unique(img.labels).tolist())
         legend = [(PHASE_COLOURS[c], PHASE_LABELS[c]) for c in PHASE_ORDER
                   if c in present and c != 0]
-        cap = (f"{'xyz'[int(np.argmax(np.abs(n)))]} = {float(img.origin[int(np.argmax(np.abs(n)))]):.3g} nm"
-               if np.max(np.abs(n)) > 1 - 1e-12 else
-               f"n = ({n[0]:.2f}, {n[1]:.2f}, {n[2]:.2f}), offset {offset:g} nm")
+        a = int(np.argmax(np.abs(n)))
+        cap = (f"{'xyz'[a]} = {float(img.origin[a]):.3g} nm" if np.max(np.abs(n)) > 1 - 1e-12
+               else f"n = ({n[0]:.2f}, {n[1]:.2f}, {n[2]:.2f}) through "
+                    f"({img.origin[0]:.3g}, {img.origin[1]:.3g}, {img.origin[2]:.3g}) nm")
         pic = pictures.render(section_rgb(img.labels, background=BACKGROUND), img.pixel,
                               caption=cap, legend=legend)
-        files = pictures.write_picture(out, pic, {"phase": img.labels}, img.pixel,
-                                       {"kind": "section", "codes": {str(k): v for k, v in img.names.items()},
-                                        "off_grid": 255, "source": str(path),
-                                        **_at(moment)}, force=force)
-        doc["files"] = {k: str(v) for k, v in files.items()}
+        doc["files"] = _write_pictures(
+            output, stem, force, "section", pic, {"phase": img.labels}, img.pixel,
+            {"kind": "section", "codes": {str(k): v for k, v in img.names.items()},
+             "off_grid": 255, "source": str(path), **_at(moment)}, doc)
     _finish(doc, moment, img.notes, as_json, quiet,
             f"{path}: section {doc['shape_rows_cols'][1]} x {doc['shape_rows_cols'][0]} px "
             f"at {img.pixel:g} nm; {_fmt_frac(img.fractions())}")
@@ -178,60 +269,107 @@ def _echo_descriptors(d):
         click.echo(f"  {k}: {v:.4g}" if isinstance(v, float) else f"  {k}: {v}")
 
 
-@click.command("project")
-@click.argument("path", type=click.Path(dir_okay=False))
+def _slab_offset(obj, grid, axis, at, legacy_offset, slab):
+    """The slab centre's distance from the sample's centre along ``axis`` (what
+    :func:`sheetview.measures.sections.projection` takes) from ``--at`` (the coordinate of
+    the slab's centre) or the deprecated ``--offset``; refuses a slab that misses the
+    sample."""
+    if at is not None and legacy_offset is not None:
+        raise OptionError("give the slab's position once (--at)", param="at")
+    if at is None and legacy_offset is None:
+        return 0.0
+    param = "at" if at is not None else "offset"
+    check_option(slab is not None, param, "a projection of the whole sample",
+                 "a slab: give its thickness with <<slab>>")
+    a = "xyz".index(str(axis).lower())
+    if isinstance(obj, Structure):
+        centre, span = centre_and_span(obj)
+    else:
+        centre, span = grid_centre_and_span(grid)
+    off = (_finite(at, "at") - float(centre[a])) if at is not None else _finite(legacy_offset,
+                                                                              "offset")
+    lo, hi = float(centre[a] - 0.5 * span[a]), float(centre[a] + 0.5 * span[a])
+    z0, z1 = float(centre[a]) + off - 0.5 * slab, float(centre[a]) + off + 0.5 * slab
+    if not slab > 0 or z1 <= lo or z0 >= hi:
+        raise OptionError(f"the slab {z0:.4g} to {z1:.4g} nm along {axis} misses the sample "
+                          f"({lo:.4g} to {hi:.4g} nm)", param=param)
+    return off
+
+
+@command("project")
+@click.argument("path", metavar="FILE", type=click.Path(dir_okay=False))
 @click.option("--axis", default="z", show_default=True,
-              type=click.Choice(["x", "y", "z"], case_sensitive=False), help="Viewing direction.")
-@click.option("--slab", type=float, default=None,
+              type=click.Choice(["x", "y", "z"], case_sensitive=False),
+              help="Viewing direction: the slab lies across this axis.")
+@click.option("--slab", type=float, default=None, metavar="NM",
               help="Slab thickness in nm (default: the whole domain).")
-@click.option("--offset", type=float, default=0.0, show_default=True,
-              help="Slab centre: signed distance (nm) from the domain's centre along the axis.")
-@click.option("--pixel", type=float, default=None,
-              help="Pixel edge in nm (default: about 512 pixels across).")
+@click.option("--at", type=float, default=None, metavar="NM",
+              help="Centre of the slab: its coordinate along --axis in nm (default: the "
+                   "domain's centre).")
+@deprecated_option("--offset", "legacy_offset", type=float, default=None, metavar="NM",
+                   use="--at (the coordinate of the slab's centre)",
+                   help="Deprecated: slab centre from the domain's centre, nm.")
+@click.option("--pixel", type=float, default=None, metavar="NM",
+              help="Pixel edge of the picture in nm (default: about 512 pixels across).")
 @_look
-@click.option("--threshold", default="otsu", show_default=True,
+@click.option("--threshold", default="otsu", show_default=True, metavar="otsu|VALUE",
               help="Segmentation of --describe: 'otsu' or an intensity in 0..1 below which a "
                    "pixel is solid.")
 @_common
 @at_options
 @read_options
-def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, voxel, max_memory,
-                out, force, as_json, describe, lines, seed, quiet, at_progress, at_time, **read_kw):
+def project_cmd(path, axis, slab, at, legacy_offset, pixel, mfp, resolution, threshold, voxel,
+                max_memory, output, stem, force, as_json, describe, lines, seed, quiet,
+                at_progress, at_time, **read_kw):
     """A virtual transmission micrograph: solid thickness through a slab projected along an
     axis, shown as exp(-t / lambda), as PNG/TIFF with a scale bar."""
 
     thr = _threshold(threshold, unit_range=True)
-    obj, moment = _open(path, out, force, read_kw, at_progress, at_time)
-    img = projection(obj, axis, slab, offset=offset, pixel=pixel, mfp=mfp, resolution=resolution,
-                     grid=_grid_of(obj, voxel, max_memory, needed=not isinstance(obj, Structure)))
+    _check_outputs(output, stem, force, "projection")
+    obj, moment = apply_at(load(path, **read_kw), at_progress, at_time)
+    echo_moment(moment)
+    grid = _grid_of(obj, voxel, max_memory, needed=not isinstance(obj, Structure))
+    offset = _slab_offset(obj, grid, axis, at, legacy_offset, slab)
+    img = projection(obj, axis, slab, offset=offset, pixel=pixel, mfp=mfp,
+                     resolution=resolution, grid=grid)
     doc = {"file": str(path), **img.to_dict()}
     if describe:
         mask, used = segment_projection(img, thr)
         doc["threshold"] = used
         doc["descriptors"] = _describe(mask, img.valid, img.pixel, lines, seed).to_dict()
-    if out is not None:
+    if output is not None or stem is not None:
         rgb = pictures.grey_rgb(img.intensity, img.valid)
         cap = f"{img.axis} {img.slab[0]:.3g} to {img.slab[1]:.3g} nm, lambda {img.mfp:g} nm"
         pic = pictures.render(rgb, img.pixel, caption=cap)
-        files = pictures.write_picture(
-            out, pic, {"intensity": img.intensity, "thickness_nm": img.thickness,
-                       "valid": img.valid.astype(np.uint8)}, img.pixel,
+        doc["files"] = _write_pictures(
+            output, stem, force, "projection", pic,
+            {"intensity": img.intensity, "thickness_nm": img.thickness,
+             "valid": img.valid.astype(np.uint8)}, img.pixel,
             {"kind": "projection", "axis": img.axis, "slab_nm": list(img.slab), "mfp_nm": img.mfp,
              "resolution_fwhm_nm": img.resolution, "right": img.right, "up": img.up,
-             "source": str(path), **_at(moment)}, force=force)
-        doc["files"] = {k: str(v) for k, v in files.items()}
+             "source": str(path), **_at(moment)}, doc)
     _finish(doc, moment, img.notes, as_json, quiet,
             f"{path}: projection along {img.axis}, {img.thickness.shape[1]} x "
             f"{img.thickness.shape[0]} px at {img.pixel:g} nm; slab {img.slab[0]:.4g} to "
             f"{img.slab[1]:.4g} nm; mean solid thickness {doc['mean_thickness_nm'] or 0:.3g} nm")
 
 
-@click.command("compare")
-@click.argument("path", type=click.Path(dir_okay=False))
-@click.argument("image", type=click.Path(dir_okay=False))
-@click.option("--pixel-size", type=float, default=None,
+def legacy_png(output, command_name: str):
+    """``-o PLOT.png`` of the release before, when ``-o`` named the plot: True (with a
+    deprecation warning) when ``output`` ends in .png."""
+    if output is not None and str(output).lower().endswith(".png"):
+        warn(f"-o PLOT.png is deprecated for `sheetview {command_name}` (-o names a folder "
+             f"now); the plot is written to {output}")
+        return True
+    return False
+
+
+@command("compare")
+@click.argument("path", metavar="FILE", type=click.Path(dir_okay=False))
+@click.argument("image", metavar="IMAGE", type=click.Path(dir_okay=False))
+@click.option("--pixel", "pixel_size", type=float, default=None, metavar="NM",
               help="Pixel edge of IMAGE in nm (needed unless its TIFF resolution tags say).")
-@click.option("--threshold", default="otsu", show_default=True,
+@click.option("--threshold", default="otsu", show_default=True, metavar="otsu|VALUE",
               help="Segmentation of IMAGE: 'otsu' or a value in the image's own scale.")
 @click.option("--solid", "solid_is", type=click.Choice(["bright", "dark"]), default="bright",
               show_default=True, help="Whether the solid is the bright or the dark phase of IMAGE "
@@ -242,39 +380,44 @@ def project_cmd(path, axis, slab, offset, pixel, mfp, resolution, threshold, vox
 @click.option("--axis", default="z", show_default=True,
               type=click.Choice(["x", "y", "z"], case_sensitive=False),
               help="Sections across, or projections along, this axis.")
-@click.option("--count", type=int, default=5, show_default=True,
+@click.option("--count", type=int, default=5, show_default=True, metavar="N",
               help="Virtual micrographs, evenly spread through the middle 80 %% of the domain.")
-@click.option("--slab", type=float, default=None,
+@click.option("--slab", type=float, default=None, metavar="NM",
               help="Projections: slab thickness in nm (default: the domain split in --count).")
 @_look
-@click.option("--solid-phases", default="solid,interlayer", show_default=True,
+@click.option("--solid-phases", default="solid,interlayer", show_default=True, metavar="NAMES",
               help="Sections: phases counted as solid.")
-@click.option("--csv", "csv_out", type=click.Path(dir_okay=False), default=None,
-              help="Write the distances: one row per distribution.")
-@click.option("-o", "--output", "plot_out", type=click.Path(dir_okay=False), default=None,
-              help="Figure (PNG): the images side by side and the overlaid distributions.")
-@click.option("--voxel", type=float, default=None, help="Voxel edge (nm) of the phase grid.")
-@click.option("--max-memory", default=None, help="Refuse a phase grid needing more than this.")
-@click.option("--lines", type=int, default=2000, show_default=True,
-              help="Random lines per image for the chord distributions.")
-@click.option("--seed", type=int, default=0, show_default=True)
-@click.option("--json", "as_json", is_flag=True, help="Print the result as JSON on stdout.")
-@click.option("--force", is_flag=True, help="Overwrite existing outputs.")
-@click.option("-q", "--quiet", is_flag=True, help="Print nothing but errors (and --json).")
+@output_option("folder", "Write distances.csv (one row per distribution), compare.png (the "
+                         "images side by side and the overlaid distributions) and "
+                         "compare.json into FOLDER.")
+@deprecated_option("--csv", "csv_out", type=click.Path(dir_okay=False), default=None,
+                   metavar="FILE", use="-o FOLDER (writes distances.csv)",
+                   help="Deprecated: write the distances to FILE.")
+@voxel_option()
+@max_memory_option()
+@lines_option(2000, "Random lines per image for the chord distributions.")
+@seed_option()
+@json_option()
+@force_option()
+@quiet_option()
 @at_options
 @read_options
 def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count, slab, mfp,
-                resolution, solid_phases, csv_out, plot_out, voxel, max_memory, lines, seed,
+                resolution, solid_phases, output, csv_out, voxel, max_memory, lines, seed,
                 as_json, force, quiet, at_progress, at_time, **read_kw):
     """Put a structure's virtual micrographs beside a real micrograph IMAGE: the same 2D
     descriptors for both, and the Kolmogorov-Smirnov and Wasserstein distances between
     their chord and local-thickness distributions."""
 
+    plot_out = output if legacy_png(output, "compare") else None
+    folder = None if plot_out is not None else output
     outs = [p for p in (csv_out, plot_out) if p]
     if len(set(map(str, outs))) != len(outs):
-        raise OptionError("--csv and --output name the same file")
+        raise OptionError("--csv and -o name the same file", param="output")
     for p in outs:
         check_writable(p, force)
+    if folder is not None:
+        check_folder(folder, force)
     phases = _parse_phases(solid_phases)
     thr = _threshold(threshold)
     thr = "otsu" if thr is None else thr
@@ -298,6 +441,12 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
         write_csv(csv_out, cmp_.table(), force=force)
     if plot_out:
         _plot_compare(mg, vis[0], cmp_, plot_out, force, str(path), str(image))
+    if folder is not None:
+        with atomic_folder(folder, force, kind="compare") as (tmp, final):
+            write_csv(tmp / "distances.csv", cmp_.table())
+            _plot_compare(mg, vis[0], cmp_, tmp / "compare.png", False, str(path), str(image))
+            write_json(tmp / "compare.json", doc)
+        outs.append(str(folder))
     if as_json:
         click.echo(dumps(doc))
     elif not quiet:
@@ -315,11 +464,11 @@ def compare_cmd(path, image, pixel_size, threshold, solid_is, kind, axis, count,
             click.echo(f"  wrote {p}")
 
 
-def _number(text, what):
+def _number(text, param):
     try:
         return float(text)
     except ValueError:
-        raise OptionError(f"{what}: expected 'otsu' or a number, got {text!r}") from None
+        raise OptionError(f"expected 'otsu' or a number, got {text!r}", param=param) from None
 
 
 def _plot_compare(mg, vi, cmp_, path, force, name_v, name_o):

@@ -11,6 +11,8 @@ from ..domain import Box, Sphere
 from ..io import write
 from ..io.output import check_writable
 from ..synth import pack_stacks, write_truth
+from ..app.applies import not_applicable
+from .conventions import command, force_option, output_option, seed_option
 
 
 def _parse_triple(value, option, positive=False):
@@ -19,50 +21,52 @@ def _parse_triple(value, option, positive=False):
     try:
         parts = tuple(float(v) for v in value.replace(" ", "").split(","))
     except ValueError:
-        raise OptionError(f"{option}: expected three numbers separated by commas, got {value!r}") from None
+        raise OptionError(f"expected three numbers separated by commas, got {value!r}",
+                          param=option) from None
     if len(parts) != 3 or not all(math.isfinite(p) for p in parts):
-        raise OptionError(f"{option}: expected three finite numbers separated by commas, got {value!r}")
+        raise OptionError(f"expected three finite numbers separated by commas, got {value!r}",
+                          param=option)
     if positive and min(parts) <= 0:
-        raise OptionError(f"{option}: lengths must be positive nm, got {value!r}")
+        raise OptionError(f"lengths must be positive nm, got {value!r}", param=option)
     return parts
 
 
 def _domain(sphere, box, periodic):
 
     if sphere is not None and box is not None:
-        raise OptionError("give either --sphere R or --box LX,LY,LZ, not both")
+        raise OptionError("give either <<sphere>> R or <<box>> LX,LY,LZ, not both", param="sphere")
     if sphere is None and box is None:
-        raise OptionError("give a domain: --sphere R (nm, centred at the origin) or --box LX,LY,LZ "
-                          "(nm, from the origin)")
+        raise OptionError("give a domain: <<sphere>> R (nm, centred at the origin) or <<box>> "
+                          "LX,LY,LZ (nm, from the origin)", param="box")
     if sphere is not None:
         if periodic:
-            raise OptionError("--periodic applies to --box only")
+            raise not_applicable("periodic", "a sphere", "a box (<<box>>)")
         if not (math.isfinite(sphere) and sphere > 0):
-            raise OptionError(f"--sphere: the radius must be a positive number of nm, got {sphere}")
+            raise OptionError(f"the radius must be a positive number of nm, got {sphere}",
+                              param="sphere")
         return Sphere((0.0, 0.0, 0.0), sphere)
-    L = _parse_triple(box, "--box", positive=True)
+    L = _parse_triple(box, "box", positive=True)
     return Box((0.0, 0.0, 0.0), L, periodic)
 
 
-@click.command()
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="Prism table to write (.csv, .npz or .parquet).")
-@click.option("--sphere", type=float, default=None, metavar="R",
-              help="Spherical pore of radius R nm centred at the origin.")
+@command()
+@output_option("file", "Prism table to write (.csv, .npz or .parquet).", required=True)
+@click.option("--sphere", type=float, default=None, metavar="NM",
+              help="Spherical pore of this radius in nm, centred at the origin.")
 @click.option("--box", default=None, metavar="LX,LY,LZ",
-              help="Box from the origin to (LX, LY, LZ) nm.")
+              help="Box from the origin to (LX, LY, LZ), in nm.")
 @click.option("--periodic", is_flag=True, help="Make the box periodic (no walls).")
-@click.option("--stacks", "n_stacks", type=int, default=None,
+@click.option("--stacks", "n_stacks", type=int, default=None, metavar="N",
               help="Stacks to place (fewer if the domain jams; see --max-attempts)  "
                    "[default: 100; with --target-fraction: no limit]")
-@click.option("--target-fraction", type=float, default=None, metavar="F",
+@click.option("--target-fraction", type=float, default=None, metavar="FRACTION",
               help="Fill mode: place stacks into the remaining gaps, shrinking them to "
                    "fit, until the C-S-H volume (prisms + interlayer gaps) is this "
                    "fraction of the domain (0 < F < 1) or nothing more fits.")
 @click.option("--fill-voxel", type=float, default=None, metavar="NM",
-              help="Fill mode: voxel of the free-space map, nm  "
+              help="Fill mode: voxel of the free-space map in nm  "
                    "[default: 0.4 x edge, coarser above a 63 nm box]")
-@click.option("--fill-tries", type=int, default=32, show_default=True,
+@click.option("--fill-tries", type=int, default=32, show_default=True, metavar="N",
               help="Fill mode: proposals drawn per site; the one fitting the most volume "
                    "is kept (1: orientations and relative sizes as drawn).")
 @click.option("--seeding", type=click.Choice(["volume", "wall"]), default="volume",
@@ -72,7 +76,7 @@ def _domain(sphere, box, periodic):
               default="isotropic", show_default=True,
               help="Stack normals: uniform, Watson about the inward wall normal (--kappa), "
                    "or all equal to --normal.")
-@click.option("--kappa", type=float, default=10.0, show_default=True,
+@click.option("--kappa", type=float, default=10.0, show_default=True, metavar="NUMBER",
               help="Watson concentration for --orientation wall (density ~ exp(kappa cos^2); "
                    "negative: girdle).")
 @click.option("--normal", default="0,0,1", show_default=True, metavar="X,Y,Z",
@@ -81,26 +85,27 @@ def _domain(sphere, box, periodic):
               help="Layers per stack: fixed:N, uniform:A,B or poisson:M (1 + Poisson(M-1)).")
 @click.option("--lateral", default="lognormal:5,0.3", show_default=True, metavar="SPEC",
               help="Layer diameter in nm: fixed:D, uniform:A,B or lognormal:MEDIAN,SIGMA.")
-@click.option("--edge", type=float, default=1.0, show_default=True,
-              help="Edge of the equilateral triangles, nm.")
-@click.option("--repeat", type=float, default=1.4, show_default=True,
-              help="Distance between layer mid-planes in a stack, nm.")
-@click.option("--thickness", type=float, default=0.7, show_default=True,
-              help="Prism thickness, nm (below --repeat).")
-@click.option("--clearance", type=float, default=0.3, show_default=True,
-              help="Least distance between prisms of different stacks, nm.")
-@click.option("--wall-gap", type=float, default=0.3, show_default=True,
-              help="Extra distance between wall-seeded stacks and the wall, nm.")
-@click.option("--tilt-angle", type=float, default=0.0, show_default=True,
-              help="Tilt of a defect layer about an in-plane axis, degrees.")
+@click.option("--edge", type=float, default=1.0, show_default=True, metavar="NM",
+              help="Edge of the equilateral triangles in nm.")
+@click.option("--repeat", type=float, default=1.4, show_default=True, metavar="NM",
+              help="Interlayer repeat in nm: the distance between layer mid-planes in a stack.")
+@click.option("--thickness", type=float, default=0.7, show_default=True, metavar="NM",
+              help="Prism thickness in nm (below --repeat).")
+@click.option("--clearance", type=float, default=0.3, show_default=True, metavar="NM",
+              help="Least distance between prisms of different stacks, in nm.")
+@click.option("--wall-gap", type=float, default=0.3, show_default=True, metavar="NM",
+              help="Extra distance between wall-seeded stacks and the wall, in nm.")
+@click.option("--tilt-angle", type=float, default=0.0, show_default=True, metavar="DEG",
+              help="Tilt of a defect layer about an in-plane axis, in deg.")
 @click.option("--tilt-probability", type=float, default=0.0, show_default=True,
+              metavar="FRACTION",
               help="Probability that a stack gets one tilted defect layer on top.")
 @click.option("--born/--no-born", default=False, show_default=True,
               help="Add a 'born' column (stacks in placement order, one layer per step).")
-@click.option("--max-attempts", type=int, default=None,
+@click.option("--max-attempts", type=int, default=None, metavar="N",
               help="Candidate stacks to try at most  [default: 100 x stacks + 1000]")
-@click.option("--seed", type=int, default=0, show_default=True, help="Random seed.")
-@click.option("--truth", type=click.Path(dir_okay=False), default=None, metavar="FILE.csv",
+@seed_option("Seed of every random choice.")
+@click.option("--truth", type=click.Path(dir_okay=False), default=None, metavar="FILE",
               help="Also write the per-prism ground truth (stack, layer, tilted, "
                    "stacking number) as CSV.")
 @click.option("--particles", type=click.Choice(["spheres", "layered"]), default=None,
@@ -110,7 +115,7 @@ def _domain(sphere, box, periodic):
 @click.option("--radius", default="lognormal:1.5,0.2", show_default=True, metavar="SPEC",
               help="With --particles spheres: sphere radius in nm (fixed:R, uniform:A,B or "
                    "lognormal:MEDIAN,SIGMA).")
-@click.option("--force", is_flag=True, help="Overwrite existing outputs.")
+@force_option()
 def synth(output, sphere, box, periodic, n_stacks, target_fraction, fill_voxel, fill_tries,
           seeding, orientation, kappa, normal, layers, lateral, edge, repeat, thickness,
           clearance, wall_gap, tilt_angle, tilt_probability, born, max_attempts, seed, truth,
@@ -133,16 +138,17 @@ def synth(output, sphere, box, periodic, n_stacks, target_fraction, fill_voxel, 
 
 
     dom = _domain(sphere, box, periodic)
-    nrm = _parse_triple(normal, "--normal")
+    nrm = _parse_triple(normal, "normal")
     suffix = Path(output).suffix.lower()
     if suffix not in {".csv", ".npz", ".parquet", ".pq"}:
-        raise OptionError(f"-o: write the structure as .csv, .npz or .parquet, not "
-                          f"{suffix or '(no suffix)'!r}", path=output)
+        raise OptionError(f"write the structure as .csv, .npz or .parquet, not "
+                          f"{suffix or '(no suffix)'!r}", path=output, param="output")
     if truth is not None:
         if Path(truth).suffix.lower() != ".csv":
-            raise OptionError("--truth: the ground-truth table is written as .csv", path=truth)
+            raise OptionError("the ground-truth table is written as .csv", path=truth,
+                              param="truth")
         if Path(truth).resolve() == Path(output).resolve():
-            raise OptionError("--truth must differ from -o", path=truth)
+            raise OptionError("<<truth>> must differ from <<output>>", path=truth, param="truth")
         check_writable(truth, force)
     check_writable(output, force)
     if particles is not None:

@@ -4,8 +4,14 @@ from __future__ import annotations
 
 import click
 
+from pathlib import Path
+
+from ..app.applies import check_option, kind_words
+from ..app.run import phase_grid as phase_grid_of
+from ..app.settings import Settings
 from ..errors import OptionError
 from .common import apply_at, at_options, echo_moment, load, read_options
+from .conventions import command, force_option, output_option, voxel_option
 from ..grid import PhaseGrid
 from ..io.output import check_writable
 from ..structure import Structure
@@ -18,23 +24,24 @@ _CAMERAS = ["iso", "cut", "+x", "-x", "+y", "-y", "+z", "-z"]
 
 def _plane_options(f):
     opts = [
-        click.option("--slice-axis", type=click.Choice(["x", "y", "z"]), default=None,
-                     help="Cut at a plane across this axis (with --slice-at)."),
-        click.option("--slice-at", type=float, default=None,
-                     help="Position of the cut along --slice-axis in nm (default: the "
+        click.option("--axis", type=click.Choice(["x", "y", "z"]), default=None,
+                     help="Cut at a plane across this axis (position: --at)."),
+        click.option("--at", type=float, default=None, metavar="NM",
+                     help="Position of the cut: its coordinate along --axis in nm (default: the "
                           "domain's centre)."),
-        click.option("--slice-normal", default=None,
-                     help="Cut at a plane of any orientation: its normal as X,Y,Z."),
-        click.option("--slice-origin", default=None,
-                     help="A point of that plane as X,Y,Z in nm (default: the domain's centre)."),
-        click.option("--voxel", type=float, default=None,
-                     help="Voxel edge in nm of the phase grid shown on the cut (default: "
-                          "chosen from the sheet thickness and repeat)."),
+        click.option("--normal", default=None, metavar="X,Y,Z",
+                     help="Cut at a plane of any orientation: its normal."),
+        click.option("--origin", default=None, metavar="X,Y,Z",
+                     help="A point of the plane given by --normal, in nm (default: the "
+                          "domain's centre)."),
+        voxel_option("Voxel edge in nm of the phase grid shown on the cut and exported "
+                     "(default: chosen from the sheet thickness and repeat)."),
         click.option("--colour-by", "colour_by", type=click.Choice(_COLOURINGS),
                      default="stacking", show_default=True,
                      help="What the prism colours show: stacking number, stack, local order, "
                           "angle to the director or to the wall (deg), birth time, tag."),
         click.option("--export", "export_dir", type=click.Path(file_okay=False), default=None,
+                     metavar="FOLDER",
                      help="Also write FOLDER/NAME_prisms.vtp (prisms with every per-prism "
                           "array, computed ones included) and FOLDER/NAME_phases.vti (the "
                           "phase grid) for general-purpose viewers."),
@@ -44,15 +51,28 @@ def _plane_options(f):
     return f
 
 
+def _check_export(structure, export_dir, force):
+    """Check the folder and the files of ``--export`` before anything is written."""
+    if export_dir is None:
+        return
+    folder = Path(export_dir)
+    if not folder.is_dir():
+        raise OptionError(f"the folder {str(folder)!r} does not exist", param="export_dir")
+    stem = Path(structure.source).stem if structure.source else "structure"
+    for name in (f"{stem}_prisms.vtp", f"{stem}_phases.vti"):
+        check_writable(folder / name, force)
+
+
 def _structure(file, read_opts, what, at_progress=None, at_time=None, with_moment=False):
 
     obj = load(file, **read_opts)
     if not isinstance(obj, Structure):
         kind = type(obj).__name__
         hint = ("use `sheetview slices` to look at a voxel volume" if kind == "PhaseGrid"
-                else "convert it or read it as sheets (--as sheets)")
-        raise OptionError(f"`sheetview {what}` draws prisms, but this file holds a {kind}; {hint}",
-                          path=file)
+                else "read it as sheets (--as sheets), or look at its phases with "
+                     "`sheetview slices`")
+        raise OptionError(f"`sheetview {what}` draws prisms, but this file holds "
+                          f"{kind_words(obj)}; {hint}", path=file)
     obj, moment = apply_at(obj, at_progress, at_time)
     echo_moment(moment)
     return (obj, moment) if with_moment else obj
@@ -66,9 +86,8 @@ def moment_caption(moment) -> str | None:
             f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms")
 
 
-def _plane(structure, slice_axis, slice_at, slice_normal, slice_origin):
-    return slice_plane(structure.domain, axis=slice_axis, at=slice_at, normal=slice_normal,
-                       origin=slice_origin)
+def _plane(structure, axis, at, normal, origin):
+    return slice_plane(structure.domain, axis=axis, at=at, normal=normal, origin=origin)
 
 
 def _export(structure, export_dir, grid, voxel, force, cache):
@@ -77,16 +96,16 @@ def _export(structure, export_dir, grid, voxel, force, cache):
         click.echo(f"wrote {p}", err=True)
 
 
-@click.command()
-@click.argument("file", type=click.Path(dir_okay=False))
+@command()
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
 @read_options
 @_plane_options
-@click.option("--step", type=float, default=None,
+@click.option("--step", type=float, default=None, metavar="NM",
               help="Distance in nm the cut moves per key press (default: the repeat).")
-@click.option("--force", is_flag=True, help="Overwrite files written by --export.")
+@force_option("Overwrite files written by --export.")
 @at_options
-def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_by, export_dir,
-         step, force, at_progress, at_time, **read_opts):
+def view(file, axis, at, normal, origin, voxel, colour_by, export_dir, step, force, at_progress,
+         at_time, **read_opts):
     """Open a window on the prisms of FILE, cut by a movable plane showing the phases.
 
     \b
@@ -107,7 +126,8 @@ def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_b
 
     check_display()
     s = _structure(file, read_opts, "view", at_progress, at_time)
-    plane = _plane(s, slice_axis, slice_at, slice_normal, slice_origin)
+    _check_export(s, export_dir, force)
+    plane = _plane(s, axis, at, normal, origin)
     click.echo(f"preparing {len(s):,} prisms (stacking, phase grid) ...", err=True)
     cache = {}
     scene = Scene(s, colour_by=colour_by, voxel_size=voxel, plane=plane, step=step,
@@ -119,34 +139,37 @@ def view(file, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_b
         click.echo(f"saved {p}", err=True)
 
 
-@click.command()
-@click.argument("file", type=click.Path(dir_okay=False))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="PNG picture to write.")
+@command()
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
+@output_option("file", "The picture to write (PNG).", required=True)
 @read_options
 @_plane_options
 @click.option("--camera", type=click.Choice(_CAMERAS), default=None,
               help="Viewpoint: iso, cut (facing the cut), or from a side such as +x or -z "
                    "[default: cut with a cut, iso without].")
-@click.option("--size", default="1200", show_default=True,
-              help="Picture size WIDTHxHEIGHT in pixels, or WIDTH alone: the height then "
-                   "follows the shape of the structure seen from the camera.")
+@click.option("--size", default="1200", show_default=True, metavar="WIDTHxHEIGHT",
+              help="Picture size in pixels, or WIDTH alone: the height then follows the shape "
+                   "of the structure seen from the camera.")
 @click.option("--flat", is_flag=True,
               help="Unshaded colours (each prism exactly its colormap colour).")
-@click.option("--force", is_flag=True, help="Overwrite the picture (and exported files).")
+@force_option("Overwrite the picture (and exported files).")
 @at_options
-def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel, colour_by,
-           export_dir, camera, size, flat, force, at_progress, at_time, **read_opts):
+def render(file, output, axis, at, normal, origin, voxel, colour_by, export_dir, camera, size,
+           flat, force, at_progress, at_time, **read_opts):
     """Draw the prisms of FILE to a PNG without a window (for batch use and documents).
 
-    With --slice-axis/--slice-at or --slice-normal/--slice-origin the prisms are cut at
+    With --axis/--at or --normal/--origin the prisms are cut at
     that plane and the phases (solid, interlayer, gel pore, outside) are drawn on it.
     """
 
     check_writable(output, force)
     wh = parse_size(size)
     s, moment = _structure(file, read_opts, "render", at_progress, at_time, with_moment=True)
-    plane = _plane(s, slice_axis, slice_at, slice_normal, slice_origin)
+    _check_export(s, export_dir, force)
+    plane = _plane(s, axis, at, normal, origin)
+    if voxel is not None:
+        check_option(bool(export_dir) or plane is not None, "voxel", "a picture without a cut",
+                     "the phase grid drawn on a cut (--axis or --normal) or written by --export")
     cache = {}
     grid = None
     if export_dir or plane is not None:
@@ -158,18 +181,16 @@ def render(file, output, slice_axis, slice_at, slice_normal, slice_origin, voxel
         _export(s, export_dir, grid, voxel, force, cache)
 
 
-@click.command()
-@click.argument("file", type=click.Path(dir_okay=False))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="PNG contact sheet to write.")
+@command()
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
+@output_option("file", "The contact sheet to write (PNG).", required=True)
 @read_options
 @click.option("--axis", type=click.Choice(["x", "y", "z"]), default="z", show_default=True,
               help="Sections across this axis.")
-@click.option("--count", type=int, default=9, show_default=True,
+@click.option("--count", type=int, default=9, show_default=True, metavar="N",
               help="Number of sections, evenly spread through the grid.")
-@click.option("--voxel", type=float, default=None,
-              help="Voxel edge in nm for prisms (default: chosen from thickness and repeat).")
-@click.option("--force", is_flag=True, help="Overwrite the picture.")
+@voxel_option()
+@force_option("Overwrite the picture.")
 def slices(file, output, axis, count, voxel, force, **read_opts):
     """Draw a contact sheet of sections of FILE: the phases voxel layer by voxel layer.
 
@@ -185,12 +206,12 @@ def slices(file, output, axis, count, voxel, force, **read_opts):
         grid = phase_grid(obj, voxel)
     elif isinstance(obj, PhaseGrid):
         if voxel is not None:
-            raise OptionError("--voxel applies to prisms; a volume's voxel size comes from the "
-                              "file or --voxel-size", path=file)
+            check_option(False, "voxel", obj, "prisms and solid bodies, which are rasterized "
+                         "at it (a voxel volume is its own grid; one whose file gives no voxel "
+                         "size takes <<voxel_size>>)", path=file)
         grid = obj
     else:
-        raise OptionError("`sheetview slices` needs prisms or a voxel volume, but this file "
-                          "holds a solid body; convert it first", path=file)
+        grid = phase_grid_of(obj, Settings(voxel=voxel))
     contact_sheet(grid, output, axis=axis, count=count, force=force,
                   title=f"{Path(file).name}: sections across {axis}")
     click.echo(f"wrote {output}", err=True)

@@ -11,6 +11,7 @@ from ..app.settings import Settings
 from ..errors import OptionError
 from ..report import check_folder, write_report
 from .common import at_options, dumps, echo_moment, load_input, read_options
+from .conventions import command, force_option, json_option, output_option, quiet_option
 
 #: What the numbers are (printed and kept in the JSON).
 CAUTION = ("predictions for the simulated structure with the stated relaxivities and "
@@ -48,8 +49,8 @@ def _progress_line(quiet):
     return tell
 
 
-@click.command("waterwalk")
-@click.argument("file", type=click.Path(dir_okay=False))
+@command("waterwalk")
+@click.argument("file", metavar="FILE", type=click.Path(dir_okay=False))
 @click.option("--voxel", type=float, default=None, metavar="NM",
               help="Voxel edge of the phase grid in nm (default from the structure).")
 @click.option("--pore-split", default=None, metavar="NM,NM",
@@ -79,14 +80,12 @@ def _progress_line(quiet):
 @click.option("--transport", is_flag=True,
               help="Also the transport walk (no relaxation): MSD, effective diffusivity, "
                    "tortuosity and formation factor.")
-@click.option("-o", "--output", "outdir", type=click.Path(file_okay=False), default=None,
-              metavar="FOLDER",
-              help="Write a report folder: summary.json, CSV tables (M(t), T2 spectrum, "
-                   "exchange, MSD) and PNG figures.")
-@click.option("--json", "as_json", is_flag=True, help="Print only the JSON summary to stdout.")
-@click.option("--force", is_flag=True, help="Write into an existing non-empty folder.")
+@output_option("folder", "Write a report folder: summary.json, CSV tables (M(t), T2 "
+               "spectrum, exchange, MSD) and PNG figures.", dest="outdir")
+@json_option("Print only the JSON summary on stdout (progress goes to stderr).")
+@force_option("Write into an existing non-empty folder.")
 @click.option("--no-plots", is_flag=True, help="With -o: tables only, no figures.")
-@click.option("-q", "--quiet", is_flag=True, help="No progress messages on stderr.")
+@quiet_option("No progress messages on stderr.")
 @at_options
 @read_options
 def waterwalk(file, voxel, pore_split, max_memory, n_walkers, seed, rho2, rho2_wall, t2_bulk,

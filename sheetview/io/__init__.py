@@ -110,12 +110,14 @@ def guarded(reader, path, *args, **kwargs):
 def _only(options, allowed, path, fam):
     extra = set(options) - allowed
     if extra:
-        names = ", ".join("--" + e.rstrip("_").replace("_", "-") for e in sorted(extra))
-        raise OptionError(f"option(s) {names} do not apply to {fam} files", path=path)
+        first = sorted(extra)[0]
+        fits = ", ".join(f"<<{k}>>" for k in sorted(allowed))
+        raise OptionError(f"<<{first}>> does not apply to {fam} files; it applies to other "
+                          f"families (for {fam} files: {fits})", path=path, param=first)
 
 
 def write(obj, path, *, force: bool = False):
-    """Write a Structure (prism table or VTK PolyData), a SurfaceBody (mesh) or a
+    """Write a Structure (prism table, VTK PolyData or VTK wedge cells), a SurfaceBody (mesh) or a
     PhaseGrid (.vti/.npy/.tif), chosen by suffix. Refuses to overwrite unless ``force``."""
     from ..grid import PhaseGrid
     from ..particles import ParticleSet
@@ -127,11 +129,13 @@ def write(obj, path, *, force: bool = False):
         from . import prisms
         if suffix in prisms.WRITERS:
             return prisms.WRITERS[suffix](obj, path, force=force)
-        if suffix in {".vtp", ".vtk"}:
+        if suffix in {".vtp", ".vtk", ".vtu"}:
             from . import meshes
             return meshes.write_prisms_vtk(obj, path, force=force)
         raise OptionError(f"cannot write prisms as {suffix or '(no suffix)'!r}; use .csv, .npz, "
-                          f".parquet, or .vtp/.vtk for general-purpose viewers", path=path)
+                          f".parquet, .vtp/.vtk (closed surfaces) or .vtu (wedge cells) for "
+                          f"general-purpose viewers, or a volume (.tif, .vti, .npy) for the "
+                          f"phase grid", path=path)
     if isinstance(obj, ParticleSet):
         from . import particles
         return particles.write_particles(obj, path, force=force)

@@ -4,6 +4,10 @@ amplitude) as written by instruments and analysis programs.
 :func:`read_experimental` reads two or three numeric columns (comma, semicolon, tab or
 whitespace separated) under an optional header whose labels name the columns and their
 units (q in nm^-1 or Å^-1; T2 in s, ms or µs), and returns them in sheetview units.
+Scattering curves are also read from the two canSAS 1D formats: canSAS XML (``.xml``,
+SASroot/SASentry/SASdata/Idata with Q, I, Idev and their ``unit`` attributes) and NXcanSAS
+HDF5 (``.h5``, ``.hdf5``, ``.nxs``: the NXdata group of a NXcanSAS entry, its ``signal``
+I, the ``I_axes`` Q, the ``uncertainties`` of I, ``units`` attributes), read with h5py.
 """
 from __future__ import annotations
 
@@ -43,6 +47,7 @@ class ExperimentalCurve:
     unit_found: str
     unit_source: str
     warnings: list = field(default_factory=list)
+    format: str = "columns"
 
 
 def _is_number(tok: str) -> bool:
@@ -81,6 +86,16 @@ def read_experimental(path, kind: str = "scattering", unit: str | None = None,
     # Python floats of each row: about 40 bytes per character of the text at worst
     check_read_memory(size * CURVE_READ_FACTOR, f"{size:,} bytes of text", p)
     from . import guarded
+    suffix = p.suffix.lower()
+    if suffix in CANSAS_XML_SUFFIXES or suffix in NXCANSAS_SUFFIXES:
+        if kind != "scattering":
+            raise InputError(f"a canSAS file ({suffix}) holds a scattering curve, not a T2 "
+                             f"distribution", path=p)
+        if columns is not None:
+            raise OptionError("applies to text columns; a canSAS file names its Q, I and "
+                              "Idev itself", path=p, param="columns")
+        reader = _read_cansas_xml if suffix in CANSAS_XML_SUFFIXES else _read_nxcansas
+        return guarded(reader, p, unit)
     return guarded(_read, p, kind, unit, columns)
 
 
@@ -238,3 +253,193 @@ def _pick_columns(names, ncol, columns, kind, p):
 
 
 # ============================================================== commands
+
+
+# ----------------------------------------------------------------------------- canSAS
+CANSAS_XML_SUFFIXES = {".xml"}
+NXCANSAS_SUFFIXES = {".h5", ".hdf5", ".hdf", ".nxs"}
+
+#: canSAS / NeXus spellings of the q unit -> factor to nm^-1 and the name shown.
+_CANSAS_Q_UNITS = {"1/a": (10.0, "Å^-1"), "a^-1": (10.0, "Å^-1"), "1/angstrom": (10.0, "Å^-1"),
+                   "angstrom^-1": (10.0, "Å^-1"), "1/å": (10.0, "Å^-1"), "å^-1": (10.0, "Å^-1"),
+                   "1/nm": (1.0, "nm^-1"), "nm^-1": (1.0, "nm^-1"), "1/m": (1e-9, "m^-1")}
+#: Intensity units -> factor to cm^-1 (absolute scale); others are relative.
+_CANSAS_I_UNITS = {"1/cm": 1.0, "cm^-1": 1.0, "1/m": 0.01, "m^-1": 0.01}
+
+
+def _unit_key(u) -> str:
+    if isinstance(u, bytes):
+        u = u.decode("utf-8", "replace")
+    return str(u or "").strip().lower().replace(" ", "").replace("**", "^")
+
+
+def _q_factor(file_unit, option_unit, p):
+    """(factor to nm^-1, unit name, where it came from) of the q unit: the option when
+    given, else the file's ``unit``/``units`` attribute."""
+    if option_unit is not None:
+        key = str(option_unit).strip().lower().replace("å", "a").replace("^", "")
+        if key not in _UNIT_OPTION_Q:
+            raise OptionError(f"unknown unit {option_unit!r}; expected one of "
+                              f"{sorted(_UNIT_OPTION_Q)}", path=p, field="unit")
+        f, name = _UNIT_OPTION_Q[key]
+        return f, name, "option"
+    key = _unit_key(file_unit)
+    if key in _CANSAS_Q_UNITS:
+        f, name = _CANSAS_Q_UNITS[key]
+        return f, name, "file"
+    raise InputError(f"cannot tell the q unit (the file gives {file_unit!r}; expected 1/A or "
+                     f"1/nm, or give the unit option)", path=p)
+
+
+def _cansas_curve(p, q, i, dev, q_unit, i_unit, option_unit, fmt) -> ExperimentalCurve:
+    """The checked curve of a canSAS file (same rules as the text columns)."""
+    q, i = np.asarray(q, float).ravel(), np.asarray(i, float).ravel()
+    if q.shape != i.shape:
+        raise InputError(f"Q and I differ in length ({q.size} and {i.size})", path=p)
+    if dev is not None:
+        dev = np.asarray(dev, float).ravel()
+        if dev.shape != i.shape:
+            raise InputError(f"the uncertainties of I differ in length from I ({dev.size} and "
+                             f"{i.size})", path=p)
+    f, uname, usrc = _q_factor(q_unit, option_unit, p)
+    warns = []
+    ikey = _unit_key(i_unit)
+    if ikey in _CANSAS_I_UNITS:
+        i = i * _CANSAS_I_UNITS[ikey]
+        dev = dev * _CANSAS_I_UNITS[ikey] if dev is not None else None
+    else:
+        warns.append(f"{p}: intensity unit {i_unit!r} is not an absolute scale (1/cm); the "
+                     f"fitted scale factor absorbs it")
+    x = q * f
+    bad = ~np.isfinite(x) | ~np.isfinite(i) | (x <= 0)
+    if bad.any():
+        raise InputError(f"{int(bad.sum())} points with a non-finite value or a non-positive q",
+                         path=p)
+    drop = i <= 0
+    if dev is not None:
+        drop |= ~(dev > 0)
+    if drop.any():
+        warns.append(f"{p}: dropped {int(drop.sum())} points with zero or negative intensity "
+                     f"(or uncertainty)")
+        x, i = x[~drop], i[~drop]
+        dev = dev[~drop] if dev is not None else None
+    if np.any(np.diff(x) < 0):
+        o = np.argsort(x, kind="stable")
+        x, i = x[o], i[o]
+        dev = dev[o] if dev is not None else None
+        warns.append(f"{p}: q values were not in increasing order; sorted")
+    if x.size < 3:
+        raise InputError("fewer than 3 usable points", path=p)
+    return ExperimentalCurve(x, i, dev, uname, f"{fmt} {usrc}", warns, fmt)
+
+
+def _local(tag: str) -> str:
+    return tag.rsplit("}", 1)[-1]
+
+
+def _read_cansas_xml(p: Path, unit) -> ExperimentalCurve:
+    """canSAS 1D XML (SASroot v1.0/1.1): the first SASdata of the first SASentry, its Idata
+    points' Q, I and Idev with their ``unit`` attributes. Documents with a DTD or entity
+    declarations are refused (no entity expansion)."""
+    import xml.etree.ElementTree as ET
+
+    raw = p.read_bytes()
+    if b"<!DOCTYPE" in raw or b"<!ENTITY" in raw:
+        raise InputError("an XML document with a DOCTYPE or entity declarations is not read",
+                         path=p)
+    try:
+        root = ET.fromstring(raw)
+    except ET.ParseError as e:
+        raise InputError(f"cannot be read as XML: {e}", path=p) from None
+    if _local(root.tag) != "SASroot":
+        raise InputError(f"not a canSAS XML file (root element {_local(root.tag)!r}, expected "
+                         f"'SASroot')", path=p)
+    datas = [el for el in root.iter() if _local(el.tag) == "SASdata"]
+    if not datas:
+        raise InputError("no SASdata in the file", path=p)
+    q, i, dev = [], [], []
+    units = {}
+    for pt in (el for el in datas[0] if _local(el.tag) == "Idata"):
+        vals = {}
+        for el in pt:
+            name = _local(el.tag)
+            if name in ("Q", "I", "Idev"):
+                try:
+                    vals[name] = float((el.text or "").strip())
+                except ValueError:
+                    raise InputError(f"Idata {name} is not a number: {(el.text or '')[:30]!r}",
+                                     path=p) from None
+                units.setdefault(name, el.get("unit"))
+        if "Q" not in vals or "I" not in vals:
+            raise InputError("an Idata point without Q or I", path=p)
+        q.append(vals["Q"])
+        i.append(vals["I"])
+        dev.append(vals.get("Idev", np.nan))
+    if not q:
+        raise InputError("the SASdata holds no Idata points", path=p)
+    d = np.asarray(dev, float)
+    d = None if np.all(np.isnan(d)) else d
+    c = _cansas_curve(p, q, i, d, units.get("Q"), units.get("I"), unit, "canSAS XML")
+    if len(datas) > 1:
+        c.warnings.append(f"{p}: {len(datas)} SASdata blocks; the first is used")
+    return c
+
+
+def _attr(obj, name, default=None):
+    v = obj.attrs.get(name, default)
+    if isinstance(v, bytes):
+        return v.decode("utf-8", "replace")
+    if isinstance(v, np.ndarray) and v.size == 1:
+        v = v.ravel()[0]
+        return v.decode("utf-8", "replace") if isinstance(v, bytes) else v
+    return v
+
+
+def _read_nxcansas(p: Path, unit) -> ExperimentalCurve:
+    """NXcanSAS (HDF5): the first NXdata (canSAS_class SASdata) group inside an NXentry
+    whose ``definition`` is NXcanSAS; its ``signal`` (I), first ``I_axes`` (Q), the
+    ``uncertainties`` of I, and their ``units`` attributes."""
+    try:
+        import h5py
+    except ImportError:
+        raise InputError("reading NXcanSAS (HDF5) needs the h5py package "
+                         "(pip install h5py)", path=p) from None
+    try:
+        fh = h5py.File(p, "r")
+    except OSError as e:
+        raise InputError(f"cannot be read as HDF5: {e}", path=p) from None
+    with fh:
+        found = []
+
+        def visit(name, obj):
+            if isinstance(obj, h5py.Group) and (_attr(obj, "NX_class") == "NXdata" or
+                                                _attr(obj, "canSAS_class") == "SASdata"):
+                found.append(name)
+        fh.visititems(visit)
+        if not found:
+            raise InputError("no NXdata / SASdata group (not an NXcanSAS file)", path=p)
+        g = fh[found[0]]
+        sig = _attr(g, "signal", "I")
+        axes = _attr(g, "I_axes", "Q")
+        if isinstance(axes, (list, tuple, np.ndarray)):
+            axes = axes[0]
+        axes = str(axes).split(",")[0].strip()
+        if sig not in g or axes not in g:
+            raise InputError(f"the group {found[0]!r} lacks its signal {sig!r} or axis {axes!r}",
+                             path=p)
+        ids, qds = g[sig], g[axes]
+        for d in (ids, qds):
+            if d.size > 50_000_000:
+                raise InputError(f"{d.name} holds {d.size:,} values: not a 1D curve", path=p)
+        i = np.asarray(ids[()], float)
+        q = np.asarray(qds[()], float)
+        if i.ndim != 1 or q.ndim != 1:
+            raise InputError(f"expected a 1D curve, found I of shape {i.shape} and Q of shape "
+                             f"{q.shape}", path=p)
+        dname = _attr(ids, "uncertainties")
+        dev = np.asarray(g[dname][()], float) if dname and dname in g else None
+        c = _cansas_curve(p, q, i, dev, _attr(qds, "units"), _attr(ids, "units"), unit,
+                          "NXcanSAS")
+        if len(found) > 1:
+            c.warnings.append(f"{p}: {len(found)} data groups; the first ({found[0]}) is used")
+        return c

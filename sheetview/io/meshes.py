@@ -113,11 +113,11 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     path = Path(path)
     suffix = path.suffix.lower()
     if as_ not in (None, "auto", "sheets", "solid"):
-        raise OptionError(f"--as must be 'sheets' or 'solid', not {as_!r}", path=path)
+        raise OptionError(f"must be 'sheets' or 'solid', not {as_!r}", path=path, param="as_")
     for name, v in (("thickness", thickness), ("spacing", spacing)):
         if v is not None and not (finite_number(v) is not None and 0 < v <= MAX_LENGTH_NM):
-            raise OptionError(f"--{name} must be a positive number of nm (at most "
-                              f"{MAX_LENGTH_NM:g}), got {v}", path=path)
+            raise OptionError(f"must be a positive number of nm (at most "
+                              f"{MAX_LENGTH_NM:g}), got {v}", path=path, param=name)
     if units is not None:
         unit_factor(units, path=path)  # refuse a bad option before reading
     if suffix in VTK_SUFFIXES:
@@ -155,6 +155,9 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
         vertices = vertices * f
         tri = tri * f
 
+    if header is not None and header.content == CONTENT_PRISMS and as_ != "solid":
+        return _own_prisms(vertices, faces, face_arrays, header, path, suffix, thickness,
+                           spacing)
     closed = None
     if as_ in (None, "auto"):
         closed = _is_closed(vertices, faces)
@@ -189,7 +192,7 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
                              path=path, field="thickness")
         thick = thick.astype(np.float64) * f
     else:
-        raise InputError(f"no sheet thickness: a mesh read as sheets needs --thickness <nm> "
+        raise InputError(f"no sheet thickness: a mesh read as sheets needs <<thickness>> (nm) "
                          f"(or a per-face array named 'thickness'); the {len(tri)} triangles "
                          f"are the mid-surfaces of the sheets", path=path)
     cols = {}
@@ -219,6 +222,54 @@ def read_mesh(path, *, thickness=None, spacing=None, units=None, as_=None):
     except InputError as e:
         raise InputError(e.detail.replace("prism row", "face row"), path=path,
                          field=e.field) from None
+    return s
+
+
+def _own_prisms(vertices, faces, arrays, header, path, suffix, thickness, spacing):
+    """The prisms of a VTK file sheetview wrote (header ``"content": "prisms"``): each
+    prism's six corners are points ``6i .. 6i + 5`` (bottom a, b, c then top), which the
+    triangles of prism ``i`` (cell array ``prism_id``) must use and no others. The
+    mid-plane triangle is the mean of bottom and top, the thickness their distance; the
+    per-prism arrays come back as columns."""
+    n6 = len(vertices)
+    pid = arrays.get("prism_id")
+    fail = None
+    if pid is None or np.asarray(pid).shape != (len(faces),):
+        fail = "it has no cell array 'prism_id' with one value per face"
+    elif n6 % 6:
+        fail = f"its {n6} points are not six per prism"
+    else:
+        pid = np.asarray(pid).astype(np.int64)
+        n = n6 // 6
+        if (pid.min() < 0 or pid.max() >= n or not np.all(faces // 6 == pid[:, None])
+                or len(np.unique(pid)) != n):
+            fail = "its faces do not match the six corners of their prism"
+    if fail is not None:
+        raise InputError(f"the sheetview header says it holds prisms, but {fail}; read it "
+                         f"as a mesh with --as sheets or --as solid", path=path,
+                         field="prism_id")
+    corners = vertices.reshape(n, 6, 3)
+    mid = 0.5 * (corners[:, :3] + corners[:, 3:])
+    first = np.zeros(n, np.int64)
+    first[pid[::-1]] = np.arange(len(pid))[::-1]  # the first face of each prism
+    if thickness is not None:
+        thick = np.full(n, float(thickness))
+    else:
+        thick = np.linalg.norm(corners[:, 3] - corners[:, 0], axis=1)
+    cols = {}
+    for name in KEPT_FACE_ARRAYS:
+        if name in arrays:
+            a = np.asarray(arrays[name])[first]
+            if KNOWN_COLUMNS[name] is np.int64:
+                a = whole_numbers(a, name, path, "cell array")
+            cols[name] = a
+    sp = spacing if spacing is not None else (header.spacing if header.spacing is not None
+                                              else DEFAULT_SPACING_NM)
+    dom = header.domain if header.domain is not None else with_inferred_domain(mid, thick)
+    meta = dict(header.metadata)
+    meta["source_format"] = suffix.lstrip(".")
+    s = Structure(mid, thick, dom, sp, cols, meta, str(path))
+    s.validate()
     return s
 
 
@@ -526,6 +577,7 @@ class MeshHeader:
     domain: Domain | None
     spacing: float | None
     metadata: dict
+    content: str | None = None
 
 
 @dataclasses.dataclass(frozen=True)
@@ -700,7 +752,11 @@ def _interpret_header(found, path, units) -> MeshHeader | None:
         meta = {}
     elif not isinstance(meta, dict):
         bad(f"metadata must be a JSON object, got {json_type(meta)}", "metadata")
-    return MeshHeader(f, dom, sp, meta)
+    content = h.get("content")
+    if content is not None and content != CONTENT_PRISMS:
+        bad(f'"content" must be "{CONTENT_PRISMS}" when present, got '
+            f'{json.dumps(content)[:40]}', "content")
+    return MeshHeader(f, dom, sp, meta, content)
 
 
 def mesh_header(obj) -> dict:
@@ -713,6 +769,13 @@ def mesh_header(obj) -> dict:
     h["domain_inferred"] = bool(obj.domain.inferred)
     h["metadata"] = obj.metadata
     return h
+
+
+def header_array(text: str) -> np.ndarray:
+    """The header as VTK field data: its UTF-8 bytes as an unsigned-char array (a string
+    array is stored in a form that readers other than VTK's own, such as meshio, cannot
+    parse; :mod:`sheetview.io.vtkfiles` reads both)."""
+    return np.frombuffer(text.encode("utf-8"), dtype=np.uint8).copy()
 
 
 def _header_json(header: dict) -> str:
@@ -846,29 +909,64 @@ def prism_polydata(structure: Structure):
     return poly
 
 
-def write_prisms_vtk(structure: Structure, path, *, force: bool = False) -> Path:
-    """Write the prisms as closed solids in VTK PolyData: binary XML ``.vtp`` (appended raw
-    data, LZ4-compressed, see :func:`write_vtk_xml`) or legacy binary ``.vtk`` (by suffix),
-    through :func:`~sheetview.io.output.atomic_path`.
+def prism_wedges(structure: Structure):
+    """The prisms of ``structure`` as a pyvista UnstructuredGrid of wedge cells (VTK_WEDGE,
+    one cell per prism, points in the order of :meth:`Structure.prism_corners`: bottom a,
+    b, c then top; VTK's wedge volume of each cell is the prism's area x thickness exactly).
+    Cell data as :func:`prism_polydata`, once per prism."""
+    import pyvista as pv
 
-    See :func:`prism_polydata` for the content. The header (:func:`mesh_header`: spacing,
-    domain, ``domain_inferred``, metadata) goes into field data ``sheetview`` as a JSON
-    string; :func:`read_mesh` gives them back.
+    n = len(structure)
+    pts = structure.prism_corners().reshape(-1, 3) if n else np.zeros((0, 3))
+    cells = np.concatenate([np.full((n, 1), 6, np.int64),
+                            6 * np.arange(n, dtype=np.int64)[:, None] + np.arange(6)[None]],
+                           axis=1).ravel()
+    grid = pv.UnstructuredGrid(cells, np.full(n, pv.CellType.WEDGE, np.uint8), pts)
+    if n == 0:
+        return grid
+    grid.cell_data["prism_id"] = np.arange(n, dtype=np.int64)
+    grid.cell_data["thickness"] = np.asarray(structure.thickness, float)
+    grid.cell_data["area"] = np.asarray(structure.areas, float)
+    grid.cell_data["volume"] = np.asarray(structure.volumes, float)
+    grid.cell_data["normal"] = np.asarray(structure.normals, float)
+    for name in sorted(structure.columns):
+        col = np.asarray(structure.columns[name])
+        if col.dtype.kind in "biuf":
+            grid.cell_data[name] = col
+    return grid
+
+
+#: The header key saying a VTK file holds sheetview prisms (read back as prisms).
+CONTENT_PRISMS = "prisms"
+
+
+def write_prisms_vtk(structure: Structure, path, *, force: bool = False) -> Path:
+    """Write the prisms for general-purpose viewers, by suffix: closed solids in VTK
+    PolyData, binary XML ``.vtp`` (appended raw data, zlib-compressed, see
+    :func:`write_vtk_xml`) or legacy binary ``.vtk``; or volume cells (wedges) in an XML
+    unstructured grid ``.vtu``. Written through :func:`~sheetview.io.output.atomic_path`.
+
+    See :func:`prism_polydata` and :func:`prism_wedges` for the content. The header
+    (:func:`mesh_header`: spacing, domain, ``domain_inferred``, metadata, and
+    ``"content": "prisms"``) goes into field data ``sheetview`` as a JSON string;
+    :func:`read_mesh` reads such a file back as the same prisms.
     """
     path = Path(path)
     suffix = path.suffix.lower()
-    if suffix not in (".vtp", ".vtk"):
-        raise OptionError(f"prisms are written to VTK as .vtp or .vtk, not {suffix!r}", path=path)
-    poly = prism_polydata(structure)
-    poly.field_data[HEADER_FIELD] = np.array([_header_json(mesh_header(structure))])
-    _save_vtk(poly, path, suffix, force)
+    if suffix not in (".vtp", ".vtk", ".vtu"):
+        raise OptionError(f"prisms are written to VTK as .vtp, .vtk or .vtu, not {suffix!r}",
+                          path=path)
+    data = prism_wedges(structure) if suffix == ".vtu" else prism_polydata(structure)
+    header = {**mesh_header(structure), "content": CONTENT_PRISMS}
+    data.field_data[HEADER_FIELD] = header_array(_header_json(header))
+    _save_vtk(data, path, suffix, force)
     return path
 
 
 def _save_vtk(poly, path, suffix, force) -> None:
-    """Write a PolyData as .vtp (appended raw XML) or legacy binary .vtk, atomically."""
+    """Write a dataset as XML (.vtp, .vtu: appended raw) or legacy binary .vtk, atomically."""
     with atomic_path(path, force) as tmp:
-        if suffix == ".vtp":
+        if suffix in (".vtp", ".vtu"):
             write_vtk_xml(poly, tmp)
         else:
             with _quiet_vtk():
@@ -876,9 +974,10 @@ def _save_vtk(poly, path, suffix, force) -> None:
 
 
 def write_vtk_xml(dataset, fname) -> None:
-    """Write a pyvista dataset as VTK XML (``.vtp``, ``.vti``...) in appended raw binary
-    with LZ4 compression and 64-bit block headers: several times faster than base64
-    inline data and about half the size; read by every VTK-based viewer (VTK >= 8.2)."""
+    """Write a pyvista dataset as VTK XML (``.vtp``, ``.vti``, ``.vtu``) in appended raw
+    binary with zlib compression and 64-bit block headers: much faster than base64 inline
+    data and smaller; zlib is the compressor every VTK XML reader knows (VTK itself,
+    ParaView, meshio), unlike LZ4."""
     from vtkmodules import vtkIOXML
 
     import pyvista as pv
@@ -894,7 +993,7 @@ def write_vtk_xml(dataset, fname) -> None:
     w.SetDataModeToAppended()
     w.EncodeAppendedDataOff()
     w.SetHeaderTypeToUInt64()
-    w.SetCompressorTypeToLZ4()
+    w.SetCompressorTypeToZLib()
     with _quiet_vtk() as catcher:
         ok = w.Write()
     errors = [str(getattr(ev, "alert", ev)) for ev in getattr(catcher, "error_events", [])]
@@ -929,7 +1028,7 @@ def write_body(body: SurfaceBody, path, *, force: bool = False) -> Path:
         import pyvista as pv
 
         poly = pv.PolyData.from_regular_faces(np.asarray(body.vertices), np.asarray(body.faces))
-        poly.field_data[HEADER_FIELD] = np.array([_header_json(header)])
+        poly.field_data[HEADER_FIELD] = header_array(_header_json(header))
         _save_vtk(poly, path, suffix, force)
         return path
     if suffix == ".ply":

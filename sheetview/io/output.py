@@ -62,6 +62,12 @@ def _empty_ok(path: Path) -> bool:
     return False
 
 
+def user_mode(folder: bool = False) -> int:
+    """The mode a new file (0666) or folder (0777) gets under the user's umask: what
+    temporary files and folders are given before they are renamed into place."""
+    return (0o777 if folder else 0o666) & ~_umask()
+
+
 def _umask() -> int:
     mask = os.umask(0)
     os.umask(mask)

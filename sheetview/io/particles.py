@@ -289,8 +289,8 @@ def _assemble(arrays: dict, header: dict, where: dict, path, *, thickness=None, 
         return s
     given = [k for k, v in (("thickness", thickness), ("spacing", spacing)) if v is not None]
     if given:
-        raise OptionError(f"{', '.join(given)} appl(ies) to prism tables and layered particles, "
-                          f"not to a table of {kind}", path=path, param=given[0])
+        raise OptionError(f"<<{given[0]}>> does not apply to a table of {kind}; it applies to "
+                          f"prism tables and layered particles", path=path, param=given[0])
     if kind == "spheres":
         semi = np.repeat(col("radius")[:, None], 3, axis=1) * f
     else:
@@ -471,7 +471,7 @@ def read_particles(path, *, thickness=None, spacing=None, units=None):
     ``units`` overrides the header."""
     for name, v in (("thickness", thickness), ("spacing", spacing)):
         if v is not None and not (np.isfinite(v) and v > 0):
-            raise OptionError(f"--{name} must be a positive number of nm, got {v}", param=name)
+            raise OptionError(f"must be a positive number of nm, got {v}", param=name)
     suffix = Path(path).suffix.lower()
     if suffix not in READERS:
         raise InputError(f"a particle table is .csv, .npz or .parquet, not {suffix!r}", path=path)

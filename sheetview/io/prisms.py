@@ -148,12 +148,16 @@ def _assemble(arrays: dict, header: dict, where: dict, path, *, thickness=None,
             raise InputError(f"column '{name}' must hold {n} numbers (one per prism), got "
                              f"{what}", path=path, field=name)
     if "thickness" in arrays:
+        if thickness is not None:
+            raise OptionError("<<thickness>> does not apply to this file: it gives a thickness "
+                              "per prism (column 'thickness'); it applies to prism tables "
+                              "without one", path=path, param="thickness")
         thick = np.asarray(arrays["thickness"], dtype=np.float64) * f
     else:
         t = thickness if thickness is not None else _header_number(header, where, "thickness", path)
         if t is None:
             raise InputError("no prism thickness: add a 'thickness' column, a `# thickness: <nm>` "
-                             "header line, or pass --thickness", path=path)
+                             "header line, or give <<thickness>>", path=path, param="thickness")
         thick = np.full(n, float(t) * (f if thickness is None else 1.0))
     sp = spacing if spacing is not None else _header_number(header, where, "spacing", path)
     sp = DEFAULT_SPACING_NM if sp is None else sp * (f if spacing is None else 1.0)
@@ -615,4 +619,4 @@ WRITERS = {".csv": write_csv, ".npz": write_npz, ".parquet": write_parquet, ".pq
 def check_options(thickness=None, spacing=None):
     for name, v in (("thickness", thickness), ("spacing", spacing)):
         if v is not None and not (np.isfinite(v) and v > 0):
-            raise OptionError(f"--{name} must be a positive number of nm, got {v}")
+            raise OptionError(f"must be a positive number of nm, got {v}", param=name)

@@ -18,10 +18,13 @@ Axis order
 Voxel size
 ----------
 ``voxel_size`` (nm; one number or three) wins. Else the file's own: VTI spacing,
-TIFF ImageJ ``spacing`` and ``unit`` with the X/Y resolution tags, or TIFF resolution
-tags in inch or cm with an ImageJ ``spacing`` for z. Lengths in a file without a unit
+the TIFF description's sheetview marker; else the widely used description keys ``unit``
+(the length unit of the resolution tags) and ``spacing`` (the z voxel edge) with the X/Y
+resolution tags, or TIFF resolution tags in inch or cm with a description ``spacing`` for
+z. Lengths in a file without a unit
 (VTI) are nm unless ``units`` says otherwise; ``units`` also overrides a unit the file
-states. A file that gives no voxel size is refused with a request for ``--voxel-size``.
+states. A file that gives no voxel size is refused with a request for ``voxel_size``
+(``--volume-voxel`` on the command line).
 
 Phases
 ------
@@ -34,7 +37,8 @@ found and a request for ``--phases``.
 Damaged files
 -------------
 The declared size of the volume must fit the file (NPY header against the data that
-follows, TIFF strips inside the file and within their compression's expansion, ImageJ
+follows, TIFF strips inside the file and within their compression's expansion, a TIFF
+description's
 stacks with all their images, VTI extent; :mod:`sheetview.io.vtkfiles`) and the memory
 budget, before anything is allocated; voxel size and origin must be finite numbers (the
 voxel size positive) whatever gives them; VTK parses ``.vti`` in a child process.
@@ -43,7 +47,9 @@ Writers (:func:`write_volume`)
 ------------------------------
 ``.vti`` (ImageData, cell data ``phase``, spacing and origin, field data ``sheetview``),
 ``.npy`` (uint8 ``[i, j, k]``; the marker with spacing and origin sits in a comment of
-the NPY header, which NumPy ignores) and ``.tif``/``.tiff`` (ImageJ hyperstack, one page
+the NPY header, which NumPy ignores) and ``.tif``/``.tiff`` (one page per z slice,
+standard resolution tags in pixels per centimetre for x and y, the page description a JSON
+object: sheetview's marker with the spacing of all three axes; one page
 per z slice, ``unit=nm``, ``spacing`` = z voxel size, X/Y resolution). All three read
 back exactly (labels, spacing, origin, and the grid's metadata; in NPY only while the
 header stays short). ``PhaseGrid.solid_fraction`` (float32, when
@@ -71,7 +77,7 @@ from .safety import (MEMORY_FRACTION, check_tiff_pages, finite_number, fmt, gib,
 MARKER = "sheetview phase codes v1"
 #: Name of the VTI cell array holding ``PhaseGrid.solid_fraction``.
 FRACTION_ARRAY = "solid_fraction"
-#: Largest image data written as an ImageJ (classic, 32-bit offset) TIFF; beyond it a
+#: Largest image data written as a classic (32-bit offset) TIFF; beyond it a
 #: BigTIFF with the same metadata in its JSON description.
 IMAGEJ_TIFF_LIMIT = 2**32 - 2**25
 
@@ -181,7 +187,7 @@ def read_volume(path, *, voxel_size=None, phases=None, shape=None, dtype=None, u
         spacing = _triple(info["spacing"], "voxel size", path, positive=True)
     else:
         why = info.get("no_spacing_reason", "the file gives no voxel size")
-        raise InputError(f"{why}; pass --voxel-size <nm> (voxel_size=...)", path=path)
+        raise InputError(f"{why}; give it with <<voxel_size>> (nm)", path=path, param="voxel_size")
     if marker is not None and "origin" in marker:
         origin = _triple(marker["origin"], "origin", path, positive=False, where="marker")
     else:
@@ -235,8 +241,8 @@ def _check_voxel_size(voxel_size, path):
     if vs.shape == (1,):
         vs = np.repeat(vs, 3)
     if vs.shape != (3,) or not np.all(np.isfinite(vs)) or np.any(vs <= 0):
-        raise OptionError(f"--voxel-size must be one or three positive numbers of nm, got "
-                          f"{voxel_size!r}", path=path)
+        raise OptionError(f"<<voxel_size>> must be one or three positive numbers of nm, got "
+                          f"{voxel_size!r}", path=path, param="voxel_size")
     return tuple(float(v) for v in vs)
 
 
@@ -373,7 +379,7 @@ def _load_tiff(path: Path, ufac):
         declared = ij.get("images") if isinstance(ij, dict) else None
         if isinstance(declared, int) and declared > 1 and \
                 math.prod(int(d) for d in shape[:-2]) < declared:
-            raise InputError(f"its ImageJ description declares {declared} images but only "
+            raise InputError(f"its description declares {declared} images but only "
                              f"{math.prod(int(d) for d in shape[:-2])} can be read: a truncated "
                              f"or damaged stack", path=path)
         if "S" in axes and shape[axes.index("S")] > 1:
@@ -405,6 +411,21 @@ def _load_tiff(path: Path, ufac):
     return arr, info
 
 
+def _json_description(page):
+    """The first page's description as a JSON object, or None."""
+    try:
+        text = page.description
+    except Exception:  # noqa: BLE001 - a damaged tag
+        return None
+    if not isinstance(text, str) or not text.lstrip().startswith("{"):
+        return None
+    try:
+        d = load_json(text, what="the TIFF description")
+    except (InputError, ValueError, TypeError):
+        return None
+    return d if isinstance(d, dict) else None
+
+
 def _tiff_geometry(tif, ufac) -> dict:
     info: dict = {}
     ij = tif.imagej_metadata if tif.is_imagej else None
@@ -414,8 +435,11 @@ def _tiff_geometry(tif, ufac) -> dict:
         shaped = sm[0] if sm else None
     except Exception:
         shaped = None
+    own = _json_description(tif.pages[0])
+    if isinstance(own, dict) and own.get("format") == MARKER:
+        info["marker"] = own
     for md in (ij, shaped):
-        if isinstance(md, dict) and "sheetview" in md:
+        if "marker" not in info and isinstance(md, dict) and "sheetview" in md:
             try:
                 mk = md["sheetview"]
                 mk = load_json(mk) if isinstance(mk, str) else mk
@@ -437,8 +461,8 @@ def _tiff_geometry(tif, ufac) -> dict:
     if unit_f is None and res_unit in (2, 3):
         unit_f = 2.54e7 if res_unit == 2 else 1e7
     if unit_f is None:
-        info["no_spacing_reason"] = ("the TIFF gives no length unit for its pixels (no ImageJ "
-                                     "'unit', resolution unit 'none')")
+        info["no_spacing_reason"] = ("the TIFF gives no length unit for its pixels (no 'unit' "
+                                     "in its description, resolution unit 'none')")
         return info
 
     def per_pixel(res):
@@ -459,7 +483,7 @@ def _tiff_geometry(tif, ufac) -> dict:
         dz = None
     if dx is None or dy is None or dz is None or not all(d > 0 for d in (dx, dy, dz)):
         info["no_spacing_reason"] = ("the TIFF does not give all three voxel edges (x and y "
-                                     "resolution and an ImageJ z 'spacing')")
+                                     "resolution and a z 'spacing' in its description)")
         return info
     info["spacing"] = (dx * unit_f, dy * unit_f, dz * unit_f)
     return info
@@ -713,18 +737,22 @@ def write_volume(grid: PhaseGrid, path, *, force: bool = False) -> Path:
 
         zyx = np.ascontiguousarray(labels.transpose(2, 1, 0))
         dx, dy, dz = grid.spacing
-        mk = json.dumps(_marker(grid))
-        big = zyx.nbytes > IMAGEJ_TIFF_LIMIT
-        common = dict(photometric="minisblack", resolution=(1.0 / dx, 1.0 / dy),
-                      metadata={"axes": "ZYX", "unit": "nm", "spacing": dz, "sheetview": mk})
+        description = json.dumps(tiff_description(grid))
         with atomic_path(path, force) as tmp:
-            if big:  # ImageJ cannot hold BigTIFF: plain BigTIFF with the same metadata
-                tifffile.imwrite(str(tmp), zyx, bigtiff=True, **common)
-            else:
-                tifffile.imwrite(str(tmp), zyx, imagej=True, **common)
+            tifffile.imwrite(str(tmp), zyx, photometric="minisblack",
+                             bigtiff=zyx.nbytes > IMAGEJ_TIFF_LIMIT,
+                             resolution=(1e7 / dx, 1e7 / dy), resolutionunit="CENTIMETER",
+                             description=description, metadata=None, software="sheetview")
         return path
     raise OptionError(f"cannot write a phase grid as {suffix or '(no suffix)'!r}; use .vti, "
                       f".npy, .tif or .tiff", path=path)
+
+
+def tiff_description(grid: PhaseGrid) -> dict:
+    """The description of a volume TIFF sheetview writes: its marker (format, spacing and
+    origin in nm, phase names, metadata) plus ``axes`` (``ZYX``: pages are z slices) and
+    ``unit`` (``nm``)."""
+    return {**_marker(grid), "axes": "ZYX", "unit": "nm"}
 
 
 def _write_npy_marked(fname, labels: np.ndarray, marker: dict) -> None:

@@ -457,7 +457,12 @@ def _mesh_child(path: str):
             a = np.asarray(fd["sheetview"]).ravel()
         except Exception:  # noqa: BLE001
             a = None
-        if a is None or a.size != 1 or a.dtype.kind not in "USO":
+        if a is not None and a.dtype in (np.uint8, np.int8) and a.size:
+            try:  # the header's UTF-8 bytes (what sheetview writes)
+                header = ("text", a.astype(np.uint8).tobytes().decode("utf-8"))
+            except UnicodeDecodeError:
+                header = ("not_text", None)
+        elif a is None or a.size != 1 or a.dtype.kind not in "USO":
             header = ("not_text", None)
         else:
             header = ("text", str(a[0]))
@@ -466,9 +471,11 @@ def _mesh_child(path: str):
     empty = np.zeros((0, 3), np.int64)
     if mesh.n_cells == 0:
         return np.array(mesh.points, dtype=np.float64).reshape(-1, 3), empty, {}, header
+    original = None
     with quiet_vtk() as catcher:
         if not isinstance(mesh, pv.PolyData):
-            mesh = mesh.extract_surface()
+            original = np.array(mesh.points, dtype=np.float64).reshape(-1, 3)
+            mesh = mesh.extract_surface(pass_pointid=True)
         mesh = polygons_only(mesh)
         if mesh.n_cells == 0:
             return np.array(mesh.points, dtype=np.float64).reshape(-1, 3), empty, {}, header
@@ -483,6 +490,12 @@ def _mesh_child(path: str):
         arrays = {k: np.array(surf.cell_data[k]) for k in surf.cell_data.keys()
                   if np.asarray(surf.cell_data[k]).ndim == 1}
         points = np.array(surf.points, dtype=np.float64).reshape(-1, 3)
+        ids = surf.point_data.get("vtkOriginalPointIds") if original is not None else None
+        if ids is not None and len(ids) == len(points):
+            # the file's own point numbering (a volume mesh's surface renumbers its points)
+            faces = np.asarray(ids, dtype=np.int64)[faces]
+            points = original
+        arrays.pop("vtkOriginalCellIds", None)
     return points, faces, arrays, header
 
 

@@ -330,12 +330,12 @@ class OrderResult(Result):
                       "histogram": _local_hist(ls)},
             "distribution": {"frame": self.frame, "axis": [float(v) for v in self.axis],
                              "cos_theta_edges": self.cos_edges.tolist(),
-                             "phi_edges": self.phi_edges.tolist(),
+                             "phi_edges_deg": np.degrees(self.phi_edges).tolist(),
                              "fraction": self.hist.tolist(),
                              "polar_fraction": self.hist.sum(axis=1).tolist()},
             "pole_figure": {"projection": "Lambert azimuthal equal-area, upper hemisphere",
                             "edges": self.pole_edges.tolist(),
-                            "density_mud": self.pole.tolist()},
+                            "density_multiples_of_uniform": self.pole.tolist()},
             "notes": list(self.notes),
         }
 
@@ -355,12 +355,13 @@ class OrderResult(Result):
         return {"prisms": {"prism": np.arange(self.n_prisms), **self.table()},
                 "orientation_distribution": {
                     "cos_theta_lo": ce[ci.ravel()], "cos_theta_hi": ce[ci.ravel() + 1],
-                    "phi_lo": pe[pi.ravel()], "phi_hi": pe[pi.ravel() + 1],
+                    "phi_lo_deg": np.degrees(pe[pi.ravel()]),
+                    "phi_hi_deg": np.degrees(pe[pi.ravel() + 1]),
                     "fraction": self.hist.ravel(),
-                    "density_mud": self.hist.ravel() * nc * nphi},
+                    "density_multiples_of_uniform": self.hist.ravel() * nc * nphi},
                 "pole_figure": {"x": 0.5 * (e[xi.ravel()] + e[xi.ravel() + 1]),
                                 "y": 0.5 * (e[yi.ravel()] + e[yi.ravel() + 1]),
-                                "density_mud": self.pole.ravel()}}
+                                "density_multiples_of_uniform": self.pole.ravel()}}
 
     def basis(self) -> dict:
         return {"order.S": "largest eigenvalue of the volume-weighted nematic order tensor of "

@@ -871,13 +871,15 @@ class Orientation2D:
     ----------
     angle : dominant orientation of the layers (degrees in [0, 180), counter-clockwise
         from +x as shown on screen); NaN when the image has no gradient
-    coherence : energy-weighted mean of the local coherence ``(l1 - l2) / (l1 + l2)``
+    coherence : weighted mean of the local coherence ``(l1 - l2) / (l1 + l2)``, each pixel
+        weighted by its tensor trace ``w = l1 + l2`` (the smoothed squared gradient)
     order : nematic order ``<cos 2 (theta - angle)>`` of the local orientations,
-        weighted by local gradient energy (1: all layers parallel, 0: isotropic)
+        weighted by ``w`` (1: all layers parallel, 0: isotropic)
     sigma : integration scale (nm)
     bin_edges : (nb + 1,) degrees
-    histogram : (nb,) energy-weighted fraction of local orientations per bin
-    angle_map, coherence_map, energy_map : per-pixel local values (NaN where invalid)
+    histogram : (nb,) fraction of the total weight ``w`` whose local orientation falls
+        in each bin
+    angle_map, coherence_map, weight_map : per-pixel local values (NaN where invalid)
     """
 
     angle: float
@@ -889,7 +891,7 @@ class Orientation2D:
     histogram: np.ndarray = field(repr=False)
     angle_map: np.ndarray = field(default=None, repr=False)
     coherence_map: np.ndarray = field(default=None, repr=False)
-    energy_map: np.ndarray = field(default=None, repr=False)
+    weight_map: np.ndarray = field(default=None, repr=False)
 
     def to_dict(self) -> dict:
         return {"angle_deg": _fnone(self.angle), "coherence": _fnone(self.coherence),
@@ -959,10 +961,11 @@ def orientation_2d(grey_or_mask, pixel, *, valid=None, sigma_nm=None,
     layers run perpendicular to it. With ``x = column`` and ``y = -row`` (y up):
 
     * local layer angle ``theta = (1/2) atan2(2 J_xy, J_xx - J_yy) + 90 deg``;
-    * local coherence ``(l1 - l2) / (l1 + l2)``, local energy ``E = l1 + l2``;
+    * local coherence ``(l1 - l2) / (l1 + l2)`` and weight ``w = l1 + l2`` (the trace:
+      the squared gradient magnitude smoothed over the integration scale);
     * dominant angle ``theta_0`` from the unsmoothed tensor summed over the valid pixels
-      (the energy-weighted mean of the doubled gradient angles);
-    * ``order = sum E cos 2(theta - theta_0) / sum E``, ``coherence = sum E c / sum E``.
+      (the ``w``-weighted mean of the doubled gradient angles);
+    * ``order = sum w cos 2(theta - theta_0) / sum w``, ``coherence = sum w c / sum w``.
 
     ``sigma_nm``: integration scale (default 2 pixels). A bool mask is read as 0/1.
     Pixels whose derivative stencil reaches an invalid pixel are left out.

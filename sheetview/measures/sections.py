@@ -299,14 +299,14 @@ def section(obj, normal=(0.0, 0.0, 1.0), offset: float = 0.0, *, pixel: float | 
     pixel = _check_pixel(pixel)
     off = float(offset)
     if not math.isfinite(off):
-        raise OptionError(f"--offset must be a finite length in nm, got {offset!r}", field="offset")
+        raise OptionError(f"must be a finite length in nm, got {offset!r}", param="offset")
     g = _grid_of(obj, grid)
     n, u, v = plane_basis(normal)
     centre, span = centre_and_span(obj, g)
     half = 0.5 * float(np.abs(span) @ np.abs(n))
     notes = []
     if abs(off) > half:
-        raise OptionError(f"--offset {off:g} nm puts the plane outside the sample (it spans "
+        raise OptionError(f"<<offset>> {off:g} nm puts the plane outside the sample (it spans "
                           f"{-half:.3g} to {half:.3g} nm along the normal)", field="offset")
     origin = centre + off * n
     voxel = float(np.min(g.spacing))
@@ -327,8 +327,7 @@ def section(obj, normal=(0.0, 0.0, 1.0), offset: float = 0.0, *, pixel: float | 
     labels = np.ascontiguousarray(sec.labels.T[::-1])  # rows = -v (down), cols = u
     if not ((labels != SectionImage.OFF_GRID) & (labels != OUTSIDE)).any():
         raise OptionError(f"the plane at offset {off:g} nm meets no voxel inside the sample "
-                          f"(pixel {px:g} nm): move it inward (--offset) or use a smaller --pixel",
-                          field="offset")
+                          f"(pixel {px:g} nm): move the plane inward or use a smaller <<pixel>>")
     top_left = sec.origin + sec.u0 * sec.u + (sec.v0 + labels.shape[0] * sec.pixel) * sec.v
     return SectionImage(labels, float(sec.pixel), n, u, v, origin, off, top_left, dict(g.names),
                         voxel, notes)
@@ -399,9 +398,9 @@ def projection(obj, axis: str = "z", slab: float | None = None, *, offset: float
                           field="resolution")
     off = float(offset)
     if not math.isfinite(off):
-        raise OptionError(f"--offset must be a finite length in nm, got {offset!r}", field="offset")
+        raise OptionError(f"must be a finite length in nm, got {offset!r}", param="offset")
     if slab is None and off != 0:
-        raise OptionError("--offset places a slab: give its thickness with --slab (without it "
+        raise OptionError("<<offset>> places a slab: give its thickness with <<slab>> (without it "
                           "the whole sample is projected)", field="offset")
     if isinstance(obj, Structure):
         g = None

@@ -121,7 +121,7 @@ def test_compare_cylinders_with_their_discs(tmp_path):
     on different random lines, are within D < 0.05."""
     R, px = 3.0, 0.2
     vol, png, disc = _cylinders_and_discs(tmp_path, px=px, R=R)
-    r = CliRunner().invoke(main, ["compare", str(vol), str(png), "--pixel-size", str(px),
+    r = CliRunner().invoke(main, ["compare", str(vol), str(png), "--pixel", str(px),
                                   "--count", "3", "--json", "--solid", "dark",
                                   "-o", str(tmp_path / "cmp.png"), "--csv", str(tmp_path / "cmp.csv")])
     assert r.exit_code == 0, r.output
@@ -152,7 +152,7 @@ def test_compare_against_a_different_image_gives_large_distances(pore_file, tmp_
         m |= (yy - cy) ** 2 + (xx - cx) ** 2 < 12 ** 2
     p = tmp_path / "discs.png"
     imsave(p, np.where(m, 20, 230).astype(np.uint8), cmap="gray", vmin=0, vmax=255)
-    r = CliRunner().invoke(main, ["compare", str(pore_file), str(p), "--pixel-size", "0.2",
+    r = CliRunner().invoke(main, ["compare", str(pore_file), str(p), "--pixel", "0.2",
                                   "--count", "3", "--voxel", "0.2", "--json", "--solid", "dark"])
     assert r.exit_code == 0, r.output
     d = json.loads(r.stdout)["distances"]["thickness_solid"]
