@@ -150,7 +150,7 @@ NOT_APPLICABLE = [
      "--repeat", "a table of spheres"),
     (["measure", "{periodic}", "--intrusion", "--only", "pores"], "--intrusion", "periodic"),
     (["measure", VOLUME, "--at-progress", "0.5"], "--at-progress", "a voxel volume"),
-    (["measure", PRISMS, "--pore-method", "subvoxel"], "--pore-method", "prisms"),
+    (["measure", VOLUME, "--pore-method", "exact"], "--pore-method", "a voxel volume"),
     (["section", PRISMS, "--normal", "1,1,0", "--at", "3"], "--at", "--normal"),
     (["project", PRISMS, "--at", "3"], "--at", "a projection of the whole sample"),
 ]

@@ -61,9 +61,6 @@ SETTING_RULES = {
     "voxel": (lambda o: not isinstance(o, PhaseGrid),
               "prisms and solid bodies, which are rasterized at it (a voxel volume is measured "
               "at its own voxel; one whose file gives none takes <<voxel_size>>)"),
-    "pore_method": (lambda o: isinstance(o, (PhaseGrid, ParticleSet)),
-                    "voxel volumes and particle packings (the local thickness of prisms and "
-                    "meshes comes from their exact geometry)"),
     "intrusion": (lambda o: not _periodic(o),
                   "inputs with a boundary for the intrusion to enter from (a periodic box has "
                   "none; its local-thickness pore sizes are measured without it)"),
@@ -81,6 +78,11 @@ def check_settings(obj, settings: Settings, *, path=None) -> None:
         rule = SETTING_RULES.get(f.name) or SETTING_RULES.get(f.metadata.get("group"))
         if rule is not None and not rule[0](obj):
             raise not_applicable(f.name, kind_words(obj), rule[1], path=path)
+        if f.name == "pore_method" and value == "exact" and not isinstance(
+                obj, (Structure, SurfaceBody)):
+            raise not_applicable("pore_method", f"{kind_words(obj)} as 'exact'",
+                                 "prisms and meshes as 'exact' (their exact geometry), and to "
+                                 "every input as 'centres' or 'subvoxel'", path=path)
 
 
 def check_option(acts: bool, param: str, obj_or_what, applies: str, *, path=None) -> None:

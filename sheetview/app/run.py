@@ -217,22 +217,26 @@ class Run:
     @cached_property
     def thickness(self) -> np.ndarray:
         """Local thickness (nm; NaN off the pores) of the non-interlayer pore space of the
-        base grid: from exact distances to the prisms or mesh and the domain wall when the
-        input is a Structure or SurfaceBody
-        (:func:`~sheetview.measures.pores.exact_local_thickness`; walls that are not
-        geometry, such as the interlayer class, from the voxels), else from the voxels
-        (:func:`~sheetview.measures.pores.local_thickness` with the ``pore_method``
-        setting)."""
+        base grid, by the ``pore_method`` setting: from the voxels
+        (:func:`~sheetview.measures.pores.local_thickness`, ``centres`` or ``subvoxel``),
+        or, with ``exact`` for prisms and meshes, from exact distances to the geometry and
+        the domain wall (:func:`~sheetview.measures.pores.exact_local_thickness`; walls that
+        are not geometry, such as the interlayer class, from the voxels)."""
         g = self.base_grid
         codes = [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)]
         tell = self.within("local thickness")
         kw = {} if tell is None else {"progress": tell}
-        if isinstance(self.geometry, (Structure, SurfaceBody)):  # particles: voxels
+        method = self.settings.pore_method
+        if method == "exact":
+            if not isinstance(self.geometry, (Structure, SurfaceBody)):
+                raise OptionError("pore_method 'exact' needs prisms or a mesh (exact geometry); "
+                                  "use centres or subvoxel", param="pore_method",
+                                  path=getattr(self.obj, "source", None))
             return self.stage("local thickness", exact_local_thickness, g, self.geometry,
                               codes, **kw)
         mask = np.isin(g.labels, codes)
         return self.stage("local thickness", local_thickness, mask, g.spacing,
-                          periodic=g.periodic, method=self.settings.pore_method, **kw)
+                          periodic=g.periodic, method=method, **kw)
 
     def provides(self, name: str) -> bool:
         return name in SHARED or name in Settings.__dataclass_fields__

@@ -91,12 +91,13 @@ class Settings:
     pore_split: tuple = _f((), "nm", "Split the gel pores by local thickness at these "
                            "diameters into gel, interhydrate, capillary (and coarse) classes, "
                            "e.g. 5,20.", metavar="NM,NM", group="pores")
-    pore_method: str = _f("centres", "", "Local thickness of voxel volumes and particle "
-                          "packings: 'centres' (balls centred on voxel centres; fast, reads "
-                          "curved pores up to about 2 voxels small) or 'subvoxel' (refined ball "
-                          "centres and wall planes, within 0.3 voxel; about 6 times slower). "
-                          "Prisms and meshes use their exact geometry either way.",
-                          metavar="METHOD", group="pores", choices=("centres", "subvoxel"))
+    pore_method: str = _f("centres", "", "Local thickness of the pores: 'centres' (balls "
+                          "centred on voxel centres; fast, reads curved pores up to about 2 "
+                          "voxels small), 'subvoxel' (refined ball centres and wall planes, "
+                          "within 0.3 voxel; about 4-8 times slower) or, for prisms and meshes, "
+                          "'exact' (distances to the exact geometry; about 7 times slower).",
+                          metavar="METHOD", group="pores",
+                          choices=("centres", "subvoxel", "exact"))
     intrusion: bool = _f(False, "", "Also compute the simulated intrusion (ink-bottle) pore "
                          "size distribution.", group="pores")
     # chords (sheetview.measures.chords)
@@ -131,8 +132,8 @@ class Settings:
                               param="local_radius")
         if self.frame not in ("z", "director"):
             raise OptionError(f"must be z or director, got {self.frame!r}", param="frame")
-        if self.pore_method not in ("centres", "subvoxel"):
-            raise OptionError(f"must be centres or subvoxel, got {self.pore_method!r}",
+        if self.pore_method not in ("centres", "subvoxel", "exact"):
+            raise OptionError(f"must be centres, subvoxel or exact, got {self.pore_method!r}",
                               param="pore_method")
         if self.voxel is not None:
             v = _number("voxel", self.voxel)
