@@ -69,3 +69,27 @@ def test_bad_options(lamellar, args, what):
     r = invoke(lamellar, *args)
     assert r.exit_code == 2
     assert r.output.startswith("sheetview: error:") and what in r.output
+
+
+def test_stage_progress_lines_and_bar(capsys):
+    """Progress on stderr: a line per stage start and end; within a stage a line at each
+    quarter in a log, a bar redrawn in place on a terminal (common practice of command-line
+    tools)."""
+    import io
+
+    from sheetview.cli.common import StageProgress
+
+    class Tty(io.StringIO):
+        def isatty(self):
+            return True
+
+    log = StageProgress(io.StringIO())
+    assert not log.tty
+    for f in (0.0, 0.1, 0.3, 0.55, 0.8, 1.0):
+        log("walk", False, None, fraction=f)
+    log("walk", True, 1.5)
+    text = capsys.readouterr().err
+    assert text.splitlines() == ["  walk: 25%", "  walk: 50%", "  walk: 75%", "  walk: 1.50 s"]
+    tty = StageProgress(Tty())
+    tty("walk", False, None, fraction=0.5)
+    assert tty.stream.getvalue() == "\r  walk [##########..........]  50%"

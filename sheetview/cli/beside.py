@@ -8,7 +8,7 @@ from ..app.sidebyside import DEFAULT_ONLY, profiles_of, side_by_side
 from ..app.document import dumps
 from ..errors import OptionError
 from ..report import check_folder, write_comparison
-from .common import read_kwargs, read_options
+from .common import StageProgress, read_kwargs, read_options
 from .conventions import command, force_option, json_option, output_option, quiet_option
 from .measure import SETTINGS, measure_options, measure_settings
 
@@ -61,7 +61,7 @@ def beside(inputs, labels, only, measured_scattering, q_unit, measured_t2, t2_un
     if len(inputs) < 2:
         raise OptionError(f"give at least two structures or report folders, got "
                           f"{len(inputs)}", param="inputs")
-    progress = None if (quiet or as_json) else _progress
+    progress = None if (quiet or as_json) else StageProgress()
     profiles = profiles_of(inputs, labels=labels, only=only, settings=settings,
                            progress=progress, read_options=read_kwargs(kw))
     cmp_ = side_by_side(profiles, measured_scattering=measured_scattering,
@@ -75,13 +75,6 @@ def beside(inputs, labels, only, measured_scattering, q_unit, measured_t2, t2_un
     _print(cmp_)
     if outdir is not None:
         click.echo(f"  comparison written to {outdir}")
-
-
-def _progress(stage, done, seconds=None):
-    if done:
-        click.echo(f"  {stage}: {seconds:.2f} s", err=True)
-    else:
-        click.echo(f"sheetview: {stage} ...", err=True)
 
 
 def _print(cmp_):

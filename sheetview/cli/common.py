@@ -99,3 +99,45 @@ def echo_moment(moment, quiet: bool = False) -> None:
     click.echo(f"sheetview: as it stood at {moment.requested}: time {moment.time:g}, progress "
                f"{moment.progress:.3f}, {moment.n_prisms:,} of {moment.n_total:,} prisms",
                err=True)
+
+
+class StageProgress:
+    """The progress of a run on stderr: a line when a stage starts, its time when it ends,
+    and in between the progress within long stages (a ``progress(stage, done, seconds=None,
+    fraction=None)`` callback of :class:`sheetview.app.run.Run`): a bar redrawn in place
+    when stderr is a terminal, else (a log file) a line at each quarter."""
+
+    def __init__(self, stream=None):
+        import sys
+        self.stream = stream if stream is not None else sys.stderr
+        self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
+        self._bar = False
+        self._quarter = {}
+
+    def __call__(self, stage, done, seconds=None, fraction=None):
+        if fraction is not None:
+            self._within(stage, fraction)
+            return
+        self._clear()
+        if done:
+            click.echo(f"  {stage}: {seconds:.2f} s", err=True)
+        else:
+            click.echo(f"sheetview: {stage} ...", err=True)
+
+    def _within(self, stage, fraction):
+        if self.tty:
+            n = int(round(20 * fraction))
+            self.stream.write(f"\r  {stage} [{'#' * n}{'.' * (20 - n)}] {100 * fraction:3.0f}%")
+            self.stream.flush()
+            self._bar = True
+            return
+        q = int(4 * fraction)
+        if 0 < q < 4 and self._quarter.get(stage, 0) < q:
+            self._quarter[stage] = q
+            click.echo(f"  {stage}: {25 * q}%", err=True)
+
+    def _clear(self):
+        if self._bar:
+            self.stream.write("\r" + " " * 60 + "\r")
+            self.stream.flush()
+            self._bar = False

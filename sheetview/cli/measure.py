@@ -8,7 +8,7 @@ from ..app.document import file_document
 from ..app.registry import DEFAULT_WORD, check_inputs, names, select
 from ..app.run import Run
 from ..app.settings import Settings, fields_info
-from .common import at_options, dumps, echo_moment, load_input, read_options
+from .common import StageProgress, at_options, dumps, echo_moment, load_input, read_options
 from .conventions import command, force_option, json_option, output_option, quiet_option
 from ..measures.stacking import StackingSettings
 from ..report import check_folder, write_report
@@ -189,7 +189,7 @@ def measure(file, only, as_json, output, force, no_plots, quiet, at_progress, at
     echo_moment(moment, quiet)
     selected = select(only, obj)
     check_inputs(selected, obj, file)
-    progress = None if quiet else _progress  # on stderr: stdout keeps only the summary
+    progress = None if (quiet or as_json) else StageProgress()  # on stderr: stdout keeps only the summary
     run = Run(obj, settings, progress).run(selected)
     doc = summary_document(file, run)
     if moment is not None:
@@ -207,8 +207,3 @@ def measure(file, only, as_json, output, force, no_plots, quiet, at_progress, at
             click.echo(f"  report written to {outdir}")
 
 
-def _progress(stage, done, seconds=None):
-    if done:
-        click.echo(f"  {stage}: {seconds:.2f} s", err=True)
-    else:
-        click.echo(f"sheetview: {stage} ...", err=True)

@@ -10,7 +10,7 @@ from ..app.run import Run
 from ..app.settings import Settings
 from ..errors import OptionError
 from ..report import check_folder, write_report
-from .common import at_options, dumps, echo_moment, load_input, read_options
+from .common import StageProgress, at_options, dumps, echo_moment, load_input, read_options
 from .conventions import command, force_option, json_option, output_option, quiet_option
 
 #: What the numbers are (printed and kept in the JSON).
@@ -34,19 +34,6 @@ def _diffusivities(text):
                               f"(positive numbers), got {part!r}", param="diffusivity")
         out[name.strip()] = d
     return out
-
-
-def _progress_line(quiet):
-    if quiet:
-        return None
-    state = {"last": -1}
-
-    def tell(frac, message):
-        step = int(frac * 20)
-        if step != state["last"]:
-            state["last"] = step
-            click.echo(f"sheetview: {100 * frac:3.0f}% {message}", err=True)
-    return tell
 
 
 @command("waterwalk")
@@ -128,14 +115,12 @@ def waterwalk(file, voxel, pore_split, max_memory, n_walkers, seed, rho2, rho2_w
         check_folder(outdir, force)
     obj, moment = load_input(file, kw, at_progress, at_time)
     echo_moment(moment, quiet or as_json)
-    tell = _progress_line(quiet or as_json)
-    options = {"water_walk": {**opts, "progress": tell}}
+    options = {"water_walk": opts}
     if transport:
         options["transport"] = {k: v for k, v in opts.items()
                                 if k in ("diffusivity_nm2_per_us",)}
-        options["transport"]["progress"] = tell
     selected = ["water_walk"] + (["transport"] if transport else [])
-    stage = None if (quiet or as_json) else _stage
+    stage = None if (quiet or as_json) else StageProgress()  # hears the walks' progress too
     run = Run(obj, settings, stage, options=options).run(selected)
     doc = file_document(file, run)
     doc["caution"] = CAUTION
@@ -150,13 +135,6 @@ def waterwalk(file, voxel, pore_split, max_memory, n_walkers, seed, rho2, rho2_w
     _print(doc, run)
     if outdir is not None:
         click.echo(f"  report written to {outdir}")
-
-
-def _stage(stage, done, seconds=None):
-    if done:
-        click.echo(f"  {stage}: {seconds:.2f} s", err=True)
-    else:
-        click.echo(f"sheetview: {stage} ...", err=True)
 
 
 def _print(doc, run):
