@@ -276,25 +276,8 @@ def _prism_intervals(o, u, tlo, thi, line_ids, planes, glo, h, dims, start, item
         uy = u[i, 1]
         uz = u[i, 2]
         # clip [tlo, thi] to the grid box
-        tn = tlo[i]
-        tf = thi[i]
-        empty = False
-        for a in range(3):
-            oa = (ox, oy, oz)[a]
-            ua = (ux, uy, uz)[a]
-            lo = glo[a]
-            hi = glo[a] + dims[a] * h
-            if abs(ua) < 1e-300:
-                if oa < lo or oa > hi:
-                    empty = True
-            else:
-                ta = (lo - oa) / ua
-                tb = (hi - oa) / ua
-                if ta > tb:
-                    ta, tb = tb, ta
-                tn = max(tn, ta)
-                tf = min(tf, tb)
-        if empty or tn > tf:
+        tn, tf, inside = _clip_to_grid(ox, oy, oz, ux, uy, uz, tlo[i], thi[i], glo, h, dims)
+        if not inside:
             continue
         # DDA set-up
         ix, sx, tmx, tdx = _dda_axis(ox, ux, tn, glo[0], h, nx)
@@ -367,6 +350,28 @@ def _prism_intervals(o, u, tlo, thi, line_ids, planes, glo, h, dims, start, item
                 tmz += tdz
         out_l, out_s, out_e, no = _merge_append(bs, be, m, eps, line_ids[i], out_l, out_s, out_e, no)
     return out_l[:no], out_s[:no], out_e[:no]
+
+
+@numba.njit(cache=True, inline="always")
+def _clip_to_grid(ox, oy, oz, ux, uy, uz, tn, tf, glo, h, dims):
+    """Clip the parameter range [tn, tf] of the line o + t u to the grid box (slab method):
+    ``(tn, tf, inside)``, ``inside`` False when the line misses the box there."""
+    o = (ox, oy, oz)
+    u = (ux, uy, uz)
+    for a in range(3):
+        lo = glo[a]
+        hi = glo[a] + dims[a] * h
+        if abs(u[a]) < 1e-300:
+            if o[a] < lo or o[a] > hi:
+                return tn, tf, False
+        else:
+            ta = (lo - o[a]) / u[a]
+            tb = (hi - o[a]) / u[a]
+            if ta > tb:
+                ta, tb = tb, ta
+            tn = max(tn, ta)
+            tf = min(tf, tb)
+    return tn, tf, tn <= tf
 
 
 @numba.njit(cache=True, inline="always")
@@ -886,7 +891,7 @@ def _ellipsoid_intervals(o, u, tlo, thi, line_ids, cen, M, glo, h, dims, start, 
     out_l = np.empty(256, np.int64)
     out_s = np.empty(256)
     out_e = np.empty(256)
-    no = 0
+    no = np.int64(0)  # not a literal 0: one specialisation of _merge_append/push
     nx = dims[0]
     ny = dims[1]
     nz = dims[2]
@@ -899,25 +904,9 @@ def _ellipsoid_intervals(o, u, tlo, thi, line_ids, cen, M, glo, h, dims, start, 
         ux = u[i, 0]
         uy = u[i, 1]
         uz = u[i, 2]
-        tn = tlo[i]
-        tf = thi[i]
-        empty = False
-        for a in range(3):
-            oa = (ox, oy, oz)[a]
-            ua = (ux, uy, uz)[a]
-            lo = glo[a]
-            hi = glo[a] + dims[a] * h
-            if abs(ua) < 1e-300:
-                if oa < lo or oa > hi:
-                    empty = True
-            else:
-                ta = (lo - oa) / ua
-                tb = (hi - oa) / ua
-                if ta > tb:
-                    ta, tb = tb, ta
-                tn = max(tn, ta)
-                tf = min(tf, tb)
-        if empty or tn > tf:
+        # clip [tlo, thi] to the grid box
+        tn, tf, inside = _clip_to_grid(ox, oy, oz, ux, uy, uz, tlo[i], thi[i], glo, h, dims)
+        if not inside:
             continue
         ix, sx, tmx, tdx = _dda_axis(ox, ux, tn, glo[0], h, nx)
         iy, sy, tmy, tdy = _dda_axis(oy, uy, tn, glo[1], h, ny)
