@@ -1886,6 +1886,27 @@ def _wall_primitives(body, periodic_box, margin):
             np.ascontiguousarray(half), bmin, bmax)
 
 
+def _lattice_cap(d2, cand, zc, unit, rel, periodic, hmax):
+    """Largest radius (nm) a ball centred at ``cand + zc`` (zc in nm) can have with the
+    walls the voxels show: the distance from the voxel nearest that centre to its nearest
+    wall voxel centre, plus the centre's distance to that voxel (at most half a voxel
+    diagonal), plus half a voxel of rasterization (wall voxels lie inside the geometry or
+    outside the domain up to that). A wall the primitive gathering missed (primitives are
+    gathered about the candidate, a moved ball reaches farther) cannot leave a ball larger
+    than this."""
+    shape = np.asarray(d2.shape)
+    idx = np.stack(np.unravel_index(cand, d2.shape), axis=1).astype(np.float64)
+    pos = idx + zc / (unit * np.asarray(rel, np.float64))
+    v = np.rint(pos).astype(np.int64)
+    if periodic:
+        v %= shape
+    else:
+        v = np.clip(v, 0, shape - 1)
+    near = d2[v[:, 0], v[:, 1], v[:, 2]].astype(np.float64)
+    off = np.linalg.norm((pos - v) * np.asarray(rel, np.float64), axis=1) * unit
+    return unit * np.sqrt(near) + off + 0.5 * hmax
+
+
 def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None,
                           progress=None) -> np.ndarray:
     """Local thickness (nm) of the pore space of a grid rasterized from prisms or a closed
@@ -1981,6 +2002,7 @@ def exact_local_thickness(grid: PhaseGrid, body, phases=None, *, out=None,
     bad = ~(Dx > 0)
     if bad.any():
         Dx[bad] = 0.5 * unit * np.sqrt(rr_lat[bad].astype(np.float64))
+    np.minimum(A, _lattice_cap(d2, cand, zc, unit, rel, periodic, hmax), out=A)
     if out is None:
         out = d2
     _paint_refined(m, cand, (zc / unit).astype(np.float32),

@@ -282,3 +282,30 @@ def test_measure_pore_method_subvoxel_reaches_the_run():
     cen = sv.measure(g, only="pores").summary()["pore_size"]
     assert cen["d50_nm"] < sub["d50_nm"]
     assert sv.measure(g, only="pores").settings.pore_method == "centres"
+
+
+def test_exact_path_agrees_with_the_voxel_path_on_the_sample():
+    """The bundled invented sample (7,506 prisms lining a 40 nm sphere) at 0.3 nm: the
+    exact-geometry local thickness and the voxel one ('centres') are two discretisations of
+    one definition (Hildebrand & Rüegsegger 1997), so their volume-weighted medians agree
+    within 5 % and no exact value exceeds the largest ball of the voxel pore space
+    (2 x the largest distance to a wall voxel, edt) by more than a voxel. Before the
+    lattice cap, balls whose centres the refinement had moved far from their candidate
+    missed walls the primitive gathering had not listed: median 9.9 against 8.8 nm here,
+    14.4 against 8.6 nm at 0.2 nm."""
+    import edt as edt_lib
+
+    import sheetview as sv
+    from sheetview.app.run import Run
+    from sheetview.app.settings import Settings
+    from sheetview.grid import INTERLAYER
+    from sheetview.measures.pores import exact_local_thickness, local_thickness
+    s = sv.read("sample_structures/wall_stacks_sphere40.npz")
+    g = Run(s, Settings(voxel=0.3)).base_grid
+    codes = [c for c in g.names if c not in (OUTSIDE, SOLID, INTERLAYER)]
+    m = np.isin(g.labels, codes)
+    ex = exact_local_thickness(g, s, codes)[m]
+    vx = local_thickness(m, g.spacing, method="centres")[m]
+    assert np.median(ex) == pytest.approx(np.median(vx), rel=0.05)
+    bound = 2 * edt_lib.edt(m, anisotropy=g.spacing).max()
+    assert ex.max() <= bound + g.spacing[0]
