@@ -691,6 +691,41 @@ def _with_path(e, source):
     return e
 
 
+def domain_frame(dom, voxel_size, default_voxel, max_memory=None, src=None):
+    """The labels of a closed body's or a particle packing's grid before its solid is
+    marked: ``(labels, voxel, spacing, origin, default)``, GEL inside the domain and
+    OUTSIDE elsewhere. ``voxel_size`` None takes ``default_voxel()`` (``(voxel, rule)``),
+    coarsened to fit ``max_memory`` and at most the domain's smallest extent (``default``
+    then says so, else None); a given voxel is checked against the same range. Refusals
+    name ``src``."""
+    lo, hi = (np.asarray(b, dtype=float) for b in dom.bounds)
+    default = None
+    try:
+        if voxel_size is None:
+            v0, rule = default_voxel()
+            v, note = fit_default_voxel(dom, min(v0, float(np.min(hi - lo))), max_memory)
+            default = {"rule": rule, "note": note}
+        else:
+            try:
+                v = float(voxel_size)
+            except (TypeError, ValueError):
+                v = float("nan")
+            if not math.isfinite(v) or v < MIN_VOXEL_NM or v > float(np.min(hi - lo)):
+                raise OptionError(f"--voxel {str(voxel_size)[:40]} nm must lie between "
+                                  f"{MIN_VOXEL_NM} nm and the domain's smallest extent "
+                                  f"({float(np.min(hi - lo)):.4g} nm)", path=src)
+        shape, spacing, origin = grid_geometry(dom, v)
+        check_memory(dom, v, shape, max_memory, path=src)
+    except SheetviewError as e:
+        raise _with_path(e, src) from None
+    _check_grid(shape, spacing, origin, src)
+    labels = np.empty(shape, dtype=np.uint8)
+    if not _fill_domain(labels, dom, spacing, origin):
+        raise OptionError("the domain contains no voxel centre at this voxel size; use a finer "
+                          "--voxel", path=src)
+    return labels, v, spacing, origin, default
+
+
 def rasterize(structure, voxel_size=None, *, supersample: int = 1, max_memory=None,
               out=None) -> PhaseGrid:
     """Label the voxels of the domain's grid as SOLID (inside a prism), GEL or OUTSIDE.
@@ -917,31 +952,9 @@ def rasterize_body(body, voxel_size=None, *, max_memory=None) -> PhaseGrid:
     if faces.size and (faces.min() < 0 or faces.max() >= len(verts)):
         raise InputError("a face of the surface refers to a vertex that does not exist",
                          path=src)
-    lo, hi = (np.asarray(b, dtype=float) for b in dom.bounds)
-    default = None
-    try:
-        if voxel_size is None:
-            v0, rule = default_body_voxel_size(body)
-            v, note = fit_default_voxel(dom, min(v0, float(np.min(hi - lo))), max_memory)
-            default = {"rule": rule, "note": note}
-        else:
-            try:
-                v = float(voxel_size)
-            except (TypeError, ValueError):
-                v = float("nan")
-            if not math.isfinite(v) or v < MIN_VOXEL_NM or v > float(np.min(hi - lo)):
-                raise OptionError(f"--voxel {str(voxel_size)[:40]} nm must lie between "
-                                  f"{MIN_VOXEL_NM} nm and the domain's smallest extent "
-                                  f"({float(np.min(hi - lo)):.4g} nm)", path=src)
-        shape, spacing, origin = grid_geometry(dom, v)
-        check_memory(dom, v, shape, max_memory, path=src)
-    except SheetviewError as e:
-        raise _with_path(e, src) from None
-    _check_grid(shape, spacing, origin, src)
-    labels = np.empty(shape, dtype=np.uint8)
-    if not _fill_domain(labels, dom, spacing, origin):
-        raise OptionError("the domain contains no voxel centre at this voxel size; use a finer "
-                          "--voxel", path=src)
+    labels, v, spacing, origin, default = domain_frame(
+        dom, voxel_size, lambda: default_body_voxel_size(body), max_memory, src)
+    shape = labels.shape
     tri = np.ascontiguousarray(verts[faces], dtype=np.float64)
     org = np.asarray(origin, dtype=np.float64)
     sp = np.asarray(spacing, dtype=np.float64)

@@ -29,9 +29,9 @@ import numba
 import numpy as np
 
 from .domain import MAX_LENGTH_NM, Box, Domain, Sphere, bounding_box
-from .errors import InputError, OptionError, SheetviewError
-from .grid import (GEL, MIN_VOXEL_NM, OUTSIDE, SOLID, PhaseGrid, check_domain_for_grid,
-                   check_memory, default_body_voxel_size, fit_default_voxel, grid_geometry)
+from .errors import InputError, OptionError
+from .grid import (MIN_VOXEL_NM, OUTSIDE, SOLID, PhaseGrid, check_domain_for_grid,
+                   default_body_voxel_size, domain_frame)
 from .structure import DEFAULT_SPACING_NM, Structure
 
 #: Default sheet thickness (nm) of a layered particle: half the 1.4 nm repeat, the
@@ -364,24 +364,6 @@ def _mark_ellipsoids(cen, M, half, org, sp, full, periodic, out, value, keep):
                         out[ii, jj, kk] = value
 
 
-def _fill_domain(labels, domain, spacing, origin) -> bool:
-    """GEL inside the domain (voxel centres), OUTSIDE elsewhere; whether any is inside."""
-    if isinstance(domain, Sphere):
-        c = np.asarray(domain.center, dtype=float)
-        r2 = float(domain.radius) ** 2
-        x, y, z = (origin[a] + (np.arange(labels.shape[a]) + 0.5) * spacing[a] for a in range(3))
-        yz = (y - c[1])[:, None] ** 2 + (z - c[2])[None, :] ** 2
-        tmp = np.empty(yz.shape, dtype=bool)
-        any_in = False
-        for i in range(labels.shape[0]):
-            np.less_equal(yz, r2 - (x[i] - c[0]) ** 2, out=tmp)
-            np.multiply(tmp, np.uint8(GEL), out=labels[i], casting="unsafe")
-            any_in = any_in or bool(tmp.any())
-        return any_in
-    labels.fill(GEL)
-    return labels.size > 0
-
-
 def default_voxel_size(particles: ParticleSet) -> tuple[float, str]:
     """Default voxel edge (nm) and its rule: the rule of closed bodies
     (:func:`sheetview.grid.default_body_voxel_size`: the thinner of the solid and pore mean
@@ -411,32 +393,9 @@ def rasterize_particles(particles: ParticleSet, voxel_size=None, *, max_memory=N
         raise OptionError("the table holds no particles: nothing to rasterize", path=src)
     dom = particles.domain
     check_domain_for_grid(dom, src)
-    lo, hi = (np.asarray(b, dtype=float) for b in dom.bounds)
-    default = None
-    try:
-        if voxel_size is None:
-            v0, rule = default_voxel_size(particles)
-            v, note = fit_default_voxel(dom, min(v0, float(np.min(hi - lo))), max_memory)
-            default = {"rule": rule, "note": note}
-        else:
-            try:
-                v = float(voxel_size)
-            except (TypeError, ValueError):
-                v = float("nan")
-            if not math.isfinite(v) or v < MIN_VOXEL_NM or v > float(np.min(hi - lo)):
-                raise OptionError(f"--voxel {str(voxel_size)[:40]} nm must lie between "
-                                  f"{MIN_VOXEL_NM} nm and the domain's smallest extent "
-                                  f"({float(np.min(hi - lo)):.4g} nm)", path=src)
-        shape, spacing, origin = grid_geometry(dom, v)
-        check_memory(dom, v, shape, max_memory, path=src)
-    except SheetviewError as e:
-        if e.path is None and src is not None:
-            raise type(e)(e.detail, path=src, line=e.line, field=e.field) from None
-        raise
-    labels = np.empty(shape, dtype=np.uint8)
-    if not _fill_domain(labels, dom, spacing, origin):
-        raise OptionError("the domain contains no voxel centre at this voxel size; use a finer "
-                          "--voxel", path=src)
+    labels, v, spacing, origin, default = domain_frame(
+        dom, voxel_size, lambda: default_voxel_size(particles), max_memory, src)
+    shape = labels.shape
     periodic = bool(getattr(dom, "periodic", False))
     if periodic and np.any(particles.half_extents > dom.lengths):
         raise OptionError("a particle is wider than twice the periodic box along some axis: "
