@@ -41,7 +41,7 @@ from ..particles import (DEFAULT_SEGMENTS, DEFAULT_SHEET_THICKNESS_NM, OUTLINES,
 from ..structure import DEFAULT_SPACING_NM
 from .output import atomic_path
 from .prisms import (CONTENT_KEY, CORNER_COLUMNS, CSV_READ_FACTOR, content_hash, npz_inventory,
-                     unit_factor)
+                     split_csv_header, unit_factor)
 from .safety import check_read_memory, finite_number, load_json
 
 FORMAT_VERSION = 1
@@ -62,7 +62,6 @@ RESERVED_KEYS = {"units", "domain", "spacing", "thickness", "outline", "segments
 LENGTHS = {"x", "y", "z", "radius", "a", "b", "c"}
 
 _MAGIC_RE = re.compile(r"^#\s*sheetview particles v(\d+)\s*$")
-_HEADER_RE = re.compile(r"^#\s*([A-Za-z_][\w\-]*)\s*:\s*(.*?)\s*$")
 
 
 # ------------------------------------------------------------------------- sniffing
@@ -103,32 +102,6 @@ def is_particle_table(path) -> bool:
     if names and Path(path).suffix.lower() == ".npz" and "header" not in names:
         return False  # not a sheetview table at all: the prism reader says what it needs
     return bool(names) and ("#particles" in names or bool(MARKERS & set(names)))
-
-
-# --------------------------------------------------------------------------- header
-def _parse_header(lines, path):
-    header, where = {}, {}
-    for lineno, raw in lines:
-        m = _MAGIC_RE.match(raw)
-        if m:
-            if int(m.group(1)) > FORMAT_VERSION:
-                raise InputError(f"particle table version {m.group(1)} is newer than this "
-                                 f"sheetview reads (v{FORMAT_VERSION}); update sheetview",
-                                 path=path, line=lineno)
-            continue
-        m = _HEADER_RE.match(raw)
-        if not m:
-            continue
-        key, value = m.group(1), m.group(2)
-        try:
-            header[key] = load_json(value, path=path, line=lineno, field=key, what="header value")
-        except InputError as e:
-            if key in RESERVED_KEYS:
-                raise InputError(f"{e.detail}; write it as `# {key}: <JSON value>`", path=path,
-                                 line=lineno, field=key) from None
-            header[key] = value
-        where[key] = lineno
-    return header, where
 
 
 def kind_of_columns(names, path, line=None) -> str:
@@ -322,30 +295,9 @@ def read_csv(path, *, thickness=None, spacing=None, units=None):
         raw = path.read_bytes()
     except OSError as e:
         raise InputError(f"cannot read: {e.strerror}", path=path) from None
-    try:
-        text_head = raw[:1 << 20].decode("utf-8", "strict")
-    except UnicodeDecodeError:
-        try:
-            text_head = raw[:(1 << 20) - 3].decode("utf-8")
-        except UnicodeDecodeError:
-            raise InputError("not a text file (not UTF-8); expected a CSV particle table",
-                             path=path) from None
-    header_lines, pos, lineno = [], 0, 0
-    for line in io.StringIO(text_head):
-        s = line.strip()
-        if s.startswith("#") or not s:
-            lineno += 1
-            header_lines.append((lineno, s))
-            pos += len(line.encode("utf-8"))
-            continue
-        break
-    header, where = _parse_header(header_lines, path)
-    column_line = lineno + 1
-    body = raw[pos:]
-    if not body.strip():
-        raise InputError("no column line and no rows after the header", path=path)
-    first = body.split(b"\n", 1)[0].decode("utf-8", "replace").strip().lstrip("\ufeff")
-    names = [c.strip() for c in first.split(",")]
+    header, where, column_line, body, names = split_csv_header(
+        raw, path, what="particle table", magic=_MAGIC_RE, version=FORMAT_VERSION,
+        reserved=RESERVED_KEYS)
     kind_of_columns(names, path, column_line)
     try:
         table = pcsv.read_csv(

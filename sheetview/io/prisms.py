@@ -66,35 +66,65 @@ _HEADER_RE = re.compile(r"^#\s*([A-Za-z_][\w\-]*)\s*:\s*(.*?)\s*$")
 _MAGIC_RE = re.compile(r"^#\s*sheetview prisms v(\d+)\s*$")
 
 
-def _parse_header(lines, path):
-    """Parse ``# key: JSON`` lines. Returns (header dict, {key: line number})."""
+def parse_header(lines, path, *, magic=_MAGIC_RE, version=FORMAT_VERSION,
+                 reserved=RESERVED_KEYS, what="prism table"):
+    """Parse ``# key: JSON`` lines of a table's header (``(line number, text)`` pairs).
+    Returns (header dict, {key: line number}). ``magic`` matches the format line (its
+    group 1 the version, refused when newer than ``version``); a value that is not JSON is
+    kept as text, except for the ``reserved`` keys, which are refused."""
     header, where = {}, {}
     for lineno, raw in lines:
-        m = _MAGIC_RE.match(raw)
+        m = magic.match(raw)
         if m:
-            version = int(m.group(1))
-            if version > FORMAT_VERSION:
-                raise InputError(f"prism table version {version} is newer than this sheetview "
-                                 f"reads (v{FORMAT_VERSION}); update sheetview", path=path, line=lineno)
-            continue
-        body = raw.lstrip("#").strip()
-        if not body:
+            if int(m.group(1)) > version:
+                raise InputError(f"{what} version {m.group(1)} is newer than this sheetview "
+                                 f"reads (v{version}); update sheetview", path=path, line=lineno)
             continue
         m = _HEADER_RE.match(raw)
         if not m:
-            # a free comment line; keep going
-            continue
+            continue  # a free comment line
         key, value = m.group(1), m.group(2)
         try:
             header[key] = load_json(value, path=path, line=lineno, field=key,
                                     what="header value")
         except InputError as e:
-            if key in RESERVED_KEYS:
+            if key in reserved:
                 raise InputError(f"{e.detail}; write it as `# {key}: <JSON value>`", path=path,
                                  line=lineno, field=key) from None
             header[key] = value  # free text metadata
         where[key] = lineno
     return header, where
+
+
+def split_csv_header(raw: bytes, path, *, what="prism table", **header_kw):
+    """The parts of a CSV table's bytes: ``(header, where, column_line, body, names)``: the
+    parsed ``#`` header block (:func:`parse_header`; leading ``#`` and blank lines), the line
+    number of the column line, the bytes from the column line on, and the column names.
+    Refuses text that is not UTF-8 and a file with no column line, naming the file."""
+    try:
+        text_head = raw[:1 << 20].decode("utf-8")
+    except UnicodeDecodeError:
+        try:  # a multi-byte character cut at the 1 MiB boundary
+            text_head = raw[:(1 << 20) - 3].decode("utf-8")
+        except UnicodeDecodeError:
+            raise InputError(f"not a text file (not UTF-8); expected a CSV {what}",
+                             path=path) from None
+    header_lines, pos, lineno = [], 0, 0
+    for line in io.StringIO(text_head):
+        stripped = line.strip()
+        if stripped.startswith("#") or not stripped:
+            lineno += 1
+            header_lines.append((lineno, stripped))
+            pos += len(line.encode("utf-8"))
+            continue
+        break
+    header, where = parse_header(header_lines, path, what=what, **header_kw)
+    body = raw[pos:]
+    if not body.strip():
+        raise InputError("no column line and no rows after the header", path=path)
+    first = body.split(b"\n", 1)[0].decode("utf-8", "replace").strip().lstrip("\ufeff")
+    names = [c.strip() for c in first.split(",")]
+    return header, where, lineno + 1, body, names
 
 
 def _header_number(header, where, key, path, positive=True):
@@ -233,32 +263,7 @@ def read_csv(path, *, thickness=None, spacing=None, units=None) -> Structure:
         raise InputError(f"cannot read: {e.strerror}", path=path) from None
     if not raw.strip():
         raise InputError("file is empty; expected a prism table (see docs/formats.md)", path=path)
-    try:
-        text_head = raw[:1 << 20].decode("utf-8")
-    except UnicodeDecodeError:
-        try:
-            raw[:(1 << 20) - 3].decode("utf-8")
-            text_head = raw[:(1 << 20) - 3].decode("utf-8")
-        except UnicodeDecodeError:
-            raise InputError("not a text file (not UTF-8); expected a CSV prism table",
-                             path=path) from None
-    # header block: leading lines beginning with '#' (and blank lines)
-    header_lines, pos, lineno = [], 0, 0
-    for line in io.StringIO(text_head):
-        stripped = line.strip()
-        if stripped.startswith("#") or not stripped:
-            lineno += 1
-            header_lines.append((lineno, stripped))
-            pos += len(line.encode("utf-8"))
-            continue
-        break
-    header, where = _parse_header(header_lines, path)
-    column_line = lineno + 1
-    body = raw[pos:]
-    if not body.strip():
-        raise InputError("no column line and no rows after the header", path=path)
-    first = body.split(b"\n", 1)[0].decode("utf-8", "replace").strip().lstrip("\ufeff")
-    names = [c.strip() for c in first.split(",")]
+    header, where, column_line, body, names = split_csv_header(raw, path)
     _check_columns(names, path, column_line)
     types = {n: pa.float64() for n in names}
     try:
